@@ -1,0 +1,49 @@
+"""Error and warning classes of gasledger.
+
+Every error subclasses both :class:`GasledgerError` and the standard exception
+type that fits it, so callers can catch either.  Messages name the file, the
+config key or the header card, what was found and what was expected.
+"""
+
+__all__ = [
+    "GasledgerError",
+    "ConfigError",
+    "CubeError",
+    "EphemerisError",
+    "CatalogueError",
+    "CoverageError",
+    "GasledgerWarning",
+    "NoiseWarning",
+]
+
+
+class GasledgerError(Exception):
+    """Base class of every error raised by gasledger."""
+
+
+class ConfigError(GasledgerError, ValueError):
+    """A campaign configuration key has a wrong, missing or unknown value."""
+
+
+class CubeError(GasledgerError, ValueError):
+    """A cube file cannot be used: bad FITS, missing or contradictory header cards."""
+
+
+class EphemerisError(GasledgerError, ValueError):
+    """An ephemeris table or set of orbital elements cannot give the geometry asked for."""
+
+
+class CatalogueError(GasledgerError, ValueError):
+    """The molecular catalogue lacks a species, line or column that is needed."""
+
+
+class CoverageError(GasledgerError, ValueError):
+    """A line, window or aperture asked for is not covered by the data."""
+
+
+class GasledgerWarning(UserWarning):
+    """Base class of gasledger's warnings: a soft problem the user should know about."""
+
+
+class NoiseWarning(GasledgerWarning):
+    """The noise estimate rests on fewer samples than it should."""
