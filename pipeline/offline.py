@@ -63,7 +63,7 @@ def future_time_tolerated():
             continue
         others.append(w)
     if len(caught) > len(others) and not _logged:
-        log.warning(
+        log.info(
             "dates lie beyond astropy's bundled leap-second/IERS tables: UT1 and polar "
             "motion use predictions or means (arcsecond-level, <1 m/s in velocity)"
         )

@@ -1,0 +1,39 @@
+# gasledger: two commands.
+#   make demo   - install, generate the invented demo campaign, run the workflow, print the report path
+#   make test   - install and run the test suite
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+CORES ?= 2
+DEMO_DATA := demo_data
+
+.PHONY: demo test install clean-demo lint
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+
+$(STAMP): pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+install: $(STAMP)
+
+$(DEMO_DATA)/campaign.yaml: $(STAMP) synthetic_cubes/scenario.py synthetic_cubes/generate.py
+	$(BIN)/python -m synthetic_cubes $(DEMO_DATA)
+
+demo: $(DEMO_DATA)/campaign.yaml
+	$(BIN)/snakemake --cores $(CORES) --configfile config/config.yaml --rerun-triggers mtime params input code
+	@echo
+	@echo "Report: $(CURDIR)/results/demo/report.html"
+	@echo "Tables: results/demo/limits.ecsv results/demo/budget.ecsv results/demo/budget.json"
+
+test: $(STAMP)
+	$(BIN)/python -m pytest
+
+lint: $(STAMP)
+	$(BIN)/snakemake --lint --configfile config/config.yaml
+
+clean-demo:
+	rm -rf results/demo $(DEMO_DATA)

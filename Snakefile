@@ -1,0 +1,29 @@
+# gasledger: raw line cubes -> production rates and limits -> mass budget -> report.
+# Run with:  snakemake --cores 2 --configfile config/config.yaml
+from snakemake.utils import min_version
+
+min_version("8.20")
+
+
+# The demo campaign is the default; a --configfile replaces it whole (no merging of two campaigns).
+if not config:
+
+    configfile: "config/config.yaml"
+
+
+report: "report/workflow.rst"
+
+
+include: "rules/common.smk"
+include: "rules/geometry.smk"
+include: "rules/comoving.smk"
+include: "rules/extract.smk"
+include: "rules/stack.smk"
+include: "rules/limits.smk"
+include: "rules/budget.smk"
+include: "rules/report.smk"
+
+
+rule all:
+    input:
+        final_outputs(),

@@ -1,0 +1,65 @@
+"""Atomic output writing: every file appears under its final name complete, or not at all.
+
+Each writer writes to a temporary name in the destination folder, flushes it to
+disk and renames it over the final name (``os.replace`` is atomic on POSIX), so
+a killed run never leaves a half-written file where a finished one is expected.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any, Iterator
+
+from astropy.io import fits
+from astropy.table import Table
+
+__all__ = ["atomic_path", "write_table", "write_fits", "write_text", "write_json"]
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | Path) -> Iterator[Path]:
+    """Yield a temporary path next to ``path``; rename it to ``path`` on success.
+
+    On any exception the temporary file is removed and ``path`` is untouched.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    os.close(fd)
+    tmp_path = Path(tmp)
+    try:
+        yield tmp_path
+        with open(tmp_path, "rb+") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp_path, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            tmp_path.unlink()
+        raise
+
+
+def write_table(table: Table, path: str | Path) -> None:
+    """Write an astropy table as ECSV (units and metadata kept), atomically."""
+    with atomic_path(path) as tmp:
+        table.write(tmp, format="ascii.ecsv", overwrite=True)
+
+
+def write_fits(hdul: fits.HDUList, path: str | Path) -> None:
+    """Write a FITS HDU list atomically (with checksums in every HDU)."""
+    with atomic_path(path) as tmp:
+        hdul.writeto(tmp, overwrite=True, checksum=True)
+
+
+def write_text(text: str, path: str | Path) -> None:
+    """Write a text file atomically (UTF-8)."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+
+
+def write_json(obj: Any, path: str | Path) -> None:
+    """Write JSON atomically, keys sorted so identical inputs give identical bytes."""
+    write_text(json.dumps(obj, indent=2, sort_keys=True, default=str) + "\n", path)

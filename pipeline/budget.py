@@ -1,0 +1,177 @@
+"""The mass budget: what the measured push demands of the gas, against what the gas limits allow.
+
+For every driver species and epoch group, the production rate the push needs
+(momentum balance M a = ζ Ṁ v_ej, all mass loss in that one species) is set
+against the measured upper limit, over the nucleus-mass range. A driver with no
+measurement is reported as 'not observed', never as excluded.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.table import QTable
+
+from .catalogue import Catalogue
+from .haser import outflow_speed_law
+from .mass_budget import (LATENT_HEAT, max_bulk_density, max_nucleus_mass, nongrav_acceleration, nucleus_mass,
+                          required_mass_loss_rate, required_production_rate, rocket_mass_fraction,
+                          sublimation_area_required)
+
+__all__ = ["BudgetAssumptions", "assumptions_from_config", "acceleration_at", "ejection_speed_at",
+           "budget_table", "rocket_fraction", "VERDICTS"]
+
+VERDICTS = ("not observed", "excluded for every mass in the range", "excluded above the allowed mass",
+            "not excluded")
+
+
+@dataclass(frozen=True)
+class BudgetAssumptions:
+    """Every assumption the budget rests on, with its value."""
+
+    acceleration: tuple[float, float] | None     # m/s^2: value, sigma
+    nongrav: dict | None                         # A1, A2, A3 in au/d^2
+    radius_km: tuple[float, float] | None
+    density_kg_m3: tuple[float, float] | None
+    mass_kg: tuple[float, float]
+    ejection: str | float                        # 'law' or km/s
+    efficiency: float
+    interval_days: float
+    drivers: tuple[str, ...]
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain mapping for JSON and the report."""
+        return {"acceleration_m_s2": self.acceleration, "nongrav_au_d2": self.nongrav,
+                "nucleus_radius_km": self.radius_km, "bulk_density_kg_m3": self.density_kg_m3,
+                "nucleus_mass_kg": self.mass_kg, "ejection_speed_km_s": self.ejection,
+                "momentum_efficiency": self.efficiency, "interval_days": self.interval_days,
+                "drivers": list(self.drivers),
+                "momentum_balance": "M a = zeta Mdot v_ej, all mass loss in one species at a time",
+                "sublimation": "energy-limited, all absorbed sunlight pays the latent heat (no re-radiation)"}
+
+
+def assumptions_from_config(budget: dict[str, Any]) -> BudgetAssumptions:
+    """Collect the budget assumptions from the config's ``budget`` section."""
+    nucleus = budget["nucleus"]
+    if "mass_kg" in nucleus:
+        mass = tuple(float(m) for m in nucleus["mass_kg"])
+        radius = density = None
+    else:
+        radius = tuple(float(r) for r in nucleus["radius_km"])
+        density = tuple(float(d) for d in nucleus["density_kg_m3"])
+        mass = (float(nucleus_mass(radius[0] * u.km, density[0] * u.kg / u.m**3).to_value(u.kg)),
+                float(nucleus_mass(radius[1] * u.km, density[1] * u.kg / u.m**3).to_value(u.kg)))
+    acc = tuple(float(a) for a in budget["acceleration_m_s2"]) if "acceleration_m_s2" in budget else None
+    return BudgetAssumptions(acceleration=acc, nongrav=budget.get("nongrav"), radius_km=radius,
+                             density_kg_m3=density, mass_kg=(min(mass), max(mass)),
+                             ejection=budget["ejection_speed_km_s"], efficiency=float(budget["momentum_efficiency"]),
+                             interval_days=float(budget["interval_days"]), drivers=tuple(budget["drivers"]))
+
+
+def acceleration_at(assume: BudgetAssumptions, r_h: u.Quantity) -> tuple[u.Quantity, u.Quantity]:
+    """Acceleration magnitude and its error at heliocentric distance ``r_h``."""
+    if assume.acceleration is not None:
+        return assume.acceleration[0] * u.m / u.s**2, assume.acceleration[1] * u.m / u.s**2
+    ng = assume.nongrav
+    if ng is None:
+        msg = "budget: give acceleration_m_s2 or nongrav"
+        raise ValueError(msg)
+    unit = u.au / u.day**2
+    a = nongrav_acceleration(ng["A1"] * unit, ng["A2"] * unit, ng["A3"] * unit, u.Quantity(r_h, u.au))
+    return a.to(u.m / u.s**2), 0 * u.m / u.s**2
+
+
+def ejection_speed_at(assume: BudgetAssumptions, r_h: u.Quantity) -> u.Quantity:
+    """Gas ejection speed: the configured value or the outflow law at ``r_h``."""
+    if assume.ejection == "law":
+        return outflow_speed_law(u.Quantity(r_h, u.au)).to(u.km / u.s)
+    return float(assume.ejection) * u.km / u.s
+
+
+def _verdict(q_upper: float, m_allowed: float, m_min: float, m_max: float) -> str:
+    if not np.isfinite(q_upper):
+        return VERDICTS[0]
+    if m_allowed < m_min:
+        return VERDICTS[1]
+    if m_allowed < m_max:
+        return VERDICTS[2]
+    return VERDICTS[3]
+
+
+def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: BudgetAssumptions,
+                 catalogue: Catalogue) -> QTable:
+    """One row per driver species and epoch group: required Q, limit, ratios, allowed mass, verdict.
+
+    Parameters
+    ----------
+    limits : QTable
+        The limits table (columns of :data:`pipeline.limits.LIMIT_COLUMNS`).
+    epoch_rh : dict
+        Heliocentric distance of each epoch group, including ``'all'``.
+    assume : BudgetAssumptions
+    catalogue : Catalogue
+        For the molecular masses.
+    """
+    measured = list(dict.fromkeys(str(s) for s in limits["species"]))
+    species = list(dict.fromkeys(list(assume.drivers) + measured))
+    m_min, m_max = (x * u.kg for x in assume.mass_kg)
+    rows = []
+    for name in species:
+        mol = catalogue.get_species(name).mass.to(u.kg)
+        for group, r_h in epoch_rh.items():
+            a, a_err = acceleration_at(assume, r_h)
+            v_ej = ejection_speed_at(assume, r_h)
+            mdot = required_mass_loss_rate(u.Quantity([m_min, m_max]), a, v_ej, assume.efficiency)
+            q_req = required_production_rate(mdot, mol).to_value(1 / u.s)
+            sel = limits[(limits["species"] == name) & (limits["epoch"] == group)]
+            if len(sel):
+                k = int(np.argmax(sel["q_upper"].to_value(1 / u.s)))
+                q_up = float(sel["q_upper"][k].to_value(1 / u.s))
+                t_best, ap_best = float(sel["t_kin_K"][k]), float(sel["aperture_km"][k].to_value(u.km))
+                m_allowed = float(max_nucleus_mass(q_up / u.s, mol, a, v_ej, assume.efficiency).to_value(u.kg)) \
+                    if a > 0 else np.inf
+                detected = bool(np.any(sel["detected"]))
+            else:
+                q_up = t_best = ap_best = m_allowed = np.nan
+                detected = False
+            rho_max = [np.nan, np.nan]
+            if assume.radius_km is not None and np.isfinite(m_allowed):
+                rho_max = [float(max_bulk_density(m_allowed * u.kg, r * u.km).to_value(u.kg / u.m**3))
+                           for r in assume.radius_km]
+            area_ratio = [np.nan, np.nan]
+            if name in LATENT_HEAT and assume.radius_km is not None:
+                need = sublimation_area_required(mdot, u.Quantity(r_h, u.au), LATENT_HEAT[name])
+                cross = np.pi * (u.Quantity(assume.radius_km, u.km)) ** 2
+                area_ratio = list((need / cross).decompose().value)
+            rows.append({
+                "species": name, "epoch": group, "r_h": float(u.Quantity(r_h, u.au).value),
+                "acceleration": a.to_value(u.m / u.s**2), "acceleration_err": a_err.to_value(u.m / u.s**2),
+                "ejection_speed": v_ej.to_value(u.km / u.s),
+                "mdot_required_min": mdot[0].to_value(u.kg / u.s), "mdot_required_max": mdot[1].to_value(u.kg / u.s),
+                "q_required_min": q_req[0], "q_required_max": q_req[1], "q_upper": q_up,
+                "t_kin_K": t_best, "aperture_km": ap_best, "detected": detected,
+                "ratio_min": q_req[0] / q_up if np.isfinite(q_up) else np.nan,
+                "ratio_max": q_req[1] / q_up if np.isfinite(q_up) else np.nan,
+                "mass_allowed": m_allowed, "density_allowed_rmin": rho_max[0], "density_allowed_rmax": rho_max[1],
+                "sunlit_area_ratio_min": area_ratio[0], "sunlit_area_ratio_max": area_ratio[1],
+                "verdict": _verdict(q_up, m_allowed, m_min.value, m_max.value),
+            })
+    table = QTable(rows=rows)
+    units = {"r_h": u.au, "acceleration": u.m / u.s**2, "acceleration_err": u.m / u.s**2,
+             "ejection_speed": u.km / u.s, "mdot_required_min": u.kg / u.s, "mdot_required_max": u.kg / u.s,
+             "q_required_min": 1 / u.s, "q_required_max": 1 / u.s, "q_upper": 1 / u.s, "aperture_km": u.km,
+             "mass_allowed": u.kg, "density_allowed_rmin": u.kg / u.m**3, "density_allowed_rmax": u.kg / u.m**3}
+    for name, unit in units.items():
+        table[name] = table[name] * unit
+    return table
+
+
+def rocket_fraction(assume: BudgetAssumptions, r_h: u.Quantity) -> float:
+    """Fraction of the nucleus mass spent over the interval (Tsiolkovsky), at ``r_h``."""
+    a, _ = acceleration_at(assume, r_h)
+    return float(rocket_mass_fraction(a, assume.interval_days * u.day, ejection_speed_at(assume, r_h),
+                                      assume.efficiency))
+

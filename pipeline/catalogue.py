@@ -1,0 +1,227 @@
+"""The molecular catalogue: species properties and millimetre lines.
+
+The built-in catalogue lives in ``pipeline/data/species.ecsv`` and
+``pipeline/data/lines.ecsv``; every value has a provenance column beside it.
+A user catalogue with the same columns can be given instead.
+
+Upper-level degeneracies and partition functions follow one convention (no
+nuclear-spin weights) so that the population fraction g_u exp(-E_u/kT)/Q(T)
+does not silently move by a spin-statistics factor.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import astropy.constants as const
+import astropy.units as u
+import numpy as np
+from astropy.table import QTable
+
+from .errors import CatalogueError
+
+__all__ = [
+    "Species",
+    "Line",
+    "Catalogue",
+    "load_catalogue",
+    "DEFAULT_SPECIES_FILE",
+    "DEFAULT_LINES_FILE",
+]
+
+_DATA = Path(__file__).parent / "data"
+DEFAULT_SPECIES_FILE = _DATA / "species.ecsv"
+DEFAULT_LINES_FILE = _DATA / "lines.ecsv"
+
+_SPECIES_COLUMNS = {
+    "species": None,
+    "mass": u.u,
+    "partition": None,
+    "rot_a": u.GHz,
+    "rot_b": u.GHz,
+    "rot_c": u.GHz,
+    "multiplicity": None,
+    "photo_quiet": 1 / u.s,
+    "photo_active": 1 / u.s,
+    "parent": None,
+}
+_LINE_COLUMNS = {
+    "line_id": None,
+    "species": None,
+    "transition": None,
+    "freq": u.GHz,
+    "a_ul": 1 / u.s,
+    "e_up": u.K,
+    "g_up": None,
+}
+_LINE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
+
+
+@dataclass(frozen=True)
+class Species:
+    """Properties of one molecule."""
+
+    name: str
+    mass: u.Quantity
+    partition: str
+    rot_a: u.Quantity
+    rot_b: u.Quantity
+    rot_c: u.Quantity
+    multiplicity: float
+    photo_quiet: u.Quantity
+    photo_active: u.Quantity
+    parent: str | None
+
+    def photo_rate(self, solar_activity: str) -> u.Quantity:
+        """Photodestruction rate at 1 au for ``'quiet'`` or ``'active'`` Sun."""
+        if solar_activity == "quiet":
+            return self.photo_quiet
+        if solar_activity == "active":
+            return self.photo_active
+        msg = f"solar_activity must be 'quiet' or 'active', found {solar_activity!r}"
+        raise CatalogueError(msg)
+
+    def partition_function(self, t_kin: u.Quantity) -> np.ndarray:
+        """Rotational partition function Q(T), with the catalogue's stated approximation.
+
+        Notes
+        -----
+        ``linear``: Q = m (kT/(hB) + 1/3), the high-temperature expansion of
+        the sum over (2J+1) exp(-hBJ(J+1)/kT) (e.g. Gordy & Cook, Microwave
+        Molecular Spectra, 1984). ``asymmetric``: the classical rigid-rotor
+        result Q = m sqrt(pi (kT/h)^3 / (ABC)) (same source). m is the
+        catalogue's multiplicity (torsional species counted, symmetry number).
+        """
+        temp = u.Quantity(t_kin, u.K).value
+        if np.any(~np.isfinite(temp)) or np.any(temp <= 0):
+            msg = f"t_kin must be positive and finite, found {t_kin!r}"
+            raise CatalogueError(msg)
+        kt_h = (const.k_B * temp * u.K / const.h).to_value(u.GHz)
+        if self.partition == "linear":
+            return self.multiplicity * (kt_h / self.rot_b.to_value(u.GHz) + 1.0 / 3.0)
+        if self.partition == "asymmetric":
+            abc = (self.rot_a * self.rot_b * self.rot_c).to_value(u.GHz**3)
+            return self.multiplicity * np.sqrt(np.pi * kt_h**3 / abc)
+        msg = (f"species {self.name!r}: column 'partition' must be 'linear' or "
+               f"'asymmetric', found {self.partition!r}")
+        raise CatalogueError(msg)
+
+
+@dataclass(frozen=True)
+class Line:
+    """One rotational transition."""
+
+    line_id: str
+    species: str
+    transition: str
+    freq: u.Quantity
+    a_ul: u.Quantity
+    e_up: u.Quantity
+    g_up: float
+
+
+@dataclass(frozen=True)
+class Catalogue:
+    """Species and lines, looked up by name."""
+
+    species: dict[str, Species]
+    lines: tuple[Line, ...]
+    source: tuple[str, str]
+
+    def get_species(self, name: str) -> Species:
+        """The species called ``name``; a clear error when it is not in the catalogue."""
+        try:
+            return self.species[name]
+        except KeyError:
+            known = ", ".join(sorted(self.species))
+            msg = (f"species {name!r} is not in the catalogue {self.source[0]}; "
+                   f"expected one of: {known}")
+            raise CatalogueError(msg) from None
+
+    def lines_of(self, name: str) -> tuple[Line, ...]:
+        """All lines of one species, ordered by frequency."""
+        self.get_species(name)
+        return tuple(sorted((ln for ln in self.lines if ln.species == name),
+                            key=lambda ln: ln.freq.to_value(u.GHz)))
+
+    def get_line(self, line_id: str) -> Line:
+        """The line with identifier ``line_id``."""
+        for ln in self.lines:
+            if ln.line_id == line_id:
+                return ln
+        msg = f"line {line_id!r} is not in the catalogue {self.source[1]}"
+        raise CatalogueError(msg)
+
+
+def _read(path: Path, columns: dict, what: str) -> QTable:
+    try:
+        table = QTable.read(path, format="ascii.ecsv")
+    except FileNotFoundError:
+        msg = f"{what} file {str(path)!r} does not exist"
+        raise CatalogueError(msg) from None
+    except Exception as exc:  # astropy raises several types for malformed ECSV
+        msg = f"{what} file {str(path)!r} is not a readable ECSV table: {exc}"
+        raise CatalogueError(msg) from exc
+    for name, unit in columns.items():
+        if name not in table.colnames:
+            msg = (f"{what} file {str(path)!r} has no column {name!r}; expected columns: "
+                   f"{', '.join(columns)}")
+            raise CatalogueError(msg)
+        if unit is not None:
+            col = table[name]
+            if not isinstance(col, u.Quantity) or not col.unit.is_equivalent(unit):
+                found = getattr(col, "unit", None)
+                msg = (f"{what} file {str(path)!r}: column {name!r} has unit {found}, "
+                       f"expected a unit convertible to {unit}")
+                raise CatalogueError(msg)
+    return table
+
+
+def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
+                   lines_file: str | Path = DEFAULT_LINES_FILE) -> Catalogue:
+    """Read and check a catalogue (species and line tables, ECSV).
+
+    Raises
+    ------
+    CatalogueError
+        When a file is missing, lacks a column, has a wrong unit, a duplicated
+        name, or a line of a species it does not define.
+    """
+    species_file, lines_file = Path(species_file), Path(lines_file)
+    st = _read(species_file, _SPECIES_COLUMNS, "species catalogue")
+    lt = _read(lines_file, _LINE_COLUMNS, "line catalogue")
+    species: dict[str, Species] = {}
+    for row in st:
+        name = str(row["species"])
+        if name in species:
+            msg = f"species catalogue {str(species_file)!r} lists {name!r} twice"
+            raise CatalogueError(msg)
+        parent = str(row["parent"])
+        species[name] = Species(
+            name=name, mass=u.Quantity(row["mass"], u.u), partition=str(row["partition"]),
+            rot_a=u.Quantity(row["rot_a"], u.GHz), rot_b=u.Quantity(row["rot_b"], u.GHz),
+            rot_c=u.Quantity(row["rot_c"], u.GHz), multiplicity=float(row["multiplicity"]),
+            photo_quiet=u.Quantity(row["photo_quiet"], 1 / u.s),
+            photo_active=u.Quantity(row["photo_active"], 1 / u.s),
+            parent=None if parent in ("-", "", "None") else parent,
+        )
+    lines = []
+    seen = set()
+    for row in lt:
+        line_id = str(row["line_id"])
+        if not _LINE_ID.match(line_id) or line_id in seen:
+            msg = (f"line catalogue {str(lines_file)!r}: line_id {line_id!r} is duplicated or "
+                   "not made of letters, digits and . _ + -")
+            raise CatalogueError(msg)
+        seen.add(line_id)
+        if str(row["species"]) not in species:
+            msg = (f"line catalogue {str(lines_file)!r}: line {line_id!r} belongs to species "
+                   f"{str(row['species'])!r}, which {str(species_file)!r} does not define")
+            raise CatalogueError(msg)
+        lines.append(Line(line_id=line_id, species=str(row["species"]),
+                          transition=str(row["transition"]),
+                          freq=u.Quantity(row["freq"], u.GHz), a_ul=u.Quantity(row["a_ul"], 1 / u.s),
+                          e_up=u.Quantity(row["e_up"], u.K), g_up=float(row["g_up"])))
+    return Catalogue(species=species, lines=tuple(lines), source=(str(species_file), str(lines_file)))

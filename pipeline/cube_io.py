@@ -1,0 +1,245 @@
+"""Reading spectral cubes: header checks, spectral axis, beam, time, and data access.
+
+Cubes are FITS images with two celestial axes and one spectral axis (a
+degenerate Stokes axis of length one is accepted and ignored). The data are
+read memory-mapped, one region at a time; the whole cube is never loaded.
+Inputs are opened read-only and never modified.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.time import Time
+from astropy.wcs import WCS, FITSFixedWarning
+from astropy.wcs.utils import proj_plane_pixel_scales
+
+from .errors import CubeError
+
+__all__ = [
+    "CubeInfo",
+    "read_cube_info",
+    "open_data",
+    "observation_times",
+    "SPECSYS_VALUES",
+]
+
+SPECSYS_VALUES = ("TOPOCENT", "GEOCENTR", "BARYCENT", "LSRK", "SOURCE")
+_SPECTRAL_CTYPES = ("FREQ", "VRAD")
+_BRIGHTNESS_UNITS = {
+    "JY/BEAM": u.Jy / u.beam,
+    "JY BEAM-1": u.Jy / u.beam,
+    "JY/PIXEL": u.Jy / u.pix,
+    "JY/PIX": u.Jy / u.pix,
+    "MJY/SR": u.MJy / u.sr,
+    "K": u.K,
+}
+
+
+@dataclass(frozen=True)
+class CubeInfo:
+    """What gasledger needs to know about a cube, read from its header only."""
+
+    path: Path
+    header: fits.Header
+    shape: tuple[int, int, int]          # (n_chan, n_y, n_x), numpy order
+    celestial_wcs: WCS
+    frequencies: u.Quantity              # observed frequency of each channel, as labelled
+    specsys: str
+    bunit: u.UnitBase
+    beam_major: u.Quantity | None        # FWHM
+    beam_minor: u.Quantity | None
+    beam_pa: u.Quantity | None
+    pixel_scale: u.Quantity              # geometric mean pixel side (angle)
+
+    @property
+    def channel_width(self) -> u.Quantity:
+        """Absolute frequency step between channels (the axis is linear)."""
+        return np.abs(self.frequencies[1] - self.frequencies[0])
+
+    def beam_solid_angle(self) -> u.Quantity:
+        """Solid angle of the Gaussian beam, pi/(4 ln 2) * BMAJ * BMIN."""
+        if self.beam_major is None:
+            msg = f"{self.path}: no beam (BMAJ/BMIN cards) in the header"
+            raise CubeError(msg)
+        return (np.pi / (4 * np.log(2)) * self.beam_major * self.beam_minor).to(u.sr)
+
+    def pixel_solid_angle(self) -> u.Quantity:
+        """Solid angle of one pixel (from the WCS pixel scales)."""
+        return (self.pixel_scale**2).to(u.sr)
+
+
+def _card(header: fits.Header, name: str, path: Path, expected: str):
+    if name not in header:
+        msg = f"{path}: header card {name} is missing; expected {expected}"
+        raise CubeError(msg)
+    return header[name]
+
+
+def _open_hdul(path: Path) -> fits.HDUList:
+    if not path.is_file():
+        msg = f"{path}: cube file does not exist"
+        raise CubeError(msg)
+    try:
+        hdul = fits.open(path, mode="readonly", memmap=True)
+        hdul[0].header  # noqa: B018 - force the header to be parsed
+    except (OSError, ValueError) as exc:
+        msg = f"{path}: not a readable FITS file ({exc}); expected a FITS cube"
+        raise CubeError(msg) from exc
+    return hdul
+
+
+def read_cube_info(path: str | Path) -> CubeInfo:
+    """Read and check a cube's header.
+
+    Raises
+    ------
+    CubeError
+        When the file is not FITS, the image is not 3-D, there is no spectral
+        axis, SPECSYS is missing or unknown, BUNIT is missing or unknown, or a
+        Jy/beam cube has no beam. The message names the file and the card.
+    """
+    path = Path(path)
+    with _open_hdul(path) as hdul:
+        header = hdul[0].header.copy()
+    naxis = header.get("NAXIS", 0)
+    dims = [header.get(f"NAXIS{i}", 1) for i in range(1, naxis + 1)]
+    if naxis < 3 or sum(d > 1 for d in dims) < 3:
+        msg = (f"{path}: NAXIS = {naxis} with axis lengths {dims}; expected a cube with two sky axes "
+               "and one spectral axis")
+        raise CubeError(msg)
+    if naxis > 4 or (naxis == 4 and dims[3] != 1):
+        msg = f"{path}: axis lengths {dims}; expected 3 axes, or a 4th (Stokes) axis of length 1"
+        raise CubeError(msg)
+    ctype3 = str(header.get("CTYPE3", "")).strip()
+    if ctype3[:4] not in _SPECTRAL_CTYPES:
+        msg = (f"{path}: header card CTYPE3 = {ctype3!r}; expected a spectral axis "
+               f"({' or '.join(_SPECTRAL_CTYPES)}) as the third axis")
+        raise CubeError(msg)
+    specsys = str(_card(header, "SPECSYS", path, f"one of {', '.join(SPECSYS_VALUES)}")).strip()
+    if specsys not in SPECSYS_VALUES:
+        msg = f"{path}: header card SPECSYS = {specsys!r}; expected one of {', '.join(SPECSYS_VALUES)}"
+        raise CubeError(msg)
+    bunit_text = str(_card(header, "BUNIT", path, "a brightness unit (Jy/beam, Jy/pixel, MJy/sr, K)"))
+    key = bunit_text.strip().upper().replace(" ", "")
+    key = {"JY/BEAM": "JY/BEAM", "JYBEAM-1": "JY/BEAM"}.get(key, key)
+    if key not in _BRIGHTNESS_UNITS:
+        msg = f"{path}: header card BUNIT = {bunit_text!r}; expected one of Jy/beam, Jy/pixel, MJy/sr, K"
+        raise CubeError(msg)
+    bunit = _BRIGHTNESS_UNITS[key]
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FITSFixedWarning)
+        wcs = WCS(header, naxis=3)
+    celestial = wcs.celestial
+    if celestial.naxis != 2:
+        msg = f"{path}: header cards CTYPE1/CTYPE2 do not describe sky coordinates (RA/Dec)"
+        raise CubeError(msg)
+    scales = proj_plane_pixel_scales(celestial)  # deg per pixel along each sky axis
+    pixel_scale = np.sqrt(scales[0] * scales[1]) * u.deg
+
+    nchan = dims[2]
+    chan = np.arange(nchan, dtype=float)
+    crval, cdelt = float(header["CRVAL3"]), float(header.get("CDELT3", header.get("CD3_3", 0.0)))
+    crpix = float(header.get("CRPIX3", 1.0))
+    if cdelt == 0.0:
+        msg = f"{path}: header card CDELT3 is missing or zero; expected the channel step"
+        raise CubeError(msg)
+    cunit = u.Unit(str(header.get("CUNIT3", "Hz" if ctype3.startswith("FREQ") else "m/s")))
+    axis = (crval + (chan + 1 - crpix) * cdelt) * cunit
+    if ctype3.startswith("FREQ"):
+        freqs = axis.to(u.Hz)
+    else:
+        restfrq = header.get("RESTFRQ", header.get("RESTFREQ"))
+        if restfrq is None:
+            msg = f"{path}: CTYPE3 = {ctype3!r} is a velocity axis but header card RESTFRQ is missing"
+            raise CubeError(msg)
+        freqs = axis.to(u.Hz, equivalencies=u.doppler_radio(float(restfrq) * u.Hz))
+
+    bmaj = bmin = bpa = None
+    if "BMAJ" in header and "BMIN" in header:
+        bmaj = float(header["BMAJ"]) * u.deg
+        bmin = float(header["BMIN"]) * u.deg
+        bpa = float(header.get("BPA", 0.0)) * u.deg
+        if not (bmaj > 0 and bmin > 0):
+            msg = f"{path}: header cards BMAJ/BMIN = {header['BMAJ']}/{header['BMIN']}; expected positive sizes"
+            raise CubeError(msg)
+    elif bunit in (u.Jy / u.beam, u.K):
+        msg = f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing"
+        raise CubeError(msg)
+    return CubeInfo(path=path, header=header, shape=(nchan, dims[1], dims[0]), celestial_wcs=celestial,
+                    frequencies=freqs, specsys=specsys, bunit=bunit, beam_major=bmaj, beam_minor=bmin,
+                    beam_pa=bpa, pixel_scale=pixel_scale.to(u.arcsec))
+
+
+def open_data(path: str | Path):
+    """Open a cube's data memory-mapped and read-only; use as a context manager.
+
+    Yields an array of shape (n_chan, n_y, n_x) (a length-1 Stokes axis removed).
+    """
+    return _DataContext(Path(path))
+
+
+class _DataContext:
+    def __init__(self, path: Path):
+        self.path = path
+        self.hdul = None
+
+    def __enter__(self) -> np.ndarray:
+        self.hdul = _open_hdul(self.path)
+        data = self.hdul[0].data
+        if data is None:
+            self.hdul.close()
+            msg = f"{self.path}: the primary HDU has no data; expected a cube"
+            raise CubeError(msg)
+        if data.ndim == 4:
+            data = data[0]
+        return data
+
+    def __exit__(self, *exc) -> None:
+        self.hdul.close()
+
+
+def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time, Time, Time]:
+    """Start, mid and end time of the exposure (UTC).
+
+    From ``override`` (a mid-time, taken as instantaneous) when given; else
+    DATE-OBS (or MJD-OBS) plus DATE-END, or plus EXPTIME / XPOSURE seconds.
+    """
+    path, h = info.path, info.header
+    if override is not None:
+        try:
+            t = Time(override, scale="utc")
+        except ValueError as exc:
+            msg = f"{path}: config 'time' = {override!r} is not a valid ISO time"
+            raise CubeError(msg) from exc
+        return t, t, t
+    if "DATE-OBS" in h:
+        try:
+            start = Time(str(h["DATE-OBS"]), scale="utc")
+        except ValueError as exc:
+            msg = f"{path}: header card DATE-OBS = {h['DATE-OBS']!r} is not an ISO time"
+            raise CubeError(msg) from exc
+    elif "MJD-OBS" in h:
+        start = Time(float(h["MJD-OBS"]), format="mjd", scale="utc")
+    else:
+        msg = f"{path}: header cards DATE-OBS and MJD-OBS are both missing; expected the observation time"
+        raise CubeError(msg)
+    if "DATE-END" in h:
+        try:
+            end = Time(str(h["DATE-END"]), scale="utc")
+        except ValueError as exc:
+            msg = f"{path}: header card DATE-END = {h['DATE-END']!r} is not an ISO time"
+            raise CubeError(msg) from exc
+    else:
+        exptime = h.get("EXPTIME", h.get("XPOSURE", 0.0))
+        end = start + float(exptime) * u.s
+    if end < start:
+        msg = f"{path}: DATE-END ({end.isot}) precedes DATE-OBS ({start.isot})"
+        raise CubeError(msg)
+    return start, start + (end - start) / 2, end

@@ -1,0 +1,62 @@
+"""Provenance records: which config, which inputs (by checksum) and which version made an output.
+
+Records hold no timestamps, so identical inputs give byte-identical tables.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+from typing import Any, Iterable
+
+from astropy.io import fits
+
+__all__ = ["file_checksum", "provenance_record", "add_to_header", "from_header"]
+
+_CHUNK = 1 << 22
+
+
+def file_checksum(path: str | Path) -> str:
+    """SHA-256 of a file's bytes, read in 4 MiB chunks (bounded memory)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while block := fh.read(_CHUNK):
+            digest.update(block)
+    return "sha256:" + digest.hexdigest()
+
+
+def provenance_record(config: dict[str, Any] | None, inputs: Iterable[str | Path],
+                      stage: str) -> dict[str, Any]:
+    """A JSON-serialisable record of what made an output.
+
+    Parameters
+    ----------
+    config : dict or None
+        The validated campaign config (stored whole).
+    inputs : paths
+        Every file the output was computed from.
+    stage : str
+        Name of the workflow stage.
+    """
+    from . import __version__
+
+    return {
+        "software": "gasledger",
+        "version": __version__,
+        "stage": stage,
+        "inputs": {str(p): file_checksum(p) for p in sorted(map(str, inputs))},
+        "config": config,
+    }
+
+
+def add_to_header(header: fits.Header, record: dict[str, Any]) -> None:
+    """Store a provenance record in a FITS header (long-string card GLPROV)."""
+    header["GLVERS"] = (record["version"], "gasledger version")
+    header["GLSTAGE"] = (record["stage"], "gasledger stage that wrote this file")
+    header["GLPROV"] = json.dumps(record, sort_keys=True, separators=(",", ":"), default=str)
+
+
+def from_header(header: fits.Header) -> dict[str, Any]:
+    """Read back a provenance record written by :func:`add_to_header`."""
+    return json.loads(header["GLPROV"])

@@ -1,0 +1,59 @@
+"""Stage 'budget': budget.ecsv and budget.json from the limits and the per-cube geometry."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.table import QTable
+
+from ..atomic import write_json, write_table
+from ..budget import assumptions_from_config, budget_table, rocket_fraction
+from ..provenance import provenance_record
+from .common import catalogue_from_config
+
+__all__ = ["run", "epoch_distances"]
+
+
+def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
+    """Mean heliocentric distance of each epoch group and of all cubes ('all')."""
+    rows = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
+    groups: dict[str, list[float]] = {}
+    for r in rows:
+        groups.setdefault(str(r["epoch"]), []).append(float(r["r_h"].to_value(u.au)))
+    out = {g: float(np.mean(v)) * u.au for g, v in sorted(groups.items())}
+    out["all"] = float(np.mean([x for v in groups.values() for x in v])) * u.au
+    return out
+
+
+def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str) -> None:
+    """Compute and write the budget tables."""
+    limits = QTable.read(limits_path, format="ascii.ecsv")
+    assume = assumptions_from_config(config["budget"])
+    rh = epoch_distances(geometry_paths)
+    table = budget_table(limits, rh, assume, catalogue_from_config(config))
+    record = provenance_record(config, [limits_path, *geometry_paths], "budget")
+    table.meta["provenance"] = record
+    table.meta["assumptions"] = assume.as_dict()
+    write_table(table, out_ecsv)
+    combined = table[table["epoch"] == "all"]
+    summary = {
+        "campaign": config["campaign"],
+        "assumptions": assume.as_dict(),
+        "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"]),
+        "drivers": [
+            {"species": str(r["species"]), "verdict": str(r["verdict"]),
+             "q_upper_per_s": None if not np.isfinite(r["q_upper"].value) else float(r["q_upper"].value),
+             "q_required_per_s": [float(r["q_required_min"].value), float(r["q_required_max"].value)],
+             "ratio_required_to_limit": [None if not np.isfinite(r["ratio_min"]) else float(r["ratio_min"]),
+                                         None if not np.isfinite(r["ratio_max"]) else float(r["ratio_max"])],
+             "largest_mass_allowed_kg": None if not np.isfinite(r["mass_allowed"].value)
+             else float(r["mass_allowed"].value)}
+            for r in combined],
+        "caution": ("These numbers rest on the stated model assumptions (LTE, optically thin lines, Haser "
+                    "outflow, momentum balance with the given efficiency and ejection speed). They are not "
+                    "conclusions: those belong to peer review."),
+        "provenance": record,
+    }
+    write_json(summary, out_json)

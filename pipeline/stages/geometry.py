@@ -1,0 +1,33 @@
+"""Stage 'geometry': the target's geometry for one cube, as a one-row ECSV table."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from ..atomic import write_table
+from ..cube_io import read_cube_info
+from ..ephemeris import read_ephemeris
+from ..geometry import cube_geometry
+from ..orbit import OrbitalElements
+from ..provenance import provenance_record
+from .common import location_from_config
+
+__all__ = ["run"]
+
+
+def run(cube_path: str, cube_id: str, epoch: str, time_override: str | None,
+        config: dict[str, Any], out_path: str) -> None:
+    """Compute and write the geometry table of one cube."""
+    info = read_cube_info(cube_path)
+    target = config["target"]
+    inputs = [cube_path]
+    if "ephemeris" in target:
+        ephem, elements = read_ephemeris(target["ephemeris"]), None
+        inputs.append(target["ephemeris"])
+    else:
+        ephem, elements = None, OrbitalElements.from_mapping(target["elements"])
+    table = cube_geometry(info, cube_id, epoch, time_override, ephemeris=ephem, elements=elements,
+                          location=location_from_config(config))
+    table.meta["provenance"] = provenance_record(config, inputs, "geometry")
+    write_table(table, Path(out_path))

@@ -1,0 +1,112 @@
+"""Stage 'stack': one species' spectra in Q units, combined per epoch and over all epochs."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.table import Table
+
+from ..atomic import write_fits
+from ..provenance import add_to_header, provenance_record
+from ..response import line_response, outflow_speed, window_capture
+from ..stacking import StackInput, combine, velocity_grid
+from .common import catalogue_from_config, coma_model, temperatures
+
+__all__ = ["run", "stack_input", "ALL"]
+
+log = logging.getLogger(__name__)
+ALL = "all"
+
+
+def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, list[dict]]:
+    """Rescale one spectra file to Q units; also return its rows for the INPUTS table."""
+    h = spectra[0].header
+    line = catalogue.get_line(h["GLLINE"])
+    species = catalogue.get_species(line.species)
+    aps = Table.read(spectra["APERTURES"])
+    chans = Table.read(spectra["CHANNELS"])
+    vel = np.asarray(chans["velocity"], dtype=float)
+    dv = float(np.abs(np.median(np.diff(vel))))
+    wts = np.asarray(chans["window_weight"], dtype=float)
+    r_h, delta = float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au
+    beam = (np.sqrt(h["BMAJ"] * h["BMIN"]) * u.deg).to_value(u.rad) * delta.to(u.km) if "BMAJ" in h else 0 * u.km
+    t_kin = temperatures(config)
+    model = coma_model(config)
+    v_out = outflow_speed(model, r_h)
+    radii = np.asarray(aps["radius_km"], dtype=float) * u.km
+    resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model).to_value(u.Jy * u.km)  # (T, ap)
+    frac = window_capture(species, t_kin, vel, wts, v_out, h.get("GLSPRESP", "hanning"))        # (T,)
+    scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
+    flux = np.asarray(spectra[0].data, dtype=float)                                                # (ap, chan)
+    density = flux[None, :, :] / scale[:, :, None]
+    window_sum = np.nansum(flux * wts[None, :], axis=1) * dv                                       # (ap,)
+    q = window_sum[None, :] / scale
+    sigma = np.asarray(aps["sigma_window"], dtype=float)[None, :] / scale
+    inp = StackInput(epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=line.line_id, velocity=vel,
+                     density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km))
+    rows = []
+    for i, t in enumerate(t_kin.to_value(u.K)):
+        for j, r in enumerate(radii.to_value(u.km)):
+            rows.append({"epoch": inp.epoch, "cube_id": inp.cube_id, "line_id": inp.line_id, "t_kin": t,
+                         "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
+                         "window": float(h["GLWIN"]), "q": q[i, j], "sigma_q": sigma[i, j],
+                         "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s)})
+    return inp, rows
+
+
+def run(spectra_paths: list[str], species: str, config: dict[str, Any], out_path: str) -> None:
+    """Stack every covered spectrum of ``species`` and write the stack file."""
+    catalogue = catalogue_from_config(config)
+    catalogue.get_species(species)
+    inputs, rows, skipped = [], [], []
+    for path in spectra_paths:
+        with fits.open(path) as spectra:
+            if not spectra[0].header.get("GLCOVER", False) or spectra[0].data is None:
+                skipped.append(f"{spectra[0].header.get('GLCUBE')}:{spectra[0].header.get('GLLINE')}")
+                continue
+            inp, r = stack_input(spectra, catalogue, config)
+        inputs.append(inp)
+        rows.extend(r)
+    if skipped:
+        log.warning("%s: %d line(s) not covered and left out: %s", species, len(skipped), ", ".join(skipped))
+    prim = fits.PrimaryHDU()
+    prim.header["GLSPEC"] = species
+    prim.header["GLNIN"] = (len(inputs), "number of spectra stacked")
+    add_to_header(prim.header, provenance_record(config, spectra_paths, "stack"))
+    hdus = [prim]
+    t_kin = temperatures(config).to_value(u.K)
+    groups = sorted({i.epoch for i in inputs})
+    half = float(config["comoving"]["half_width_km_s"])
+    summary = []
+    for group in groups + ([ALL] if inputs else []):
+        members = [i for i in inputs if group in (ALL, i.epoch)]
+        edges = velocity_grid(members, half)
+        res = combine(members, edges)
+        hdu = fits.ImageHDU(res["density"], name=f"STACK_{group}")
+        centres = 0.5 * (edges[:-1] + edges[1:])
+        hdu.header["CTYPE1"], hdu.header["CUNIT1"], hdu.header["CRPIX1"] = "VRAD", "km/s", 1.0
+        hdu.header["CRVAL1"], hdu.header["CDELT1"] = float(centres[0]), float(edges[1] - edges[0])
+        hdu.header["CTYPE2"], hdu.header["CTYPE3"] = "APERTURE", "TKIN"
+        hdu.header["SPECSYS"], hdu.header["BUNIT"] = "SOURCE", "s-1 / (km s-1)"
+        hdu.header["GLGROUP"] = group
+        hdus.append(hdu)
+        lines = sorted({m.line_id for m in members})
+        cubes = sorted({m.cube_id for m in members})
+        for i, t in enumerate(t_kin):
+            for j in range(res["q"].shape[1]):
+                radius = float(np.mean([m.radius_km[j] for m in members]))
+                summary.append({"epoch": group, "t_kin": t, "aperture_index": j, "aperture_km": radius,
+                                "q": res["q"][i, j],
+                                "sigma_q": res["sigma_q"][i, j], "lines": ",".join(lines),
+                                "cubes": ",".join(cubes)})
+        log.info("%s %s: %d spectra (%s) -> Q(T=%g K, first aperture) = %.3g +- %.3g /s", species, group,
+                 len(members), ", ".join(lines), t_kin[0], res["q"][0, 0], res["sigma_q"][0, 0])
+    in_hdu = fits.table_to_hdu(Table(rows=rows) if rows else Table(names=["epoch"], dtype=[str]))
+    in_hdu.name = "INPUTS"
+    sum_hdu = fits.table_to_hdu(Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]))
+    sum_hdu.name = "SUMMARY"
+    write_fits(fits.HDUList(hdus + [in_hdu, sum_hdu]), out_path)

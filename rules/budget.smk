@@ -1,0 +1,19 @@
+rule budget:
+    """Required mass loss against the gas limits, per driver species."""
+    input:
+        limits=f"{OUT}/limits.ecsv",
+        geometry=geometry_files(),
+    output:
+        ecsv=report(f"{OUT}/budget.ecsv", caption="../report/budget.rst", category="Tables"),
+        json=f"{OUT}/budget.json",
+    params:
+        budget=config["budget"],
+    log:
+        f"{OUT}/logs/budget.log",
+    benchmark:
+        f"{OUT}/benchmarks/budget.tsv"
+    resources:
+        mem_mb=500,
+        runtime=5,
+    script:
+        "scripts/budget.py"

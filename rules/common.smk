@@ -1,0 +1,57 @@
+# Config validation, wildcard constraints and the helpers that build input lists.
+import sys
+
+from pipeline.config import check_inputs_exist, cube_entries, validate_config
+from pipeline.errors import GasledgerError
+from pipeline.stages.common import catalogue_from_config
+from pipeline.stages.plan import lines_for_cube
+
+try:
+    validate_config(config, source="config")
+    check_inputs_exist(config, source="config")
+    CATALOGUE = catalogue_from_config(config)
+    for _name in config["species"]:
+        CATALOGUE.get_species(_name)
+    CUBES = {c.cube_id: c for c in cube_entries(config)}
+    LINES = {cid: lines_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
+except GasledgerError as exc:
+    sys.exit(f"gasledger: {exc}")
+
+OUT = config["outdir"].rstrip("/")
+SPECIES = list(config["species"])
+
+
+wildcard_constraints:
+    cube="[A-Za-z0-9][A-Za-z0-9_.-]*",
+    line="[A-Za-z0-9][A-Za-z0-9_.+-]*",
+    species="[A-Za-z0-9][A-Za-z0-9_+-]*",
+
+
+def cube_path(wildcards):
+    return CUBES[wildcards.cube].path
+
+
+def ephemeris_input(wildcards):
+    return [config["target"]["ephemeris"]] if "ephemeris" in config["target"] else []
+
+
+def spectra_of_species(wildcards):
+    """Every (cube, line) spectra file of one species."""
+    return [
+        f"{OUT}/spectra/{cid}/{line}.fits"
+        for cid in CUBES
+        for line in LINES[cid]
+        if CATALOGUE.get_line(line).species == wildcards.species
+    ]
+
+
+def geometry_files():
+    return [f"{OUT}/geometry/{cid}.ecsv" for cid in CUBES]
+
+
+def stack_files():
+    return [f"{OUT}/stack/{s}.fits" for s in SPECIES]
+
+
+def final_outputs():
+    return [f"{OUT}/limits.ecsv", f"{OUT}/budget.ecsv", f"{OUT}/budget.json", f"{OUT}/report.html"]

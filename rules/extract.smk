@@ -1,0 +1,19 @@
+rule extract:
+    """Aperture spectra (Jy per channel) and their measured noise."""
+    input:
+        f"{OUT}/comoving/{{cube}}/{{line}}.fits",
+    output:
+        f"{OUT}/spectra/{{cube}}/{{line}}.fits",
+    params:
+        apertures=[config.get("apertures_km", []), config.get("apertures_arcsec", [])],
+        limits=config["limits"],
+        coma=config["coma"],
+    log:
+        f"{OUT}/logs/extract/{{cube}}/{{line}}.log",
+    benchmark:
+        f"{OUT}/benchmarks/extract/{{cube}}/{{line}}.tsv"
+    resources:
+        mem_mb=1000,
+        runtime=20,
+    script:
+        "scripts/extract.py"

@@ -1,0 +1,22 @@
+rule report:
+    """One self-contained HTML page with figures and tables, and the figures as PNG files."""
+    input:
+        limits=f"{OUT}/limits.ecsv",
+        budget_ecsv=f"{OUT}/budget.ecsv",
+        budget_json=f"{OUT}/budget.json",
+        geometry=geometry_files(),
+        stacks=stack_files(),
+    output:
+        html=f"{OUT}/report.html",
+        spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),
+        budget=report(f"{OUT}/figures/mass_budget.png", caption="../report/budget_figure.rst", category="Figures"),
+        sweep=report(f"{OUT}/figures/temperature_sweep.png", caption="../report/sweep.rst", category="Figures"),
+    log:
+        f"{OUT}/logs/report.log",
+    benchmark:
+        f"{OUT}/benchmarks/report.tsv"
+    resources:
+        mem_mb=1000,
+        runtime=10,
+    script:
+        "scripts/report.py"

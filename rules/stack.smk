@@ -1,0 +1,18 @@
+rule stack:
+    """Spectra of one species in Q units, combined per epoch and over all epochs."""
+    input:
+        spectra_of_species,
+    output:
+        f"{OUT}/stack/{{species}}.fits",
+    params:
+        excitation=config["excitation"],
+        coma=config["coma"],
+    log:
+        f"{OUT}/logs/stack/{{species}}.log",
+    benchmark:
+        f"{OUT}/benchmarks/stack/{{species}}.tsv"
+    resources:
+        mem_mb=1000,
+        runtime=10,
+    script:
+        "scripts/stack.py"

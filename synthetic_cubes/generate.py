@@ -1,0 +1,263 @@
+"""Writing the synthetic campaign: ephemeris table, cubes and a campaign config.
+
+Sky model of each line: a Haser parent coma (column density integrated over
+each pixel analytically near the nucleus), times the LTE flux per molecule,
+convolved with the elliptical Gaussian beam, with the arcsine-plus-thermal
+line profile of an isotropic outflow, Doppler-shifted by the target's
+topocentric radial velocity and placed at its ephemeris position. Noise is
+Gaussian, correlated over the beam on the sky and between neighbouring
+channels by Hanning smoothing (applied to signal and noise, as a correlator
+does). Geometry comes from propagating the invented orbital elements.
+
+The generator reuses the pipeline's physics (orbit, LTE, Haser, frames), so
+recovering the injected rates is a consistency check of the chain; each
+physics function has its own external checks in tests/.
+"""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from pathlib import Path
+
+import astropy.constants as const
+import astropy.units as u
+import numpy as np
+import yaml
+from astropy.coordinates import EarthLocation, SkyCoord
+from astropy.io import fits
+from astropy.time import Time
+from astropy.wcs import WCS, FITSFixedWarning
+from scipy.signal import fftconvolve
+
+from pipeline.atomic import write_fits, write_text
+from pipeline.catalogue import load_catalogue
+from pipeline.excitation import flux_per_molecule
+from pipeline.haser import outflow_speed_law, parent_column_density, scale_length
+from pipeline.line_profile import channel_fractions, thermal_dispersion
+from pipeline.offline import future_time_tolerated
+from pipeline.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
+from pipeline.spectral_frame import observer_frame_factor, radio_velocity, to_target_frame
+
+from .scenario import Scenario
+
+__all__ = ["write_scenario", "pixel_column_integral", "beam_kernel", "hanning"]
+
+log = logging.getLogger(__name__)
+_HANNING = np.array([0.25, 0.5, 0.25])
+
+
+def _g(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """∫_0^x ∫_0^y dx' dy' / sqrt(x'^2 + y'^2) for x, y >= 0 (closed form)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = np.where(x > 0, x * np.arcsinh(np.divide(y, x, out=np.zeros_like(y), where=x > 0)), 0.0)
+        b = np.where(y > 0, y * np.arcsinh(np.divide(x, y, out=np.zeros_like(x), where=y > 0)), 0.0)
+    return a + b
+
+
+def _pieces(lo: np.ndarray, hi: np.ndarray):
+    """Split [lo, hi] into signed pieces [0, p] so that ∫_lo^hi f(|x|) = Σ s ∫_0^p f."""
+    straddle = (lo < 0) & (hi > 0)
+    pos = lo >= 0
+    p1 = np.where(straddle, -lo, np.where(pos, hi, -lo))
+    s1 = np.ones_like(lo)
+    p2 = np.where(straddle, hi, np.where(pos, lo, -hi))
+    s2 = np.where(straddle, 1.0, -1.0)
+    return (p1, s1), (p2, s2)
+
+
+def pixel_column_integral(x_lo, x_hi, y_lo, y_hi) -> np.ndarray:
+    """∫∫ dx dy / ρ over rectangles (any position relative to the origin), exact.
+
+    Notes
+    -----
+    Antiderivative G(x, y) = x asinh(y/x) + y asinh(x/y) of 1/sqrt(x² + y²) in
+    the first quadrant; other quadrants by symmetry.
+    """
+    total = 0.0
+    for px, sx in _pieces(np.asarray(x_lo, float), np.asarray(x_hi, float)):
+        for py, sy in _pieces(np.asarray(y_lo, float), np.asarray(y_hi, float)):
+            total = total + sx * sy * _g(px, py)
+    return total
+
+
+def _coma_image(npix: int, x0: float, y0: float, pix_km: float, speed: u.Quantity, length: u.Quantity,
+                sub: int = 3) -> np.ndarray:
+    """Molecules per pixel for Q = 1/s of a Haser parent coma centred at pixel (x0, y0)."""
+    v = speed.to_value(u.km / u.s)
+    idx = (np.arange(npix * sub) + 0.5) / sub - 0.5          # sub-pixel centres in pixel units
+    xc, yc = np.meshgrid(idx, idx)
+    half = 0.5 / sub
+    dx_lo, dx_hi = (xc - half - x0) * pix_km, (xc + half - x0) * pix_km
+    dy_lo, dy_hi = (yc - half - y0) * pix_km, (yc + half - y0) * pix_km
+    area_over_rho = pixel_column_integral(dx_lo, dx_hi, dy_lo, dy_hi)           # km
+    rho = np.hypot(xc - x0, yc - y0) * pix_km
+    rho = np.maximum(rho, 1e-6 * pix_km)
+    # Haser factor: column relative to its L -> infinity form Q/(4 v rho)
+    factor = (parent_column_density(rho * u.km, 1 / u.s, speed, length) * 4 * speed * rho * u.km
+              / (1 / u.s)).decompose().value
+    molecules = area_over_rho * factor / (4 * v)                                # for Q = 1/s
+    return molecules.reshape(npix, sub, npix, sub).sum(axis=(1, 3))
+
+
+def beam_kernel(bmaj_pix: float, bmin_pix: float, bpa_deg: float) -> np.ndarray:
+    """Elliptical Gaussian kernel (sum 1); BPA east of north, x = -RA, y = Dec."""
+    smaj, smin = bmaj_pix / np.sqrt(8 * np.log(2)), bmin_pix / np.sqrt(8 * np.log(2))
+    half = int(np.ceil(4 * smaj))
+    y, x = np.mgrid[-half:half + 1, -half:half + 1].astype(float)
+    pa = np.deg2rad(bpa_deg)
+    # major axis at PA from north (+y) towards east (-x)
+    u_maj = -x * np.sin(pa) + y * np.cos(pa)
+    u_min = x * np.cos(pa) + y * np.sin(pa)
+    k = np.exp(-0.5 * ((u_maj / smaj) ** 2 + (u_min / smin) ** 2))
+    return k / k.sum()
+
+
+def hanning(cube: np.ndarray) -> np.ndarray:
+    """Hanning smoothing [1/4, 1/2, 1/4] along the first axis (edges reflect)."""
+    padded = np.concatenate([cube[:1], cube, cube[-1:]], axis=0)
+    return _HANNING[0] * padded[:-2] + _HANNING[1] * padded[1:-1] + _HANNING[2] * padded[2:]
+
+
+def _window_frequencies(sc: Scenario, window, catalogue, delta_dot: u.Quantity) -> np.ndarray:
+    """Topocentric channel frequencies [Hz] of a window tuned on its lines at ``delta_dot``."""
+    freqs = u.Quantity([catalogue.get_line(l).freq for l in window.lines])
+    beta = (delta_dot / const.c).decompose().value
+    shifted = freqs.to_value(u.Hz) * np.sqrt((1 - beta) / (1 + beta))
+    margin = shifted.mean() * window.margin_km_s / const.c.to_value(u.km / u.s)
+    lo, hi = shifted.min() - margin, shifted.max() + margin
+    df = window.channel_khz * 1e3
+    n = int(np.ceil((hi - lo) / df)) + 1
+    return lo + df * np.arange(n)
+
+
+def _write_cube(path: Path, sc: Scenario, window, epoch: str, mid: Time, geo, catalogue,
+                location: EarthLocation, rng: np.random.Generator) -> dict:
+    """Build and write one cube; return a summary."""
+    ra, dec = geo["ra"], geo["dec"]
+    delta, r_h, ddot = geo["delta"], geo["r_h"], geo["delta_dot"]
+    f_topo = _window_frequencies(sc, window, catalogue, ddot) * u.Hz
+    n, nchan = sc.npix, f_topo.size
+    pix = sc.pixel_arcsec * u.arcsec
+    pix_km = (pix.to_value(u.rad) * delta).to_value(u.km)
+    # target position: phase centre is offset from the target
+    off_ra, off_dec = sc.pointing_offset_arcsec
+    centre = SkyCoord(ra, dec, frame="icrs").spherical_offsets_by(off_ra * u.arcsec, off_dec * u.arcsec)
+    header = fits.Header()
+    header["CTYPE1"], header["CUNIT1"] = "RA---SIN", "deg"
+    header["CRVAL1"], header["CDELT1"], header["CRPIX1"] = centre.ra.deg, -pix.to_value(u.deg), n / 2 + 0.5
+    header["CTYPE2"], header["CUNIT2"] = "DEC--SIN", "deg"
+    header["CRVAL2"], header["CDELT2"], header["CRPIX2"] = centre.dec.deg, pix.to_value(u.deg), n / 2 + 0.5
+    specsys = sc.specsys[epoch]
+    factor = 1.0 if specsys == "TOPOCENT" else observer_frame_factor(specsys, mid, location, ra, dec)
+    f_label = f_topo * factor
+    header["CTYPE3"], header["CUNIT3"] = "FREQ", "Hz"
+    header["CRVAL3"], header["CDELT3"], header["CRPIX3"] = f_label[0].to_value(u.Hz), \
+        (f_label[1] - f_label[0]).to_value(u.Hz), 1.0
+    header["SPECSYS"] = specsys
+    header["RESTFRQ"] = float(np.mean(f_topo.to_value(u.Hz)))
+    header["RADESYS"] = "ICRS"
+    header["BUNIT"] = "Jy/beam"
+    bmaj, bmin, bpa = sc.beam_arcsec
+    header["BMAJ"], header["BMIN"], header["BPA"] = bmaj / 3600, bmin / 3600, bpa
+    half_exp = sc.exposure_s / 2 * u.s
+    header["DATE-OBS"] = (mid - half_exp).isot
+    header["DATE-END"] = (mid + half_exp).isot
+    header["MJD-OBS"] = (mid - half_exp).mjd
+    header["EXPTIME"] = sc.exposure_s
+    header["OBJECT"] = sc.target_name
+    header["TELESCOP"] = sc.site["name"]
+    geocentric = location.to_geocentric()
+    header["OBSGEO-X"], header["OBSGEO-Y"], header["OBSGEO-Z"] = (float(c.to_value(u.m)) for c in geocentric)
+    header["ORIGIN"] = "gasledger synthetic_cubes (invented data)"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FITSFixedWarning)
+        wcs = WCS(header).celestial
+    x0, y0 = wcs.world_to_pixel(SkyCoord(ra, dec, frame="icrs"))
+    v = outflow_speed_law(r_h)
+    f_rest_target = to_target_frame(f_topo, ddot)
+    kernel = beam_kernel(bmaj / sc.pixel_arcsec, bmin / sc.pixel_arcsec, bpa)
+    signal = np.zeros((nchan, n, n))
+    truth = []
+    for line in catalogue.lines:
+        q = sc.production_rates.get(line.species)
+        if q is None:
+            continue
+        vel = radio_velocity(f_rest_target, line.freq).to_value(u.km / u.s)
+        if not (vel.min() < -5 and vel.max() > 5):
+            continue
+        species = catalogue.get_species(line.species)
+        length = scale_length(v, species.photo_rate("quiet"), r_h)
+        molecules = _coma_image(n, float(x0), float(y0), pix_km, v, length)
+        flux_img = molecules * q * flux_per_molecule(line, species, sc.t_kin_K * u.K, delta).to_value(
+            u.Jy * u.km / u.s)
+        sky = fftconvolve(flux_img, kernel, mode="same")                        # Jy km/s per pixel
+        beam_over_pix = np.pi / (4 * np.log(2)) * bmaj * bmin / sc.pixel_arcsec**2
+        sigma_th = thermal_dispersion(sc.t_kin_K * u.K, species.mass).to_value(u.km / u.s)
+        prof = channel_fractions(vel, v.to_value(u.km / u.s), sigma_th) / np.abs(vel[1] - vel[0])  # per km/s
+        signal += prof[:, None, None] * (sky * beam_over_pix)[None, :, :]       # Jy/beam
+        truth.append({"line": line.line_id, "q": q})
+    noise = rng.standard_normal((nchan, n, n))
+    k_norm = kernel / np.sqrt(np.sum(kernel**2))
+    noise = fftconvolve(noise, k_norm[None, :, :], mode="same", axes=(1, 2))
+    noise *= sc.noise_jy_beam / np.sqrt(np.sum(_HANNING**2))
+    cube = hanning(signal + noise).astype(np.float32)
+    write_fits(fits.HDUList([fits.PrimaryHDU(cube, header=header)]), path)
+    return {"path": str(path), "lines": [t["line"] for t in truth], "x_pix": float(x0), "y_pix": float(y0),
+            "nchan": nchan}
+
+
+def write_scenario(sc: Scenario, outdir: str | Path, config_path: str | Path | None = None,
+                   results: str = "results/demo", progress=print) -> Path:
+    """Write the ephemeris, the cubes and the campaign config of ``sc`` below ``outdir``.
+
+    Returns the path of the config file written (default ``outdir/campaign.yaml``).
+    """
+    outdir = Path(outdir)
+    outdir.mkdir(parents=True, exist_ok=True)
+    catalogue = load_catalogue()
+    elements = OrbitalElements.from_mapping(sc.elements)
+    location = EarthLocation.from_geodetic(sc.site["lon_deg"] * u.deg, sc.site["lat_deg"] * u.deg,
+                                           sc.site["height_m"] * u.m)
+    mids = Time([t for _, t in sc.epochs], scale="utc")
+    start, stop = mids.min() - 1 * u.day, mids.max() + 1 * u.day
+    progress(f"ephemeris of {sc.target_name} from {start.isot} to {stop.isot}")
+    with future_time_tolerated():
+        table = ephemeris_from_elements(elements, start, stop, sc.ephemeris_step_min * u.min, location)
+        write_ephemeris(table, outdir / "ephemeris.ecsv")
+        geo = observe(elements, mids, location)
+    rng = np.random.default_rng(sc.seed)
+    cubes = []
+    for k, (label, _) in enumerate(sc.epochs):
+        g = {c: geo[c][k] for c in ("ra", "dec", "r_h", "delta", "delta_dot")}
+        for window in sc.windows:
+            path = outdir / f"{label}_{window.name}.fits"
+            with future_time_tolerated():
+                info = _write_cube(path, sc, window, label, mids[k], g, catalogue, location, rng)
+            progress(f"wrote {path} ({info['nchan']} channels, lines {', '.join(info['lines']) or 'none'})")
+            cubes.append({"path": str(path), "id": f"{label}_{window.name}", "epoch": label})
+    config = {
+        "campaign": sc.campaign,
+        "outdir": results,
+        "target": {"name": sc.target_name, "ephemeris": str(outdir / "ephemeris.ecsv")},
+        "observatory": {"name": sc.site["name"], "lon_deg": sc.site["lon_deg"], "lat_deg": sc.site["lat_deg"],
+                        "height_m": sc.site["height_m"]},
+        "cubes": cubes,
+        "species": sorted(sc.production_rates),
+        "apertures_km": list(sc.apertures_km),
+        "comoving": {"half_width_km_s": sc.half_width_km_s},
+        "limits": {"nsigma": 3},
+        "excitation": {"t_kin_K": [10, 20, 40, 80]},
+        "coma": {"outflow_km_s": "law", "solar_activity": "quiet"},
+        "budget": {"acceleration_m_s2": list(sc.acceleration_m_s2), "interval_days": 30,
+                   "nucleus": {"radius_km": list(sc.nucleus_radius_km),
+                               "density_kg_m3": list(sc.nucleus_density_kg_m3)},
+                   "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0},
+    }
+    truth = {"production_rates_per_s": sc.production_rates, "t_kin_K": sc.t_kin_K, "seed": sc.seed}
+    write_text(yaml.safe_dump(truth, sort_keys=True), outdir / "truth.yaml")
+    config_path = Path(config_path) if config_path is not None else outdir / "campaign.yaml"
+    write_text("# Written by synthetic_cubes: an invented campaign (fictional object, site and epochs).\n"
+               + yaml.safe_dump(config, sort_keys=False), config_path)
+    progress(f"wrote {config_path}")
+    return config_path

@@ -1,0 +1,94 @@
+"""The invented demo campaign: object, site, epochs, spectral windows, injected rates.
+
+All names and numbers are made up for the demo.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+__all__ = ["SpectralWindow", "Scenario", "demo_scenario", "small_scenario"]
+
+
+@dataclass(frozen=True)
+class SpectralWindow:
+    """One spectral window: which lines it should hold and how wide it is around them."""
+
+    name: str
+    lines: tuple[str, ...]         # catalogue line ids the window is tuned to
+    margin_km_s: float             # extra width beyond the outermost lines, each side
+    channel_khz: float = 244.140625
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """Everything the generator needs to write a campaign."""
+
+    campaign: str
+    target_name: str
+    elements: dict
+    site: dict
+    epochs: tuple[tuple[str, str], ...]          # (label, mid-time UTC)
+    exposure_s: float
+    specsys: dict                                 # epoch label -> SPECSYS of its cubes
+    windows: tuple[SpectralWindow, ...]
+    production_rates: dict                        # species -> Q [1/s] (0 = absent)
+    t_kin_K: float
+    noise_jy_beam: float                          # rms per channel after Hanning smoothing
+    beam_arcsec: tuple[float, float, float]       # BMAJ, BMIN, BPA (deg)
+    pixel_arcsec: float
+    npix: int
+    pointing_offset_arcsec: tuple[float, float]   # phase centre minus target (dRA cos dec, dDec)
+    apertures_km: tuple[float, ...]
+    half_width_km_s: float
+    seed: int = 20310310
+    ephemeris_step_min: float = 30.0
+    acceleration_m_s2: tuple[float, float] = (2.4e-6, 0.3e-6)
+    nucleus_radius_km: tuple[float, float] = (0.15, 0.6)
+    nucleus_density_kg_m3: tuple[float, float] = (300.0, 1000.0)
+    extra: dict = field(default_factory=dict)
+
+
+def demo_scenario() -> Scenario:
+    """The built-in demo campaign (fictional object 'Ilka', fictional site)."""
+    return Scenario(
+        campaign="Ilka outgassing campaign (invented demo)",
+        target_name="Ilka (fictional interstellar visitor)",
+        elements={"q_au": 1.12, "e": 2.7, "i_deg": 122.0, "node_deg": 211.0, "peri_deg": 37.0,
+                  "tp": "2031-02-20T06:00:00", "epoch": "2031-03-01T00:00:00"},
+        site={"name": "Cerro Lumbre Array (fictional)", "lon_deg": -106.40, "lat_deg": 28.90, "height_m": 2400.0},
+        epochs=(("e1", "2031-03-10T04:00:00"), ("e2", "2031-03-14T03:30:00"), ("e3", "2031-03-17T05:00:00")),
+        exposure_s=5400.0,
+        specsys={"e1": "TOPOCENT", "e2": "TOPOCENT", "e3": "LSRK"},
+        windows=(
+            SpectralWindow("ch3oh", ("CH3OH_241700", "CH3OH_241767", "CH3OH_241791", "CH3OH_241842",
+                                     "CH3OH_241879"), 42.0),
+            SpectralWindow("hcn", ("HCN_265886",), 60.0),
+            SpectralWindow("co", ("CO_230538",), 60.0),
+        ),
+        production_rates={"HCN": 2.0e25, "CH3OH": 3.0e26, "CO": 0.0},
+        t_kin_K=40.0,
+        noise_jy_beam=0.006,
+        beam_arcsec=(1.2, 0.9, 65.0),
+        pixel_arcsec=0.3,
+        npix=96,
+        pointing_offset_arcsec=(1.2, -0.8),
+        apertures_km=(1000.0, 3000.0),
+        half_width_km_s=40.0,
+    )
+
+
+def small_scenario() -> Scenario:
+    """A smaller version of the demo for the end-to-end tests (same physics, smaller cubes)."""
+    demo = demo_scenario()
+    return replace(
+        demo,
+        campaign="Ilka outgassing campaign (invented, small test version)",
+        windows=(
+            SpectralWindow("ch3oh", ("CH3OH_241767", "CH3OH_241791"), 32.0),
+            SpectralWindow("hcn", ("HCN_265886",), 36.0),
+            SpectralWindow("co", ("CO_230538",), 36.0),
+        ),
+        npix=64,
+        half_width_km_s=30.0,
+    )
