@@ -97,7 +97,9 @@ def aperture_spectra(data: np.ndarray, apertures: list[ApertureWeights],
             sub = box[:, ap.ys.start - y0:ap.ys.stop - y0, ap.xs.start - x0:ap.xs.stop - x0]
             blank = np.isnan(sub) & (ap.weights > 0)
             nb = blank.sum(axis=(1, 2))
-            sums[i, c0:c1] = np.tensordot(np.where(blank, 0.0, sub), ap.weights, axes=([1, 2], [0, 1]))
+            # zero every NaN before the contraction: a blank pixel of zero weight (bounding-box
+            # corner outside the circle) would otherwise turn the sum NaN via NaN * 0
+            sums[i, c0:c1] = np.tensordot(np.where(np.isnan(sub), 0.0, sub), ap.weights, axes=([1, 2], [0, 1]))
             sums[i, c0:c1][nb > 0] = np.nan
             n_blank[i, c0:c1] = nb
     return sums, n_blank

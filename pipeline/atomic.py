@@ -17,6 +17,9 @@ from typing import Any, Iterator
 from astropy.io import fits
 from astropy.table import Table
 
+_UMASK = os.umask(0)
+os.umask(_UMASK)
+
 __all__ = ["atomic_path", "write_table", "write_fits", "write_text", "write_json"]
 
 
@@ -31,6 +34,7 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
     tmp_path = Path(tmp)
+    os.chmod(tmp_path, 0o666 & ~_UMASK)  # mkstemp makes 0600 files; outputs get the usual permissions
     try:
         yield tmp_path
         with open(tmp_path, "rb+") as fh:

@@ -40,6 +40,7 @@ class CubeEntry:
     path: str
     time: str | None
     spectral_response: str = "hanning"
+    tracked: bool = True
 
 
 def _load_schema() -> dict:
@@ -136,7 +137,8 @@ def cube_entries(config: dict[str, Any]) -> list[CubeEntry]:
             raise ConfigError(msg)
         entries.append(CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id),
                                  path=item["path"], time=item.get("time"),
-                                 spectral_response=item.get("spectral_response", "hanning")))
+                                 spectral_response=item.get("spectral_response", "hanning"),
+                                 tracked=bool(item.get("tracked", True))))
     return entries
 
 

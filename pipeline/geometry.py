@@ -8,6 +8,7 @@ one-row table per cube, the input of every later stage.
 from __future__ import annotations
 
 import logging
+import warnings
 from typing import Any
 
 import astropy.units as u
@@ -59,7 +60,7 @@ def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
 
 def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str | None = None,
                   ephemeris: Ephemeris | None = None, elements: OrbitalElements | None = None,
-                  location: EarthLocation | None = None) -> QTable:
+                  location: EarthLocation | None = None, tracked: bool = True) -> QTable:
     """One-row table with the geometry of the target for one cube.
 
     Columns: cube_id, epoch, time_start/time_mid/time_end (UTC), ra, dec, r_h,
@@ -67,6 +68,11 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     delta_dot_change (change of the radial velocity during the exposure),
     x_pix, y_pix (0-based pixel position of the target at mid-time), specsys,
     beam_major, beam_minor, freq_min, freq_max.
+
+    ``tracked`` says the cube was made tracking the target's ephemeris (the
+    usual way for moving targets), so its motion does not smear the coma;
+    for an untracked cube a :class:`MotionWarning` is given when the target
+    moved by more than a quarter of the beam.
 
     Raises
     ------
@@ -88,12 +94,10 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
                f"{geo['dec'][1].to_value(u.deg):.5f} deg at {mid.isot}) falls at pixel ({x:.1f}, {y:.1f}), "
                f"outside the {nx} x {ny} field")
         raise CoverageError(msg)
-    if info.beam_major is not None and motion > 0.25 * info.beam_minor:
-        import warnings
-
+    if not tracked and info.beam_major is not None and motion > 0.25 * info.beam_minor:
         warnings.warn(f"cube {cube_id}: the target moved {motion:.2f} during the exposure, more than a "
-                      f"quarter of the beam ({info.beam_minor.to(u.arcsec):.2f}); the coma is smeared",
-                      MotionWarning, stacklevel=2)
+                      f"quarter of the beam ({info.beam_minor.to(u.arcsec):.2f}), and the cube was not made "
+                      "tracking it: the coma is smeared", MotionWarning, stacklevel=2)
     log.info("cube %s: mid-time %s, r_h %.4f au, delta %.4f au, delta_dot %+.4f km/s, moved %.3f arcsec",
              cube_id, mid.isot, geo["r_h"][1].to_value(u.au), geo["delta"][1].to_value(u.au),
              geo["delta_dot"][1].to_value(u.km / u.s), motion.to_value(u.arcsec))
@@ -107,7 +111,7 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
         "phase": [geo["phase"][1].to_value(u.deg) if "phase" in geo else np.nan] * u.deg,
         "motion": [motion.to_value(u.arcsec)] * u.arcsec,
         "delta_dot_change": [(geo["delta_dot"][2] - geo["delta_dot"][0]).to_value(u.km / u.s)] * (u.km / u.s),
-        "x_pix": [float(x)], "y_pix": [float(y)], "specsys": [info.specsys],
+        "x_pix": [float(x)], "y_pix": [float(y)], "specsys": [info.specsys], "tracked": [tracked],
         "beam_major": [info.beam_major.to_value(u.arcsec) if info.beam_major is not None else np.nan] * u.arcsec,
         "beam_minor": [info.beam_minor.to_value(u.arcsec) if info.beam_minor is not None else np.nan] * u.arcsec,
         "freq_min": [info.frequencies.min().to_value(u.GHz)] * u.GHz,

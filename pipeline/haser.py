@@ -1,11 +1,10 @@
 """The Haser model of a cometary coma.
 
-Molecules leave the nucleus isotropically at a constant speed ``v`` and are
-destroyed (a parent) or made from a parent and destroyed in turn (a daughter)
-with fixed scale lengths.  This module gives the number densities, the column
-densities, and the number of molecules seen in a circular aperture, in a
-Gaussian beam, and in a circular aperture placed on a beam-convolved image.
-These numbers turn a measured line flux into a production rate ``Q``.
+Molecules leave the nucleus isotropically at a constant speed ``v`` and are destroyed
+(a parent) or made from a parent and destroyed in turn (a daughter) with fixed scale
+lengths.  This module gives number densities, column densities, and the number of
+molecules seen in a circular aperture, in a Gaussian beam, and in a circular aperture
+on a beam-convolved image: the numbers that turn a line flux into a production rate.
 
 Notes
 -----
@@ -89,28 +88,21 @@ def _value(x, unit, name: str, *, low: str = "positive", allow_inf: bool = False
     except u.UnitsError as exc:
         msg = f"'{name}' must have units convertible to {unit}, found {x.unit}"
         raise error(msg) from exc
-    bad = np.isnan(out) | (~np.isfinite(out) if not allow_inf else np.zeros(out.shape, bool))
-    bad |= (out <= 0) if low == "positive" else (out < 0)
+    bad = np.isnan(out) | ((out <= 0) if low == "positive" else (out < 0))
+    if not allow_inf:
+        bad |= np.isinf(out)
     if np.any(bad):
-        found = out[bad].ravel()[0] * u.Unit(unit)
-        want = "> 0" if low == "positive" else ">= 0"
-        want += "" if allow_inf else " and finite"
-        msg = f"'{name}' must be {want}, found {found!r}"
+        want = ("> 0" if low == "positive" else ">= 0") + ("" if allow_inf else " and finite")
+        msg = f"'{name}' must be {want}, found {out[bad].ravel()[0] * u.Unit(unit)!r}"
         raise error(msg)
     return out
 
 
 # ----------------------------------------------------------------------------- kernels
 def _phi(y: np.ndarray) -> np.ndarray:
-    """(1 - exp(-y)) / y for y >= 0, equal to 1 at y = 0."""
-    y = np.asarray(y, dtype=float)
-    out = np.empty(y.shape)
-    small = y < 1e-4
-    ys = y[small]
-    out[small] = 1.0 - 0.5 * ys * (1.0 - ys / 3.0 * (1.0 - 0.25 * ys))
-    yl = y[~small]
-    out[~small] = -np.expm1(-yl) / yl
-    return out
+    """(1 - exp(-y)) / y for y >= 0, equal to 1 at y = 0 (expm1 keeps it exact for small y)."""
+    positive = y > 0
+    return np.where(positive, -np.expm1(-y) / np.where(positive, y, 1.0), 1.0)
 
 
 def _delta(mu: np.ndarray, nu: np.ndarray) -> np.ndarray:
@@ -120,8 +112,7 @@ def _delta(mu: np.ndarray, nu: np.ndarray) -> np.ndarray:
     small = nu <= 0.25
     m, n = mu[small], nu[small]
     # mean over [mu, nu] of psi(s) = sum_k (-s)^k / (k! (k+2)); h_k = sum_j mu^j nu^(k-j)
-    h = np.ones_like(m)
-    mk = np.ones_like(m)
+    h, mk = np.ones_like(m), np.ones_like(m)
     total = 0.5 * h
     for coefficient in _DELTA_SERIES[1:]:
         mk = mk * m
@@ -142,14 +133,16 @@ def _even_trapezoid(integrand, w_max, h_max, *params) -> np.ndarray:
     if wm.size == 0:
         return out.reshape(shape)
     n_all = np.maximum(np.ceil(wm / hm).astype(int) + 1, 8)
-    rows = max(1, _CHUNK // int(n_all.max()))
-    for start in range(0, wm.size, rows):
-        sl = slice(start, start + rows)
-        n = int(n_all[sl].max())
-        h = wm[sl] / (n - 1)
-        w = h[:, None] * np.arange(n)
-        vals = integrand(w, *(p[sl, None] for p in ps))
-        out[sl] = h * (vals.sum(axis=1) - 0.5 * vals[:, 0])
+    order = np.argsort(n_all, kind="stable")  # chunks of similar node counts
+    start = 0
+    while start < wm.size:
+        rows = max(1, _CHUNK // int(n_all[order[min(start + _CHUNK // 8, wm.size) - 1]]))
+        idx = order[start:start + rows]
+        n = int(n_all[idx].max())
+        h = wm[idx] / (n - 1)
+        vals = integrand(h[:, None] * np.arange(n), *(p[idx, None] for p in ps))
+        out[idx] = h * (vals.sum(axis=1) - 0.5 * vals[:, 0])
+        start += rows
     return out.reshape(shape)
 
 
@@ -174,21 +167,12 @@ def _one_minus_ki2(x: np.ndarray) -> np.ndarray:
     x = np.minimum(x, 1e3)  # Ki_2(1e3) underflows
     lower = -np.expm1(-x)
     w_max = np.clip(0.5 * (math.log(2.0) - np.log(np.maximum(lower, 1e-300)) + _LOG_EPS), 4.0, _W_CAP)
-
-    def integrand(w, x):
-        c = np.cosh(w)
-        return -np.expm1(-x * c) / (c * c)
-
-    return _even_trapezoid(integrand, w_max, _H_MAX, x)
+    return _even_trapezoid(lambda w, x: -np.expm1(-x * np.cosh(w)) / np.cosh(w) ** 2, w_max, _H_MAX, x)
 
 
 def _ratio(a: np.ndarray, b: np.ndarray, clip: bool = True) -> np.ndarray:
-    """a / b (overflow to inf allowed), capped at _X_MAX if ``clip``.
-
-    The daughter functions are only evaluated within 1e4 of the longer scale length,
-    so only the ratio to a much shorter one can be capped; the results depend on it
-    only through terms of relative size 1 / _X_MAX.
-    """
+    """a / b (overflow to inf allowed), capped at _X_MAX if ``clip`` (daughters are evaluated
+    within 1e4 longer scale lengths, so a cap only hits terms of relative size 1 / _X_MAX)."""
     with np.errstate(over="ignore"):
         x = a / b
     return np.minimum(x, _X_MAX) if clip else x
@@ -198,11 +182,7 @@ def _daughter_ki1(xp: np.ndarray, xd: np.ndarray) -> np.ndarray:
     """L_d/(L_p - L_d) [Ki_1(xp) - Ki_1(xd)] / xp, stable for L_p ~ L_d and small x."""
     x_min, x_del = np.minimum(xp, xd), np.abs(xp - xd)
     h_max = np.minimum(_H_MAX, 0.7 / np.sqrt(np.maximum(x_min, 1e-300)))
-
-    def integrand(w, x_min, x_del):
-        c = np.cosh(w)
-        return np.exp(-x_min * c) * _phi(x_del * c)
-
+    integrand = lambda w, x_min, x_del: np.exp(-x_min * np.cosh(w)) * _phi(x_del * np.cosh(w))  # noqa: E731
     return _even_trapezoid(integrand, _decay_range(x_min), h_max, x_min, x_del)
 
 
@@ -211,11 +191,7 @@ def _daughter_fraction(xp: np.ndarray, xd: np.ndarray) -> np.ndarray:
     x_min, x_max = np.minimum(xp, xd), np.maximum(xp, xd)
     lower = np.maximum(x_min * x_max * _delta(x_min, x_max), 1e-300)
     w_max = np.clip(0.5 * (math.log(2.0) - np.log(lower) + _LOG_EPS), 4.0, _W_CAP)
-
-    def integrand(w, x_min, x_max):
-        c = np.cosh(w)
-        return _delta(x_min * c, x_max * c)
-
+    integrand = lambda w, x_min, x_max: _delta(x_min * np.cosh(w), x_max * np.cosh(w))  # noqa: E731
     return _even_trapezoid(integrand, w_max, _H_MAX, x_min, x_max)
 
 
@@ -243,17 +219,7 @@ def _weighted(rho_lo, span, lp, ld, weight) -> np.ndarray:
 
 # ----------------------------------------------------------------------------- speeds, lengths
 def outflow_speed_law(r_h: u.Quantity) -> u.Quantity:
-    """Gas outflow speed from the heliocentric distance.
-
-    Parameters
-    ----------
-    r_h : `~astropy.units.Quantity`
-        Heliocentric distance (length), > 0.
-
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        Outflow speed in km/s.
+    """Gas outflow speed at heliocentric distance ``r_h`` (a length, > 0), in km/s.
 
     Notes
     -----
@@ -269,19 +235,16 @@ def outflow_speed_law(r_h: u.Quantity) -> u.Quantity:
 
 
 def thermal_speed(temperature: u.Quantity, molecular_mass: u.Quantity) -> u.Quantity:
-    """Mean speed of a Maxwell-Boltzmann gas.
+    """Mean speed of a Maxwell-Boltzmann gas, in km/s.
 
     Parameters
     ----------
-    temperature : `~astropy.units.Quantity`
-        Kinetic temperature, > 0.
-    molecular_mass : `~astropy.units.Quantity`
-        Mass of one molecule (e.g. in ``u.u``), > 0.
+    temperature, molecular_mass : `~astropy.units.Quantity`
+        Kinetic temperature and mass of one molecule (e.g. in ``u.u``), both > 0.
 
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        :math:`\\bar v = \\sqrt{8 k T / (\\pi m)}` in km/s.
+    Notes
+    -----
+    :math:`\\bar v = \\sqrt{8 k T / (\\pi m)}`.
     """
     t = _value(temperature, u.K, "temperature")
     m = _value(molecular_mass, u.kg, "molecular_mass")
@@ -290,21 +253,16 @@ def thermal_speed(temperature: u.Quantity, molecular_mass: u.Quantity) -> u.Quan
 
 
 def scale_length(speed: u.Quantity, rate_1au: u.Quantity, r_h: u.Quantity) -> u.Quantity:
-    """Scale length of a species destroyed by sunlight.
+    """Scale length (km) of a species destroyed by sunlight.
 
     Parameters
     ----------
-    speed : `~astropy.units.Quantity`
-        Outflow speed, > 0.
-    rate_1au : `~astropy.units.Quantity`
-        Photodestruction rate at 1 au (1/s), > 0.
-    r_h : `~astropy.units.Quantity`
-        Heliocentric distance, > 0.
+    speed, rate_1au, r_h : `~astropy.units.Quantity`
+        Outflow speed, photodestruction rate at 1 au (1/s) and heliocentric distance, all > 0.
 
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        :math:`L = v\\,\\tau`, :math:`\\tau = (r_h / 1\\ {\\rm au})^2 / \\beta_{1\\,\\rm au}`, in km.
+    Notes
+    -----
+    :math:`L = v\\,\\tau`, :math:`\\tau = (r_h / 1\\ {\\rm au})^2 / \\beta_{1\\,\\rm au}`.
     """
     v = _value(speed, u.km / u.s, "speed")
     beta = _value(rate_1au, 1 / u.s, "rate_1au")
@@ -313,28 +271,22 @@ def scale_length(speed: u.Quantity, rate_1au: u.Quantity, r_h: u.Quantity) -> u.
 
 
 # ----------------------------------------------------------------------------- densities
-def _common(q, speed):
-    return _value(q, 1 / u.s, "q", low="non-negative"), _value(speed, u.km / u.s, "speed")
+def _common(q, speed, length_parent, length_daughter=None, parent_name="length_parent"):
+    """Checked q [1/s], speed [km/s] and scale lengths [km] (the daughter one may be None)."""
+    qq = _value(q, 1 / u.s, "q", low="non-negative")
+    v = _value(speed, u.km / u.s, "speed")
+    lp = _value(length_parent, u.km, parent_name)
+    ld = None if length_daughter is None else _value(length_daughter, u.km, "length_daughter")
+    return qq, v, lp, ld
 
 
 def parent_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length: u.Quantity) -> u.Quantity:
-    """Number density of a parent species at distance ``r`` from the nucleus.
+    """Number density (cm^-3) of a parent species at distance ``r`` from the nucleus.
 
     Parameters
     ----------
-    r : `~astropy.units.Quantity`
-        Distance from the nucleus, > 0.
-    q : `~astropy.units.Quantity`
-        Production rate (1/s), >= 0.
-    speed : `~astropy.units.Quantity`
-        Outflow speed, > 0.
-    length : `~astropy.units.Quantity`
-        Scale length, > 0.
-
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        Density in cm^-3.
+    r, q, speed, length : `~astropy.units.Quantity`
+        Distance (> 0), production rate (1/s, >= 0), outflow speed (> 0), scale length (> 0).
 
     Notes
     -----
@@ -345,17 +297,16 @@ def parent_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length: u.Qu
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
     rr = _value(r, u.km, "r")
-    qq, v = _common(q, speed)
-    length_km = _value(length, u.km, "length")
+    qq, v, length_km, _ = _common(q, speed, length, parent_name="length")
     n = qq * np.exp(-rr / length_km) / (4.0 * math.pi * rr * rr * v)
     return u.Quantity(n * _KM3_TO_CM3, u.cm**-3)
 
 
 def daughter_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent: u.Quantity,
                      length_daughter: u.Quantity) -> u.Quantity:
-    """Number density of a daughter species made by a parent of scale length ``length_parent``.
+    """Number density (cm^-3) of a daughter made by a parent of scale length ``length_parent``.
 
-    Parameters are those of :func:`parent_density`; ``length_daughter`` is the
+    Parameters are those of :func:`parent_density`; ``length_daughter`` (> 0) is the
     daughter's own scale length.  Both species move at ``speed``.
 
     Notes
@@ -370,9 +321,7 @@ def daughter_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length_par
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
     rr = _value(r, u.km, "r")
-    qq, v = _common(q, speed)
-    lp = _value(length_parent, u.km, "length_parent")
-    ld = _value(length_daughter, u.km, "length_daughter")
+    qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     a, b = 1.0 / lp, 1.0 / ld
     kernel = a * rr * np.exp(-np.minimum(a, b) * rr) * _phi(np.abs(a - b) * rr)
     n = qq * kernel / (4.0 * math.pi * rr * rr * v)
@@ -381,19 +330,9 @@ def daughter_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length_par
 
 def parent_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity,
                           length: u.Quantity) -> u.Quantity:
-    """Column density of a parent species at projected distance ``rho``.
+    """Column density (cm^-2) of a parent species at projected distance ``rho`` (> 0).
 
-    Parameters
-    ----------
-    rho : `~astropy.units.Quantity`
-        Projected distance from the nucleus, > 0.
-    q, speed, length : `~astropy.units.Quantity`
-        As in :func:`parent_density`.
-
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        Column density in cm^-2.
+    Parameters ``q``, ``speed`` and ``length`` are those of :func:`parent_density`.
 
     Notes
     -----
@@ -408,8 +347,7 @@ def parent_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity,
        section 11.2 (repeated integrals of K_0; from memory).
     """
     rr = _value(rho, u.km, "rho")
-    qq, v = _common(q, speed)
-    length_km = _value(length, u.km, "length")
+    qq, v, length_km, _ = _common(q, speed, length, parent_name="length")
     rr, length_km = np.broadcast_arrays(rr, length_km)
     col = qq * _ki1(_ratio(rr, length_km, clip=False)) / (2.0 * math.pi * v * rr)
     return u.Quantity(col * _KM2_TO_CM2, u.cm**-2)
@@ -417,22 +355,23 @@ def parent_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity,
 
 def daughter_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent: u.Quantity,
                             length_daughter: u.Quantity) -> u.Quantity:
-    """Column density of a daughter species at projected distance ``rho`` (cm^-2).
+    """Column density (cm^-2) of a daughter species at projected distance ``rho`` (> 0).
+
+    Parameters are those of :func:`daughter_density`.
 
     Notes
     -----
     :math:`N_d(\\rho) = \\frac{Q}{2\\pi v\\rho}\\frac{L_d}{L_p - L_d}
     [{\\rm Ki}_1(\\rho/L_p) - {\\rm Ki}_1(\\rho/L_d)]`, computed from the stable
-    form of the density kernel (see :func:`daughter_density`).
+    form of the density kernel (see :func:`daughter_density`).  Accurate for
+    :math:`\\rho \\ge 10^{-80}` scale lengths (the central logarithmic cusp is cut there).
 
     References
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
     rr = _value(rho, u.km, "rho")
-    qq, v = _common(q, speed)
-    lp = _value(length_parent, u.km, "length_parent")
-    ld = _value(length_daughter, u.km, "length_daughter")
+    qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     rr, lp, ld = np.broadcast_arrays(rr, lp, ld)
     ki = np.zeros(rr.shape)  # 0 (underflow) beyond 1e4 scale lengths
     near = rr < 1e4 * np.maximum(lp, ld)
@@ -445,19 +384,10 @@ def daughter_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity, l
 # ----------------------------------------------------------------------------- counts
 def parent_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity,
                           length: u.Quantity) -> u.Quantity:
-    """Number of parent molecules in a cylinder of radius ``rho_ap`` through the coma.
+    """Number of parent molecules (dimensionless) in a cylinder of radius ``rho_ap`` through the coma.
 
-    Parameters
-    ----------
-    rho_ap : `~astropy.units.Quantity`
-        Aperture radius at the comet, >= 0 (``inf`` gives the whole coma).
-    q, speed, length : `~astropy.units.Quantity`
-        As in :func:`parent_density`.
-
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        Dimensionless number of molecules.
+    ``rho_ap`` is the aperture radius at the comet, >= 0 (``inf``: the whole coma);
+    ``q``, ``speed`` and ``length`` are those of :func:`parent_density`.
 
     Notes
     -----
@@ -471,15 +401,16 @@ def parent_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity,
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
     rr = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
-    qq, v = _common(q, speed)
-    length_km = _value(length, u.km, "length")
-    n = qq / v * _count_per_rate(rr, length_km)
-    return u.Quantity(n, u.dimensionless_unscaled)
+    qq, v, length_km, _ = _common(q, speed, length, parent_name="length")
+    return u.Quantity(qq / v * _count_per_rate(rr, length_km), u.dimensionless_unscaled)
 
 
 def daughter_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent: u.Quantity,
                             length_daughter: u.Quantity) -> u.Quantity:
-    """Number of daughter molecules in a cylinder of radius ``rho_ap`` (dimensionless).
+    """Number of daughter molecules (dimensionless) in a cylinder of radius ``rho_ap``.
+
+    ``rho_ap`` is as in :func:`parent_aperture_count`, the other parameters as in
+    :func:`daughter_density`.
 
     Notes
     -----
@@ -492,42 +423,27 @@ def daughter_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
     rr = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
-    qq, v = _common(q, speed)
-    lp = _value(length_parent, u.km, "length_parent")
-    ld = _value(length_daughter, u.km, "length_daughter")
-    n = qq / v * _count_per_rate(rr, lp, ld)
-    return u.Quantity(n, u.dimensionless_unscaled)
-
-
-def _lengths(length_parent, length_daughter):
-    lp = _value(length_parent, u.km, "length_parent")
-    ld = None if length_daughter is None else _value(length_daughter, u.km, "length_daughter")
-    return lp, ld
+    qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
+    return u.Quantity(qq / v * _count_per_rate(rr, lp, ld), u.dimensionless_unscaled)
 
 
 def beam_count(fwhm: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent: u.Quantity,
                length_daughter: u.Quantity | None = None) -> u.Quantity:
-    """Number of molecules weighted by a Gaussian beam centred on the nucleus.
+    """Number of molecules (dimensionless) weighted by a Gaussian beam centred on the nucleus.
 
     Parameters
     ----------
     fwhm : `~astropy.units.Quantity`
         Full width at half maximum of the beam, as a length at the comet, > 0.
-    q, speed : `~astropy.units.Quantity`
-        As in :func:`parent_density`.
-    length_parent : `~astropy.units.Quantity`
-        Scale length of the parent.
+    q, speed, length_parent : `~astropy.units.Quantity`
+        As in :func:`daughter_density`.
     length_daughter : `~astropy.units.Quantity`, optional
         Scale length of the daughter; without it the parent is counted.
 
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        Dimensionless, beam-weighted number of molecules (beam peak = 1).
-
     Notes
     -----
-    :math:`N_B = \\int_0^\\infty 2\\pi\\rho N(\\rho)\\,e^{-4\\ln 2\\,\\rho^2/\\theta^2}d\\rho
+    With the beam peak normalised to 1,
+    :math:`N_B = \\int_0^\\infty 2\\pi\\rho N(\\rho)\\,e^{-\\alpha\\rho^2}d\\rho
     = \\int_0^\\infty N_{\\rm ap}(\\rho)\\,2\\alpha\\rho\\,e^{-\\alpha\\rho^2}d\\rho`,
     :math:`\\alpha = 4\\ln 2/\\theta^2` (integration by parts).  For :math:`L \\gg \\theta`
     it tends to :math:`\\frac{\\pi Q\\theta}{4v}\\sqrt{\\pi/(4\\ln 2)}`.
@@ -537,11 +453,9 @@ def beam_count(fwhm: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
     theta = _value(fwhm, u.km, "fwhm")
-    qq, v = _common(q, speed)
-    lp, ld = _lengths(length_parent, length_daughter)
+    qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     arrays = np.broadcast_arrays(theta, lp, *(() if ld is None else (ld,)))
-    theta, lp = arrays[0], arrays[1]
-    ld = arrays[2] if len(arrays) == 3 else None
+    theta, lp, ld = arrays[0], arrays[1], (arrays[2] if ld is not None else None)
     a = 4.0 * math.log(2.0)
 
     def weight(r):
@@ -555,7 +469,7 @@ def beam_count(fwhm: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent
 def convolved_aperture_count(rho_ap: u.Quantity, beam_fwhm: u.Quantity, q: u.Quantity, speed: u.Quantity,
                              length_parent: u.Quantity,
                              length_daughter: u.Quantity | None = None) -> u.Quantity:
-    """Molecules counted by a circular aperture on an image convolved with a Gaussian beam.
+    """Molecules (dimensionless) counted by a circular aperture on a beam-convolved image.
 
     Parameters
     ----------
@@ -567,20 +481,15 @@ def convolved_aperture_count(rho_ap: u.Quantity, beam_fwhm: u.Quantity, q: u.Qua
     q, speed, length_parent, length_daughter : `~astropy.units.Quantity`
         As in :func:`beam_count`.
 
-    Returns
-    -------
-    `~astropy.units.Quantity`
-        Dimensionless number of molecules.
-
     Notes
     -----
     :math:`N = \\int_0^\\infty 2\\pi r N(r) W(r)\\,dr`, where
     :math:`W(r) = 1 - Q_1(r/\\sigma, \\rho_{\\rm ap}/\\sigma)` is the chance that a 2-D
     Gaussian of width :math:`\\sigma = \\theta/\\sqrt{8\\ln 2}` centred at distance
     :math:`r` falls inside the aperture (:math:`Q_1`: Marcum Q function).  Integrated
-    by parts, :math:`N = \\int_0^\\infty N_{\\rm ap}(r)\\,p(r)\\,dr` with
+    by parts, :math:`N = \\int_0^\\infty N_{\\rm ap}(r)\\,p(r)\\,dr` with the smooth weight
     :math:`p = -dW/dr = \\frac{\\rho_{\\rm ap}}{\\sigma^2}e^{-(r^2+\\rho_{\\rm ap}^2)/2\\sigma^2}
-    I_1(r\\rho_{\\rm ap}/\\sigma^2)`, a smooth weight, using
+    I_1(r\\rho_{\\rm ap}/\\sigma^2)`, from
     :math:`\\partial Q_1(a, b)/\\partial a = b\\,e^{-(a^2+b^2)/2} I_1(ab)`.
 
     References
@@ -590,12 +499,11 @@ def convolved_aperture_count(rho_ap: u.Quantity, beam_fwhm: u.Quantity, q: u.Qua
     """
     radius = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
     sigma = _value(beam_fwhm, u.km, "beam_fwhm", low="non-negative") * _FWHM_TO_SIGMA
-    qq, v = _common(q, speed)
-    lp, ld = _lengths(length_parent, length_daughter)
+    qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     arrays = np.broadcast_arrays(radius, sigma, lp, *(() if ld is None else (ld,)))
     shape = arrays[0].shape
     radius, sigma, lp = (a.ravel() for a in arrays[:3])
-    ld = arrays[3].ravel() if len(arrays) == 4 else None
+    ld = arrays[3].ravel() if ld is not None else None
     out = _count_per_rate(radius, lp, ld)
     # beyond rho_ap = 1e8 sigma the blur changes the count by < (sigma / rho_ap)^2 = 1e-16
     blurred = (sigma > 0) & (radius > 0) & (radius < 1e8 * sigma)

@@ -8,6 +8,7 @@ rule geometry:
     params:
         epoch=lambda w: CUBES[w.cube].epoch,
         time=lambda w: CUBES[w.cube].time,
+        tracked=lambda w: CUBES[w.cube].tracked,
         target=config["target"],
         observatory=config["observatory"],
     log:

@@ -25,7 +25,7 @@ from pipeline.errors import ConfigError, EphemerisError, GasledgerError
 Q = 1e28 / u.s
 V = 0.8 * u.km / u.s
 L = 1e4 * u.km
-Q_S, V_KMS, L_KM = 1e28, 0.8, 1e4
+Q_S, V_KMS = 1e28, 0.8
 X_VALUES = [1e-3, 0.1, 1.0, 10.0, 100.0]
 # (parent length, daughter length) in km; None = a parent species
 SPECIES = [(1e4, None), (1e4, 3e4), (1e4, 2.5e3), (1e4, 1e4)]
@@ -83,10 +83,9 @@ def quad_pieces(f, edges):
 
 
 def column(rho_km, lp, ld=None):
-    q, v = Q, V
     if ld is None:
-        return haser.parent_column_density(rho_km * u.km, q, v, lp * u.km)
-    return haser.daughter_column_density(rho_km * u.km, q, v, lp * u.km, ld * u.km)
+        return haser.parent_column_density(rho_km * u.km, Q, V, lp * u.km)
+    return haser.daughter_column_density(rho_km * u.km, Q, V, lp * u.km, ld * u.km)
 
 
 def aperture(rho_km, lp, ld=None):
@@ -99,24 +98,25 @@ def aperture(rho_km, lp, ld=None):
 def test_small_aperture_limits():
     # Haser (1957): for L >> rho, N_ap = pi Q rho / (2 v) and N = Q / (4 v rho)
     rho = 1e-9 * L
-    assert_quantity_allclose(haser.parent_aperture_count(rho, Q, V, L), (np.pi * Q * rho / (2 * V)).decompose(),
-                             rtol=1e-7)
-    assert_quantity_allclose(haser.parent_column_density(rho, Q, V, L), (Q / (4 * V * rho)).to(u.cm**-2),
-                             rtol=1e-7)
+    expected = (np.pi * Q * rho / (2 * V)).decompose()
+    assert_quantity_allclose(haser.parent_aperture_count(rho, Q, V, L), expected, rtol=1e-7)
+    expected = (Q / (4 * V * rho)).to(u.cm**-2)
+    assert_quantity_allclose(haser.parent_column_density(rho, Q, V, L), expected, rtol=1e-7)
 
 
 def test_large_aperture_limit_is_total_content():
     # Haser (1957): for L << rho the aperture holds the whole coma, Q tau = Q L / v
-    assert_quantity_allclose(haser.parent_aperture_count(1e3 * L, Q, V, L), (Q * L / V).decompose(), rtol=1e-13)
-    assert_quantity_allclose(haser.parent_aperture_count(np.inf * u.km, Q, V, L), (Q * L / V).decompose(),
-                             rtol=1e-13)
+    total = (Q * L / V).decompose()
+    assert_quantity_allclose(haser.parent_aperture_count(1e3 * L, Q, V, L), total, rtol=1e-13)
+    assert_quantity_allclose(haser.parent_aperture_count(np.inf * u.km, Q, V, L), total, rtol=1e-13)
     # steady state: the daughter content is Q tau_d = Q L_d / v
     assert_quantity_allclose(haser.daughter_aperture_count(1e4 * L, Q, V, L, 0.3 * L),
                              (Q * 0.3 * L / V).decompose(), rtol=1e-12)
 
 
 def test_gaussian_beam_limit():
-    # L >> fwhm: N_B = (pi Q fwhm / (4 v)) sqrt(pi / (4 ln 2)), the "1.064 factor" (Comets II, from memory)
+    # L >> fwhm: N = Q / (4 v rho) (Haser 1957) and int_0^inf exp(-a r^2) dr = sqrt(pi / a) / 2 give
+    # N_B = (pi Q fwhm / (4 v)) sqrt(pi / (4 ln 2)), the "1.064 factor" of beam-averaged counts
     factor = math.sqrt(math.pi / (4 * math.log(2)))
     assert abs(factor - 1.0645) < 1e-4
     fwhm = 1e-9 * L
@@ -128,14 +128,14 @@ def test_daughter_of_short_lived_parent_is_a_parent():
     # L_p -> 0: the daughter is born at the nucleus and follows the parent law with L_d (Haser 1957)
     lp, ld = 1e-12 * L, L
     rho = np.array([1e-3, 0.3, 1.0, 4.0]) * L
-    assert_quantity_allclose(haser.daughter_density(rho, Q, V, lp, ld), haser.parent_density(rho, Q, V, ld),
-                             rtol=1e-8)
-    assert_quantity_allclose(haser.daughter_column_density(rho, Q, V, lp, ld),
-                             (Q / (2 * np.pi * V * rho) * ki1_bessel((rho / ld).decompose().value)).to(u.cm**-2),
-                             rtol=1e-8)
-    assert_quantity_allclose(haser.daughter_aperture_count(rho, Q, V, lp, ld),
-                             (Q * ld / V).decompose() * one_minus_ki2_bessel((rho / ld).decompose().value),
-                             rtol=1e-8)
+    x = (rho / ld).decompose().value
+    expected = (Q * np.exp(-x) / (4 * np.pi * rho**2 * V)).to(u.cm**-3)
+    assert_quantity_allclose(haser.daughter_density(rho, Q, V, lp, ld), expected, rtol=1e-8)
+    expected = (Q / (2 * np.pi * V * rho) * ki1_bessel(x)).to(u.cm**-2)
+    assert_quantity_allclose(haser.daughter_column_density(rho, Q, V, lp, ld), expected, rtol=1e-8)
+    expected = (Q * ld / V).decompose() * one_minus_ki2_bessel(x)
+    assert_quantity_allclose(haser.daughter_aperture_count(rho, Q, V, lp, ld), expected, rtol=1e-8)
+    # the parent beam count is checked against scipy quad in test_beam_count_against_quad
     assert_quantity_allclose(haser.beam_count(rho, Q, V, lp, ld), haser.beam_count(rho, Q, V, ld), rtol=1e-8)
 
 
@@ -193,7 +193,8 @@ def test_aperture_count_against_cylinder_dblquad(x, lp, ld):
     def theta_max(r):
         return math.pi / 2 if r <= rho else math.asin(rho / r)
 
-    edges = sorted({0.0, rho, *[e for e in rho * np.geomspace(1, 1e6, 13) if e < 60 * lmax] , 60 * lmax})
+    # outer r split at rho and geometrically up to 60 scale lengths (beyond: < e^-60 of the total)
+    edges = sorted({0.0, rho, 60 * lmax, *[e for e in rho * np.geomspace(1, 1e6, 13) if e < 60 * lmax]})
     edges = [e for e in edges if e <= max(60 * lmax, rho)]
     total = 0.0
     for a, b in zip(edges[:-1], edges[1:]):
@@ -253,7 +254,8 @@ def test_convolved_count_against_convolved_image():
     offs = (np.arange(n_sub) + 0.5) / n_sub - 0.5
     c = np.arange(-half, half + 1) * pix
     sx = (c[:, None] + offs * pix).ravel()
-    inside = (np.hypot(sx[:, None], sx[None, :]) < radius).reshape(c.size, n_sub, c.size, n_sub).mean(axis=(1, 3))
+    inside = np.hypot(sx[:, None], sx[None, :]) < radius
+    inside = inside.reshape(c.size, n_sub, c.size, n_sub).mean(axis=(1, 3))
     brute = (blurred * inside).sum() * Q_S / V_KMS
     # the image itself: its unconvolved disc sum is the aperture count
     unconvolved = haser.parent_aperture_count(radius * u.km, Q, V, lp * u.km)
@@ -269,7 +271,9 @@ def test_convolved_count_against_convolved_image():
 @pytest.mark.parametrize(("radius", "sigma"), [(1e2, 3e3), (5e3, 5e3), (2e4, 1e3), (3e3, 1e2)])
 def test_convolved_count_against_ncx2_quad(radius, sigma, lp, ld):
     # N = int 2 pi r N(r) W(r) dr with W = scipy.stats.ncx2.cdf((R/s)^2, 2, (r/s)^2), N in Bessel form
-    f = lambda r: ring_content_bessel(r, lp, ld) * stats.ncx2.cdf((radius / sigma) ** 2, 2, (r / sigma) ** 2)  # noqa: E731
+    def f(r):
+        return ring_content_bessel(r, lp, ld) * stats.ncx2.cdf((radius / sigma) ** 2, 2, (r / sigma) ** 2)
+
     hi = radius + 12 * sigma
     edges = sorted({0.0, min(lp, hi), max(radius - 6 * sigma, 0.0), radius, radius + 6 * sigma, hi})
     total = 0.0
@@ -278,7 +282,8 @@ def test_convolved_count_against_ncx2_quad(radius, sigma, lp, ld):
             total += integrate.quad(f, a, b, epsabs=0, epsrel=1e-10, limit=400)[0]
     brute = total * Q_S / V_KMS
     fwhm = sigma * math.sqrt(8 * math.log(2)) * u.km
-    got = haser.convolved_aperture_count(radius * u.km, fwhm, Q, V, lp * u.km, None if ld is None else ld * u.km)
+    ld_q = None if ld is None else ld * u.km
+    got = haser.convolved_aperture_count(radius * u.km, fwhm, Q, V, lp * u.km, ld_q)
     assert_allclose(got.value, brute, rtol=1e-6)
 
 
@@ -301,7 +306,8 @@ def test_convolved_count_limits():
     total = (Q * L / V).decompose()
     assert_quantity_allclose(haser.convolved_aperture_count(np.inf * u.km, 2 * L, Q, V, L), total, rtol=1e-13)
     assert_quantity_allclose(haser.convolved_aperture_count(1e3 * L, L, Q, V, L), total, rtol=1e-10)
-    assert_quantity_allclose(haser.convolved_aperture_count(1e3 * L, L, Q, V, L, 0.2 * L), 0.2 * total, rtol=1e-10)
+    daughter = haser.convolved_aperture_count(1e3 * L, L, Q, V, L, 0.2 * L)
+    assert_quantity_allclose(daughter, 0.2 * total, rtol=1e-10)
 
 
 # ----------------------------------------------------------------------------- 4. speeds
@@ -327,12 +333,13 @@ def test_units_do_not_matter():
     ref = haser.parent_aperture_count(rho_km * u.km, Q, V, L)
     for unit in (u.m, u.au):
         rho = (rho_km * u.km).to(unit)
-        assert_quantity_allclose(haser.parent_aperture_count(rho, Q, V.to(u.m / u.s), L.to(unit)), ref, rtol=1e-12)
+        got = haser.parent_aperture_count(rho, Q, V.to(u.m / u.s), L.to(unit))
+        assert_quantity_allclose(got, ref, rtol=1e-12)
         assert_quantity_allclose(haser.daughter_column_density(rho, Q, V, L.to(unit), 2 * L),
                                  haser.daughter_column_density(rho_km * u.km, Q, V, L, 2 * L), rtol=1e-12)
-        assert_quantity_allclose(haser.convolved_aperture_count(rho, rho, Q, V, L.to(unit)),
-                                 haser.convolved_aperture_count(rho_km * u.km, rho_km * u.km, Q, V, L), rtol=1e-12)
-    # a column density in cm^-2 regardless of input units: Q / (4 v rho) limit in SI
+        conv = haser.convolved_aperture_count(rho_km * u.km, rho_km * u.km, Q, V, L)
+        assert_quantity_allclose(haser.convolved_aperture_count(rho, rho, Q, V, L.to(unit)), conv, rtol=1e-12)
+    # densities come back in cm^-2 whatever the input units
     assert haser.parent_column_density(1 * u.m, Q, V, L).unit == u.cm**-2
 
 
@@ -356,7 +363,8 @@ def test_broadcasting():
                                                                               2e4 * u.km), rtol=1e-13)
     conv = haser.convolved_aperture_count(rho, lengths, Q, V, L)
     assert conv.shape == (3, 4)
-    assert_quantity_allclose(conv[1, 2], haser.convolved_aperture_count(rho[1, 0], lengths[2], Q, V, L), rtol=1e-13)
+    single = haser.convolved_aperture_count(rho[1, 0], lengths[2], Q, V, L)
+    assert_quantity_allclose(conv[1, 2], single, rtol=1e-13)
 
 
 # ----------------------------------------------------------------------------- 6. invalid input

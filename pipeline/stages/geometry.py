@@ -17,7 +17,7 @@ __all__ = ["run"]
 
 
 def run(cube_path: str, cube_id: str, epoch: str, time_override: str | None,
-        config: dict[str, Any], out_path: str) -> None:
+        config: dict[str, Any], out_path: str, tracked: bool = True) -> None:
     """Compute and write the geometry table of one cube."""
     info = read_cube_info(cube_path)
     target = config["target"]
@@ -28,6 +28,6 @@ def run(cube_path: str, cube_id: str, epoch: str, time_override: str | None,
     else:
         ephem, elements = None, OrbitalElements.from_mapping(target["elements"])
     table = cube_geometry(info, cube_id, epoch, time_override, ephemeris=ephem, elements=elements,
-                          location=location_from_config(config))
+                          location=location_from_config(config), tracked=tracked)
     table.meta["provenance"] = provenance_record(config, inputs, "geometry")
     write_table(table, Path(out_path))

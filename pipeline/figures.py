@@ -1,0 +1,81 @@
+"""Figures of the report: stacked spectra, the mass budget and the temperature sweep (matplotlib, PNG)."""
+
+from __future__ import annotations
+
+import io
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+__all__ = ["SpectrumPanel", "plot_stacked_spectra", "plot_mass_budget", "plot_temperature_sweep", "to_png"]
+
+
+class SpectrumPanel:
+    """What one panel of the stacked-spectra figure shows."""
+
+    def __init__(self, species: str, velocity: np.ndarray, density: np.ndarray, window: float,
+                 model: np.ndarray, label: str, detected: bool):
+        self.species, self.velocity, self.density = species, velocity, density
+        self.window, self.model, self.label, self.detected = window, model, label, detected
+
+
+def to_png(fig) -> bytes:
+    """Render a figure to PNG bytes (fixed metadata, so identical figures give identical bytes)."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110, metadata={"Software": None})
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def plot_stacked_spectra(panels: list[SpectrumPanel]):
+    """One panel per species: Q-density spectrum, window shaded, model at Q or at the limit."""
+    n = max(1, len(panels))
+    fig, axes = plt.subplots(n, 1, figsize=(7.5, 2.4 * n), squeeze=False)
+    for ax, p in zip(axes[:, 0], panels):
+        ax.step(p.velocity, p.density, where="mid", color="0.2", lw=1, label="stack")
+        ax.axvspan(-p.window, p.window, color="tab:blue", alpha=0.12, label="integration window")
+        ax.plot(p.velocity, p.model, color="tab:red" if p.detected else "tab:orange", lw=1.5,
+                label=p.label)
+        ax.axhline(0, color="0.6", lw=0.6)
+        ax.set_ylabel(f"{p.species}\nQ density [s$^{{-1}}$/(km/s)]", fontsize=8)
+        ax.legend(fontsize=7, loc="upper right", frameon=False)
+        lim = 6 * max(p.window, 1.0)
+        ax.set_xlim(-lim, lim)
+    axes[-1, 0].set_xlabel("velocity in the target's rest frame [km/s]")
+    fig.tight_layout()
+    return fig
+
+
+def plot_mass_budget(mass: np.ndarray, required: np.ndarray, required_band: tuple[np.ndarray, np.ndarray],
+                     allowed: dict[str, float], mass_range: tuple[float, float]):
+    """Required mass-loss rate against nucleus mass, with each species' allowed mass-loss rate."""
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    ax.fill_between(mass, required_band[0], required_band[1], color="0.85", label="required (±1σ in a)")
+    ax.loglog(mass, required, color="k", lw=2, label="required by the push")
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for i, (name, mdot) in enumerate(sorted(allowed.items())):
+        ax.axhline(mdot, color=colours[i % len(colours)], ls="--", lw=1.5, label=f"{name} limit allows")
+    ax.axvspan(*mass_range, color="tab:green", alpha=0.07, label="nucleus mass range")
+    ax.set_xlabel("nucleus mass [kg]")
+    ax.set_ylabel("gas mass-loss rate [kg/s]")
+    ax.legend(fontsize=7, loc="upper left", frameon=False)
+    ax.grid(True, which="major", alpha=0.3)
+    fig.tight_layout()
+    return fig
+
+
+def plot_temperature_sweep(curves: dict[str, tuple[np.ndarray, np.ndarray, int]]):
+    """Upper limit against kinetic temperature per species; the conservative point is circled."""
+    fig, ax = plt.subplots(figsize=(7.5, 3.6))
+    for name, (t, q_up, best) in sorted(curves.items()):
+        line, = ax.semilogy(t, q_up, marker="o", ms=4, label=name)
+        ax.plot(t[best], q_up[best], "o", ms=11, mfc="none", color=line.get_color())
+    ax.set_xlabel("kinetic temperature [K]")
+    ax.set_ylabel("Q upper limit [s$^{-1}$]")
+    ax.legend(fontsize=8, frameon=False)
+    ax.grid(True, alpha=0.3)
+    fig.tight_layout()
+    return fig

@@ -1,0 +1,176 @@
+"""Stage 'report': report.html with figures and tables, and the figures as PNG files."""
+
+from __future__ import annotations
+
+import html
+import json
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+import yaml
+from astropy.io import fits
+from astropy.table import QTable
+
+from .. import __version__
+from ..atomic import atomic_path, write_text
+from ..budget import acceleration_at, assumptions_from_config, ejection_speed_at
+from ..figures import SpectrumPanel, plot_mass_budget, plot_stacked_spectra, plot_temperature_sweep, to_png
+from ..line_profile import channel_fractions, thermal_dispersion
+from ..report_html import figure_html, page, table_html
+from ..response import SPECTRAL_RESPONSES, outflow_speed
+from .common import catalogue_from_config, coma_model
+
+__all__ = ["run"]
+
+CAUTION = ("These production rates and limits rest on model assumptions: LTE excitation at the kinetic "
+           "temperatures listed, optically thin lines, a Haser parent distribution with isotropic uniform outflow, "
+           "the photodestruction rates of the catalogue, and, for the budget, momentum balance with the stated "
+           "efficiency and ejection speed with all mass loss in one species at a time. Change an assumption and "
+           "the numbers change. gasledger reports numbers; whether outgassing can or cannot drive the push is a "
+           "conclusion that belongs to peer review, not to this tool.")
+
+
+def _write_png(data: bytes, path: str) -> None:
+    with atomic_path(path) as tmp:
+        tmp.write_bytes(data)
+
+
+def _spectrum_panels(stack_paths: list[str], limits: QTable, config: dict[str, Any]) -> list[SpectrumPanel]:
+    catalogue = catalogue_from_config(config)
+    panels = []
+    for path in stack_paths:
+        with fits.open(path) as hdul:
+            species = hdul[0].header["GLSPEC"]
+            if "STACK_all" not in hdul:
+                continue
+            h = hdul["STACK_all"].header
+            data = hdul["STACK_all"].data
+            n = data.shape[-1]
+            vel = h["CRVAL1"] + (np.arange(n) + 1 - h["CRPIX1"]) * h["CDELT1"]
+            from astropy.table import Table
+
+            inputs = Table.read(hdul["INPUTS"])
+        sel = limits[(limits["species"] == species) & (limits["epoch"] == "all") & limits["conservative"]]
+        if not len(sel):
+            continue
+        row = sel[0]  # smallest aperture, conservative temperature
+        t_values = sorted(set(np.asarray(inputs["t_kin"], dtype=float)))
+        it = t_values.index(float(row["t_kin_K"]))
+        density = data[it, 0]
+        window = float(np.max(inputs["window"]))
+        v_out = float(np.mean(inputs["outflow"]))
+        sig = thermal_dispersion(row["t_kin_K"] * u.K, catalogue.get_species(species).mass).to_value(u.km / u.s)
+        shape = np.convolve(channel_fractions(vel, v_out, sig), SPECTRAL_RESPONSES["hanning"], mode="same")
+        shape = shape / abs(vel[1] - vel[0])
+        detected = bool(row["detected"])
+        q_model = float(row["q"].value) if detected else float(row["q_upper"].value)
+        label = (f"model at Q = {q_model:.2e}/s" if detected else f"model at the limit {q_model:.2e}/s")
+        panels.append(SpectrumPanel(species, vel, density, window, shape * q_model,
+                                    f"{label} ({row['aperture_km'].value:.0f} km, {row['t_kin_K']:.0f} K)", detected))
+    return panels
+
+
+def _budget_figure(budget: QTable, config: dict[str, Any], catalogue):
+    assume = assumptions_from_config(config["budget"])
+    combined = budget[budget["epoch"] == "all"]
+    r_h = float(np.mean(combined["r_h"].to_value(u.au))) * u.au
+    a, a_err = acceleration_at(assume, r_h)
+    v = ejection_speed_at(assume, r_h)
+    lo, hi = assume.mass_kg
+    mass = np.logspace(np.log10(lo) - 1, np.log10(hi) + 1, 200)
+    per_kg = (a / (assume.efficiency * v)).to_value(1 / u.s)
+    band = (mass * max(per_kg - (a_err / (assume.efficiency * v)).to_value(1 / u.s), 0.0) + 1e-300,
+            mass * (per_kg + (a_err / (assume.efficiency * v)).to_value(1 / u.s)))
+    allowed = {}
+    for row in combined:
+        if np.isfinite(row["q_upper"].value):
+            mol = catalogue.get_species(str(row["species"])).mass.to_value(u.kg)
+            allowed[str(row["species"])] = float(row["q_upper"].value) * mol
+    return plot_mass_budget(mass, mass * per_kg, band, allowed, (lo, hi))
+
+
+def _sweep_curves(limits: QTable) -> dict:
+    curves = {}
+    sel = limits[limits["epoch"] == "all"]
+    for species in sorted(set(sel["species"])):
+        s = sel[sel["species"] == species]
+        first_ap = np.min(s["aperture_km"].value)
+        s = s[s["aperture_km"].value == first_ap]
+        order = np.argsort(s["t_kin_K"])
+        t = np.asarray(s["t_kin_K"])[order]
+        q = s["q_upper"].value[order]
+        curves[species] = (t, q, int(np.argmax(q)))
+    return curves
+
+
+def run(inputs, outputs, config: dict[str, Any]) -> None:
+    """Build the report from the run's tables and stacks."""
+    catalogue = catalogue_from_config(config)
+    limits = QTable.read(inputs.limits, format="ascii.ecsv")
+    budget = QTable.read(inputs.budget_ecsv, format="ascii.ecsv")
+    with open(inputs.budget_json, encoding="utf-8") as fh:
+        summary = json.load(fh)
+    geometry = [QTable.read(p, format="ascii.ecsv")[0] for p in inputs.geometry]
+
+    fig_spec = to_png(plot_stacked_spectra(_spectrum_panels(list(inputs.stacks), limits, config)))
+    fig_budget = to_png(_budget_figure(budget, config, catalogue))
+    fig_sweep = to_png(plot_temperature_sweep(_sweep_curves(limits)))
+    _write_png(fig_spec, outputs.spectra)
+    _write_png(fig_budget, outputs.budget)
+    _write_png(fig_sweep, outputs.sweep)
+
+    sections = [("", f'<div class="caution"><b>Read this first.</b> {html.escape(CAUTION)}</div>')]
+    combined = budget[budget["epoch"] == "all"]
+    classes = ["unobserved" if r["verdict"] == "not observed" else
+               ("allowed" if r["verdict"] == "not excluded" else "excluded") for r in combined]
+    sections.append(("Verdict (all epochs combined)", table_html(
+        ["species", "verdict", "Q limit [1/s]", "Q required [1/s] (lightest – heaviest nucleus)",
+         "required / limit", "largest nucleus mass allowed [kg]"],
+        [[str(r["species"]), str(r["verdict"]), float(r["q_upper"].value),
+          f"{r['q_required_min'].value:.3g} – {r['q_required_max'].value:.3g}",
+          "–" if not np.isfinite(r["ratio_min"]) else f"{r['ratio_min']:.3g} – {r['ratio_max']:.3g}",
+          float(r["mass_allowed"].value)] for r in combined], left=2, row_class=classes)
+        + f"<p>Over {summary['assumptions']['interval_days']:g} days the push would cost the nucleus "
+          f"{100 * summary['rocket_mass_fraction_over_interval']:.3g} % of its mass (rocket equation, independent "
+          "of the mass). A driver that no cube covered is listed as 'not observed', never as excluded.</p>"))
+    sections.append(("Mass budget", figure_html(
+        fig_budget, "Mass-loss rate the acceleration requires (black, grey band ±1σ) against the rate each species' "
+                    "upper limit allows (dashed). Where the black line lies above a dashed line, that species alone "
+                    "cannot pay for the push at that nucleus mass.", "mass budget chart")))
+    sections.append(("Stacked spectra", figure_html(
+        fig_spec, "All epochs and lines combined in production-rate units, smallest aperture, conservative "
+                  "temperature. Shaded: integration window. Red: model at the measured Q (detection); orange: model at "
+                  "the upper limit.", "stacked spectra")))
+    cons = limits[limits["conservative"]]
+    sections.append(("Production rates and upper limits (conservative temperature)", table_html(
+        ["species", "epoch", "aperture [km]", "T_kin [K]", "Q [1/s]", "σ_Q [1/s]", "SNR", "detected",
+         "Q upper [1/s]", "lines"],
+        [[str(r["species"]), str(r["epoch"]), float(r["aperture_km"].value), float(r["t_kin_K"]),
+          float(r["q"].value), float(r["q_err"].value), float(r["snr"]), "yes" if r["detected"] else "no",
+          float(r["q_upper"].value), str(r["lines"]).replace(",", ", ")] for r in cons], left=2)
+        + "<p>Q upper: Bayesian limit with a flat prior on Q ≥ 0 at the one-sided confidence of "
+          f"{config['limits']['nsigma']}σ; limits.ecsv also holds the classical Q + nσ and the Feldman–Cousins "
+          "limits, every temperature and every aperture.</p>"))
+    sections.append(("Temperature sweep", figure_html(
+        fig_sweep, "Upper limit (all epochs, smallest aperture) against the assumed kinetic temperature; the circled "
+                   "point is the most conservative value, the one reported.", "temperature sweep")))
+    sections.append(("Geometry per cube", table_html(
+        ["cube", "epoch", "mid-time (UTC)", "r_h [au]", "Δ [au]", "Δ̇ [km/s]", "phase [deg]",
+         "moved [arcsec]", "SPECSYS"],
+        [[str(g["cube_id"]), str(g["epoch"]), g["time_mid"].isot, float(g["r_h"].value), float(g["delta"].value),
+          float(g["delta_dot"].value), float(g["phase"].value), float(g["motion"].value), str(g["specsys"])]
+         for g in geometry], left=3)))
+    assumptions = dict(limits.meta.get("assumptions", {}))
+    assumptions.update({f"budget: {k}": v for k, v in summary["assumptions"].items()})
+    sections.append(("Assumptions", table_html(["assumption", "value"],
+                                               [[k, json.dumps(v) if not isinstance(v, str) else v]
+                                                for k, v in assumptions.items()], left=2)))
+    prov = limits.meta.get("provenance", {})
+    sections.append(("Provenance", f"<p>gasledger {html.escape(__version__)}. Inputs of the limits table:</p>"
+                     + table_html(["file", "checksum"], [[k, v] for k, v in prov.get("inputs", {}).items()], left=2)
+                     + "<p>Configuration of this run:</p><pre>"
+                     + html.escape(yaml.safe_dump(config, sort_keys=False)) + "</pre>"))
+    title = f"gasledger report: {config['campaign']}"
+    sub = f"Target: {config['target'].get('name', 'target')}. Species: {', '.join(config['species'])}."
+    write_text(page(title, sections, sub), outputs.html)

@@ -1,0 +1,64 @@
+"""Tiny seeded FITS cubes for the tests (a helper module, not a conftest).
+
+:func:`cube_header` gives a valid header of a small RA/Dec/frequency cube;
+:func:`write_cube` writes seeded Gaussian noise with that header (cards can be
+overridden or removed) to a path, optionally with a degenerate 4th Stokes axis.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from astropy.io import fits
+
+__all__ = ["cube_header", "write_cube"]
+
+#: Axis lengths of the default cube (numpy order: channel, y, x).
+SHAPE = (16, 12, 10)
+
+
+def cube_header(shape: tuple[int, int, int] = SHAPE, **cards) -> fits.Header:
+    """A valid header of a (n_chan, n_y, n_x) cube; ``cards`` override or (value None) remove cards."""
+    nchan, ny, nx = shape
+    header = fits.Header()
+    header["NAXIS"] = 3
+    header["NAXIS1"] = nx
+    header["NAXIS2"] = ny
+    header["NAXIS3"] = nchan
+    values = {
+        "CTYPE1": "RA---TAN", "CRVAL1": 150.0, "CDELT1": -0.5 / 3600, "CRPIX1": nx / 2 + 0.5, "CUNIT1": "deg",
+        "CTYPE2": "DEC--TAN", "CRVAL2": -20.0, "CDELT2": 0.5 / 3600, "CRPIX2": ny / 2 + 0.5, "CUNIT2": "deg",
+        "CTYPE3": "FREQ", "CRVAL3": 230.5e9, "CDELT3": -244.0e3, "CRPIX3": 3.0, "CUNIT3": "Hz",
+        "RESTFRQ": 230.538e9, "SPECSYS": "TOPOCENT",
+        "BUNIT": "Jy/beam", "BMAJ": 2.0 / 3600, "BMIN": 1.5 / 3600, "BPA": 30.0,
+        "DATE-OBS": "2024-03-01T10:00:00", "EXPTIME": 1800.0,
+    }
+    values.update(cards)
+    for key, value in values.items():
+        if value is None:
+            header.remove(key, ignore_missing=True)
+        else:
+            header[key] = value
+    return header
+
+
+def write_cube(path: str | Path, shape: tuple[int, int, int] = SHAPE, seed: int = 0, stokes: bool = False,
+               **cards) -> Path:
+    """Write seeded N(0, 1) data with :func:`cube_header` (plus ``cards``) to ``path``; return the path."""
+    path = Path(path)
+    rng = np.random.default_rng(seed)
+    data = rng.normal(size=shape).astype(np.float32)
+    header = cube_header(shape, **cards)
+    if stokes:
+        data = data[None]
+        header["NAXIS"] = 4
+        header["NAXIS4"] = 1
+        for key, value in (("CTYPE4", "STOKES"), ("CRVAL4", 1.0), ("CDELT4", 1.0), ("CRPIX4", 1.0)):
+            header[key] = value
+    hdu = fits.PrimaryHDU(data=data)
+    for key, value in header.items():
+        if key not in ("NAXIS", "NAXIS1", "NAXIS2", "NAXIS3", "NAXIS4"):
+            hdu.header[key] = value
+    hdu.writeto(path, overwrite=True)
+    return path
