@@ -79,6 +79,10 @@ def _describe(error: jsonschema.ValidationError, source: str) -> str:
         return f"{source}: {where} is missing the required key {error.message.split(' ')[0]}"
     if error.validator == "oneOf" and where.endswith("target"):
         return f"{source}: target must give exactly one of 'ephemeris' or 'elements'"
+    if error.validator in ("oneOf", "anyOf") and error.context:
+        # name what each alternative expected, not just "not valid under any of the given schemas"
+        reasons = "; ".join(dict.fromkeys(e.message for e in error.context))
+        return f"{source}: key {where} = {error.instance!r} is not valid: {reasons}"
     return f"{source}: key {where} = {error.instance!r} is not valid: {error.message}"
 
 
@@ -109,9 +113,11 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
     errors = sorted(validator.iter_errors(config), key=lambda e: list(e.absolute_path))
     if errors:
         error = errors[0]
-        # report the innermost cause of a oneOf failure when it is a misspelt key
+        # report the innermost cause of a oneOf failure when it is a misspelt key, else an
+        # error below the key (e.g. a bad value inside the object alternative)
         if error.context:
             inner = [e for e in error.context if e.validator == "additionalProperties"]
+            inner = inner or [e for e in error.context if len(e.absolute_path) > len(error.absolute_path)]
             if inner:
                 error = inner[0]
         raise ConfigError(_describe(error, source))

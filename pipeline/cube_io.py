@@ -133,9 +133,24 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         raise CubeError(msg)
     bunit = _BRIGHTNESS_UNITS[key]
 
+    nchan = dims[2]
+    chan = np.arange(nchan, dtype=float)
+    crval = float(_card(header, "CRVAL3", path, "the spectral coordinate of the reference channel"))
+    cdelt = float(header.get("CDELT3", header.get("CD3_3", 0.0)))
+    if "CDELT3" in header:  # FITS WCS paper I: the step is CDELT3 x PC3_3 (PC3_3 defaults to 1)
+        cdelt *= float(header.get("PC3_3", 1.0))
+    crpix = float(header.get("CRPIX3", 1.0))
+    if cdelt == 0.0:
+        msg = f"{path}: header card CDELT3 is missing or zero; expected the channel step"
+        raise CubeError(msg)
+
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", FITSFixedWarning)
-        wcs = WCS(header, naxis=3)
+        try:
+            wcs = WCS(header, naxis=3)
+        except ValueError as exc:  # astropy.wcs.WcsError and its kin subclass ValueError
+            msg = f"{path}: the WCS header cards are not usable ({exc}); expected a valid FITS WCS"
+            raise CubeError(msg) from exc
     celestial = wcs.celestial
     if celestial.naxis != 2:
         msg = f"{path}: header cards CTYPE1/CTYPE2 do not describe sky coordinates (RA/Dec)"
@@ -143,13 +158,6 @@ def read_cube_info(path: str | Path) -> CubeInfo:
     scales = proj_plane_pixel_scales(celestial)  # deg per pixel along each sky axis
     pixel_scale = np.sqrt(scales[0] * scales[1]) * u.deg
 
-    nchan = dims[2]
-    chan = np.arange(nchan, dtype=float)
-    crval, cdelt = float(header["CRVAL3"]), float(header.get("CDELT3", header.get("CD3_3", 0.0)))
-    crpix = float(header.get("CRPIX3", 1.0))
-    if cdelt == 0.0:
-        msg = f"{path}: header card CDELT3 is missing or zero; expected the channel step"
-        raise CubeError(msg)
     cunit = u.Unit(str(header.get("CUNIT3", "Hz" if ctype3.startswith("FREQ") else "m/s")))
     axis = (crval + (chan + 1 - crpix) * cdelt) * cunit
     if ctype3.startswith("FREQ"):

@@ -18,7 +18,9 @@ from scipy.special import ndtr
 
 __all__ = ["thermal_dispersion", "interval_probability", "channel_fractions", "window_fraction"]
 
-_NODES, _WEIGHTS = np.polynomial.legendre.leggauss(96)
+_NODES, _WEIGHTS = np.polynomial.legendre.leggauss(24)
+#: offsets (in sigma) of the panel edges around each channel edge; Phi(-8) ~ 6e-16
+_EDGE_OFFSETS = np.array([-8.0, 0.0, 8.0])
 
 
 def thermal_dispersion(t_kin: u.Quantity, mass: u.Quantity) -> u.Quantity:
@@ -31,17 +33,28 @@ def interval_probability(lo: np.ndarray, hi: np.ndarray, v_out: float, sigma: fl
 
     Notes
     -----
-    P = (1/π) ∫_{-π/2}^{π/2} [Φ((hi - v sin θ)/σ) - Φ((lo - v sin θ)/σ)] dθ,
-    evaluated with 96-point Gauss-Legendre quadrature in θ (the integrand is
-    smooth). With σ = 0 it is the arcsine law, (asin(hi/v) - asin(lo/v))/π.
+    P = (1/π) ∫_{-π/2}^{π/2} [Φ((hi - v sin θ)/σ) - Φ((lo - v sin θ)/σ)] dθ.
+    Each Φ term steps from 1 to 0 over |v sin θ - edge| < 8σ, a θ-interval that
+    is narrow when σ << v, so [-π/2, π/2] is cut at θ = asin((edge + kσ)/v),
+    k = -8, 0, 8, for both edges, and each of the seven panels is integrated with
+    24-point Gauss-Legendre quadrature (relative error ~1e-11 for any σ/v).
+    With σ = 0 it is the arcsine law, (asin(hi/v) - asin(lo/v))/π; with v = 0
+    the Gaussian, Φ(hi/σ) - Φ(lo/σ).
     """
     lo = np.asarray(lo, dtype=float)[..., None]
     hi = np.asarray(hi, dtype=float)[..., None]
-    theta = 0.5 * np.pi * _NODES
-    u_los = v_out * np.sin(theta)
+    if sigma > 0 and v_out <= 0:
+        return (ndtr(hi / sigma) - ndtr(lo / sigma))[..., 0]
     if sigma > 0:
-        vals = ndtr((hi - u_los) / sigma) - ndtr((lo - u_los) / sigma)
-        return 0.5 * np.sum(_WEIGHTS * vals, axis=-1)
+        cuts = np.concatenate([lo + _EDGE_OFFSETS * sigma, hi + _EDGE_OFFSETS * sigma], axis=-1)
+        ends = np.full(cuts.shape[:-1] + (1,), 0.5 * np.pi)
+        edges = np.sort(np.concatenate([-ends, np.arcsin(np.clip(cuts / v_out, -1, 1)), ends],
+                                       axis=-1), axis=-1)
+        half = 0.5 * np.diff(edges, axis=-1)[..., None]
+        mid = 0.5 * (edges[..., 1:] + edges[..., :-1])[..., None]
+        u_los = v_out * np.sin(mid + half * _NODES)                  # (..., panel, node)
+        vals = ndtr((hi[..., None] - u_los) / sigma) - ndtr((lo[..., None] - u_los) / sigma)
+        return np.sum(half[..., 0] * (vals @ _WEIGHTS), axis=-1) / np.pi
     # sigma = 0: closed form of the arcsine law
     a = np.clip(lo[..., 0] / v_out, -1, 1)
     b = np.clip(hi[..., 0] / v_out, -1, 1)

@@ -60,13 +60,15 @@ def rebin_density(velocity: np.ndarray, density: np.ndarray, edges: np.ndarray) 
     blank = ~np.isfinite(y)
     cum = np.concatenate([np.zeros(y.shape[:-1] + (1,)), np.cumsum(np.where(blank, 0.0, y) * dv, axis=-1)],
                          axis=-1)
-    cum_blank = np.concatenate([[0], np.cumsum(blank.any(axis=tuple(range(blank.ndim - 1))))])
+    # blank channels are tracked per spectrum, so a blank in one row does not blank the others
+    cum_blank = np.concatenate([np.zeros(y.shape[:-1] + (1,)), np.cumsum(blank, axis=-1)], axis=-1)
     at = np.apply_along_axis(lambda c: np.interp(edges, in_edges, c), -1, cum)
     out = np.diff(at, axis=-1) / np.diff(edges)
     covered = (edges[:-1] >= in_edges[0] - 1e-9) & (edges[1:] <= in_edges[-1] + 1e-9)
-    nb = np.interp(edges, in_edges, cum_blank)
-    touched = np.diff(nb) > 0
-    out[..., ~covered | touched] = np.nan
+    nb = np.apply_along_axis(lambda c: np.interp(edges, in_edges, c), -1, cum_blank)
+    touched = np.diff(nb, axis=-1) > 0
+    out[..., ~covered] = np.nan
+    out[touched] = np.nan
     return out
 
 

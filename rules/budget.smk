@@ -7,7 +7,7 @@ rule budget:
         ecsv=report(f"{OUT}/budget.ecsv", caption="../report/budget.rst", category="Tables"),
         json=f"{OUT}/budget.json",
     params:
-        budget=config["budget"],
+        budget=canon(config["budget"]),
     log:
         f"{OUT}/logs/budget.log",
     benchmark:

@@ -1,4 +1,5 @@
 # Config validation, wildcard constraints and the helpers that build input lists.
+import json
 import sys
 
 from pipeline.config import check_inputs_exist, cube_entries, validate_config
@@ -25,6 +26,11 @@ wildcard_constraints:
     cube="[A-Za-z0-9][A-Za-z0-9_.-]*",
     line="[A-Za-z0-9][A-Za-z0-9_.+-]*",
     species="[A-Za-z0-9][A-Za-z0-9_+-]*",
+
+
+def canon(value):
+    """Params as canonical JSON, so key order in the YAML does not make Snakemake rerun jobs."""
+    return json.dumps(value, sort_keys=True)
 
 
 def cube_path(wildcards):

@@ -7,10 +7,10 @@ rule comoving:
         f"{OUT}/comoving/{{cube}}/{{line}}.fits",
     params:
         spectral_response=lambda w: CUBES[w.cube].spectral_response,
-        comoving=config["comoving"],
+        comoving=canon(config["comoving"]),
         window=config["limits"]["window_factor"],
-        coma=config["coma"],
-        apertures=[config.get("apertures_km", []), config.get("apertures_arcsec", [])],
+        coma=canon(config["coma"]),
+        apertures=canon([config.get("apertures_km", []), config.get("apertures_arcsec", [])]),
     log:
         f"{OUT}/logs/comoving/{{cube}}/{{line}}.log",
     benchmark:

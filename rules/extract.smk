@@ -5,9 +5,9 @@ rule extract:
     output:
         f"{OUT}/spectra/{{cube}}/{{line}}.fits",
     params:
-        apertures=[config.get("apertures_km", []), config.get("apertures_arcsec", [])],
-        limits=config["limits"],
-        coma=config["coma"],
+        apertures=canon([config.get("apertures_km", []), config.get("apertures_arcsec", [])]),
+        limits=canon(config["limits"]),
+        coma=canon(config["coma"]),
     log:
         f"{OUT}/logs/extract/{{cube}}/{{line}}.log",
     benchmark:

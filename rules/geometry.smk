@@ -9,8 +9,8 @@ rule geometry:
         epoch=lambda w: CUBES[w.cube].epoch,
         time=lambda w: CUBES[w.cube].time,
         tracked=lambda w: CUBES[w.cube].tracked,
-        target=config["target"],
-        observatory=config["observatory"],
+        target=canon(config["target"]),
+        observatory=canon(config["observatory"]),
     log:
         f"{OUT}/logs/geometry/{{cube}}.log",
     benchmark:

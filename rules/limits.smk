@@ -5,7 +5,7 @@ rule limits_species:
     output:
         f"{OUT}/limits/{{species}}.ecsv",
     params:
-        limits=config["limits"],
+        limits=canon(config["limits"]),
     log:
         f"{OUT}/logs/limits/{{species}}.log",
     benchmark:

@@ -11,6 +11,8 @@ rule report:
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),
         budget=report(f"{OUT}/figures/mass_budget.png", caption="../report/budget_figure.rst", category="Figures"),
         sweep=report(f"{OUT}/figures/temperature_sweep.png", caption="../report/sweep.rst", category="Figures"),
+    params:
+        shown=canon({k: config.get(k) for k in ("campaign", "target", "species", "limits", "budget", "coma")}),
     log:
         f"{OUT}/logs/report.log",
     benchmark:

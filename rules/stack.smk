@@ -5,8 +5,8 @@ rule stack:
     output:
         f"{OUT}/stack/{{species}}.fits",
     params:
-        excitation=config["excitation"],
-        coma=config["coma"],
+        excitation=canon(config["excitation"]),
+        coma=canon(config["coma"]),
     log:
         f"{OUT}/logs/stack/{{species}}.log",
     benchmark:

@@ -38,6 +38,9 @@ def _wcs_frequencies(path, restfrq=None):
     {},
     {"CUNIT3": "GHz", "CRVAL3": 345.79599, "CDELT3": 0.000122, "CRPIX3": 8.5},
     {"CDELT3": 488.0e3, "CRPIX3": -2.0},
+    {"CDELT3": -122.0e3, "PC3_3": 2.0},                       # step = CDELT3 x PC3_3 (FITS WCS paper I)
+    {"CDELT1": None, "CDELT2": None, "CDELT3": None,          # a CD matrix instead of CDELTi
+     "CD1_1": -0.5 / 3600, "CD2_2": 0.5 / 3600, "CD3_3": -244.0e3},
 ])
 def test_frequencies_match_astropy_wcs_and_spectral_cube(tmp_path, cards):
     path = write_cube(tmp_path / "c.fits", **cards)
@@ -139,6 +142,11 @@ def test_two_dimensional_image(tmp_path):
     ({"BMAJ": None, "BMIN": None}, "BUNIT = 'Jy/beam' needs a beam but header cards BMAJ/BMIN are missing"),
     ({"BUNIT": "K", "BMAJ": None}, "BUNIT = 'K' needs a beam"),
     ({"BMAJ": -1.0}, "expected positive sizes"),
+    ({"CRVAL3": None}, "header card CRVAL3 is missing"),
+    ({"CDELT3": 0.0}, "header card CDELT3 is missing or zero"),
+    ({"CUNIT3": "furlong"}, "the WCS header cards are not usable"),
+    ({"CTYPE1": "LINEAR", "CTYPE2": "LINEAR", "CUNIT1": None, "CUNIT2": None},
+     "CTYPE1/CTYPE2 do not describe sky coordinates"),
 ])
 def test_header_errors_name_the_card(tmp_path, cards, match):
     path = write_cube(tmp_path / "bad.fits", **cards)

@@ -73,6 +73,21 @@ def test_rebin_blank_and_uncovered_bins_are_nan():
     assert_allclose(out[[1, 2, 5, 6]], 1.0, rtol=1e-12)
 
 
+
+def test_rebin_blank_is_tracked_per_spectrum():
+    # a blank channel in one aperture's spectrum must not blank the same bin of the others
+    velocity = np.arange(0.0, 20.0, 1.0)
+    y = np.ones((2, 3, velocity.size))
+    y[0, 1, 10] = np.nan
+    edges = np.arange(0.5, 19.0, 2.0)
+    out = rebin_density(velocity, y, edges)
+    hit = (edges[:-1] < 10.5) & (edges[1:] > 9.5)
+    assert np.all(np.isnan(out[0, 1, hit]))
+    assert_allclose(out[0, 1, ~hit], 1.0, rtol=1e-12)
+    others = np.ones((2, 3), dtype=bool)
+    others[0, 1] = False
+    assert_allclose(out[others], 1.0, rtol=1e-12)
+
 def _inp(q, sigma, velocity, density, name):
     return StackInput(epoch="e1", cube_id=name, line_id="L", velocity=velocity, density=density,
                       q=np.asarray(q, float), sigma_q=np.asarray(sigma, float), radius_km=np.array([1000.0, 3000.0]))
