@@ -1,0 +1,69 @@
+"""The budget table: verdicts, ratios and allowed masses, checked by hand-worked numbers."""
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.table import QTable
+
+from pipeline.budget import assumptions_from_config, budget_table, rocket_fraction
+from pipeline.catalogue import load_catalogue
+
+CAT = load_catalogue()
+
+
+def _limits(rows):
+    return QTable({
+        "species": [r[0] for r in rows], "epoch": [r[1] for r in rows],
+        "aperture_km": [1000.0] * len(rows) * u.km, "t_kin_K": [40.0] * len(rows),
+        "q_upper": [r[2] for r in rows] / u.s, "detected": [False] * len(rows),
+    })
+
+
+def _assume(**kw):
+    budget = {"acceleration_m_s2": [2e-6, 2e-7], "interval_days": 30,
+              "nucleus": {"radius_km": [0.2, 0.5], "density_kg_m3": [500.0, 500.0]},
+              "ejection_speed_km_s": 0.5, "momentum_efficiency": 1.0, "drivers": ["H2O", "CO", "CO2"]}
+    budget.update(kw)
+    return assumptions_from_config(budget)
+
+
+def test_hand_worked_budget_row():
+    # Hand-worked: M_min = 4/3 pi (200 m)^3 500 kg/m^3 = 1.6755e10 kg; Mdot = M a / v = 1.6755e10 * 2e-6 / 500
+    # = 67.02 kg/s; Q(CO) = Mdot / (28.010 u = 4.6512e-26 kg) = 1.4409e27 /s. M_max (R = 500 m) = 2.618e11 kg.
+    assume = _assume()
+    table = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, assume, CAT)
+    row = table[(table["species"] == "CO") & (table["epoch"] == "all")][0]
+    assert row["mdot_required_min"].to_value(u.kg / u.s) == pytest.approx(67.02, rel=1e-3)
+    assert row["q_required_min"].to_value(1 / u.s) == pytest.approx(1.4409e27, rel=1e-3)
+    # largest mass: M = v q m / a = 500 * 1e28 * 4.6512e-26 / 2e-6 = 1.1628e11 kg, inside the range
+    assert row["mass_allowed"].to_value(u.kg) == pytest.approx(1.1628e11, rel=1e-3)
+    assert row["verdict"] == "excluded above the allowed mass"
+    assert row["ratio_min"] == pytest.approx(0.14409, rel=1e-3)
+
+
+def test_not_observed_is_never_excluded():
+    table = budget_table(_limits([("CO", "all", 1e20)]), {"all": 1.0 * u.au}, _assume(), CAT)
+    h2o = table[table["species"] == "H2O"][0]
+    assert h2o["verdict"] == "not observed" and np.isnan(h2o["q_upper"].value)
+    co = table[table["species"] == "CO"][0]
+    assert co["verdict"] == "excluded for every mass in the range"
+
+
+def test_not_excluded_when_limit_is_large():
+    table = budget_table(_limits([("CO", "all", 1e35)]), {"all": 1.0 * u.au}, _assume(), CAT)
+    assert table[table["species"] == "CO"][0]["verdict"] == "not excluded"
+
+
+def test_rocket_fraction_rule_of_thumb():
+    # common practice (no source): 2e-5 m/s^2 for 30 days at 300 m/s costs about a sixth of the mass
+    assume = _assume(acceleration_m_s2=[2e-5, 0.0], ejection_speed_km_s=0.3)
+    assert 0.14 < rocket_fraction(assume, 1 * u.au) < 0.18
+
+
+def test_nongrav_input_uses_g_at_rh():
+    # g(1 au) = 1 (Marsden et al. 1973 normalisation): |a| = sqrt(A1^2+A2^2+A3^2) au/d^2 at 1 au
+    assume = _assume(nongrav={"A1": 3e-8, "A2": 4e-8, "A3": 0.0})
+    assume = type(assume)(**{**assume.__dict__, "acceleration": None})
+    table = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, assume, CAT)
+    expected = (5e-8 * u.au / u.day**2).to_value(u.m / u.s**2)
+    assert table[0]["acceleration"].to_value(u.m / u.s**2) == pytest.approx(expected, rel=2e-3)
