@@ -54,10 +54,15 @@ def background_factor(freq: u.Quantity, t_ex: u.Quantity, t_bg: u.Quantity = T_C
     B_nu(T_bg), the emerging excess intensity is (B_nu(T_ex) - B_nu(T_bg)) tau,
     i.e. the emission h nu A N_u / (4 pi) times this factor
     (e.g. Mangum & Shirley 2015, PASP 127, 266, eq. 27).
+    With x = h nu / kT, the ratio (e^x_ex - 1)/(e^x_bg - 1) is evaluated as
+    e^(x_ex - x_bg) (1 - e^-x_ex)/(1 - e^-x_bg), which stays finite for
+    T_bg -> 0 (no background, factor 1) and for cold T_ex.
     """
-    x_ex = (const.h * freq / (const.k_B * u.Quantity(t_ex, u.K))).decompose().value
-    x_bg = (const.h * freq / (const.k_B * u.Quantity(t_bg, u.K))).decompose().value
-    return 1.0 - np.expm1(x_ex) / np.expm1(x_bg)
+    h_nu_k = (const.h * u.Quantity(freq) / const.k_B).to_value(u.K)
+    with np.errstate(divide="ignore"):  # t_bg = 0 K: x_bg = inf, no background
+        x_ex = h_nu_k / u.Quantity(t_ex, u.K).value
+        x_bg = h_nu_k / u.Quantity(t_bg, u.K).value
+    return 1.0 - np.exp(x_ex - x_bg) * np.expm1(-x_ex) / np.expm1(-x_bg)
 
 
 def flux_per_molecule(line: Line, species: Species, t_kin: u.Quantity,

@@ -43,6 +43,7 @@ def interval_probability(lo: np.ndarray, hi: np.ndarray, v_out: float, sigma: fl
     """
     lo = np.asarray(lo, dtype=float)[..., None]
     hi = np.asarray(hi, dtype=float)[..., None]
+    lo, hi = np.broadcast_arrays(lo, hi)
     if sigma > 0 and v_out <= 0:
         return (ndtr(hi / sigma) - ndtr(lo / sigma))[..., 0]
     if sigma > 0:

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 from astropy.io import fits
 
-__all__ = ["cube_header", "write_cube"]
+__all__ = ["SHAPE", "cube_header", "write_cube"]
 
 #: Axis lengths of the default cube (numpy order: channel, y, x).
 SHAPE = (16, 12, 10)

@@ -6,6 +6,7 @@ import astropy.units as u
 import numpy as np
 import pytest
 import radio_beam
+from astropy.constants import c, k_B
 from astropy.tests.helper import assert_quantity_allclose
 from numpy.testing import assert_allclose
 from photutils.aperture import CircularAperture, aperture_photometry
@@ -29,9 +30,9 @@ def test_single_channel_sums_match_photutils_exact(seed):
     sums, n_blank = aperture_spectra(cube, weights, chunk=2)
     assert sums.shape == (3, n_chan)
     assert np.all(n_blank == 0)
-    for (i, (x, y, r)), c in itertools.product(enumerate(centres), range(n_chan)):
-        ref = aperture_photometry(cube[c], CircularAperture((x, y), r=r), method="exact")["aperture_sum"][0]
-        assert_allclose(sums[i, c], ref, rtol=0, atol=1e-10)
+    for (i, (x, y, r)), ch in itertools.product(enumerate(centres), range(n_chan)):
+        ref = aperture_photometry(cube[ch], CircularAperture((x, y), r=r), method="exact")["aperture_sum"][0]
+        assert_allclose(sums[i, ch], ref, rtol=0, atol=1e-10)
     # area = pi r^2 exactly for an aperture fully inside (closed form)
     for w, (_, _, r) in zip(weights, centres):
         assert_allclose(w.area, np.pi * r**2, rtol=1e-12)
@@ -51,9 +52,9 @@ def test_nan_inside_aperture_blanks_the_channel_and_is_counted():
     assert np.isnan(ref)
     assert np.isnan(sums[0, 1]) and np.isnan(sums[0, 2])
     assert_allclose(n_blank[0], [0, 1, 2, 0])
-    for c in (0, 3):
-        ref = aperture_photometry(cube[c], CircularAperture((x, y), r=r), method="exact")["aperture_sum"][0]
-        assert_allclose(sums[0, c], ref, atol=1e-10)
+    for ch in (0, 3):
+        ref = aperture_photometry(cube[ch], CircularAperture((x, y), r=r), method="exact")["aperture_sum"][0]
+        assert_allclose(sums[0, ch], ref, atol=1e-10)
 
 
 def test_nan_in_bounding_box_but_outside_circle_is_ignored():
@@ -108,7 +109,6 @@ def test_flux_conversion_kelvin_against_astropy_and_radio_beam():
     ref_rb = [(1 * u.K).to_value(u.Jy / u.beam, equivalencies=beam.jtok_equiv(nu)) for nu in FREQS]
     assert_allclose(f, np.array(ref_rb) * ratio, rtol=1e-10)
     # closed form (Rayleigh-Jeans): S = 2 k nu^2 T Omega / c^2 (astropy constants)
-    from astropy.constants import c, k_B
     rj = (2 * k_B * FREQS**2 * (1 * u.K) * beam.sr / (c**2 * u.sr)).to_value(u.Jy)
     assert_allclose(f, rj * ratio, rtol=1e-10)
 

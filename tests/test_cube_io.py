@@ -1,11 +1,13 @@
 """Tests of pipeline.cube_io on tiny FITS cubes, against astropy.wcs, spectral_cube and radio_beam."""
 
+import hashlib
 import warnings
 
 import astropy.units as u
 import numpy as np
 import pytest
 import radio_beam
+from astropy.constants import c
 from astropy.io import fits
 from astropy.tests.helper import assert_quantity_allclose
 from astropy.time import Time
@@ -63,7 +65,6 @@ def test_velocity_axis_converted_with_radio_convention(tmp_path):
     info = read_cube_info(path)
     # astropy.wcs SpectralCoord converted with the radio Doppler convention nu = nu0 (1 - v / c)
     assert_quantity_allclose(info.frequencies, _wcs_frequencies(path, restfrq=rest), rtol=1e-14)
-    from astropy.constants import c
     v = (1500.0 + (np.arange(SHAPE[0]) + 1 - 3.0) * -317.5) * u.m / u.s
     assert_quantity_allclose(info.frequencies, rest * (1 - v / c), rtol=1e-14)
 
@@ -211,8 +212,6 @@ def test_override_time_error(tmp_path):
 
 
 def test_input_file_is_not_modified(tmp_path):
-    import hashlib
-
     path = write_cube(tmp_path / "ro.fits")
     before = hashlib.sha256(path.read_bytes()).hexdigest()
     info = read_cube_info(path)

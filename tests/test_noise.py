@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-from pipeline.errors import CoverageError
+from pipeline.errors import CoverageError, NoiseWarning
 from pipeline.noise import (channel_sigma, fit_baseline, line_free_mask, window_sum_noise,
                             window_weights)
 
@@ -137,8 +137,6 @@ def test_fit_baseline_too_few_channels():
 
 
 def test_noise_warning_when_too_few_windows():
-    from pipeline.errors import NoiseWarning
-
     rng = np.random.default_rng(15)
     spec = rng.normal(size=60)
     free = np.ones(60, dtype=bool)
