@@ -68,12 +68,28 @@ def aperture_weights(shape: tuple[int, int], x: float, y: float, radius_pix: flo
                            radius_pix=float(radius_pix))
 
 
+def _union_weights(apertures: list[ApertureWeights]) -> tuple[slice, slice, np.ndarray]:
+    """The union bounding box and a (n_pixels_in_box, n_apertures) weight matrix on it."""
+    y0 = min(a.ys.start for a in apertures)
+    y1 = max(a.ys.stop for a in apertures)
+    x0 = min(a.xs.start for a in apertures)
+    x1 = max(a.xs.stop for a in apertures)
+    matrix = np.zeros((y1 - y0, x1 - x0, len(apertures)))
+    for i, ap in enumerate(apertures):
+        matrix[ap.ys.start - y0:ap.ys.stop - y0, ap.xs.start - x0:ap.xs.stop - x0, i] = ap.weights
+    return slice(y0, y1), slice(x0, x1), matrix.reshape(-1, len(apertures))
+
+
 def aperture_spectra(data: np.ndarray, apertures: list[ApertureWeights],
-                     chunk: int = 512) -> tuple[np.ndarray, np.ndarray]:
+                     chunk: int = 256) -> tuple[np.ndarray, np.ndarray]:
     """Weighted sums of ``data`` (n_chan, n_y, n_x) over each aperture, channel by channel.
 
     Only the union of the apertures' bounding boxes is read, ``chunk`` channels
-    at a time, so memory is bounded by one chunk of the box.
+    at a time (memory bounded by one chunk of the box), and all apertures are
+    reduced at once by one matrix product per chunk. The arithmetic is done in
+    the data's own precision (float32 data: float32 products, a relative error
+    of about 1e-7 per term), so the reduction runs near the speed of copying
+    the box out of the file.
 
     Returns
     -------
@@ -84,24 +100,24 @@ def aperture_spectra(data: np.ndarray, apertures: list[ApertureWeights],
         Number of blank pixels inside each aperture per channel.
     """
     nchan = data.shape[0]
-    y0 = min(a.ys.start for a in apertures)
-    y1 = max(a.ys.stop for a in apertures)
-    x0 = min(a.xs.start for a in apertures)
-    x1 = max(a.xs.stop for a in apertures)
+    ys, xs, matrix = _union_weights(apertures)
+    work = np.float64 if np.dtype(data.dtype).itemsize > 4 else np.float32
+    wmat = matrix.astype(work)
+    inside = matrix > 0
     sums = np.empty((len(apertures), nchan))
     n_blank = np.zeros((len(apertures), nchan), dtype=np.int64)
     for c0 in range(0, nchan, chunk):
         c1 = min(nchan, c0 + chunk)
-        box = np.asarray(data[c0:c1, y0:y1, x0:x1], dtype=np.float64)
-        for i, ap in enumerate(apertures):
-            sub = box[:, ap.ys.start - y0:ap.ys.stop - y0, ap.xs.start - x0:ap.xs.stop - x0]
-            blank = np.isnan(sub) & (ap.weights > 0)
-            nb = blank.sum(axis=(1, 2))
-            # zero every NaN before the contraction: a blank pixel of zero weight (bounding-box
-            # corner outside the circle) would otherwise turn the sum NaN via NaN * 0
-            sums[i, c0:c1] = np.tensordot(np.where(np.isnan(sub), 0.0, sub), ap.weights, axes=([1, 2], [0, 1]))
-            sums[i, c0:c1][nb > 0] = np.nan
-            n_blank[i, c0:c1] = nb
+        box = np.ascontiguousarray(data[c0:c1, ys, xs], dtype=work).reshape(c1 - c0, -1)
+        part = box @ wmat                                   # (n, n_ap)
+        bad = np.flatnonzero(~np.all(np.isfinite(part), axis=1))
+        for k in bad:  # rare path: blank pixels somewhere in the box for this channel
+            blank = np.isnan(box[k])
+            nb = (blank[:, None] & inside).sum(axis=0)
+            part[k] = np.where(blank, 0.0, box[k]).astype(np.float64) @ matrix
+            part[k, nb > 0] = np.nan
+            n_blank[:, c0 + k] = nb
+        sums[:, c0:c1] = part.T
     return sums, n_blank
 
 

@@ -41,6 +41,8 @@ class CubeEntry:
     time: str | None
     spectral_response: str = "hanning"
     tracked: bool = True
+    position: str = "auto"
+    offset: tuple[float, float] = (0.0, 0.0)
 
 
 def _load_schema() -> dict:
@@ -144,7 +146,9 @@ def cube_entries(config: dict[str, Any]) -> list[CubeEntry]:
         entries.append(CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id),
                                  path=item["path"], time=item.get("time"),
                                  spectral_response=item.get("spectral_response", "hanning"),
-                                 tracked=bool(item.get("tracked", True))))
+                                 tracked=bool(item.get("tracked", True)),
+                                 position=item.get("position", "auto"),
+                                 offset=tuple(item.get("offset_arcsec", (0.0, 0.0)))))
     return entries
 
 

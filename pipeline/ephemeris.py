@@ -17,13 +17,19 @@ from astropy.table import QTable
 from astropy.time import Time
 from scipy.interpolate import CubicSpline
 
-from .errors import EphemerisError
+from .errors import EphemerisError, GasledgerWarning
 
-__all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris"]
+__all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing",
+           "SpacingWarning"]
+
+
+class SpacingWarning(GasledgerWarning):
+    """The ephemeris table is too coarse for the accuracy asked for."""
 
 #: Required columns and their default units.
 EPHEMERIS_COLUMNS = {"ra": u.deg, "dec": u.deg, "r_h": u.au, "delta": u.au, "delta_dot": u.km / u.s}
-_OPTIONAL = {"phase": u.deg}
+_OPTIONAL = {"phase": u.deg, "ra_rate": u.arcsec / u.h, "dec_rate": u.arcsec / u.h,
+             "delta_dot_geocentric": u.km / u.s}
 
 
 @dataclass(frozen=True)
@@ -91,14 +97,23 @@ def read_ephemeris(path: str | Path) -> Ephemeris:
     except Exception as exc:  # astropy raises several types for malformed tables
         msg = f"ephemeris file {str(path)!r} is not a readable {fmt} table: {exc}"
         raise EphemerisError(msg) from exc
+    for alias, fmt_t in (("jd", "jd"), ("mjd", "mjd")):
+        if "time" not in table.colnames and alias in table.colnames:
+            table["time"] = Time(np.asarray(table[alias], dtype=float), format=fmt_t, scale="utc")
     missing = [c for c in ("time", *EPHEMERIS_COLUMNS) if c not in table.colnames]
     if missing:
         msg = (f"ephemeris file {str(path)!r} lacks the column(s) {', '.join(missing)}; expected "
-               f"time, {', '.join(EPHEMERIS_COLUMNS)} (phase optional)")
+               f"time (or jd / mjd), {', '.join(EPHEMERIS_COLUMNS)} (phase, ra_rate, dec_rate optional)")
         raise EphemerisError(msg)
     try:
         col = table["time"]
-        times = col if isinstance(col, Time) else Time(list(col), scale="utc")
+        if isinstance(col, Time):
+            times = col
+        elif np.issubdtype(np.asarray(col).dtype, np.number):
+            values = np.asarray(col, dtype=float)
+            times = Time(values, format="jd" if np.all(values > 2_400_000) else "mjd", scale="utc")
+        else:
+            times = Time(list(col), scale="utc")
     except ValueError as exc:
         msg = f"ephemeris file {str(path)!r}: column 'time' holds values that are not times ({exc})"
         raise EphemerisError(msg) from exc
@@ -133,3 +148,42 @@ def read_ephemeris(path: str | Path) -> Ephemeris:
             msg = f"ephemeris file {str(path)!r}: column {name!r} must be positive"
             raise EphemerisError(msg)
     return Ephemeris(source=str(path), jd=jd, columns=columns)
+
+
+def interpolation_error(ephem: Ephemeris) -> dict[str, u.Quantity]:
+    """Estimated worst interpolation error of the sky position and the range rate.
+
+    Notes
+    -----
+    A cubic spline's error falls as h^4 with the spacing h. A spline through
+    every other row, evaluated at the rows it skipped, errs by about 16 times
+    the full table's error, so the full table's error is estimated as the
+    largest of those misses divided by 16 (Richardson's argument).
+    """
+    if ephem.jd.size < 9:
+        return {"position": np.nan * u.arcsec, "delta_dot": np.nan * u.km / u.s}
+    x = ephem.jd - ephem.jd[0]
+    even, odd = slice(0, None, 2), slice(1, -1, 2)
+
+    def miss(values):
+        return np.max(np.abs(CubicSpline(x[even], values[even])(x[odd]) - values[odd])) / 16.0
+
+    ra = np.unwrap(ephem.columns["ra"].to_value(u.deg), period=360.0)
+    dec = ephem.columns["dec"].to_value(u.deg)
+    cosd = np.cos(np.deg2rad(np.max(np.abs(dec))))
+    pos = np.hypot(miss(ra) * cosd, miss(dec)) * 3600
+    return {"position": pos * u.arcsec, "delta_dot": miss(ephem.columns["delta_dot"].to_value(u.km / u.s)) * u.km / u.s}
+
+
+def check_spacing(ephem: Ephemeris, position: u.Quantity = 0.05 * u.arcsec,
+                  delta_dot: u.Quantity = 0.01 * u.km / u.s) -> dict[str, u.Quantity]:
+    """Warn (:class:`SpacingWarning`) when the table is too coarse for the accuracy asked for."""
+    import warnings
+
+    err = interpolation_error(ephem)
+    if err["position"] > position or err["delta_dot"] > delta_dot:
+        warnings.warn(f"ephemeris {ephem.source}: its spacing gives interpolation errors of about "
+                      f"{err['position'].to_value(u.arcsec):.3g} arcsec and "
+                      f"{err['delta_dot'].to(u.m / u.s).value:.3g} m/s, more than the {position} and "
+                      f"{delta_dot.to(u.m / u.s)} asked for; use a finer table", SpacingWarning, stacklevel=2)
+    return err

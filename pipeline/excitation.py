@@ -55,8 +55,8 @@ def background_factor(freq: u.Quantity, t_ex: u.Quantity, t_bg: u.Quantity = T_C
     i.e. the emission h nu A N_u / (4 pi) times this factor
     (e.g. Mangum & Shirley 2015, PASP 127, 266, eq. 27).
     With x = h nu / kT, the ratio (e^x_ex - 1)/(e^x_bg - 1) is evaluated as
-    e^(x_ex - x_bg) (1 - e^-x_ex)/(1 - e^-x_bg), which stays finite for
-    T_bg -> 0 (no background, factor 1) and for cold T_ex.
+    e^(x_ex - x_bg) (1 - e^-x_ex)/(1 - e^-x_bg), which stays finite as
+    T_bg -> 0 (no background: factor 1, also at T_bg = 0 K).
     """
     h_nu_k = (const.h * u.Quantity(freq) / const.k_B).to_value(u.K)
     with np.errstate(divide="ignore"):  # t_bg = 0 K: x_bg = inf, no background

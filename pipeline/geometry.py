@@ -60,7 +60,8 @@ def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
 
 def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str | None = None,
                   ephemeris: Ephemeris | None = None, elements: OrbitalElements | None = None,
-                  location: EarthLocation | None = None, tracked: bool = True) -> QTable:
+                  location: EarthLocation | None = None, tracked: bool = True, position: str = "auto",
+                  offset: tuple[float, float] = (0.0, 0.0)) -> QTable:
     """One-row table with the geometry of the target for one cube.
 
     Columns: cube_id, epoch, time_start/time_mid/time_end (UTC), ra, dec, r_h,
@@ -73,6 +74,12 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     usual way for moving targets), so its motion does not smear the coma;
     for an untracked cube a :class:`MotionWarning` is given when the target
     moved by more than a quarter of the beam.
+
+    ``position`` chooses where the target is on the sky: ``'ephemeris'`` (its
+    predicted RA/Dec at mid-time), ``'phase_centre'`` (the cube's reference
+    position, for cubes made in the target's frame) or ``'auto'`` (the phase
+    centre when SPECSYS = SOURCE, else the ephemeris; the choice is logged).
+    ``offset`` (arcsec, east and north) is added to either.
 
     Raises
     ------
@@ -87,7 +94,21 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
                           elements=elements, location=location)
     sky = SkyCoord(geo["ra"], geo["dec"], frame="icrs")
     motion = sky[0].separation(sky[2]).to(u.arcsec)
-    x, y = info.celestial_wcs.world_to_pixel(sky[1])
+    mode = position
+    if mode == "auto":
+        mode = "phase_centre" if info.specsys == "SOURCE" else "ephemeris"
+        log.info("cube %s: target position from the %s (automatic choice, SPECSYS = %s)", cube_id,
+                 mode.replace("_", " "), info.specsys)
+    if mode == "phase_centre":
+        ra0, dec0 = info.celestial_wcs.wcs.crval
+        base = SkyCoord(ra0 * u.deg, dec0 * u.deg, frame="icrs")
+    elif mode == "ephemeris":
+        base = sky[1]
+    else:
+        msg = f"cube {cube_id}: position must be auto, ephemeris or phase_centre, found {position!r}"
+        raise ValueError(msg)
+    target = base.spherical_offsets_by(offset[0] * u.arcsec, offset[1] * u.arcsec) if any(offset) else base
+    x, y = info.celestial_wcs.world_to_pixel(target)
     ny, nx = info.shape[1:]
     if not (-0.5 <= x <= nx - 0.5 and -0.5 <= y <= ny - 0.5):
         msg = (f"{info.path}: the target (RA {geo['ra'][1].to_value(u.deg):.5f} deg, Dec "
@@ -112,6 +133,8 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
         "motion": [motion.to_value(u.arcsec)] * u.arcsec,
         "delta_dot_change": [(geo["delta_dot"][2] - geo["delta_dot"][0]).to_value(u.km / u.s)] * (u.km / u.s),
         "x_pix": [float(x)], "y_pix": [float(y)], "specsys": [info.specsys], "tracked": [tracked],
+        "position": [mode], "offset_east": [float(offset[0])] * u.arcsec, "offset_north": [float(offset[1])] * u.arcsec,
+        "ra_target": [target.ra.deg] * u.deg, "dec_target": [target.dec.deg] * u.deg,
         "beam_major": [info.beam_major.to_value(u.arcsec) if info.beam_major is not None else np.nan] * u.arcsec,
         "beam_minor": [info.beam_minor.to_value(u.arcsec) if info.beam_minor is not None else np.nan] * u.arcsec,
         "freq_min": [info.frequencies.min().to_value(u.GHz)] * u.GHz,

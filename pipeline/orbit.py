@@ -598,6 +598,8 @@ def ephemeris_from_elements(
 ) -> QTable:
     """:func:`observe` on the grid ``start + k * step <= stop`` (``stop`` included on the grid).
 
+    With a ``location`` the table also has ``delta_dot_geocentric``, the range rate seen from the geocentre.
+
     ``step`` is a time Quantity > 0; ``step <= 0``, ``stop < start`` or more than
     1,000,000 rows raise `EphemerisError`.  ``location`` as in :func:`observe`.
     """
@@ -618,4 +620,7 @@ def ephemeris_from_elements(
         raise EphemerisError(msg)
     with future_time_tolerated():
         times = start + TimeDelta(np.arange(n) * step_s, format="sec")
-    return observe(elements, times, location)
+    table = observe(elements, times, location)
+    if location is not None:  # both range rates: topocentric (delta_dot) and geocentric
+        table["delta_dot_geocentric"] = observe(elements, times, None)["delta_dot"]
+    return table

@@ -9,6 +9,8 @@ rule geometry:
         epoch=lambda w: CUBES[w.cube].epoch,
         time=lambda w: CUBES[w.cube].time,
         tracked=lambda w: CUBES[w.cube].tracked,
+        position=lambda w: CUBES[w.cube].position,
+        offset=lambda w: list(CUBES[w.cube].offset),
         target=canon(config["target"]),
         observatory=canon(config["observatory"]),
     log:

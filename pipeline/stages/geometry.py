@@ -7,7 +7,7 @@ from typing import Any
 
 from ..atomic import write_table
 from ..cube_io import read_cube_info
-from ..ephemeris import read_ephemeris
+from ..ephemeris import check_spacing, read_ephemeris
 from ..geometry import cube_geometry
 from ..orbit import OrbitalElements
 from ..provenance import provenance_record
@@ -17,7 +17,8 @@ __all__ = ["run"]
 
 
 def run(cube_path: str, cube_id: str, epoch: str, time_override: str | None,
-        config: dict[str, Any], out_path: str, tracked: bool = True) -> None:
+        config: dict[str, Any], out_path: str, tracked: bool = True, position: str = "auto",
+        offset: tuple[float, float] = (0.0, 0.0)) -> None:
     """Compute and write the geometry table of one cube."""
     info = read_cube_info(cube_path)
     target = config["target"]
@@ -25,9 +26,11 @@ def run(cube_path: str, cube_id: str, epoch: str, time_override: str | None,
     if "ephemeris" in target:
         ephem, elements = read_ephemeris(target["ephemeris"]), None
         inputs.append(target["ephemeris"])
+        check_spacing(ephem)
     else:
         ephem, elements = None, OrbitalElements.from_mapping(target["elements"])
     table = cube_geometry(info, cube_id, epoch, time_override, ephemeris=ephem, elements=elements,
-                          location=location_from_config(config), tracked=tracked)
+                          location=location_from_config(config), tracked=tracked,
+                          position=position, offset=tuple(offset))
     table.meta["provenance"] = provenance_record(config, inputs, "geometry")
     write_table(table, Path(out_path))

@@ -6,4 +6,4 @@ log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):
     geometry.run(snakemake.input.cube, snakemake.wildcards.cube, snakemake.params.epoch,  # noqa: F821
                  snakemake.params.time, snakemake.config, snakemake.output[0],  # noqa: F821
-                 snakemake.params.tracked)  # noqa: F821
+                 snakemake.params.tracked, snakemake.params.position, snakemake.params.offset)  # noqa: F821
