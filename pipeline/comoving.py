@@ -20,7 +20,7 @@ from astropy.time import Time
 
 from .catalogue import Line
 from .cube_io import CubeInfo, open_data
-from .spectral_frame import _check_linear, radio_velocity, to_target_frame, to_topocentric
+from .spectral_frame import linear_axis, radio_velocity, to_target_frame, to_topocentric
 
 __all__ = ["SubCube", "target_frame_velocities", "cut_subcube", "crop_box"]
 
@@ -33,6 +33,7 @@ class SubCube:
     header: fits.Header
     covered: bool
     reason: str
+    velocity: np.ndarray | None = None   # exact radio velocity of each channel [km/s]
 
 
 def target_frame_velocities(info: CubeInfo, geometry, line: Line,
@@ -97,7 +98,7 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
     ys, xs = crop_box(info.shape[1:], float(geometry["x_pix"]), float(geometry["y_pix"]), crop_half_size)
     with open_data(info.path) as data:
         sub = np.array(data[c0:c1, ys, xs], dtype=np.float32)
-    v0, dv = _check_linear(vel[c0:c1], f"{info.path}")
+    v0, dv, deviation = linear_axis(vel[c0:c1])
     wcs2 = info.celestial_wcs[ys, xs]
     header.update(wcs2.to_header())
     header["WCSAXES"] = 3
@@ -113,6 +114,7 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
         if card in info.header:
             header[card] = info.header[card]
     header["GLCOVER"] = (True, "integration window covered by the band")
+    header["GLVLIN"] = (deviation < 1e-3, "linear WCS exact (else see the VELOCITY table)")
     header["GLCHAN0"] = (c0, "first channel taken from the cube (0-based)")
     header["GLXPIX"] = (float(geometry["x_pix"]) - xs.start, "target x pixel (0-based) in this sub-cube")
     header["GLYPIX"] = (float(geometry["y_pix"]) - ys.start, "target y pixel (0-based) in this sub-cube")
@@ -121,4 +123,4 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
     header["GLDDOT"] = (u.Quantity(geometry["delta_dot"]).to_value(u.km / u.s), "[km/s] topocentric range rate")
     header["GLFREQ0"] = (info.frequencies[c0].to_value(u.Hz), "[Hz] labelled frequency of the first channel")
     header["GLDFREQ"] = ((info.frequencies[1] - info.frequencies[0]).to_value(u.Hz), "[Hz] labelled channel step")
-    return SubCube(data=sub, header=header, covered=True, reason="")
+    return SubCube(data=sub, header=header, covered=True, reason="", velocity=vel[c0:c1])

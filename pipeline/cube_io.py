@@ -30,7 +30,9 @@ __all__ = [
 ]
 
 SPECSYS_VALUES = ("TOPOCENT", "GEOCENTR", "BARYCENT", "LSRK", "SOURCE")
-_SPECTRAL_CTYPES = ("FREQ", "VRAD")
+_SPECTRAL_CTYPES = ("FREQ", "VRAD", "VOPT", "WAVE")
+_DEFAULT_CUNIT = {"FREQ": "Hz", "VRAD": "m/s", "VOPT": "m/s", "WAVE": "m"}
+_CUNIT_KIND = {"FREQ": "frequency", "VRAD": "speed", "VOPT": "speed", "WAVE": "length"}
 _BRIGHTNESS_UNITS = {
     "JY/BEAM": u.Jy / u.beam,
     "JY BEAM-1": u.Jy / u.beam,
@@ -144,6 +146,17 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         msg = f"{path}: header card CDELT3 is missing or zero; expected the channel step"
         raise CubeError(msg)
 
+    kind = ctype3[:4]
+    try:
+        cunit = u.Unit(str(header.get("CUNIT3", _DEFAULT_CUNIT[kind])))
+    except ValueError as exc:
+        msg = f"{path}: header card CUNIT3 = {header.get('CUNIT3')!r} is not a unit"
+        raise CubeError(msg) from exc
+    if cunit.physical_type != _CUNIT_KIND[kind]:
+        msg = (f"{path}: header cards CTYPE3 = {ctype3!r} and CUNIT3 = {header.get('CUNIT3')!r} contradict each "
+               f"other; expected a {_CUNIT_KIND[kind]} unit for a {kind} axis")
+        raise CubeError(msg)
+
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", FITSFixedWarning)
         try:
@@ -158,16 +171,25 @@ def read_cube_info(path: str | Path) -> CubeInfo:
     scales = proj_plane_pixel_scales(celestial)  # deg per pixel along each sky axis
     pixel_scale = np.sqrt(scales[0] * scales[1]) * u.deg
 
-    cunit = u.Unit(str(header.get("CUNIT3", "Hz" if ctype3.startswith("FREQ") else "m/s")))
     axis = (crval + (chan + 1 - crpix) * cdelt) * cunit
-    if ctype3.startswith("FREQ"):
+    rest = [float(header[k]) for k in ("RESTFRQ", "RESTFREQ") if k in header]
+    if len(rest) == 2 and not np.isclose(rest[0], rest[1], rtol=1e-12):
+        msg = (f"{path}: header cards RESTFRQ = {rest[0]} and RESTFREQ = {rest[1]} contradict each other; "
+               "expected one rest frequency")
+        raise CubeError(msg)
+    if kind == "FREQ":
         freqs = axis.to(u.Hz)
+    elif kind == "WAVE":  # vacuum wavelength (FITS WCS paper III)
+        freqs = axis.to(u.Hz, equivalencies=u.spectral())
     else:
-        restfrq = header.get("RESTFRQ", header.get("RESTFREQ"))
-        if restfrq is None:
+        if not rest:
             msg = f"{path}: CTYPE3 = {ctype3!r} is a velocity axis but header card RESTFRQ is missing"
             raise CubeError(msg)
-        freqs = axis.to(u.Hz, equivalencies=u.doppler_radio(float(restfrq) * u.Hz))
+        doppler = u.doppler_radio if kind == "VRAD" else u.doppler_optical
+        freqs = axis.to(u.Hz, equivalencies=doppler(rest[0] * u.Hz))
+    if np.any(~np.isfinite(freqs)) or np.any(freqs <= 0):
+        msg = f"{path}: the spectral axis (CTYPE3 = {ctype3!r}) gives non-positive frequencies"
+        raise CubeError(msg)
 
     bmaj = bmin = bpa = None
     if "BMAJ" in header and "BMIN" in header:

@@ -39,8 +39,13 @@ class ExtractionSettings:
     exclude_margin_channels: int = 3
 
 
-def subcube_velocities(header: fits.Header) -> np.ndarray:
-    """Velocity [km/s] of each channel of a sub-cube (linear VRAD axis)."""
+def subcube_velocities(header: fits.Header, path=None) -> np.ndarray:
+    """Velocity [km/s] of each channel of a sub-cube: its VELOCITY table when the file has one, else the
+    linear VRAD axis of ``header``."""
+    if path is not None:
+        with fits.open(path) as hdul:
+            if "VELOCITY" in hdul:
+                return np.asarray(Table.read(hdul["VELOCITY"])["velocity"].to(u.km / u.s).value, dtype=float)
     n = header["NAXIS3"]
     v = header["CRVAL3"] + (np.arange(n) + 1 - header["CRPIX3"]) * header["CDELT3"]
     return (v * u.Unit(header.get("CUNIT3", "km/s"))).to_value(u.km / u.s)
@@ -73,7 +78,7 @@ def extract_spectra(subcube_path, settings: ExtractionSettings) -> fits.HDUList:
     """
     info = read_cube_info(subcube_path)
     header = info.header
-    vel = subcube_velocities(header)
+    vel = subcube_velocities(header, subcube_path)
     dv = float(np.abs(np.median(np.diff(vel))))
     x, y = float(header["GLXPIX"]), float(header["GLYPIX"])
     delta = float(header["GLDELTA"]) * u.au

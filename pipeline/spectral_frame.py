@@ -23,6 +23,7 @@ __all__ = [
     "to_topocentric",
     "to_target_frame",
     "radio_velocity",
+    "linear_axis",
 ]
 
 _FRAME_OF_SPECSYS = {"GEOCENTR": "gcrs", "BARYCENT": "icrs", "LSRK": "lsrk"}
@@ -85,11 +86,13 @@ def radio_velocity(freq: u.Quantity, rest: u.Quantity) -> u.Quantity:
     return u.Quantity(freq, u.Hz).to(u.km / u.s, equivalencies=u.doppler_radio(rest))
 
 
-def _check_linear(values: np.ndarray, what: str) -> tuple[float, float]:
+def linear_axis(values: np.ndarray) -> tuple[float, float, float]:
+    """Least-squares linear axis through ``values``: start, step, and the largest deviation in channels.
+
+    A FREQ axis relabelled in radio velocity stays exactly linear; WAVE and VOPT axes do not, and their
+    sub-cubes carry the exact per-channel velocities in a table beside the approximate linear WCS.
+    """
     idx = np.arange(values.size, dtype=float)
     slope, intercept = np.polyfit(idx, values, 1)
-    resid = np.max(np.abs(values - (slope * idx + intercept)))
-    if resid > 1e-4 * abs(slope):
-        msg = f"{what}: the spectral axis is not linear (deviation {resid / abs(slope):.2g} channel)"
-        raise CubeError(msg)
-    return float(intercept), float(slope)
+    dev = float(np.max(np.abs(values - (slope * idx + intercept))) / abs(slope))
+    return float(intercept), float(slope), dev

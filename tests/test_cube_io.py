@@ -145,7 +145,7 @@ def test_two_dimensional_image(tmp_path):
     ({"BMAJ": -1.0}, "expected positive sizes"),
     ({"CRVAL3": None}, "header card CRVAL3 is missing"),
     ({"CDELT3": 0.0}, "header card CDELT3 is missing or zero"),
-    ({"CUNIT3": "furlong"}, "the WCS header cards are not usable"),
+    ({"CUNIT3": "furlong"}, "header card CUNIT3 = 'furlong' is not a unit"),
     ({"CTYPE1": "LINEAR", "CTYPE2": "LINEAR", "CUNIT1": None, "CUNIT2": None},
      "CTYPE1/CTYPE2 do not describe sky coordinates"),
 ])
@@ -219,3 +219,35 @@ def test_input_file_is_not_modified(tmp_path):
     with open_data(path) as data:
         float(np.nansum(data[:, :2, :2]))
     assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+
+
+# --- optical-velocity and wavelength axes (issue 3): against astropy's WCS spectral transformation -------------
+
+
+@pytest.mark.parametrize("cards", [
+    {"CTYPE3": "VOPT", "CRVAL3": -3000.0, "CDELT3": 350.0, "CUNIT3": "m/s"},
+    {"CTYPE3": "WAVE", "CRVAL3": 1.3004e-3, "CDELT3": 1.1e-9, "CUNIT3": "m"},
+    {"CTYPE3": "VRAD", "CRVAL3": -3.0, "CDELT3": 0.35, "CUNIT3": "km/s"},
+])
+def test_velocity_and_wavelength_axes_match_astropy(tmp_path, cards):
+    path = write_cube(tmp_path / "c.fits", **cards)
+    info = read_cube_info(path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FITSFixedWarning)
+        spec = WCS(fits.getheader(path)).spectral
+    ref = spec.pixel_to_world(np.arange(SHAPE[0]))  # astropy SpectralCoord, converted by astropy
+    assert_quantity_allclose(info.frequencies, ref.to(u.Hz, doppler_rest=230.538e9 * u.Hz,
+                                                      doppler_convention="optical" if cards["CTYPE3"] == "VOPT"
+                                                      else "radio"), rtol=1e-12)
+
+
+def test_contradictory_unit_card(tmp_path):
+    path = write_cube(tmp_path / "c.fits", CTYPE3="FREQ", CUNIT3="km/s")
+    with pytest.raises(CubeError, match=r"CTYPE3 = 'FREQ' and CUNIT3 = 'km/s' contradict"):
+        read_cube_info(path)
+
+
+def test_contradictory_rest_frequencies(tmp_path):
+    path = write_cube(tmp_path / "c.fits", RESTFREQ=230.0e9)
+    with pytest.raises(CubeError, match=r"RESTFRQ = .* and RESTFREQ = .* contradict"):
+        read_cube_info(path)

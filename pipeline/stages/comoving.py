@@ -8,7 +8,7 @@ from typing import Any
 import astropy.units as u
 import numpy as np
 from astropy.io import fits
-from astropy.table import QTable
+from astropy.table import QTable, Table
 
 from ..apertures import radius_in_pixels
 from ..atomic import write_fits
@@ -51,6 +51,9 @@ def run(cube_path: str, geometry_path: str, line_id: str, config: dict[str, Any]
     if sub.covered:
         log.info("line %s in cube %s: %d channels, %d x %d pixels", line_id, geo["cube_id"], *sub.data.shape)
         hdu = fits.PrimaryHDU(sub.data, header=header)
+        velocity = fits.BinTableHDU(Table({"velocity": sub.velocity * u.km / u.s}), name="VELOCITY")
+        write_fits(fits.HDUList([hdu, velocity]), out_path)
+        return
     else:
         log.warning("line %s in cube %s is not used: %s", line_id, geo["cube_id"], sub.reason)
         hdu = fits.PrimaryHDU(header=header)
