@@ -21,6 +21,7 @@ include: "rules/extract.smk"
 include: "rules/stack.smk"
 include: "rules/limits.smk"
 include: "rules/budget.smk"
+include: "rules/injection.smk"
 include: "rules/report.smk"
 
 

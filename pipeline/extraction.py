@@ -63,8 +63,16 @@ def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor) 
     return float(np.nanmedian(per_chan)), len(positions)
 
 
-def extract_spectra(subcube_path, settings: ExtractionSettings) -> fits.HDUList:
+def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray | None = None,
+                    centre: tuple[float, float] | None = None, v_centre: float = 0.0,
+                    offsource: bool = True) -> fits.HDUList:
     """Aperture spectra and noise of one sub-cube, as a FITS HDU list.
+
+    By default the apertures sit on the target (GLXPIX, GLYPIX) and the window
+    on the line (0 km/s). Injection-recovery passes the sub-cube with a model
+    added (``data``), another sky position (``centre``, 0-based pixels) and a
+    window centre ``v_centre`` [km/s]; the real line's channels then stay out
+    of the noise estimate too.
 
     HDUs: primary (n_apertures, n_chan) flux density [Jy] with a VRAD axis;
     ``BLANK`` (blank pixels per aperture and channel); ``APERTURES`` (radii
@@ -80,10 +88,10 @@ def extract_spectra(subcube_path, settings: ExtractionSettings) -> fits.HDUList:
     header = info.header
     vel = subcube_velocities(header, subcube_path)
     dv = float(np.abs(np.median(np.diff(vel))))
-    x, y = float(header["GLXPIX"]), float(header["GLYPIX"])
+    x, y = (float(header["GLXPIX"]), float(header["GLYPIX"])) if centre is None else centre
     delta = float(header["GLDELTA"]) * u.au
     win = settings.window.to_value(u.km / u.s)
-    wweights = window_weights(vel, win)
+    wweights = window_weights(vel, win, centre=v_centre)
     exclude = win + settings.exclude_margin_channels * dv
     others = settings.other_lines.to_value(u.km / u.s)
     factor = flux_conversion(info.bunit, info.pixel_solid_angle(),
@@ -95,11 +103,13 @@ def extract_spectra(subcube_path, settings: ExtractionSettings) -> fits.HDUList:
     beam_pix = (np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose().value \
         if info.beam_major is not None else 1.0
     rows = []
-    with open_data(subcube_path) as data:
+    with open_data(subcube_path) as stored:
+        if data is None:
+            data = stored
         sums, n_blank = aperture_spectra(data, aps)
         flux = sums * factor
         valid_all = np.all(n_blank == 0, axis=0)
-        free = line_free_mask(vel, np.concatenate([[0.0], others]), exclude, valid=valid_all)
+        free = line_free_mask(vel, np.concatenate([[0.0, v_centre], others]), exclude, valid=valid_all)
         if free.sum() < 10:
             msg = (f"{subcube_path}: only {int(free.sum())} line-free channels remain outside +-{exclude:.2f} "
                    "km/s of the catalogue lines; expected at least 10 (widen comoving.half_width_km_s)")
@@ -109,7 +119,8 @@ def extract_spectra(subcube_path, settings: ExtractionSettings) -> fits.HDUList:
             flux[i] = flux[i] - base
             sig = channel_sigma(flux[i], free)
             wn = window_sum_noise(flux[i], free, wweights)
-            s_off, n_off = _noise_offsource(data, info, x, y, rp, beam_pix, free, factor)
+            s_off, n_off = (_noise_offsource(data, info, x, y, rp, beam_pix, free, factor) if offsource
+                            else (float("nan"), 0))
             rk = u.Quantity(r)
             rows.append({
                 "radius_km": (rk if rk.unit.physical_type == "length"
@@ -138,6 +149,7 @@ def extract_spectra(subcube_path, settings: ExtractionSettings) -> fits.HDUList:
         if key.startswith("GL"):
             h[key] = val
     h["GLWIN"] = (win, "[km/s] integration window half-width")
+    h["GLVCEN"] = (v_centre, "[km/s] integration window centre")
     units = {"radius_km": "km", "radius_arcsec": "arcsec", "radius_pix": "pix", "area_pix": "pix",
              "sigma_chan": "Jy", "sigma_window": "Jy km / s", "sigma_window_naive": "Jy km / s",
              "sigma_chan_offsource": "Jy"}

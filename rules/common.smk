@@ -41,14 +41,22 @@ def ephemeris_input(wildcards):
     return [config["target"]["ephemeris"]] if "ephemeris" in config["target"] else []
 
 
-def spectra_of_species(wildcards):
-    """Every (cube, line) spectra file of one species."""
-    return [
-        f"{OUT}/spectra/{cid}/{line}.fits"
-        for cid in CUBES
-        for line in LINES[cid]
-        if CATALOGUE.get_line(line).species == wildcards.species
-    ]
+def per_line_files(folder):
+    """Input function: every (cube, line) file of one species below OUT/folder."""
+
+    def files(wildcards):
+        return [
+            f"{OUT}/{folder}/{cid}/{line}.fits"
+            for cid in CUBES
+            for line in LINES[cid]
+            if CATALOGUE.get_line(line).species == wildcards.species
+        ]
+
+    return files
+
+
+spectra_of_species = per_line_files("spectra")
+subcubes_of_species = per_line_files("comoving")
 
 
 def geometry_files():
@@ -57,6 +65,10 @@ def geometry_files():
 
 def stack_files():
     return [f"{OUT}/stack/{s}.fits" for s in SPECIES]
+
+
+def injection_files():
+    return [f"{OUT}/injection/{s}.ecsv" for s in SPECIES]
 
 
 def final_outputs():

@@ -6,6 +6,7 @@ rule report:
         budget_json=f"{OUT}/budget.json",
         geometry=geometry_files(),
         stacks=stack_files(),
+        injection=injection_files(),
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),

@@ -32,91 +32,24 @@ from scipy.signal import fftconvolve
 
 from pipeline.atomic import write_fits, write_text
 from pipeline.catalogue import load_catalogue
-from pipeline.excitation import flux_per_molecule
-from pipeline.haser import outflow_speed_law, parent_column_density, scale_length
-from pipeline.line_profile import channel_fractions, thermal_dispersion
+from pipeline.coma_image import apply_spectral_response, beam_kernel, model_line_cube
+from pipeline.response import SPECTRAL_RESPONSES, ComaModel
 from pipeline.offline import future_time_tolerated
 from pipeline.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
 from pipeline.spectral_frame import observer_frame_factor, radio_velocity, to_target_frame
 
 from .scenario import Scenario
 
-__all__ = ["write_scenario", "pixel_column_integral", "beam_kernel", "hanning"]
+__all__ = ["write_scenario", "hanning"]
 
 log = logging.getLogger(__name__)
-_HANNING = np.array([0.25, 0.5, 0.25])
-
-
-def _g(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """∫_0^x ∫_0^y dx' dy' / sqrt(x'^2 + y'^2) for x, y >= 0 (closed form)."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a = np.where(x > 0, x * np.arcsinh(np.divide(y, x, out=np.zeros_like(y), where=x > 0)), 0.0)
-        b = np.where(y > 0, y * np.arcsinh(np.divide(x, y, out=np.zeros_like(x), where=y > 0)), 0.0)
-    return a + b
-
-
-def _pieces(lo: np.ndarray, hi: np.ndarray):
-    """Split [lo, hi] into signed pieces [0, p] so that ∫_lo^hi f(|x|) = Σ s ∫_0^p f."""
-    straddle = (lo < 0) & (hi > 0)
-    pos = lo >= 0
-    p1 = np.where(straddle, -lo, np.where(pos, hi, -lo))
-    s1 = np.ones_like(lo)
-    p2 = np.where(straddle, hi, np.where(pos, lo, -hi))
-    s2 = np.where(straddle, 1.0, -1.0)
-    return (p1, s1), (p2, s2)
-
-
-def pixel_column_integral(x_lo, x_hi, y_lo, y_hi) -> np.ndarray:
-    """∫∫ dx dy / ρ over rectangles (any position relative to the origin), exact.
-
-    Notes
-    -----
-    Antiderivative G(x, y) = x asinh(y/x) + y asinh(x/y) of 1/sqrt(x² + y²) in
-    the first quadrant; other quadrants by symmetry.
-    """
-    total = 0.0
-    for px, sx in _pieces(np.asarray(x_lo, float), np.asarray(x_hi, float)):
-        for py, sy in _pieces(np.asarray(y_lo, float), np.asarray(y_hi, float)):
-            total = total + sx * sy * _g(px, py)
-    return total
-
-
-def _coma_image(npix: int, x0: float, y0: float, pix_km: float, speed: u.Quantity, length: u.Quantity,
-                sub: int = 3) -> np.ndarray:
-    """Molecules per pixel for Q = 1/s of a Haser parent coma centred at pixel (x0, y0)."""
-    v = speed.to_value(u.km / u.s)
-    idx = (np.arange(npix * sub) + 0.5) / sub - 0.5          # sub-pixel centres in pixel units
-    xc, yc = np.meshgrid(idx, idx)
-    half = 0.5 / sub
-    dx_lo, dx_hi = (xc - half - x0) * pix_km, (xc + half - x0) * pix_km
-    dy_lo, dy_hi = (yc - half - y0) * pix_km, (yc + half - y0) * pix_km
-    area_over_rho = pixel_column_integral(dx_lo, dx_hi, dy_lo, dy_hi)           # km
-    rho = np.hypot(xc - x0, yc - y0) * pix_km
-    rho = np.maximum(rho, 1e-6 * pix_km)
-    # Haser factor: column relative to its L -> infinity form Q/(4 v rho)
-    factor = (parent_column_density(rho * u.km, 1 / u.s, speed, length) * 4 * speed * rho * u.km
-              / (1 / u.s)).decompose().value
-    molecules = area_over_rho * factor / (4 * v)                                # for Q = 1/s
-    return molecules.reshape(npix, sub, npix, sub).sum(axis=(1, 3))
-
-
-def beam_kernel(bmaj_pix: float, bmin_pix: float, bpa_deg: float) -> np.ndarray:
-    """Elliptical Gaussian kernel (sum 1); BPA east of north, x = -RA, y = Dec."""
-    smaj, smin = bmaj_pix / np.sqrt(8 * np.log(2)), bmin_pix / np.sqrt(8 * np.log(2))
-    half = int(np.ceil(4 * smaj))
-    y, x = np.mgrid[-half:half + 1, -half:half + 1].astype(float)
-    pa = np.deg2rad(bpa_deg)
-    # major axis at PA from north (+y) towards east (-x)
-    u_maj = -x * np.sin(pa) + y * np.cos(pa)
-    u_min = x * np.cos(pa) + y * np.sin(pa)
-    k = np.exp(-0.5 * ((u_maj / smaj) ** 2 + (u_min / smin) ** 2))
-    return k / k.sum()
+_HANNING = SPECTRAL_RESPONSES["hanning"]
 
 
 def hanning(cube: np.ndarray) -> np.ndarray:
     """Hanning smoothing [1/4, 1/2, 1/4] along the first axis (edges reflect)."""
-    padded = np.concatenate([cube[:1], cube, cube[-1:]], axis=0)
-    return _HANNING[0] * padded[:-2] + _HANNING[1] * padded[1:-1] + _HANNING[2] * padded[2:]
+    return apply_spectral_response(cube, "hanning")
+
 
 
 def _window_frequencies(sc: Scenario, window, catalogue, delta_dot: u.Quantity) -> np.ndarray:
@@ -174,11 +107,11 @@ def _write_cube(path: Path, sc: Scenario, window, epoch: str, mid: Time, geo, ca
         warnings.simplefilter("ignore", FITSFixedWarning)
         wcs = WCS(header).celestial
     x0, y0 = wcs.world_to_pixel(SkyCoord(ra, dec, frame="icrs"))
-    v = outflow_speed_law(r_h)
     f_rest_target = to_target_frame(f_topo, ddot)
     kernel = beam_kernel(bmaj / sc.pixel_arcsec, bmin / sc.pixel_arcsec, bpa)
     signal = np.zeros((nchan, n, n))
     truth = []
+    model = ComaModel(outflow="law", solar_activity="quiet")
     for line in catalogue.lines:
         q = sc.production_rates.get(line.species)
         if q is None:
@@ -186,16 +119,9 @@ def _write_cube(path: Path, sc: Scenario, window, epoch: str, mid: Time, geo, ca
         vel = radio_velocity(f_rest_target, line.freq).to_value(u.km / u.s)
         if not (vel.min() < -5 and vel.max() > 5):
             continue
-        species = catalogue.get_species(line.species)
-        length = scale_length(v, species.photo_rate("quiet"), r_h)
-        molecules = _coma_image(n, float(x0), float(y0), pix_km, v, length)
-        flux_img = molecules * q * flux_per_molecule(line, species, sc.t_kin_K * u.K, delta).to_value(
-            u.Jy * u.km / u.s)
-        sky = fftconvolve(flux_img, kernel, mode="same")                        # Jy km/s per pixel
-        beam_over_pix = np.pi / (4 * np.log(2)) * bmaj * bmin / sc.pixel_arcsec**2
-        sigma_th = thermal_dispersion(sc.t_kin_K * u.K, species.mass).to_value(u.km / u.s)
-        prof = channel_fractions(vel, v.to_value(u.km / u.s), sigma_th) / np.abs(vel[1] - vel[0])  # per km/s
-        signal += prof[:, None, None] * (sky * beam_over_pix)[None, :, :]       # Jy/beam
+        signal += model_line_cube((n, n), float(x0), float(y0), sc.pixel_arcsec, vel, line,
+                                  catalogue.get_species(line.species), q, sc.t_kin_K * u.K, r_h, delta,
+                                  (bmaj, bmin, bpa), model, spectral_response=None)
         truth.append({"line": line.line_id, "q": q})
     noise = rng.standard_normal((nchan, n, n))
     k_norm = kernel / np.sqrt(np.sum(kernel**2))

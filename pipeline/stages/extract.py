@@ -16,7 +16,7 @@ from ..provenance import add_to_header, provenance_record
 from ..response import outflow_speed
 from .common import aperture_radii, catalogue_from_config, coma_model
 
-__all__ = ["run", "other_line_velocities"]
+__all__ = ["run", "other_line_velocities", "extraction_settings"]
 
 log = logging.getLogger(__name__)
 
@@ -28,6 +28,15 @@ def other_line_velocities(catalogue, line, half_width: u.Quantity) -> u.Quantity
     vel = [c * (1 - other.freq.to_value(u.GHz) / f0) for other in catalogue.lines if other.line_id != line.line_id]
     vel = np.array([v for v in vel if abs(v) <= half_width.to_value(u.km / u.s)])
     return vel * u.km / u.s
+
+
+def extraction_settings(header: fits.Header, config: dict[str, Any], catalogue) -> ExtractionSettings:
+    """Apertures, window and the other lines' positions for one sub-cube, from the config."""
+    line = catalogue.get_line(header["GLLINE"])
+    v_out = outflow_speed(coma_model(config), float(header["GLRH"]) * u.au)
+    half = config["comoving"]["half_width_km_s"] * u.km / u.s
+    return ExtractionSettings(radii=aperture_radii(config), window=config["limits"]["window_factor"] * v_out,
+                              other_lines=other_line_velocities(catalogue, line, half + 5 * u.km / u.s))
 
 
 def run(subcube_path: str, config: dict[str, Any], out_path: str) -> None:
@@ -43,12 +52,7 @@ def run(subcube_path: str, config: dict[str, Any], out_path: str) -> None:
         add_to_header(out.header, record)
         write_fits(fits.HDUList([out]), out_path)
         return
-    catalogue = catalogue_from_config(config)
-    line = catalogue.get_line(header["GLLINE"])
-    v_out = outflow_speed(coma_model(config), float(header["GLRH"]) * u.au)
-    half = config["comoving"]["half_width_km_s"] * u.km / u.s
-    settings = ExtractionSettings(radii=aperture_radii(config), window=config["limits"]["window_factor"] * v_out,
-                                  other_lines=other_line_velocities(catalogue, line, half + 5 * u.km / u.s))
+    settings = extraction_settings(header, config, catalogue_from_config(config))
     hdul = extract_spectra(subcube_path, settings)
     add_to_header(hdul[0].header, record)
     write_fits(hdul, out_path)

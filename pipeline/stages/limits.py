@@ -11,16 +11,56 @@ from astropy.table import QTable, Table
 
 from ..atomic import write_table
 from ..limits import join_limits, limit_rows, mark_conservative
+from ..line_fit import fit_line
+from ..line_profile import thermal_dispersion
 from ..provenance import provenance_record
+from .common import catalogue_from_config
 
 __all__ = ["run_species", "run_join"]
 
 
+def _add_fit_columns(table: QTable) -> None:
+    n = len(table)
+    table["q_fit"] = np.full(n, np.nan) / u.s
+    table["q_fit_err"] = np.full(n, np.nan) / u.s
+    table["v_offset"] = np.full(n, np.nan) * u.km / u.s
+    table["v_offset_err"] = np.full(n, np.nan) * u.km / u.s
+
+
+def _fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table, t_grid: np.ndarray,
+                    mass) -> None:
+    """Fill q_fit, q_fit_err, v_offset, v_offset_err for the detected rows of one epoch group."""
+    members = inputs[(inputs["epoch"] == group)] if group != "all" else inputs
+    hdu = hdul[f"STACK_{group}"]
+    n = hdu.data.shape[-1]
+    vel = hdu.header["CRVAL1"] + (np.arange(n) + 1 - hdu.header["CRPIX1"]) * hdu.header["CDELT1"]
+    v_out = float(np.mean(members["outflow"]))
+    window = float(np.max(members["window"]))
+    responses = set(members["spectral_response"]) if "spectral_response" in members.colnames else {"hanning"}
+    response = responses.pop() if len(responses) == 1 else "hanning"
+    aps = np.unique(np.asarray(members["aperture_km"], dtype=float))
+    for k, row in enumerate(table):
+        if not row["detected"]:
+            continue
+        it = int(np.argmin(np.abs(t_grid - row["t_kin_K"])))
+        ja = int(np.argmin(np.abs(aps - row["aperture_km"].to_value(u.km))))
+        sig_th = thermal_dispersion(row["t_kin_K"] * u.K, mass).to_value(u.km / u.s)
+        fit = fit_line(vel, hdu.data[it, ja], v_out, sig_th, window, response, q_guess=row["q"].to_value(1 / u.s))
+        table["q_fit"][k] = fit.q / u.s
+        table["q_fit_err"][k] = fit.q_err / u.s
+        table["v_offset"][k] = fit.v_offset * u.km / u.s
+        table["v_offset_err"][k] = fit.v_offset_err * u.km / u.s
+
+
 def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
-    """Limits of one species from its stack file."""
+    """Limits of one species from its stack file; detections also get a line-profile fit."""
+    catalogue = catalogue_from_config(config)
     with fits.open(stack_path) as hdul:
         species = hdul[0].header["GLSPEC"]
         summary = Table.read(hdul["SUMMARY"])
+        inputs = Table.read(hdul["INPUTS"])
+        hdul.readall()
+        stack_hdul = fits.HDUList([h.copy() for h in hdul])
     nsigma = float(config["limits"]["nsigma"])
     tables = []
     if "q" in summary.colnames:
@@ -36,13 +76,17 @@ def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
                 q[i, row["aperture_index"]] = row["q"]
                 s[i, row["aperture_index"]] = row["sigma_q"]
                 ap[row["aperture_index"]] = row["aperture_km"]
-            tables.append(limit_rows(species, str(group), t * u.K, ap * u.km, q / u.s, s / u.s, nsigma,
-                                     str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(",")))
+            rows = limit_rows(species, str(group), t * u.K, ap * u.km, q / u.s, s / u.s, nsigma,
+                              str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
+            _add_fit_columns(rows)
+            _fit_detections(rows, str(group), stack_hdul, inputs, t, catalogue.get_species(species).mass)
+            tables.append(rows)
     if tables:
         table = join_limits(tables)
     else:  # the species was not covered by any cube: an empty table with the contract's columns
         table = limit_rows(species, "all", [] * u.K, [] * u.km, np.zeros((0, 0)) / u.s,
                            np.ones((0, 0)) / u.s, nsigma, [], [])
+        _add_fit_columns(table)
     table.meta["provenance"] = provenance_record(config, [stack_path], "limits")
     write_table(table, out_path)
 

@@ -39,7 +39,8 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
     v_out = outflow_speed(model, r_h)
     radii = np.asarray(aps["radius_km"], dtype=float) * u.km
     resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model).to_value(u.Jy * u.km)  # (T, ap)
-    frac = window_capture(species, t_kin, vel, wts, v_out, h.get("GLSPRESP", "hanning"))        # (T,)
+    frac = window_capture(species, t_kin, vel - float(h.get("GLVCEN", 0.0)), wts, v_out,
+                          h.get("GLSPRESP", "hanning"))                                         # (T,)
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
     flux = np.asarray(spectra[0].data, dtype=float)                                                # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
@@ -54,7 +55,8 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
             rows.append({"epoch": inp.epoch, "cube_id": inp.cube_id, "line_id": inp.line_id, "t_kin": t,
                          "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
                          "window": float(h["GLWIN"]), "q": q[i, j], "sigma_q": sigma[i, j],
-                         "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s)})
+                         "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
+                         "spectral_response": h.get("GLSPRESP", "hanning")})
     return inp, rows
 
 

@@ -1,0 +1,8 @@
+"""Rule 'injection': thin wrapper around pipeline.stages.injection.run."""
+from pipeline.stages import injection
+from pipeline.stages.common import setup_logging, stage_errors
+
+log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+with stage_errors(log):
+    injection.run(list(snakemake.input.subcubes), snakemake.wildcards.species, snakemake.input.limits,  # noqa: F821
+                  snakemake.input.budget, snakemake.config, snakemake.output[0])  # noqa: F821
