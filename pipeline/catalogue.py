@@ -1,8 +1,9 @@
-"""The molecular catalogue: species properties and millimetre lines.
+"""The molecular catalogue: species properties, millimetre lines and infrared bands.
 
-The built-in catalogue lives in ``pipeline/data/species.ecsv`` and
-``pipeline/data/lines.ecsv``; every value has a provenance column beside it.
-A user catalogue with the same columns can be given instead.
+The built-in catalogue lives in ``pipeline/data/species.ecsv``,
+``pipeline/data/lines.ecsv`` and ``pipeline/data/bands.ecsv``; every value has
+a provenance column beside it. A user catalogue with the same columns can be
+given instead.
 
 Upper-level degeneracies and partition functions follow one convention (no
 nuclear-spin weights) so that the population fraction g_u exp(-E_u/kT)/Q(T)
@@ -25,15 +26,18 @@ from .errors import CatalogueError
 __all__ = [
     "Species",
     "Line",
+    "Band",
     "Catalogue",
     "load_catalogue",
     "DEFAULT_SPECIES_FILE",
     "DEFAULT_LINES_FILE",
+    "DEFAULT_BANDS_FILE",
 ]
 
 _DATA = Path(__file__).parent / "data"
 DEFAULT_SPECIES_FILE = _DATA / "species.ecsv"
 DEFAULT_LINES_FILE = _DATA / "lines.ecsv"
+DEFAULT_BANDS_FILE = _DATA / "bands.ecsv"
 
 _SPECIES_COLUMNS = {
     "species": None,
@@ -55,6 +59,13 @@ _LINE_COLUMNS = {
     "a_ul": 1 / u.s,
     "e_up": u.K,
     "g_up": None,
+}
+_BAND_COLUMNS = {
+    "band_id": None,
+    "species": None,
+    "band": None,
+    "wavelength": u.um,
+    "g_1au": 1 / u.s,
 }
 _LINE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
 
@@ -91,8 +102,10 @@ class Species:
         ``linear``: Q = m (kT/(hB) + 1/3), the high-temperature expansion of
         the sum over (2J+1) exp(-hBJ(J+1)/kT) (e.g. Gordy & Cook, Microwave
         Molecular Spectra, 1984). ``asymmetric``: the classical rigid-rotor
-        result Q = m sqrt(pi (kT/h)^3 / (ABC)) (same source). m is the
-        catalogue's multiplicity (torsional species counted, symmetry number).
+        result Q = m sqrt(pi (kT/h)^3 / (ABC)) (same source); a symmetric top
+        uses it with C = B. m is the catalogue's multiplicity (torsional species
+        counted, symmetry number, fine-structure factor); the catalogue's
+        ``partition_ref`` column states each species' choice and its accuracy.
         """
         temp = u.Quantity(t_kin, u.K).value
         if np.any(~np.isfinite(temp)) or np.any(temp <= 0):
@@ -123,12 +136,43 @@ class Line:
 
 
 @dataclass(frozen=True)
+class Band:
+    """One infrared vibrational band excited by solar fluorescence."""
+
+    band_id: str
+    species: str
+    band: str
+    wavelength: u.Quantity
+    g_1au: u.Quantity
+
+    def g_factor(self, r_h: u.Quantity) -> u.Quantity:
+        """Fluorescence efficiency (photons per molecule per second) at ``r_h``.
+
+        Notes
+        -----
+        Solar pumping of an optically thin coma scales with the solar flux,
+        g(r_h) = g_1au (1 au / r_h)^2 (Crovisier & Encrenaz 1983, A&A 126, 170).
+        """
+        try:
+            r_au = np.asarray(u.Quantity(r_h).to_value(u.au), dtype=float)
+        except u.UnitConversionError:
+            msg = f"r_h must be a distance (e.g. in au), found {r_h!r}"
+            raise CatalogueError(msg) from None
+        if np.any(~np.isfinite(r_au)) or np.any(r_au <= 0):
+            msg = f"r_h must be positive and finite, found {r_h!r}"
+            raise CatalogueError(msg)
+        return self.g_1au * r_au**-2
+
+
+@dataclass(frozen=True)
 class Catalogue:
-    """Species and lines, looked up by name."""
+    """Species, lines and infrared bands, looked up by name."""
 
     species: dict[str, Species]
     lines: tuple[Line, ...]
     source: tuple[str, str]
+    bands: tuple[Band, ...] = ()
+    bands_source: str | None = None
 
     def get_species(self, name: str) -> Species:
         """The species called ``name``; a clear error when it is not in the catalogue."""
@@ -152,6 +196,22 @@ class Catalogue:
             if ln.line_id == line_id:
                 return ln
         msg = f"line {line_id!r} is not in the catalogue {self.source[1]}"
+        raise CatalogueError(msg)
+
+    def bands_of(self, name: str) -> tuple[Band, ...]:
+        """All infrared bands of one species, ordered by wavelength."""
+        self.get_species(name)
+        return tuple(sorted((b for b in self.bands if b.species == name),
+                            key=lambda b: b.wavelength.to_value(u.um)))
+
+    def get_band(self, band_id: str) -> Band:
+        """The infrared band with identifier ``band_id``."""
+        for band in self.bands:
+            if band.band_id == band_id:
+                return band
+        where = self.bands_source if self.bands_source is not None else "(no bands file loaded)"
+        known = ", ".join(b.band_id for b in self.bands) or "none"
+        msg = f"band {band_id!r} is not in the catalogue {where}; expected one of: {known}"
         raise CatalogueError(msg)
 
 
@@ -179,15 +239,48 @@ def _read(path: Path, columns: dict, what: str) -> QTable:
     return table
 
 
+def _read_bands(path: Path, species: dict[str, Species], species_file: Path) -> tuple[Band, ...]:
+    table = _read(path, _BAND_COLUMNS, "band catalogue")
+    bands = []
+    seen = set()
+    for row in table:
+        band_id = str(row["band_id"])
+        if not _LINE_ID.match(band_id) or band_id in seen:
+            msg = (f"band catalogue {str(path)!r}: band_id {band_id!r} is duplicated or "
+                   "not made of letters, digits and . _ + -")
+            raise CatalogueError(msg)
+        seen.add(band_id)
+        name = str(row["species"])
+        if name not in species:
+            msg = (f"band catalogue {str(path)!r}: band {band_id!r} belongs to species {name!r}, "
+                   f"which {str(species_file)!r} does not define (give bands_file=None or a band "
+                   "table of its species)")
+            raise CatalogueError(msg)
+        wavelength = u.Quantity(row["wavelength"], u.um)
+        g_1au = u.Quantity(row["g_1au"], 1 / u.s)
+        for col, value in (("wavelength", wavelength), ("g_1au", g_1au)):
+            if not (np.isfinite(value.value) and value.value > 0):
+                msg = (f"band catalogue {str(path)!r}: band {band_id!r} has {col} {value}, "
+                       "expected a positive finite value")
+                raise CatalogueError(msg)
+        bands.append(Band(band_id=band_id, species=name, band=str(row["band"]),
+                          wavelength=wavelength, g_1au=g_1au))
+    return tuple(bands)
+
+
 def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
-                   lines_file: str | Path = DEFAULT_LINES_FILE) -> Catalogue:
-    """Read and check a catalogue (species and line tables, ECSV).
+                   lines_file: str | Path = DEFAULT_LINES_FILE,
+                   bands_file: str | Path | None = DEFAULT_BANDS_FILE) -> Catalogue:
+    """Read and check a catalogue (species, line and band tables, ECSV).
+
+    ``bands_file=None`` reads no infrared bands.
 
     Raises
     ------
     CatalogueError
         When a file is missing, lacks a column, has a wrong unit, a duplicated
-        name, or a line of a species it does not define.
+        name, a line or band of a species it does not define, or a band with a
+        non-positive wavelength or fluorescence efficiency.
     """
     species_file, lines_file = Path(species_file), Path(lines_file)
     st = _read(species_file, _SPECIES_COLUMNS, "species catalogue")
@@ -224,4 +317,8 @@ def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
                           transition=str(row["transition"]),
                           freq=u.Quantity(row["freq"], u.GHz), a_ul=u.Quantity(row["a_ul"], 1 / u.s),
                           e_up=u.Quantity(row["e_up"], u.K), g_up=float(row["g_up"])))
-    return Catalogue(species=species, lines=tuple(lines), source=(str(species_file), str(lines_file)))
+    bands: tuple[Band, ...] = ()
+    if bands_file is not None:
+        bands = _read_bands(Path(bands_file), species, species_file)
+    return Catalogue(species=species, lines=tuple(lines), source=(str(species_file), str(lines_file)),
+                     bands=bands, bands_source=None if bands_file is None else str(bands_file))

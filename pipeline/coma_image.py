@@ -14,6 +14,7 @@ import astropy.units as u
 import numpy as np
 from scipy.signal import fftconvolve
 
+from .apertures import aperture_spectra, aperture_weights
 from .catalogue import Line, Species
 from .excitation import flux_per_molecule
 from .haser import parent_column_density, scale_length
@@ -21,7 +22,7 @@ from .line_profile import channel_fractions, thermal_dispersion
 from .response import SPECTRAL_RESPONSES, ComaModel, outflow_speed
 
 __all__ = ["pixel_column_integral", "coma_molecules_image", "beam_kernel", "apply_spectral_response",
-           "model_line_cube"]
+           "model_line_cube", "aperture_count_on_grid"]
 
 
 def _g(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -125,3 +126,23 @@ def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: 
     prof = channel_fractions(vel - v_centre, v.to_value(u.km / u.s), sigma_th) / np.abs(np.median(np.diff(vel)))
     cube = prof[:, None, None] * (sky * beam_over_pix)[None, :, :]
     return apply_spectral_response(cube, spectral_response) if spectral_response else cube
+
+
+def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix: list[float], pixel_km: float,
+                           beam_pix: tuple[float, float, float] | None, speed: u.Quantity,
+                           length: u.Quantity) -> np.ndarray:
+    """Molecules (for Q = 1/s) that each aperture counts on the actual pixel grid of the data.
+
+    The model image of :func:`coma_molecules_image` is convolved with the
+    elliptical beam (``beam_pix`` = FWHM major, minor in pixels and PA in deg)
+    and summed with the same exact-overlap weights the extraction uses, so
+    pixelisation, the beam's ellipticity and the field edge enter the response
+    exactly as they enter the data. (The analytic circular-beam count of
+    :func:`pipeline.haser.convolved_aperture_count` is its external check.)
+    """
+    img = coma_molecules_image(shape, x, y, pixel_km, speed, length)
+    if beam_pix is not None:
+        img = fftconvolve(img, beam_kernel(*beam_pix), mode="same")
+    weights = [aperture_weights(shape, x, y, r) for r in radii_pix]
+    sums, _ = aperture_spectra(img[None], weights)
+    return sums[:, 0]

@@ -150,6 +150,9 @@ def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray
             h[key] = val
     h["GLWIN"] = (win, "[km/s] integration window half-width")
     h["GLVCEN"] = (v_centre, "[km/s] integration window centre")
+    h["GLAPX"], h["GLAPY"] = (x, "aperture centre x (0-based pixel)"), (y, "aperture centre y (0-based pixel)")
+    h["GLPIXSC"] = (info.pixel_scale.to_value(u.arcsec), "[arcsec] pixel scale of the sub-cube")
+    h["GLNX"], h["GLNY"] = (info.shape[2], "sub-cube width [pixels]"), (info.shape[1], "sub-cube height [pixels]")
     units = {"radius_km": "km", "radius_arcsec": "arcsec", "radius_pix": "pix", "area_pix": "pix",
              "sigma_chan": "Jy", "sigma_window": "Jy km / s", "sigma_window_naive": "Jy km / s",
              "sigma_chan_offsource": "Jy"}

@@ -12,6 +12,9 @@ from astropy.table import Table
 
 from ..atomic import write_fits
 from ..provenance import add_to_header, provenance_record
+from ..coma_image import aperture_count_on_grid
+from ..excitation import flux_per_molecule
+from ..haser import scale_length
 from ..response import line_response, outflow_speed, window_capture
 from ..stacking import StackInput, combine, velocity_grid
 from .common import catalogue_from_config, coma_model, temperatures
@@ -38,7 +41,19 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
     model = coma_model(config)
     v_out = outflow_speed(model, r_h)
     radii = np.asarray(aps["radius_km"], dtype=float) * u.km
-    resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model).to_value(u.Jy * u.km)  # (T, ap)
+    if "GLPIXSC" in h:  # the model coma summed on the data's own pixel grid with the extraction's weights
+        pix_km = (h["GLPIXSC"] * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
+        beam_pix = ((h["BMAJ"] * 3600 / h["GLPIXSC"], h["BMIN"] * 3600 / h["GLPIXSC"], h.get("BPA", 0.0))
+                    if "BMAJ" in h else None)
+        length = scale_length(v_out, species.photo_rate(model.solar_activity), r_h)
+        count = aperture_count_on_grid((h["GLNY"], h["GLNX"]), h["GLAPX"], h["GLAPY"],
+                                       list(np.asarray(aps["radius_pix"], dtype=float)), pix_km, beam_pix, v_out,
+                                       length)
+        resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
+        method = "grid"
+    else:
+        resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model).to_value(u.Jy * u.km)
+        method = "analytic"
     frac = window_capture(species, t_kin, vel - float(h.get("GLVCEN", 0.0)), wts, v_out,
                           h.get("GLSPRESP", "hanning"))                                         # (T,)
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
@@ -56,7 +71,7 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
                          "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
                          "window": float(h["GLWIN"]), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
-                         "spectral_response": h.get("GLSPRESP", "hanning")})
+                         "spectral_response": h.get("GLSPRESP", "hanning"), "response_model": method})
     return inp, rows
 
 
