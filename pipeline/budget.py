@@ -8,7 +8,7 @@ measurement is reported as 'not observed', never as excluded.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import astropy.units as u
@@ -17,11 +17,11 @@ from astropy.table import QTable
 
 from .catalogue import Catalogue
 from .haser import outflow_speed_law
-from .mass_budget import (LATENT_HEAT, max_bulk_density, max_nucleus_mass, nongrav_acceleration, nucleus_mass,
-                          required_mass_loss_rate, required_production_rate, rocket_mass_fraction,
-                          sublimation_area_required)
+from .mass_budget import (LATENT_HEAT, diameter_from_absolute_magnitude, max_bulk_density, max_nucleus_mass,
+                          nongrav_acceleration, nucleus_mass, required_mass_loss_rate, required_production_rate,
+                          rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
 
-__all__ = ["BudgetAssumptions", "assumptions_from_config", "acceleration_at", "ejection_speed_at",
+__all__ = ["BudgetAssumptions", "assumptions_from_config", "assumption_sets", "acceleration_at", "ejection_speed_at",
            "budget_table", "rocket_fraction", "VERDICTS"]
 
 VERDICTS = ("not observed", "excluded for every mass in the range", "excluded above the allowed mass",
@@ -37,14 +37,18 @@ class BudgetAssumptions:
     radius_km: tuple[float, float] | None
     density_kg_m3: tuple[float, float] | None
     mass_kg: tuple[float, float]
-    ejection: str | float                        # 'law' or km/s
+    ejection: str | float | dict                 # 'law', km/s, or {'thermal_K': T}
     efficiency: float
     interval_days: float
     drivers: tuple[str, ...]
+    name: str = "baseline"
+    g_params: dict | None = None                 # a variant g(r): r0_au, m, n, k
+    nucleus_from: str = "radius and density"
 
     def as_dict(self) -> dict[str, Any]:
         """Plain mapping for JSON and the report."""
-        return {"acceleration_m_s2": self.acceleration, "nongrav_au_d2": self.nongrav,
+        return {"assumption_set": self.name, "nucleus_from": self.nucleus_from, "g_law_variant": self.g_params,
+                "acceleration_m_s2": self.acceleration, "nongrav_au_d2": self.nongrav,
                 "nucleus_radius_km": self.radius_km, "bulk_density_kg_m3": self.density_kg_m3,
                 "nucleus_mass_kg": self.mass_kg, "ejection_speed_km_s": self.ejection,
                 "momentum_efficiency": self.efficiency, "interval_days": self.interval_days,
@@ -53,22 +57,45 @@ class BudgetAssumptions:
                 "sublimation": "energy-limited, all absorbed sunlight pays the latent heat (no re-radiation)"}
 
 
+def _radius_range(nucleus: dict[str, Any]) -> tuple[tuple[float, float], str]:
+    if "absolute_magnitude" in nucleus:
+        h_mag = float(nucleus["absolute_magnitude"])
+        albedo = nucleus.get("albedo", [0.04, 0.04])
+        d = [float(diameter_from_absolute_magnitude(h_mag, p).to_value(u.km)) for p in albedo]
+        return (min(d) / 2, max(d) / 2), f"H = {h_mag:g} and albedo {min(albedo):g}-{max(albedo):g}"
+    return (float(nucleus["radius_km"][0]), float(nucleus["radius_km"][1])), "radius and density"
+
+
+def assumption_sets(budget: dict[str, Any]) -> list[BudgetAssumptions]:
+    """The baseline assumptions and every further set of ``budget.assumption_sets``."""
+    base = assumptions_from_config(budget)
+    sets = [base]
+    for extra in budget.get("assumption_sets", []):
+        sets.append(replace(base, name=str(extra["name"]),
+                            efficiency=float(extra.get("momentum_efficiency", base.efficiency)),
+                            ejection=extra.get("ejection_speed_km_s", base.ejection)))
+    return sets
+
+
 def assumptions_from_config(budget: dict[str, Any]) -> BudgetAssumptions:
-    """Collect the budget assumptions from the config's ``budget`` section."""
+    """Collect the baseline budget assumptions from the config's ``budget`` section."""
     nucleus = budget["nucleus"]
     if "mass_kg" in nucleus:
         mass = tuple(float(m) for m in nucleus["mass_kg"])
         radius = density = None
+        source = "mass range"
     else:
-        radius = tuple(float(r) for r in nucleus["radius_km"])
-        density = tuple(float(d) for d in nucleus["density_kg_m3"])
+        radius, source = _radius_range(nucleus)
+        density = tuple(float(d) for d in nucleus.get("density_kg_m3", [500.0, 500.0]))
         mass = (float(nucleus_mass(radius[0] * u.km, density[0] * u.kg / u.m**3).to_value(u.kg)),
                 float(nucleus_mass(radius[1] * u.km, density[1] * u.kg / u.m**3).to_value(u.kg)))
     acc = tuple(float(a) for a in budget["acceleration_m_s2"]) if "acceleration_m_s2" in budget else None
-    return BudgetAssumptions(acceleration=acc, nongrav=budget.get("nongrav"), radius_km=radius,
+    nongrav = budget.get("nongrav")
+    return BudgetAssumptions(acceleration=acc, nongrav=nongrav, radius_km=radius,
                              density_kg_m3=density, mass_kg=(min(mass), max(mass)),
                              ejection=budget["ejection_speed_km_s"], efficiency=float(budget["momentum_efficiency"]),
-                             interval_days=float(budget["interval_days"]), drivers=tuple(budget["drivers"]))
+                             interval_days=float(budget["interval_days"]), drivers=tuple(budget["drivers"]),
+                             g_params=(nongrav or {}).get("g_params"), nucleus_from=source)
 
 
 def acceleration_at(assume: BudgetAssumptions, r_h: u.Quantity) -> tuple[u.Quantity, u.Quantity]:
@@ -80,14 +107,24 @@ def acceleration_at(assume: BudgetAssumptions, r_h: u.Quantity) -> tuple[u.Quant
         msg = "budget: give acceleration_m_s2 or nongrav"
         raise ValueError(msg)
     unit = u.au / u.day**2
-    a = nongrav_acceleration(ng["A1"] * unit, ng["A2"] * unit, ng["A3"] * unit, u.Quantity(r_h, u.au))
+    law = {}
+    if assume.g_params:
+        gp = assume.g_params
+        law = {"r0": gp["r0_au"] * u.au, "m": gp["m"], "n": gp["n"], "k": gp["k"], "normalise": True}
+    a = nongrav_acceleration(ng["A1"] * unit, ng["A2"] * unit, ng["A3"] * unit, u.Quantity(r_h, u.au), **law)
     return a.to(u.m / u.s**2), 0 * u.m / u.s**2
 
 
-def ejection_speed_at(assume: BudgetAssumptions, r_h: u.Quantity) -> u.Quantity:
-    """Gas ejection speed: the configured value or the outflow law at ``r_h``."""
+def ejection_speed_at(assume: BudgetAssumptions, r_h: u.Quantity,
+                      molecular_mass: u.Quantity | None = None) -> u.Quantity:
+    """Gas ejection speed: the configured value, the outflow law at ``r_h``, or a species' thermal speed."""
     if assume.ejection == "law":
         return outflow_speed_law(u.Quantity(r_h, u.au)).to(u.km / u.s)
+    if isinstance(assume.ejection, dict):
+        if molecular_mass is None:
+            msg = "budget: a thermal ejection speed needs the molecular mass of the species"
+            raise ValueError(msg)
+        return thermal_ejection_speed(assume.ejection["thermal_K"] * u.K, molecular_mass).to(u.km / u.s)
     return float(assume.ejection) * u.km / u.s
 
 
@@ -101,7 +138,7 @@ def _verdict(q_upper: float, m_allowed: float, m_min: float, m_max: float) -> st
     return VERDICTS[3]
 
 
-def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: BudgetAssumptions,
+def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: BudgetAssumptions | list,
                  catalogue: Catalogue) -> QTable:
     """One row per driver species and epoch group: required Q, limit, ratios, allowed mass, verdict.
 
@@ -111,54 +148,55 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
         The limits table (columns of :data:`pipeline.limits.LIMIT_COLUMNS`).
     epoch_rh : dict
         Heliocentric distance of each epoch group, including ``'all'``.
-    assume : BudgetAssumptions
+    assume : BudgetAssumptions or list of them
+        One row per assumption set (column ``assumption_set``).
     catalogue : Catalogue
         For the molecular masses.
     """
+    sets = assume if isinstance(assume, list) else [assume]
     measured = list(dict.fromkeys(str(s) for s in limits["species"]))
-    species = list(dict.fromkeys(list(assume.drivers) + measured))
-    m_min, m_max = (x * u.kg for x in assume.mass_kg)
+    species = list(dict.fromkeys(list(sets[0].drivers) + measured))
+    m_min, m_max = (x * u.kg for x in sets[0].mass_kg)
     rows = []
-    for name in species:
+    for aset, name, (group, r_h) in ((a, n, g) for a in sets for n in species for g in epoch_rh.items()):
         mol = catalogue.get_species(name).mass.to(u.kg)
-        for group, r_h in epoch_rh.items():
-            a, a_err = acceleration_at(assume, r_h)
-            v_ej = ejection_speed_at(assume, r_h)
-            mdot = required_mass_loss_rate(u.Quantity([m_min, m_max]), a, v_ej, assume.efficiency)
-            q_req = required_production_rate(mdot, mol).to_value(1 / u.s)
-            sel = limits[(limits["species"] == name) & (limits["epoch"] == group)]
-            if len(sel):
-                k = int(np.argmax(sel["q_upper"].to_value(1 / u.s)))
-                q_up = float(sel["q_upper"][k].to_value(1 / u.s))
-                t_best, ap_best = float(sel["t_kin_K"][k]), float(sel["aperture_km"][k].to_value(u.km))
-                m_allowed = float(max_nucleus_mass(q_up / u.s, mol, a, v_ej, assume.efficiency).to_value(u.kg)) \
-                    if a > 0 else np.inf
-                detected = bool(np.any(sel["detected"]))
-            else:
-                q_up = t_best = ap_best = m_allowed = np.nan
-                detected = False
-            rho_max = [np.nan, np.nan]
-            if assume.radius_km is not None and np.isfinite(m_allowed):
-                rho_max = [float(max_bulk_density(m_allowed * u.kg, r * u.km).to_value(u.kg / u.m**3))
-                           for r in assume.radius_km]
-            area_ratio = [np.nan, np.nan]
-            if name in LATENT_HEAT and assume.radius_km is not None:
-                need = sublimation_area_required(mdot, u.Quantity(r_h, u.au), LATENT_HEAT[name])
-                cross = np.pi * (u.Quantity(assume.radius_km, u.km)) ** 2
-                area_ratio = list((need / cross).decompose().value)
-            rows.append({
-                "species": name, "epoch": group, "r_h": float(u.Quantity(r_h, u.au).value),
-                "acceleration": a.to_value(u.m / u.s**2), "acceleration_err": a_err.to_value(u.m / u.s**2),
-                "ejection_speed": v_ej.to_value(u.km / u.s),
-                "mdot_required_min": mdot[0].to_value(u.kg / u.s), "mdot_required_max": mdot[1].to_value(u.kg / u.s),
-                "q_required_min": q_req[0], "q_required_max": q_req[1], "q_upper": q_up,
-                "t_kin_K": t_best, "aperture_km": ap_best, "detected": detected,
-                "ratio_min": q_req[0] / q_up if np.isfinite(q_up) else np.nan,
-                "ratio_max": q_req[1] / q_up if np.isfinite(q_up) else np.nan,
-                "mass_allowed": m_allowed, "density_allowed_rmin": rho_max[0], "density_allowed_rmax": rho_max[1],
-                "sunlit_area_ratio_min": area_ratio[0], "sunlit_area_ratio_max": area_ratio[1],
-                "verdict": _verdict(q_up, m_allowed, m_min.value, m_max.value),
-            })
+        a, a_err = acceleration_at(aset, r_h)
+        v_ej = ejection_speed_at(aset, r_h, mol)
+        mdot = required_mass_loss_rate(u.Quantity([m_min, m_max]), a, v_ej, aset.efficiency)
+        q_req = required_production_rate(mdot, mol).to_value(1 / u.s)
+        sel = limits[(limits["species"] == name) & (limits["epoch"] == group)]
+        if len(sel):
+            k = int(np.argmax(sel["q_upper"].to_value(1 / u.s)))
+            q_up = float(sel["q_upper"][k].to_value(1 / u.s))
+            t_best, ap_best = float(sel["t_kin_K"][k]), float(sel["aperture_km"][k].to_value(u.km))
+            m_allowed = float(max_nucleus_mass(q_up / u.s, mol, a, v_ej, aset.efficiency).to_value(u.kg)) \
+                if a > 0 else np.inf
+            detected = bool(np.any(sel["detected"]))
+        else:
+            q_up = t_best = ap_best = m_allowed = np.nan
+            detected = False
+        rho_max = [np.nan, np.nan]
+        if aset.radius_km is not None and np.isfinite(m_allowed):
+            rho_max = [float(max_bulk_density(m_allowed * u.kg, r * u.km).to_value(u.kg / u.m**3))
+                       for r in aset.radius_km]
+        area_ratio = [np.nan, np.nan]
+        if name in LATENT_HEAT and aset.radius_km is not None:
+            need = sublimation_area_required(mdot, u.Quantity(r_h, u.au), LATENT_HEAT[name])
+            cross = np.pi * (u.Quantity(aset.radius_km, u.km)) ** 2
+            area_ratio = list((need / cross).decompose().value)
+        rows.append({
+            "assumption_set": aset.name, "species": name, "epoch": group, "r_h": float(u.Quantity(r_h, u.au).value),
+            "acceleration": a.to_value(u.m / u.s**2), "acceleration_err": a_err.to_value(u.m / u.s**2),
+            "ejection_speed": v_ej.to_value(u.km / u.s),
+            "mdot_required_min": mdot[0].to_value(u.kg / u.s), "mdot_required_max": mdot[1].to_value(u.kg / u.s),
+            "q_required_min": q_req[0], "q_required_max": q_req[1], "q_upper": q_up,
+            "t_kin_K": t_best, "aperture_km": ap_best, "detected": detected,
+            "ratio_min": q_req[0] / q_up if np.isfinite(q_up) else np.nan,
+            "ratio_max": q_req[1] / q_up if np.isfinite(q_up) else np.nan,
+            "mass_allowed": m_allowed, "density_allowed_rmin": rho_max[0], "density_allowed_rmax": rho_max[1],
+            "sunlit_area_ratio_min": area_ratio[0], "sunlit_area_ratio_max": area_ratio[1],
+            "verdict": _verdict(q_up, m_allowed, m_min.value, m_max.value),
+        })
     table = QTable(rows=rows)
     units = {"r_h": u.au, "acceleration": u.m / u.s**2, "acceleration_err": u.m / u.s**2,
              "ejection_speed": u.km / u.s, "mdot_required_min": u.kg / u.s, "mdot_required_max": u.kg / u.s,
@@ -169,9 +207,12 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
     return table
 
 
-def rocket_fraction(assume: BudgetAssumptions, r_h: u.Quantity) -> float:
-    """Fraction of the nucleus mass spent over the interval (Tsiolkovsky), at ``r_h``."""
+def rocket_fraction(assume: BudgetAssumptions, r_h: u.Quantity, molecular_mass: u.Quantity | None = None) -> float:
+    """Fraction of the nucleus mass spent over the interval (Tsiolkovsky), at ``r_h``.
+
+    ``molecular_mass`` is needed only for a thermal ejection speed.
+    """
     a, _ = acceleration_at(assume, r_h)
-    return float(rocket_mass_fraction(a, assume.interval_days * u.day, ejection_speed_at(assume, r_h),
+    return float(rocket_mass_fraction(a, assume.interval_days * u.day, ejection_speed_at(assume, r_h, molecular_mass),
                                       assume.efficiency))
 

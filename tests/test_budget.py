@@ -67,3 +67,43 @@ def test_nongrav_input_uses_g_at_rh():
     table = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, assume, CAT)
     expected = (5e-8 * u.au / u.day**2).to_value(u.m / u.s**2)
     assert table[0]["acceleration"].to_value(u.m / u.s**2) == pytest.approx(expected, rel=2e-3)
+
+
+def test_nucleus_from_absolute_magnitude_and_albedo():
+    # D = 1329 km / sqrt(p) 10^(-H/5) (Fowler & Chillemi 1992): H = 18, p = 0.04..0.25 -> D = 1.6733..0.6693 km
+    assume = _assume(nucleus={"absolute_magnitude": 18.0, "albedo": [0.04, 0.25], "density_kg_m3": [500.0, 500.0]})
+    assert assume.radius_km[0] == pytest.approx(1329 / np.sqrt(0.25) * 10 ** (-3.6) / 2, rel=1e-9)
+    assert assume.radius_km[1] == pytest.approx(1329 / np.sqrt(0.04) * 10 ** (-3.6) / 2, rel=1e-9)
+    assert "H = 18" in assume.nucleus_from
+
+
+def test_thermal_ejection_speed_per_species():
+    # sqrt(8 k T / (pi m)) with astropy constants: CO at 100 K -> 0.2748 km/s (k_B, u from astropy)
+    import astropy.constants as const
+
+    assume = _assume(ejection_speed_km_s={"thermal_K": 100.0})
+    table = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, assume, CAT)
+    expected = np.sqrt(8 * const.k_B * 100 * u.K / (np.pi * 28.010 * const.u)).to_value(u.km / u.s)
+    row = table[table["species"] == "CO"][0]
+    assert row["ejection_speed"].to_value(u.km / u.s) == pytest.approx(expected, rel=1e-4)
+
+
+def test_assumption_sets_rows_and_g_variant():
+    from pipeline.budget import assumption_sets
+
+    budget = {"acceleration_m_s2": [2e-6, 2e-7], "interval_days": 30,
+              "nucleus": {"radius_km": [0.2, 0.5], "density_kg_m3": [500.0, 500.0]}, "ejection_speed_km_s": 0.5,
+              "momentum_efficiency": 1.0, "drivers": ["CO"],
+              "assumption_sets": [{"name": "isotropic-ish", "momentum_efficiency": 0.5}]}
+    sets = assumption_sets(budget)
+    table = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, sets, CAT)
+    assert list(table["assumption_set"]) == ["baseline", "isotropic-ish"]
+    # halving the efficiency doubles the required Q (momentum balance M a = zeta Mdot v)
+    assert (table["q_required_min"][1] / table["q_required_min"][0]).to_value(u.one) == pytest.approx(2.0, rel=1e-12)
+    # a variant g(r) with the water-law constants (Marsden et al. 1973) renormalised: g(1 au) = 1 again
+    ng = {"A1": 3e-8, "A2": 4e-8, "A3": 0.0, "g_params": {"r0_au": 2.808, "m": 2.15, "n": 5.093, "k": 4.6142}}
+    a = assumption_sets({**budget, "nongrav": ng, "assumption_sets": []})[0]
+    a = type(a)(**{**a.__dict__, "acceleration": None})
+    t = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, a, CAT)
+    assert t[0]["acceleration"].to_value(u.m / u.s**2) == pytest.approx(
+        (5e-8 * u.au / u.day**2).to_value(u.m / u.s**2), rel=1e-9)

@@ -9,7 +9,7 @@ import numpy as np
 from astropy.table import QTable
 
 from ..atomic import write_json, write_table
-from ..budget import assumptions_from_config, budget_table, rocket_fraction
+from ..budget import assumption_sets, budget_table, rocket_fraction
 from ..provenance import provenance_record
 from .common import catalogue_from_config
 
@@ -30,18 +30,28 @@ def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
 def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str) -> None:
     """Compute and write the budget tables."""
     limits = QTable.read(limits_path, format="ascii.ecsv")
-    assume = assumptions_from_config(config["budget"])
+    sets = assumption_sets(config["budget"])
+    assume = sets[0]
     rh = epoch_distances(geometry_paths)
-    table = budget_table(limits, rh, assume, catalogue_from_config(config))
+    catalogue = catalogue_from_config(config)
+    table = budget_table(limits, rh, sets, catalogue)
     record = provenance_record(config, [limits_path, *geometry_paths], "budget")
     table.meta["provenance"] = record
     table.meta["assumptions"] = assume.as_dict()
+    table.meta["assumption_sets"] = [a.as_dict() for a in sets]
     write_table(table, out_ecsv)
-    combined = table[table["epoch"] == "all"]
+    combined = table[(table["epoch"] == "all") & (table["assumption_set"] == assume.name)]
+    water = catalogue.get_species("H2O").mass if isinstance(assume.ejection, dict) else None
     summary = {
         "campaign": config["campaign"],
         "assumptions": assume.as_dict(),
-        "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"]),
+        "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"], water),
+        "assumption_sets": [a.as_dict() for a in sets],
+        "verdicts_by_assumption_set": [
+            {"assumption_set": str(r["assumption_set"]), "species": str(r["species"]), "verdict": str(r["verdict"]),
+             "ratio_required_to_limit": [None if not np.isfinite(r["ratio_min"]) else float(r["ratio_min"]),
+                                         None if not np.isfinite(r["ratio_max"]) else float(r["ratio_max"])]}
+            for r in table[table["epoch"] == "all"]],
         "drivers": [
             {"species": str(r["species"]), "verdict": str(r["verdict"]),
              "q_upper_per_s": None if not np.isfinite(r["q_upper"].value) else float(r["q_upper"].value),

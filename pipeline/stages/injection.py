@@ -34,7 +34,9 @@ def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list
         row = sel[np.argmin(sel["aperture_km"].to_value(u.km))]
         levels.append(("limit", float(row["q_upper"].to_value(1 / u.s))))
         t_kin = float(row["t_kin_K"])
-    bsel = budget[(budget["species"] == species) & (budget["epoch"] == "all")]
+    baseline = budget["assumption_set"][0] if "assumption_set" in budget.colnames and len(budget) else None
+    bsel = budget[(budget["species"] == species) & (budget["epoch"] == "all")
+                  & ((budget["assumption_set"] == baseline) if baseline is not None else True)]
     if len(bsel) and np.isfinite(bsel["q_required_min"][0].value):
         levels.append(("required", float(bsel["q_required_min"][0].to_value(1 / u.s))))
     return levels, t_kin

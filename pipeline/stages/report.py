@@ -73,10 +73,10 @@ def _spectrum_panels(stack_paths: list[str], limits: QTable, config: dict[str, A
 
 def _budget_figure(budget: QTable, config: dict[str, Any], catalogue):
     assume = assumptions_from_config(config["budget"])
-    combined = budget[budget["epoch"] == "all"]
+    combined = budget[(budget["epoch"] == "all") & (budget["assumption_set"] == assume.name)]
     r_h = float(np.mean(combined["r_h"].to_value(u.au))) * u.au
     a, a_err = acceleration_at(assume, r_h)
-    v = ejection_speed_at(assume, r_h)
+    v = ejection_speed_at(assume, r_h, catalogue.get_species("H2O").mass)  # H2O only matters for a thermal speed
     lo, hi = assume.mass_kg
     mass = np.logspace(np.log10(lo) - 1, np.log10(hi) + 1, 200)
     per_kg = (a / (assume.efficiency * v)).to_value(1 / u.s)
@@ -147,7 +147,8 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
     _write_png(fig_sweep, outputs.sweep)
 
     sections = [("", f'<div class="caution"><b>Read this first.</b> {html.escape(CAUTION)}</div>')]
-    combined = budget[budget["epoch"] == "all"]
+    sets = list(dict.fromkeys(budget["assumption_set"]))
+    combined = budget[(budget["epoch"] == "all") & (budget["assumption_set"] == sets[0])]
     classes = ["unobserved" if r["verdict"] == "not observed" else
                ("allowed" if r["verdict"] == "not excluded" else "excluded") for r in combined]
     sections.append(("Verdict (all epochs combined)", table_html(
@@ -160,6 +161,13 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
         + f"<p>Over {summary['assumptions']['interval_days']:g} days the push would cost the nucleus "
           f"{100 * summary['rocket_mass_fraction_over_interval']:.3g} % of its mass (rocket equation, independent "
           "of the mass). A driver that no cube covered is listed as 'not observed', never as excluded.</p>"))
+    if len(sets) > 1:
+        every = budget[budget["epoch"] == "all"]
+        sections.append(("Verdict under each assumption set", table_html(
+            ["assumption set", "species", "verdict", "required / limit"],
+            [[str(r["assumption_set"]), str(r["species"]), str(r["verdict"]),
+              "–" if not np.isfinite(r["ratio_min"]) else f"{r['ratio_min']:.3g} – {r['ratio_max']:.3g}"]
+             for r in every], left=3)))
     sections.append(("Mass budget", figure_html(
         fig_budget, "Mass-loss rate the acceleration requires (black, grey band ±1σ) against the rate each species' "
                     "upper limit allows (dashed). Where the black line lies above a dashed line, that species alone "
@@ -171,13 +179,19 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
     cons = limits[limits["conservative"]]
     sections.append(("Production rates and upper limits (conservative temperature)", table_html(
         ["species", "epoch", "aperture [km]", "T_kin [K]", "Q [1/s]", "σ_Q [1/s]", "SNR", "detected",
-         "Q upper [1/s]", "lines"],
+         "Q upper [1/s]", "profile-fit Q [1/s]", "line centre [km/s]", "lines [MHz]"],
         [[str(r["species"]), str(r["epoch"]), float(r["aperture_km"].value), float(r["t_kin_K"]),
           float(r["q"].value), float(r["q_err"].value), float(r["snr"]), "yes" if r["detected"] else "no",
-          float(r["q_upper"].value), str(r["lines"]).replace(",", ", ")] for r in cons], left=2)
+          float(r["q_upper"].value),
+          "–" if not np.isfinite(r["q_fit"].value) else f"{r['q_fit'].value:.3g} ± {r['q_fit_err'].value:.2g}",
+          "–" if not np.isfinite(r["v_offset"].value)
+          else f"{r['v_offset'].value:+.3f} ± {r['v_offset_err'].value:.3f}",
+          ", ".join(x.split("_", 1)[-1] for x in str(r["lines"]).split(","))] for r in cons], left=2)
         + "<p>Q upper: Bayesian limit with a flat prior on Q ≥ 0 at the one-sided confidence of "
           f"{config['limits']['nsigma']}σ; limits.ecsv also holds the classical Q + nσ and the Feldman–Cousins "
-          "limits, every temperature and every aperture.</p>"))
+          "limits, every temperature and every aperture. For detections, a fit of the outflow line profile gives Q "
+          "again and the line centre; a centre far from 0 km/s points at an error in the ephemeris' range rate."
+          "</p>"))
     sections.append(("Injection–recovery", _injection_section(list(inputs.injection))))
     sections.append(("Temperature sweep", figure_html(
         fig_sweep, "Upper limit (all epochs, smallest aperture) against the assumed kinetic temperature; the circled "
