@@ -53,9 +53,16 @@ def write_table(table: Table, path: str | Path) -> None:
 
 
 def write_fits(hdul: fits.HDUList, path: str | Path) -> None:
-    """Write a FITS HDU list atomically (with checksums in every HDU)."""
+    """Write a FITS HDU list atomically, with CHECKSUM/DATASUM in every HDU.
+
+    astropy's default checksum comment carries the current time, which would make identical data give
+    different bytes; a fixed comment keeps reruns byte-identical.
+    """
+    for hdu in hdul:
+        hdu.verify("silentfix")
+        hdu.add_checksum(when="written by gasledger")
     with atomic_path(path) as tmp:
-        hdul.writeto(tmp, overwrite=True, checksum=True)
+        hdul.writeto(tmp, overwrite=True, checksum=False)
 
 
 def write_text(text: str, path: str | Path) -> None:

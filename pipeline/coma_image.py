@@ -17,9 +17,9 @@ from scipy.signal import fftconvolve
 from .apertures import aperture_spectra, aperture_weights
 from .catalogue import Line, Species
 from .excitation import flux_per_molecule
-from .haser import parent_column_density, scale_length
+from .haser import daughter_column_density, parent_column_density
 from .line_profile import channel_fractions, thermal_dispersion
-from .response import SPECTRAL_RESPONSES, ComaModel, outflow_speed
+from .response import SPECTRAL_RESPONSES, ComaModel, outflow_speed, scale_lengths
 
 __all__ = ["pixel_column_integral", "coma_molecules_image", "beam_kernel", "apply_spectral_response",
            "model_line_cube", "aperture_count_on_grid"]
@@ -60,11 +60,12 @@ def pixel_column_integral(x_lo, x_hi, y_lo, y_hi) -> np.ndarray:
 
 
 def coma_molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km: float, speed: u.Quantity,
-                         length: u.Quantity, sub: int = 3) -> np.ndarray:
+                         length: u.Quantity, length_daughter: u.Quantity | None = None, sub: int = 3) -> np.ndarray:
     """Molecules per pixel (line-of-sight column integrated over the pixel) for Q = 1/s.
 
-    Haser parent distribution centred on pixel (x0, y0), 0-based; ``pixel_km``
-    is the pixel side at the target.
+    Haser distribution centred on pixel (x0, y0), 0-based; ``pixel_km`` is the
+    pixel side at the target. With ``length_daughter`` the molecules are a
+    daughter produced by a parent of scale length ``length``.
     """
     ny, nx = shape
     v = u.Quantity(speed).to_value(u.km / u.s)
@@ -76,8 +77,9 @@ def coma_molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km:
                                           (yc - half - y0) * pixel_km, (yc + half - y0) * pixel_km)   # km
     rho = np.maximum(np.hypot(xc - x0, yc - y0) * pixel_km, 1e-6 * pixel_km)
     # Haser factor: the column relative to its L -> infinity form Q/(4 v rho)
-    factor = (parent_column_density(rho * u.km, 1 / u.s, speed, length) * 4 * u.Quantity(speed) * rho * u.km
-              * u.s).decompose().value
+    column = (parent_column_density(rho * u.km, 1 / u.s, speed, length) if length_daughter is None
+              else daughter_column_density(rho * u.km, 1 / u.s, speed, length, length_daughter))
+    factor = (column * 4 * u.Quantity(speed) * rho * u.km * u.s).decompose().value
     molecules = area_over_rho * factor / (4 * v)
     return molecules.reshape(ny, sub, nx, sub).sum(axis=(1, 3))
 
@@ -106,7 +108,8 @@ def apply_spectral_response(cube: np.ndarray, response: str = "hanning") -> np.n
 def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: float, velocity: np.ndarray,
                     line: Line, species: Species, q: float, t_kin: u.Quantity, r_h: u.Quantity,
                     delta: u.Quantity, beam_arcsec: tuple[float, float, float], model: ComaModel,
-                    v_centre: float = 0.0, spectral_response: str | None = "hanning") -> np.ndarray:
+                    v_centre: float = 0.0, spectral_response: str | None = "hanning",
+                    parent: Species | None = None) -> np.ndarray:
     """A model coma of production rate ``q`` [1/s] in one line, in Jy/beam, shape (n_chan, n_y, n_x).
 
     ``velocity`` [km/s] are the channels' velocities in the target's frame;
@@ -114,9 +117,9 @@ def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: 
     channel response out (apply it once to signal and noise together instead).
     """
     v = outflow_speed(model, r_h)
-    length = scale_length(v, species.photo_rate(model.solar_activity), u.Quantity(r_h, u.au))
+    length, daughter = scale_lengths(species, parent, model, r_h, v)
     pix_km = (pixel_arcsec * u.arcsec).to_value(u.rad) * u.Quantity(delta).to_value(u.km)
-    molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length)
+    molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length, daughter)
     flux_img = molecules * q * flux_per_molecule(line, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
     bmaj, bmin, bpa = beam_arcsec
     sky = fftconvolve(flux_img, beam_kernel(bmaj / pixel_arcsec, bmin / pixel_arcsec, bpa), mode="same")
@@ -130,7 +133,7 @@ def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: 
 
 def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix: list[float], pixel_km: float,
                            beam_pix: tuple[float, float, float] | None, speed: u.Quantity,
-                           length: u.Quantity) -> np.ndarray:
+                           length: u.Quantity, length_daughter: u.Quantity | None = None) -> np.ndarray:
     """Molecules (for Q = 1/s) that each aperture counts on the actual pixel grid of the data.
 
     The model image of :func:`coma_molecules_image` is convolved with the
@@ -140,7 +143,7 @@ def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix
     exactly as they enter the data. (The analytic circular-beam count of
     :func:`pipeline.haser.convolved_aperture_count` is its external check.)
     """
-    img = coma_molecules_image(shape, x, y, pixel_km, speed, length)
+    img = coma_molecules_image(shape, x, y, pixel_km, speed, length, length_daughter)
     if beam_pix is not None:
         img = fftconvolve(img, beam_kernel(*beam_pix), mode="same")
     weights = [aperture_weights(shape, x, y, r) for r in radii_pix]

@@ -157,8 +157,8 @@ def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:
     paths = [("target.ephemeris", config["target"].get("ephemeris"))]
     paths += [(f"cubes[{i}].path", c["path"]) for i, c in enumerate(config["cubes"])]
     if "catalogue" in config:
-        paths += [("catalogue.species_file", config["catalogue"]["species_file"]),
-                  ("catalogue.lines_file", config["catalogue"]["lines_file"])]
+        paths += [(f"catalogue.{k}", config["catalogue"][k]) for k in ("species_file", "lines_file", "bands_file")
+                  if k in config["catalogue"]]
     for key, path in paths:
         if path is not None and not Path(path).is_file():
             msg = f"{source}: {key} names the file {path!r}, which does not exist"

@@ -74,7 +74,8 @@ def placements(subcube_path, settings: ExtractionSettings, n_ring: int = 4,
 
 
 def inject_spectra(subcube_path, settings: ExtractionSettings, line: Line, species: Species, q: float,
-                   t_kin: u.Quantity, model: ComaModel, where: list[Placement]) -> list[fits.HDUList]:
+                   t_kin: u.Quantity, model: ComaModel, where: list[Placement],
+                   parent: Species | None = None) -> list[fits.HDUList]:
     """Spectra files (as :func:`extract_spectra` makes them) of the sub-cube with a coma of ``q`` injected."""
     info = read_cube_info(subcube_path)
     h = info.header
@@ -91,7 +92,7 @@ def inject_spectra(subcube_path, settings: ExtractionSettings, line: Line, speci
     for p in where:
         cube = model_line_cube(info.shape[1:], p.x, p.y, pix, vel, line, species, q, t_kin,
                                float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au, beam, model,
-                               v_centre=p.v_centre, spectral_response=h.get("GLSPRESP", "hanning"))
+                               v_centre=p.v_centre, spectral_response=h.get("GLSPRESP", "hanning"), parent=parent)
         cube = cube * to_cube_unit[:, None, None]
         hdul = extract_spectra(subcube_path, settings, data=real + cube, centre=(p.x, p.y), v_centre=p.v_centre,
                                offsource=False)

@@ -14,11 +14,12 @@ import astropy.units as u
 import numpy as np
 
 from .catalogue import Line, Species
+from .errors import CatalogueError
 from .excitation import flux_per_molecule
 from .haser import convolved_aperture_count, outflow_speed_law, scale_length
 from .line_profile import channel_fractions, thermal_dispersion
 
-__all__ = ["ComaModel", "outflow_speed", "line_response", "window_capture", "SPECTRAL_RESPONSES"]
+__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES"]
 
 
 @dataclass(frozen=True)
@@ -36,9 +37,22 @@ def outflow_speed(model: ComaModel, r_h: u.Quantity) -> u.Quantity:
     return float(model.outflow) * u.km / u.s
 
 
+def scale_lengths(species: Species, parent: Species | None, model: ComaModel, r_h: u.Quantity,
+                  speed: u.Quantity) -> tuple[u.Quantity, u.Quantity | None]:
+    """Haser scale lengths (parent, daughter): a parent species gives (L, None); a daughter (L_parent, L)."""
+    r_h = u.Quantity(r_h, u.au)
+    own = scale_length(speed, species.photo_rate(model.solar_activity), r_h)
+    if species.parent is None:
+        return own, None
+    if parent is None or parent.name != species.parent:
+        msg = f"species {species.name!r} is a daughter of {species.parent!r}; its parent's entry is needed"
+        raise CatalogueError(msg)
+    return scale_length(speed, parent.photo_rate(model.solar_activity), r_h), own
+
+
 def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quantity,
                   r_h: u.Quantity, delta: u.Quantity, beam_fwhm: u.Quantity,
-                  model: ComaModel) -> u.Quantity:
+                  model: ComaModel, parent: Species | None = None) -> u.Quantity:
     """Integrated flux per unit production rate, shape (n_T, n_radii), in Jy km/s s.
 
     Parameters
@@ -49,13 +63,15 @@ def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quan
     r_h, delta : Quantity [length], heliocentric and observer distances
     beam_fwhm : Quantity [length], beam FWHM at the target (0 for no beam)
     model : ComaModel
+    parent : Species, optional
+        The parent's entry, needed when ``species`` is a daughter (Haser parent-daughter model).
     """
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     radii = np.atleast_1d(u.Quantity(radii, u.km))
     v = outflow_speed(model, r_h)
-    length = scale_length(v, species.photo_rate(model.solar_activity), u.Quantity(r_h, u.au))
+    length, daughter = scale_lengths(species, parent, model, r_h, v)
     per_molecule = flux_per_molecule(line, species, t_kin, delta)          # (n_T,)
-    count = convolved_aperture_count(radii, u.Quantity(beam_fwhm, u.km), 1.0 / u.s, v, length)  # (n_r,)
+    count = convolved_aperture_count(radii, u.Quantity(beam_fwhm, u.km), 1.0 / u.s, v, length, daughter)  # (n_r,)
     return (per_molecule[:, None] * u.Quantity(count, u.dimensionless_unscaled)[None, :] * u.s).to(
         u.Jy * u.km / u.s * u.s)
 

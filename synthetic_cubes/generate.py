@@ -119,9 +119,11 @@ def _write_cube(path: Path, sc: Scenario, window, epoch: str, mid: Time, geo, ca
         vel = radio_velocity(f_rest_target, line.freq).to_value(u.km / u.s)
         if not (vel.min() < -5 and vel.max() > 5):
             continue
-        signal += model_line_cube((n, n), float(x0), float(y0), sc.pixel_arcsec, vel, line,
-                                  catalogue.get_species(line.species), q, sc.t_kin_K * u.K, r_h, delta,
-                                  (bmaj, bmin, bpa), model, spectral_response=None)
+        species = catalogue.get_species(line.species)
+        parent = catalogue.get_species(species.parent) if species.parent else None
+        signal += model_line_cube((n, n), float(x0), float(y0), sc.pixel_arcsec, vel, line, species, q,
+                                  sc.t_kin_K * u.K, r_h, delta, (bmaj, bmin, bpa), model, spectral_response=None,
+                                  parent=parent)
         truth.append({"line": line.line_id, "q": q})
     noise = rng.standard_normal((nchan, n, n))
     k_norm = kernel / np.sqrt(np.sum(kernel**2))

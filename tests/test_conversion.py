@@ -55,12 +55,15 @@ R_H, DELTA, SPEED = 1.3 * u.au, 0.7 * u.au, 0.75 * KMS
 def test_round_trip_line_flux_every_catalogue_line(line):
     # Q -> flux -> Q is exact: the inverse maps divide by the same positive factor
     species = CAT.get_species(line.species)
+    parent = CAT.get_species(species.parent) if species.parent else None  # e.g. CS, the daughter of CS2
     q = np.array([[3e27], [-2e25], [1e29]]) / u.s  # broadcast against T (3, 1) x aperture (4,)
     t = T_GRID[:, None]
     for activity in ("quiet", "active"):
-        flux = cv.line_flux_from_production_rate(q, line, species, t, RHO_GRID, R_H, DELTA, SPEED, activity)
+        flux = cv.line_flux_from_production_rate(q, line, species, t, RHO_GRID, R_H, DELTA, SPEED, activity,
+                                                 parent=parent)
         assert flux.unit == JYKMS and flux.shape == (3, 4)
-        back = cv.production_rate_from_line_flux(flux, line, species, t, RHO_GRID, R_H, DELTA, SPEED, activity)
+        back = cv.production_rate_from_line_flux(flux, line, species, t, RHO_GRID, R_H, DELTA, SPEED, activity,
+                                                 parent=parent)
         assert_quantity_allclose(back, q * np.ones(4), rtol=1e-12)
 
 

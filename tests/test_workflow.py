@@ -137,3 +137,20 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     # which depend on the campaign tables for every species
     assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "limits_species": 1, "limits": 1,
                     "budget": 1, "injection": 3, "report": 1, "all": 1}, dry.stdout[-3000:]
+
+
+def test_report_renders_in_a_real_browser(campaign, tmp_path):
+    """The report opened in headless Chromium shows its figures (pixels in the figures' line colours)."""
+    import os
+
+    sys.path.insert(0, str(REPO / "tools"))
+    import check_report
+
+    if check_report.find_chromium() is None:
+        if os.environ.get("CI"):
+            pytest.fail("CI must have Chromium (.ci/run installs Debian's chromium)")
+        pytest.skip("no Chromium on this machine (Debian: apt-get install chromium); CI installs it")
+    root, _ = campaign
+    png = tmp_path / "report.png"
+    check_report.screenshot(root / "results" / "report.html", png)
+    assert check_report.figure_pixels(png) >= 3000

@@ -55,7 +55,8 @@ def setup_logging(log_path: str | Path | None) -> logging.Logger:
 def catalogue_from_config(config: dict[str, Any]) -> Catalogue:
     """The user catalogue named in the config, or the built-in one."""
     if "catalogue" in config:
-        return load_catalogue(config["catalogue"]["species_file"], config["catalogue"]["lines_file"])
+        cat = config["catalogue"]
+        return load_catalogue(cat["species_file"], cat["lines_file"], cat.get("bands_file"))
     return load_catalogue()
 
 

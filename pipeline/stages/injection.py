@@ -65,7 +65,9 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
             settings = extraction_settings(header, config, catalogue)
             where = placements(path, settings)
             line = catalogue.get_line(header["GLLINE"])
-            for k, hdul in enumerate(inject_spectra(path, settings, line, sp, q, t_kin * u.K, model, where)):
+            parent = catalogue.get_species(sp.parent) if sp.parent else None
+            for k, hdul in enumerate(inject_spectra(path, settings, line, sp, q, t_kin * u.K, model, where,
+                                                    parent)):
                 inp, _ = stack_input(hdul, catalogue, config)
                 vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
                 groups.setdefault((where[k].index, vrank), []).append(inp)

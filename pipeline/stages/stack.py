@@ -14,8 +14,7 @@ from ..atomic import write_fits
 from ..provenance import add_to_header, provenance_record
 from ..coma_image import aperture_count_on_grid
 from ..excitation import flux_per_molecule
-from ..haser import scale_length
-from ..response import line_response, outflow_speed, window_capture
+from ..response import line_response, outflow_speed, scale_lengths, window_capture
 from ..stacking import StackInput, combine, velocity_grid
 from .common import catalogue_from_config, coma_model, temperatures
 
@@ -30,6 +29,7 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
     h = spectra[0].header
     line = catalogue.get_line(h["GLLINE"])
     species = catalogue.get_species(line.species)
+    parent = catalogue.get_species(species.parent) if species.parent else None
     aps = Table.read(spectra["APERTURES"])
     chans = Table.read(spectra["CHANNELS"])
     vel = np.asarray(chans["velocity"], dtype=float)
@@ -45,14 +45,14 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
         pix_km = (h["GLPIXSC"] * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
         beam_pix = ((h["BMAJ"] * 3600 / h["GLPIXSC"], h["BMIN"] * 3600 / h["GLPIXSC"], h.get("BPA", 0.0))
                     if "BMAJ" in h else None)
-        length = scale_length(v_out, species.photo_rate(model.solar_activity), r_h)
+        length, daughter = scale_lengths(species, parent, model, r_h, v_out)
         count = aperture_count_on_grid((h["GLNY"], h["GLNX"]), h["GLAPX"], h["GLAPY"],
                                        list(np.asarray(aps["radius_pix"], dtype=float)), pix_km, beam_pix, v_out,
-                                       length)
+                                       length, daughter)
         resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
         method = "grid"
     else:
-        resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model).to_value(u.Jy * u.km)
+        resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model, parent).to_value(u.Jy * u.km)
         method = "analytic"
     frac = window_capture(species, t_kin, vel - float(h.get("GLVCEN", 0.0)), wts, v_out,
                           h.get("GLSPRESP", "hanning"))                                         # (T,)
