@@ -22,7 +22,8 @@ rule limits:
     input:
         expand(f"{OUT}/limits/{{species}}.ecsv", species=SPECIES),
     output:
-        report(f"{OUT}/limits.ecsv", caption="../report/limits.rst", category="Tables"),
+        ecsv=report(f"{OUT}/limits.ecsv", caption="../report/limits.rst", category="Tables"),
+        json=f"{OUT}/limits.json",
     log:
         f"{OUT}/logs/limits.log",
     benchmark:

@@ -154,3 +154,12 @@ def test_report_renders_in_a_real_browser(campaign, tmp_path):
     png = tmp_path / "report.png"
     check_report.screenshot(root / "results" / "report.html", png)
     assert check_report.figure_pixels(png) >= 3000
+
+
+def test_snakemake_report_builds(campaign, tmp_path):
+    """Snakemake's own report (figures and tables registered with report()) builds from the finished run."""
+    root, config = campaign
+    out = tmp_path / "snakemake_report.html"
+    run = snakemake(root, config, "--report", str(out))
+    assert run.returncode == 0, run.stderr[-2000:]
+    assert out.stat().st_size > 100_000

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import logging
+import warnings
 from typing import Any
 
 import astropy.units as u
@@ -9,14 +11,18 @@ import numpy as np
 from astropy.io import fits
 from astropy.table import QTable, Table
 
-from ..atomic import write_table
+from ..atomic import write_json, write_table
 from ..limits import join_limits, limit_rows, mark_conservative
+from ..excitation import OpacityWarning, line_optical_depth
+from ..haser import parent_aperture_count, scale_length
 from ..line_fit import fit_line
 from ..line_profile import thermal_dispersion
 from ..provenance import provenance_record
 from .common import catalogue_from_config
 
 __all__ = ["run_species", "run_join"]
+
+log = logging.getLogger(__name__)
 
 
 def _add_fit_columns(table: QTable) -> None:
@@ -52,6 +58,34 @@ def _fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table
         table["v_offset_err"][k] = fit.v_offset_err * u.km / u.s
 
 
+def _opacity(table: QTable, inputs: Table, catalogue, species_name: str) -> None:
+    """Peak optical depth, in the aperture-mean column, of the strongest line of each detected row."""
+    species = catalogue.get_species(species_name)
+    table["tau_peak"] = np.full(len(table), np.nan)
+    for k, row in enumerate(table):
+        if not row["detected"] or not np.isfinite(row["q"].value) or row["q"].value <= 0:
+            continue
+        sel = inputs[(inputs["epoch"] == row["epoch"]) | (row["epoch"] == "all")]
+        rho = row["aperture_km"].to(u.km)
+        v = float(np.mean(sel["outflow"])) * u.km / u.s
+        r_h = float(np.mean(sel["r_h"])) * u.au
+        length = scale_length(v, species.photo_rate("quiet"), r_h)
+        column = parent_aperture_count(rho, row["q"], v, length) / (np.pi * rho**2)
+        taus = []
+        for line_id in str(row["lines"]).split(","):
+            line = catalogue.get_line(line_id)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", OpacityWarning)
+                taus.append(float(line_optical_depth(line, species, row["t_kin_K"] * u.K, column, 2 * v)))
+        table["tau_peak"][k] = max(taus)
+    strong = table[np.nan_to_num(table["tau_peak"]) > 0.1]
+    if len(strong):
+        worst = strong[np.argmax(strong["tau_peak"])]
+        log.warning("%s: the peak optical depth reaches %.2g (epoch %s, %.0f km, %g K): the optically thin Q is a "
+                    "lower bound there", species_name, worst["tau_peak"], worst["epoch"],
+                    worst["aperture_km"].to_value(u.km), worst["t_kin_K"])
+
+
 def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
     """Limits of one species from its stack file; detections also get a line-profile fit."""
     catalogue = catalogue_from_config(config)
@@ -80,6 +114,7 @@ def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
                               str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
             _add_fit_columns(rows)
             _fit_detections(rows, str(group), stack_hdul, inputs, t, catalogue.get_species(species).mass)
+            _opacity(rows, inputs, catalogue, species)
             tables.append(rows)
     if tables:
         table = join_limits(tables)
@@ -87,11 +122,27 @@ def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
         table = limit_rows(species, "all", [] * u.K, [] * u.km, np.zeros((0, 0)) / u.s,
                            np.ones((0, 0)) / u.s, nsigma, [], [])
         _add_fit_columns(table)
+        table["tau_peak"] = np.zeros(0)
     table.meta["provenance"] = provenance_record(config, [stack_path], "limits")
     write_table(table, out_path)
 
 
-def run_join(species_paths: list[str], config: dict[str, Any], out_path: str) -> None:
+def table_as_json(table: QTable) -> dict[str, Any]:
+    """Rows of a table as plain JSON values, with the unit of each column."""
+    units = {c: str(table[c].unit) for c in table.colnames if getattr(table[c], "unit", None) is not None}
+    rows = []
+    for row in table:
+        rec = {}
+        for c in table.colnames:
+            v = row[c]
+            v = v.value if hasattr(v, "unit") else v
+            v = v.item() if hasattr(v, "item") else v
+            rec[c] = None if isinstance(v, float) and not np.isfinite(v) else v
+        rows.append(rec)
+    return {"units": units, "rows": rows, "meta": dict(table.meta)}
+
+
+def run_join(species_paths: list[str], config: dict[str, Any], out_path: str, json_path: str | None = None) -> None:
     """Join the per-species limits into limits.ecsv, flagging the conservative temperature."""
     tables = [QTable.read(p, format="ascii.ecsv") for p in species_paths]
     for t in tables:
@@ -109,3 +160,5 @@ def run_join(species_paths: list[str], config: dict[str, Any], out_path: str) ->
         "epoch 'all'": "constant Q over the epochs combined",
     }
     write_table(table, out_path)
+    if json_path is not None:
+        write_json(table_as_json(table), json_path)
