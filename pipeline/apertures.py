@@ -60,7 +60,8 @@ def aperture_weights(shape: tuple[int, int], x: float, y: float, radius_pix: flo
     ny, nx = shape
     if x - radius_pix < -0.5 or y - radius_pix < -0.5 or x + radius_pix > nx - 0.5 or y + radius_pix > ny - 0.5:
         msg = (f"{what}: a circle of radius {radius_pix:.1f} px at ({x:.1f}, {y:.1f}) does not fit inside the "
-               f"{nx} x {ny} image; expected an aperture smaller than the field")
+               f"{nx} x {ny} image; expected an aperture smaller than the field (reduce apertures_km or "
+               "apertures_arcsec)")
         raise CoverageError(msg)
     mask = CircularAperture((x, y), r=radius_pix).to_mask(method="exact")
     (ys, xs), (my, mx) = mask.get_overlap_slices((ny, nx))
@@ -159,21 +160,24 @@ def flux_conversion(bunit: u.UnitBase, pixel_area: u.Quantity, beam_area: u.Quan
     Jy/beam: pixel area / beam area. Jy/pixel: 1. MJy/sr: 1e6 x pixel area [sr].
     K (Rayleigh-Jeans brightness temperature in the beam): astropy's
     brightness_temperature equivalency to Jy/beam, then pixel / beam area.
+    Prefixed forms of these (mJy/beam, uJy/beam, mK, kJy/sr, ...) are scaled
+    to them first by astropy's unit conversion.
     """
     n = np.ones(len(freqs))
     pix = u.Quantity(pixel_area).to(u.sr)
-    if bunit == u.Jy / u.pix:
-        return n
-    if bunit == u.MJy / u.sr:
-        return n * (1 * u.MJy / u.sr * pix).to_value(u.Jy)
+    bunit = u.Unit(bunit)
+    if bunit.is_equivalent(u.Jy / u.pix):
+        return n * bunit.to(u.Jy / u.pix)
+    if bunit.is_equivalent(u.Jy / u.sr):
+        return n * (1 * bunit * pix).to_value(u.Jy)
+    if not (bunit.is_equivalent(u.Jy / u.beam) or bunit.is_equivalent(u.K)):
+        msg = f"BUNIT {bunit} is not one of Jy/beam, Jy/pixel, MJy/sr, K (or a prefixed form of them)"
+        raise CubeError(msg)
     if beam_area is None:
         msg = f"BUNIT {bunit} needs a beam to convert to flux density"
         raise CubeError(msg)
     beam = u.Quantity(beam_area).to(u.sr)
-    if bunit == u.Jy / u.beam:
-        return n * (pix / beam).decompose().value
-    if bunit == u.K:
-        jy_per_beam = (1 * u.K).to(u.Jy, equivalencies=u.brightness_temperature(freqs, beam_area=beam))
-        return jy_per_beam.value * (pix / beam).decompose().value
-    msg = f"BUNIT {bunit} is not one of Jy/beam, Jy/pixel, MJy/sr, K"
-    raise CubeError(msg)
+    if bunit.is_equivalent(u.Jy / u.beam):
+        return n * bunit.to(u.Jy / u.beam) * (pix / beam).decompose().value
+    jy_per_beam = (1 * bunit).to(u.Jy, equivalencies=u.brightness_temperature(freqs, beam_area=beam))
+    return jy_per_beam.value * (pix / beam).decompose().value

@@ -31,6 +31,9 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
+    for stale in path.parent.glob(f".{path.name}.*.part"):  # left behind by a run that was killed mid-write
+        with contextlib.suppress(FileNotFoundError):
+            stale.unlink()
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
     tmp_path = Path(tmp)

@@ -19,7 +19,7 @@ from astropy.time import Time
 from astropy.wcs import WCS, FITSFixedWarning
 from astropy.wcs.utils import proj_plane_pixel_scales
 
-from .errors import CubeError
+from .errors import CubeError, GasledgerError
 
 __all__ = [
     "CubeInfo",
@@ -27,20 +27,27 @@ __all__ = [
     "open_data",
     "observation_times",
     "SPECSYS_VALUES",
+    "BRIGHTNESS_KINDS",
+    "brightness_unit",
 ]
 
 SPECSYS_VALUES = ("TOPOCENT", "GEOCENTR", "BARYCENT", "LSRK", "SOURCE")
 _SPECTRAL_CTYPES = ("FREQ", "VRAD", "VOPT", "WAVE")
 _DEFAULT_CUNIT = {"FREQ": "Hz", "VRAD": "m/s", "VOPT": "m/s", "WAVE": "m"}
 _CUNIT_KIND = {"FREQ": "frequency", "VRAD": "speed", "VOPT": "speed", "WAVE": "length"}
+#: Spellings read case-insensitively when astropy cannot parse BUNIT as written (e.g. upper-case 'JY/BEAM';
+#: upper-case 'MJY/SR' is taken as mega-jansky per steradian, the usual meaning of that spelling).
 _BRIGHTNESS_UNITS = {
     "JY/BEAM": u.Jy / u.beam,
-    "JY BEAM-1": u.Jy / u.beam,
+    "JYBEAM-1": u.Jy / u.beam,
+    "JY.BEAM-1": u.Jy / u.beam,
     "JY/PIXEL": u.Jy / u.pix,
     "JY/PIX": u.Jy / u.pix,
     "MJY/SR": u.MJy / u.sr,
     "K": u.K,
 }
+#: The kinds of brightness unit a cube may have; any prefix of them (mJy/beam, uJy/beam, mK, ...) is accepted.
+BRIGHTNESS_KINDS = (u.Jy / u.beam, u.Jy / u.pix, u.Jy / u.sr, u.K)
 
 
 @dataclass(frozen=True)
@@ -87,13 +94,55 @@ def _open_hdul(path: Path) -> fits.HDUList:
     if not path.is_file():
         msg = f"{path}: cube file does not exist"
         raise CubeError(msg)
-    try:
-        hdul = fits.open(path, mode="readonly", memmap=True)
-        hdul[0].header  # noqa: B018 - force the header to be parsed
-    except (OSError, ValueError) as exc:
-        msg = f"{path}: not a readable FITS file ({exc}); expected a FITS cube"
-        raise CubeError(msg) from exc
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            hdul = fits.open(path, mode="readonly", memmap=True)
+            hdul[0].header  # noqa: B018 - force the header to be parsed
+        except (OSError, ValueError, TypeError) as exc:
+            reason = " ".join(str(exc).split())
+            msg = f"{path}: not a readable FITS file ({reason}); expected a FITS cube"
+            raise CubeError(msg) from exc
+    # astropy only warns about a file shorter than its header announces (and fails later, on reading the data)
+    short = [w for w in caught if "truncated" in str(w.message)]
+    if short:
+        expected = _expected_size(hdul[0].header)
+        hdul.close()
+        msg = (f"{path}: the FITS file is truncated ({path.stat().st_size} bytes, but its header (BITPIX, NAXISn) "
+               f"announces {expected} bytes); expected a complete file (copy or export it again)")
+        raise CubeError(msg)
+    for w in caught:  # pass on anything else astropy had to say
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     return hdul
+
+
+def _expected_size(header: fits.Header) -> int:
+    """Bytes of a primary HDU with ``header``: header blocks plus data padded to 2880-byte blocks."""
+    n_header = len(header.tostring())
+    naxis = int(header.get("NAXIS", 0))
+    nbytes = abs(int(header.get("BITPIX", 8))) // 8 if naxis else 0
+    for i in range(1, naxis + 1):
+        nbytes *= int(header.get(f"NAXIS{i}", 0))
+    return n_header + -(-nbytes // 2880) * 2880
+
+
+def brightness_unit(text: str) -> u.UnitBase | None:
+    """The unit a BUNIT card names, when it is a brightness unit gasledger can convert to Jy; else None.
+
+    Parsed as written (case matters: 'mJy/beam' is milli-, 'MJy/sr' mega-jansky), with the FITS unit
+    grammar; upper-case spellings astropy does not parse ('JY/BEAM', 'JY/PIXEL', 'MJY/SR') are looked up.
+    The unit must convert to one of :data:`BRIGHTNESS_KINDS` (any SI prefix is accepted).
+    """
+    unit = None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", u.UnitsWarning)
+        try:
+            unit = u.Unit(str(text).strip(), format="fits")
+        except ValueError:
+            unit = _BRIGHTNESS_UNITS.get("".join(str(text).upper().split()))
+    if unit is None or not any(unit.is_equivalent(kind) for kind in BRIGHTNESS_KINDS):
+        return None
+    return unit
 
 
 def read_cube_info(path: str | Path) -> CubeInfo:
@@ -128,12 +177,11 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         msg = f"{path}: header card SPECSYS = {specsys!r}; expected one of {', '.join(SPECSYS_VALUES)}"
         raise CubeError(msg)
     bunit_text = str(_card(header, "BUNIT", path, "a brightness unit (Jy/beam, Jy/pixel, MJy/sr, K)"))
-    key = bunit_text.strip().upper().replace(" ", "")
-    key = {"JY/BEAM": "JY/BEAM", "JYBEAM-1": "JY/BEAM"}.get(key, key)
-    if key not in _BRIGHTNESS_UNITS:
-        msg = f"{path}: header card BUNIT = {bunit_text!r}; expected one of Jy/beam, Jy/pixel, MJy/sr, K"
+    bunit = brightness_unit(bunit_text)
+    if bunit is None:
+        msg = (f"{path}: header card BUNIT = {bunit_text!r}; expected one of Jy/beam, Jy/pixel, MJy/sr, K "
+               "(or a prefixed form such as mJy/beam)")
         raise CubeError(msg)
-    bunit = _BRIGHTNESS_UNITS[key]
 
     nchan = dims[2]
     chan = np.arange(nchan, dtype=float)
@@ -183,7 +231,8 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         freqs = axis.to(u.Hz, equivalencies=u.spectral())
     else:
         if not rest:
-            msg = f"{path}: CTYPE3 = {ctype3!r} is a velocity axis but header card RESTFRQ is missing"
+            msg = (f"{path}: CTYPE3 = {ctype3!r} is a velocity axis but header card RESTFRQ is missing; expected "
+                   "RESTFRQ (or RESTFREQ), the rest frequency in Hz the velocities refer to")
             raise CubeError(msg)
         doppler = u.doppler_radio if kind == "VRAD" else u.doppler_optical
         freqs = axis.to(u.Hz, equivalencies=doppler(rest[0] * u.Hz))
@@ -199,7 +248,7 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         if not (bmaj > 0 and bmin > 0):
             msg = f"{path}: header cards BMAJ/BMIN = {header['BMAJ']}/{header['BMIN']}; expected positive sizes"
             raise CubeError(msg)
-    elif bunit in (u.Jy / u.beam, u.K):
+    elif bunit.is_equivalent(u.Jy / u.beam) or bunit.is_equivalent(u.K):
         msg = f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing"
         raise CubeError(msg)
     return CubeInfo(path=path, header=header, shape=(nchan, dims[1], dims[0]), celestial_wcs=celestial,
@@ -210,7 +259,10 @@ def read_cube_info(path: str | Path) -> CubeInfo:
 def open_data(path: str | Path):
     """Open a cube's data memory-mapped and read-only; use as a context manager.
 
-    Yields an array of shape (n_chan, n_y, n_x) (a length-1 Stokes axis removed).
+    Yields an array of shape (n_chan, n_y, n_x) (a length-1 Stokes axis removed). A
+    :class:`~pipeline.errors.GasledgerError` raised inside the ``with`` block is re-raised (same class)
+    with the file's path in front, unless its message already names the file, so an error found in the
+    data (e.g. no noise to measure) says which cube it is about.
     """
     return _DataContext(Path(path))
 
@@ -231,8 +283,15 @@ class _DataContext:
             data = data[0]
         return data
 
-    def __exit__(self, *exc) -> None:
+    def __exit__(self, exc_type, exc, tb) -> None:
         self.hdul.close()
+        # an error met while this cube's data were in use names the cube, unless it already does
+        if isinstance(exc, GasledgerError) and str(self.path) not in str(exc):
+            try:
+                named = type(exc)(f"{self.path}: {exc}")
+            except TypeError:  # an error class with another signature: leave it as it is
+                return
+            raise named from exc
 
 
 def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time, Time, Time]:
@@ -253,10 +312,15 @@ def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time
         try:
             start = Time(str(h["DATE-OBS"]), scale="utc")
         except ValueError as exc:
-            msg = f"{path}: header card DATE-OBS = {h['DATE-OBS']!r} is not an ISO time"
+            msg = (f"{path}: header card DATE-OBS = {h['DATE-OBS']!r} is not an ISO time; expected e.g. "
+                   "'2030-06-01T02:00:00' (UTC)")
             raise CubeError(msg) from exc
     elif "MJD-OBS" in h:
-        start = Time(float(h["MJD-OBS"]), format="mjd", scale="utc")
+        try:
+            start = Time(float(h["MJD-OBS"]), format="mjd", scale="utc")
+        except (TypeError, ValueError) as exc:
+            msg = f"{path}: header card MJD-OBS = {h['MJD-OBS']!r} is not a number; expected a Modified Julian Date"
+            raise CubeError(msg) from exc
     else:
         msg = f"{path}: header cards DATE-OBS and MJD-OBS are both missing; expected the observation time"
         raise CubeError(msg)
@@ -264,7 +328,8 @@ def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time
         try:
             end = Time(str(h["DATE-END"]), scale="utc")
         except ValueError as exc:
-            msg = f"{path}: header card DATE-END = {h['DATE-END']!r} is not an ISO time"
+            msg = (f"{path}: header card DATE-END = {h['DATE-END']!r} is not an ISO time; expected e.g. "
+                   "'2030-06-01T03:00:00' (UTC)")
             raise CubeError(msg) from exc
     else:
         exptime = h.get("EXPTIME", h.get("XPOSURE", 0.0))

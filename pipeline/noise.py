@@ -14,30 +14,64 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import CoverageError, NoiseWarning
+from .errors import CoverageError, CubeError, NoiseWarning
 
 __all__ = ["line_free_mask", "fit_baseline", "channel_sigma", "WindowNoise", "window_sum_noise",
-           "window_weights"]
+           "window_weights", "CONSTANT_RTOL"]
+
+
+#: Line-free channels whose values spread by no more than this fraction of their size are taken as constant.
+CONSTANT_RTOL = 1e-5
 
 
 def line_free_mask(velocity: np.ndarray, line_velocities: np.ndarray, exclude_half_width: float,
                    valid: np.ndarray | None = None) -> np.ndarray:
-    """Channels farther than ``exclude_half_width`` from every line position (all in km/s)."""
+    """Channels farther than ``exclude_half_width`` from every line position (all in km/s).
+
+    ``valid`` (optional) marks the channels with usable data; the others are never line-free.
+
+    Raises
+    ------
+    CubeError
+        When ``valid`` is given and marks no channel at all (e.g. an all-NaN cube).
+    """
     velocity = np.asarray(velocity, dtype=float)
     free = np.ones(velocity.shape, dtype=bool)
     for v in np.atleast_1d(line_velocities):
         free &= np.abs(velocity - v) > exclude_half_width
     if valid is not None:
+        valid = np.asarray(valid, dtype=bool)
+        if valid.size and not valid.any():
+            msg = (f"none of the {valid.size} channels has usable data (each holds blank/NaN values where it is "
+                   "measured: an all-NaN cube, or a mask over the target); expected finite pixel values")
+            raise CubeError(msg)
         free &= valid
     return free
 
 
 def fit_baseline(velocity: np.ndarray, spectrum: np.ndarray, free: np.ndarray, order: int = 1) -> np.ndarray:
-    """Least-squares polynomial of ``order`` through the line-free channels, evaluated everywhere."""
+    """Least-squares polynomial of ``order`` through the line-free channels, evaluated everywhere.
+
+    Raises
+    ------
+    CoverageError
+        When too few line-free channels are left for the fit.
+    CubeError
+        When the line-free channels all hold the same value (to a relative
+        :data:`CONSTANT_RTOL`): constant data (blank, zero-filled, a model
+        without noise) carry no noise to measure, and every noise figure and
+        limit made from them would be zero or rounding error.
+    """
     ok = free & np.isfinite(spectrum)
     if ok.sum() <= order + 1:
         msg = f"only {int(ok.sum())} line-free channels; expected more than {order + 1} to fit a baseline"
         raise CoverageError(msg)
+    vals = np.asarray(spectrum, dtype=float)[ok]
+    if np.ptp(vals) <= CONSTANT_RTOL * np.max(np.abs(vals)):
+        msg = (f"all {vals.size} line-free channels of the spectrum hold the same value ({vals[0]:.6g}): the data "
+               "are constant and carry no noise to measure; expected noisy data (a blank, zero-filled or "
+               "noise-free cube cannot give a noise estimate or a limit)")
+        raise CubeError(msg)
     x = (velocity - velocity[ok].mean()) / max(np.ptp(velocity[ok]), 1e-30)
     coef = np.polyfit(x[ok], spectrum[ok], order)
     return np.polyval(coef, x)

@@ -6,7 +6,7 @@ rule extract:
         f"{OUT}/spectra/{{cube}}/{{line}}.fits",
     params:
         apertures=canon([config.get("apertures_km", []), config.get("apertures_arcsec", [])]),
-        limits=canon(config["limits"]),
+        window_factor=config["limits"]["window_factor"],
         coma=canon(config["coma"]),
     log:
         f"{OUT}/logs/extract/{{cube}}/{{line}}.log",
