@@ -20,11 +20,15 @@ from scipy.interpolate import CubicSpline
 from .errors import EphemerisError, GasledgerWarning
 
 __all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing",
-           "SpacingWarning"]
+           "SpacingWarning", "GAP_FACTOR"]
 
 
 class SpacingWarning(GasledgerWarning):
     """The ephemeris table is too coarse for the accuracy asked for."""
+
+#: A table step longer than this many times the median step of the rows nearby is a gap.
+GAP_FACTOR = 5.0
+_GAP_NEIGHBOURS = 5   # steps on each side whose median is the local spacing
 
 #: Required columns and their default units.
 EPHEMERIS_COLUMNS = {"ra": u.deg, "dec": u.deg, "r_h": u.au, "delta": u.au, "delta_dot": u.km / u.s}
@@ -51,8 +55,10 @@ class Ephemeris:
         Raises
         ------
         EphemerisError
-            When a time lies outside the table; ``what`` names the thing asked
-            for (e.g. the cube) in the message.
+            When a time lies outside the table, or inside a gap of it (a step
+            more than :data:`GAP_FACTOR` times the median step of the rows
+            nearby); ``what`` names the thing asked for (e.g. the cube) in the
+            message.
         """
         t = Time(times).utc
         jd = np.atleast_1d(t.jd)
@@ -62,6 +68,7 @@ class Ephemeris:
             msg = (f"{what}: time {bad.isot} lies outside the ephemeris {self.source} "
                    f"(which spans {lo.isot} to {hi.isot})")
             raise EphemerisError(msg)
+        self._check_gaps(jd, what)
         out = {}
         x = self.jd - self.jd[0]
         for name, col in self.columns.items():
@@ -76,6 +83,24 @@ class Ephemeris:
                 interp = np.mod(interp, 360.0)
             out[name] = (interp if np.ndim(times) else interp[0]) * col.unit
         return out
+
+
+    def _check_gaps(self, jd: np.ndarray, what: str) -> None:
+        """Refuse times that fall in a step much longer than the table's spacing around it."""
+        steps = np.diff(self.jd)
+        if steps.size < 3:
+            return
+        index = np.clip(np.searchsorted(self.jd, jd, side="right") - 1, 0, steps.size - 1)
+        for k, i in zip(jd, index):
+            near = np.concatenate([steps[max(0, i - _GAP_NEIGHBOURS):i], steps[i + 1:i + 1 + _GAP_NEIGHBOURS]])
+            typical = float(np.median(near))
+            if steps[i] > GAP_FACTOR * typical:
+                when = Time(k, format="jd", scale="utc").isot
+                t0, t1 = (Time(self.jd[j], format="jd", scale="utc").isot for j in (i, i + 1))
+                msg = (f"{what}: time {when} falls in a gap of the ephemeris {self.source}: no row between {t0} "
+                       f"and {t1} ({steps[i] * 24:.3g} h, more than {GAP_FACTOR:g} times the {typical * 1440:.3g} min "
+                       "spacing of the rows nearby); expected rows at the usual spacing across the cube's time")
+                raise EphemerisError(msg)
 
 
 def read_ephemeris(path: str | Path) -> Ephemeris:

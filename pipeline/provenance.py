@@ -17,13 +17,38 @@ __all__ = ["file_checksum", "provenance_record", "add_to_header", "from_header"]
 _CHUNK = 1 << 22
 
 
-def file_checksum(path: str | Path) -> str:
-    """SHA-256 of a file's bytes, read in 4 MiB chunks (bounded memory)."""
+def _sha256(path: str | Path) -> str:
     digest = hashlib.sha256()
     with open(path, "rb") as fh:
         while block := fh.read(_CHUNK):
             digest.update(block)
     return "sha256:" + digest.hexdigest()
+
+
+def file_checksum(path: str | Path, cache_dir: str | Path | None = None) -> str:
+    """SHA-256 of a file's bytes, read in 4 MiB chunks (bounded memory).
+
+    With ``cache_dir``, the checksum is remembered per file (keyed by its absolute path, size and modification
+    time), so a large cube is hashed once per change rather than once per job that reads it.
+    """
+    if cache_dir is None:
+        return _sha256(path)
+    from .atomic import write_json
+
+    path = Path(path).resolve()
+    st = path.stat()
+    key = hashlib.sha1(str(path).encode()).hexdigest()
+    entry = Path(cache_dir) / f"{key}.json"
+    stamp = {"path": str(path), "size": st.st_size, "mtime_ns": st.st_mtime_ns}
+    try:
+        cached = json.loads(entry.read_text())
+        if all(cached.get(k) == v for k, v in stamp.items()):
+            return cached["checksum"]
+    except (OSError, ValueError, KeyError):
+        pass
+    checksum = _sha256(path)
+    write_json({**stamp, "checksum": checksum}, entry)
+    return checksum
 
 
 def provenance_record(config: dict[str, Any] | None, inputs: Iterable[str | Path],
@@ -41,11 +66,12 @@ def provenance_record(config: dict[str, Any] | None, inputs: Iterable[str | Path
     """
     from . import __version__
 
+    cache = Path(config["outdir"]) / ".checksums" if config and "outdir" in config else None
     return {
         "software": "gasledger",
         "version": __version__,
         "stage": stage,
-        "inputs": {str(p): file_checksum(p) for p in sorted(map(str, inputs))},
+        "inputs": {str(p): file_checksum(p, cache) for p in sorted(map(str, inputs))},
         "config": config,
     }
 

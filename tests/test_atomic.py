@@ -123,3 +123,21 @@ def test_provenance_record_and_header_round_trip(tmp_path):
     fits.PrimaryHDU(header=header).writeto(path)  # long-string (CONTINUE) card survives the file
     assert from_header(fits.getheader(path)) == json.loads(json.dumps(record))
     assert fits.getheader(path)["GLSTAGE"] == "limits"
+
+
+def test_checksum_cache_follows_the_file(tmp_path):
+    # the cached value equals hashlib's, and a changed file (new size/mtime) is hashed again
+    import hashlib
+    import os
+
+    from pipeline.provenance import file_checksum
+
+    f = tmp_path / "cube.bin"
+    f.write_bytes(b"abc")
+    cache = tmp_path / "cache"
+    first = file_checksum(f, cache)
+    assert first == "sha256:" + hashlib.sha256(b"abc").hexdigest()
+    assert file_checksum(f, cache) == first and len(list(cache.iterdir())) == 1
+    f.write_bytes(b"abcd")
+    os.utime(f, ns=(1, 2))
+    assert file_checksum(f, cache) == "sha256:" + hashlib.sha256(b"abcd").hexdigest()
