@@ -21,7 +21,7 @@ from .mass_budget import (LATENT_HEAT, diameter_from_absolute_magnitude, max_bul
                           nongrav_acceleration, nucleus_mass, required_mass_loss_rate, required_production_rate,
                           rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
 
-__all__ = ["BudgetAssumptions", "assumptions_from_config", "assumption_sets", "acceleration_at", "ejection_speed_at",
+__all__ = ["BudgetAssumptions", "assumptions_from_config", "assumption_sets", "joint_exclusion", "acceleration_at", "ejection_speed_at",
            "budget_table", "rocket_fraction", "VERDICTS"]
 
 VERDICTS = ("not observed", "excluded for every mass in the range", "excluded above the allowed mass",
@@ -216,3 +216,55 @@ def rocket_fraction(assume: BudgetAssumptions, r_h: u.Quantity, molecular_mass: 
     return float(rocket_mass_fraction(a, assume.interval_days * u.day, ejection_speed_at(assume, r_h, molecular_mass),
                                       assume.efficiency))
 
+
+
+def _epoch_measurements(limits: QTable, species: str) -> tuple[list[str], np.ndarray, np.ndarray, float, float]:
+    """Per-epoch Q and σ at the temperature and (smallest) aperture that are conservative for 'all'."""
+    sel = limits[(limits["species"] == species)]
+    comb = sel[(sel["epoch"] == "all") & sel["conservative"]]
+    if not len(comb):
+        return [], np.array([]), np.array([]), np.nan, np.nan
+    ap = float(np.min(comb["aperture_km"].to_value(u.km)))
+    t = float(comb[np.argmin(comb["aperture_km"].to_value(u.km))]["t_kin_K"])
+    rows = sel[(sel["epoch"] != "all") & np.isclose(sel["aperture_km"].to_value(u.km), ap) & (sel["t_kin_K"] == t)]
+    return ([str(e) for e in rows["epoch"]], rows["q"].to_value(1 / u.s), rows["q_err"].to_value(1 / u.s), t, ap)
+
+
+def joint_exclusion(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: BudgetAssumptions,
+                    catalogue: Catalogue, n_mass: int = 41) -> QTable:
+    """The joint test of "the push's gas is there" over all epochs, per measured driver, across nucleus masses.
+
+    One row per species and mass on a log grid spanning a decade either side of the mass range, with the
+    exclusion significance; the meta holds, per species, the mass at which the exclusion reaches 3σ.
+    """
+    from .joint_test import exclusion_significance, mass_at_significance
+
+    lo, hi = assume.mass_kg
+    masses = np.logspace(np.log10(lo) - 1, np.log10(hi) + 1, n_mass)
+    rows, crossing = [], {}
+    for name in dict.fromkeys(list(assume.drivers) + [str(s) for s in limits["species"]]):
+        epochs, x, s, t_kin, ap = _epoch_measurements(limits, name)
+        epochs_known = [e for e in epochs if e in epoch_rh]
+        if not epochs_known:
+            continue
+        keep = [epochs.index(e) for e in epochs_known]
+        x, s = x[keep], s[keep]
+        mol = catalogue.get_species(name).mass.to(u.kg)
+        per_kg = []
+        for e in epochs_known:
+            a, _ = acceleration_at(assume, epoch_rh[e])
+            v = ejection_speed_at(assume, epoch_rh[e], mol)
+            per_kg.append(float((a / (assume.efficiency * v * mol)).to_value(1 / (u.s * u.kg))))
+        per_kg = np.array(per_kg)
+        for m in masses:
+            rows.append({"species": name, "mass": m, "significance": exclusion_significance(x, s, m * per_kg),
+                         "n_epochs": len(x), "t_kin_K": t_kin, "aperture_km": ap})
+        crossing[name] = mass_at_significance(x, s, per_kg, 3.0, (masses[0] * 1e-3, masses[-1] * 1e3))
+    table = QTable(rows=rows) if rows else QTable(names=["species", "mass", "significance"],
+                                                   dtype=[str, float, float])
+    table["mass"] = np.asarray(table["mass"], dtype=float) * u.kg
+    table.meta["mass_at_3sigma_kg"] = {k: (None if not np.isfinite(v) else v) for k, v in crossing.items()}
+    table.meta["test"] = ("likelihood ratio of Q_e = Q_req(t_e) against 0 <= Q_e <= Q_req(t_e) over all epochs, "
+                          "chi-bar-square null distribution; one-sided Gaussian significance")
+    table.meta["assumption_set"] = assume.name
+    return table

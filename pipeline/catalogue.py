@@ -68,6 +68,8 @@ _BAND_COLUMNS = {
     "g_1au": 1 / u.s,
 }
 _LINE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
+#: Species names become file names (stack/<species>.fits) and a workflow wildcard: no path characters.
+_SPECIES_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_+-]*$")
 
 
 @dataclass(frozen=True)
@@ -290,6 +292,10 @@ def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
         name = str(row["species"])
         if name in species:
             msg = f"species catalogue {str(species_file)!r} lists {name!r} twice"
+            raise CatalogueError(msg)
+        if not _SPECIES_NAME.match(name):
+            msg = (f"species catalogue {str(species_file)!r}: species name {name!r} is not usable in file names; "
+                   "expected letters, digits and _ + - only, starting with a letter or digit")
             raise CatalogueError(msg)
         parent = str(row["parent"])
         species[name] = Species(

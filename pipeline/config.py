@@ -81,10 +81,17 @@ def _describe(error: jsonschema.ValidationError, source: str) -> str:
         return f"{source}: {where} is missing the required key {error.message.split(' ')[0]}"
     if error.validator == "oneOf" and where.endswith("target"):
         return f"{source}: target must give exactly one of 'ephemeris' or 'elements'"
+    if error.validator == "pattern" and where.endswith(("id", "epoch")):
+        return (f"{source}: key {where} = {error.instance!r} is not valid: it is used in file names; expected "
+                "letters, digits and . _ - only, starting with a letter or digit (no '/' or '..')")
     if error.validator in ("oneOf", "anyOf") and error.context:
         # name what each alternative expected, not just "not valid under any of the given schemas"
         reasons = "; ".join(dict.fromkeys(e.message for e in error.context))
         return f"{source}: key {where} = {error.instance!r} is not valid: {reasons}"
+    bounds = {"exclusiveMinimum": ">", "minimum": ">=", "exclusiveMaximum": "<", "maximum": "<="}
+    if error.validator in bounds:
+        return (f"{source}: key {where} = {error.instance!r} is not valid: {error.message}; expected a number "
+                f"{bounds[error.validator]} {error.validator_value}")
     return f"{source}: key {where} = {error.instance!r} is not valid: {error.message}"
 
 
@@ -123,7 +130,7 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
             if inner:
                 error = inner[0]
         raise ConfigError(_describe(error, source))
-    entries = cube_entries(config)
+    entries = cube_entries(config, source)
     seen: dict[str, str] = {}
     for entry in entries:
         if entry.cube_id in seen:
@@ -134,13 +141,20 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
     return config
 
 
-def cube_entries(config: dict[str, Any]) -> list[CubeEntry]:
-    """The cubes of a campaign with their ids and epoch labels filled in."""
+def cube_entries(config: dict[str, Any], source: str = "config") -> list[CubeEntry]:
+    """The cubes of a campaign with their ids and epoch labels filled in.
+
+    Raises
+    ------
+    ConfigError
+        When an id taken from a file name is not usable in file names.
+    """
     entries = []
     for i, item in enumerate(config["cubes"]):
         cube_id = item.get("id") or Path(item["path"]).name.split(".")[0]
-        if not cube_id or not all(c.isalnum() or c in "_.-" for c in cube_id) or cube_id[0] in ".-_":
-            msg = (f"cubes[{i}]: the id {cube_id!r} (from the file name) is not usable in file names; "
+        if not cube_id or not all(c.isascii() and (c.isalnum() or c in "_.-") for c in cube_id) \
+                or cube_id[0] in ".-_":
+            msg = (f"{source}: cubes[{i}]: the id {cube_id!r} (from the file name) is not usable in file names; "
                    "expected letters, digits and . _ - (set 'id')")
             raise ConfigError(msg)
         entries.append(CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id),

@@ -94,13 +94,19 @@ def _open_hdul(path: Path) -> fits.HDUList:
     if not path.is_file():
         msg = f"{path}: cube file does not exist"
         raise CubeError(msg)
+    with open(path, "rb") as fh:
+        head = fh.read(80)
+    if not head.startswith(b"SIMPLE  ="):
+        msg = (f"{path}: not a readable FITS file (it does not begin with the SIMPLE card; its first bytes are "
+               f"{head[:20]!r}); expected a FITS cube")
+        raise CubeError(msg)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
             hdul = fits.open(path, mode="readonly", memmap=True)
             hdul[0].header  # noqa: B018 - force the header to be parsed
         except (OSError, ValueError, TypeError) as exc:
-            reason = " ".join(str(exc).split())
+            reason = " ".join(str(exc).split()).split(". ")[0].rstrip(".")
             msg = f"{path}: not a readable FITS file ({reason}); expected a FITS cube"
             raise CubeError(msg) from exc
     # astropy only warns about a file shorter than its header announces (and fails later, on reading the data)
@@ -249,7 +255,8 @@ def read_cube_info(path: str | Path) -> CubeInfo:
             msg = f"{path}: header cards BMAJ/BMIN = {header['BMAJ']}/{header['BMIN']}; expected positive sizes"
             raise CubeError(msg)
     elif bunit.is_equivalent(u.Jy / u.beam) or bunit.is_equivalent(u.K):
-        msg = f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing"
+        msg = (f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing; expected "
+               "BMAJ and BMIN (the beam's FWHM axes, deg)")
         raise CubeError(msg)
     return CubeInfo(path=path, header=header, shape=(nchan, dims[1], dims[0]), celestial_wcs=celestial,
                     frequencies=freqs, specsys=specsys, bunit=bunit, beam_major=bmaj, beam_minor=bmin,
@@ -322,7 +329,8 @@ def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time
             msg = f"{path}: header card MJD-OBS = {h['MJD-OBS']!r} is not a number; expected a Modified Julian Date"
             raise CubeError(msg) from exc
     else:
-        msg = f"{path}: header cards DATE-OBS and MJD-OBS are both missing; expected the observation time"
+        msg = (f"{path}: header cards DATE-OBS and MJD-OBS are both missing; expected the observation time "
+               "(or the cube's 'time' key in the config)")
         raise CubeError(msg)
     if "DATE-END" in h:
         try:

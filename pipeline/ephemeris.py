@@ -66,7 +66,7 @@ class Ephemeris:
         if np.any(jd < self.jd[0]) or np.any(jd > self.jd[-1]):
             bad = Time(jd[(jd < self.jd[0]) | (jd > self.jd[-1])][0], format="jd", scale="utc")
             msg = (f"{what}: time {bad.isot} lies outside the ephemeris {self.source} "
-                   f"(which spans {lo.isot} to {hi.isot})")
+                   f"(which spans {lo.isot} to {hi.isot}); expected a table covering the whole exposure")
             raise EphemerisError(msg)
         self._check_gaps(jd, what)
         out = {}

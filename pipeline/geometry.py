@@ -113,7 +113,8 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     if not (-0.5 <= x <= nx - 0.5 and -0.5 <= y <= ny - 0.5):
         msg = (f"{info.path}: the target (RA {geo['ra'][1].to_value(u.deg):.5f} deg, Dec "
                f"{geo['dec'][1].to_value(u.deg):.5f} deg at {mid.isot}) falls at pixel ({x:.1f}, {y:.1f}), "
-               f"outside the {nx} x {ny} field")
+               f"outside the {nx} x {ny} field; expected the target inside the field (check the ephemeris, the "
+               "cube's CRVAL1/CRVAL2 and the cube's 'position' and 'offset_arcsec' keys)")
         raise CoverageError(msg)
     if not tracked and info.beam_major is not None and motion > 0.25 * info.beam_minor:
         warnings.warn(f"cube {cube_id}: the target moved {motion:.2f} during the exposure, more than a "

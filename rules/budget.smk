@@ -6,6 +6,7 @@ rule budget:
     output:
         ecsv=report(f"{OUT}/budget.ecsv", caption="../report/budget.rst", category="Tables"),
         json=f"{OUT}/budget.json",
+        exclusion=f"{OUT}/exclusion.ecsv",
     params:
         budget=canon(config["budget"]),
     log:

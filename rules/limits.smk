@@ -18,12 +18,16 @@ rule limits_species:
 
 
 rule limits:
-    """All species' limits in one table (limits.ecsv)."""
+    """All species' limits in one table (limits.ecsv), and activity-law fits across epochs (activity.ecsv)."""
     input:
-        expand(f"{OUT}/limits/{{species}}.ecsv", species=SPECIES),
+        species=expand(f"{OUT}/limits/{{species}}.ecsv", species=SPECIES),
+        geometry=geometry_files(),
     output:
         ecsv=report(f"{OUT}/limits.ecsv", caption="../report/limits.rst", category="Tables"),
         json=f"{OUT}/limits.json",
+        activity=f"{OUT}/activity.ecsv",
+    params:
+        activity_slope=config["limits"]["activity_slope"],
     log:
         f"{OUT}/logs/limits.log",
     benchmark:

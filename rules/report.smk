@@ -7,6 +7,8 @@ rule report:
         geometry=geometry_files(),
         stacks=stack_files(),
         injection=injection_files(),
+        exclusion=f"{OUT}/exclusion.ecsv",
+        activity=f"{OUT}/activity.ecsv",
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),

@@ -9,7 +9,7 @@ import numpy as np
 from astropy.table import QTable
 
 from ..atomic import write_json, write_table
-from ..budget import assumption_sets, budget_table, rocket_fraction
+from ..budget import assumption_sets, budget_table, joint_exclusion, rocket_fraction
 from ..provenance import provenance_record
 from .common import catalogue_from_config
 
@@ -27,7 +27,8 @@ def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
     return out
 
 
-def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str) -> None:
+def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str,
+        out_exclusion: str | None = None) -> None:
     """Compute and write the budget tables."""
     limits = QTable.read(limits_path, format="ascii.ecsv")
     sets = assumption_sets(config["budget"])
@@ -40,6 +41,10 @@ def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out
     table.meta["assumptions"] = assume.as_dict()
     table.meta["assumption_sets"] = [a.as_dict() for a in sets]
     write_table(table, out_ecsv)
+    joint = joint_exclusion(limits, rh, assume, catalogue)
+    joint.meta["provenance"] = record
+    if out_exclusion is not None:
+        write_table(joint, out_exclusion)
     combined = table[(table["epoch"] == "all") & (table["assumption_set"] == assume.name)]
     water = catalogue.get_species("H2O").mass if isinstance(assume.ejection, dict) else None
     summary = {
@@ -61,6 +66,9 @@ def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out
              "largest_mass_allowed_kg": None if not np.isfinite(r["mass_allowed"].value)
              else float(r["mass_allowed"].value)}
             for r in combined],
+        "joint_test": {"mass_at_3sigma_kg": joint.meta["mass_at_3sigma_kg"], "test": joint.meta["test"],
+                       "reading": "below this nucleus mass the hypothesis that the species alone carries the push "
+                                  "survives at 3 sigma; above it the data exclude it"},
         "caution": ("These numbers rest on the stated model assumptions (LTE, optically thin lines, Haser "
                     "outflow, momentum balance with the given efficiency and ejection speed). They are not "
                     "conclusions: those belong to peer review."),

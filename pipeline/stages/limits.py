@@ -15,6 +15,7 @@ from ..atomic import write_json, write_table
 from ..limits import join_limits, limit_rows, mark_conservative
 from ..excitation import OpacityWarning, line_optical_depth
 from ..haser import parent_aperture_count, scale_length
+from ..activity import fit_fixed_slope, fit_free_slope
 from ..line_fit import fit_line
 from ..line_profile import thermal_dispersion
 from ..provenance import provenance_record
@@ -142,7 +143,41 @@ def table_as_json(table: QTable) -> dict[str, Any]:
     return {"units": units, "rows": rows, "meta": dict(table.meta)}
 
 
-def run_join(species_paths: list[str], config: dict[str, Any], out_path: str, json_path: str | None = None) -> None:
+def activity_table(limits: QTable, epoch_rh: dict[str, float], slope: float, confidence: float) -> QTable:
+    """Activity-law fits per species and aperture at the temperature conservative for 'all'."""
+    rows = []
+    for species in dict.fromkeys(str(s) for s in limits["species"]):
+        sel = limits[limits["species"] == species]
+        for row in sel[(sel["epoch"] == "all") & sel["conservative"]]:
+            ap, t = row["aperture_km"].to_value(u.km), row["t_kin_K"]
+            ep = sel[(sel["epoch"] != "all") & np.isclose(sel["aperture_km"].to_value(u.km), ap)
+                     & (sel["t_kin_K"] == t)]
+            ep = ep[[str(e) in epoch_rh for e in ep["epoch"]]]
+            if len(ep) < 2:
+                continue
+            q, s_ = ep["q"].to_value(1 / u.s), ep["q_err"].to_value(1 / u.s)
+            r = np.array([epoch_rh[str(e)] for e in ep["epoch"]])
+            fits_ = [fit_fixed_slope(q, s_, r, slope, confidence)]
+            try:
+                fits_.append(fit_free_slope(q, s_, r, confidence))
+            except ValueError:
+                pass
+            for f in fits_:
+                rows.append({"species": species, "aperture_km": ap, "t_kin_K": t, "slope": "fitted" if
+                             f.fitted_slope else "fixed", "n": f.n, "n_lo": f.n_lo, "n_hi": f.n_hi,
+                             "n_constrained": bool(np.isfinite(f.n_lo) and np.isfinite(f.n_hi)), "q0": f.q0,
+                             "q0_err": f.q0_err, "q0_upper": f.q0_upper, "chi2": f.chi2, "dof": f.dof,
+                             "n_epochs": len(q), "r_h_min": float(r.min()), "r_h_max": float(r.max())})
+    table = QTable(rows=rows) if rows else QTable(names=["species", "q0"], dtype=[str, float])
+    for name in ("q0", "q0_err", "q0_upper"):
+        if name in table.colnames:
+            table[name] = np.asarray(table[name], dtype=float) / u.s
+    table.meta["model"] = "Q(r_h) = Q0 (r_h / 1 au)^-n; n fixed (config limits.activity_slope) and fitted"
+    return table
+
+
+def run_join(species_paths: list[str], config: dict[str, Any], out_path: str, json_path: str | None = None,
+             geometry_paths: list[str] | None = None, activity_path: str | None = None) -> None:
     """Join the per-species limits into limits.ecsv, flagging the conservative temperature."""
     tables = [QTable.read(p, format="ascii.ecsv") for p in species_paths]
     for t in tables:
@@ -162,3 +197,13 @@ def run_join(species_paths: list[str], config: dict[str, Any], out_path: str, js
     write_table(table, out_path)
     if json_path is not None:
         write_json(table_as_json(table), json_path)
+    if activity_path is not None:
+        rh: dict[str, list[float]] = {}
+        for path in geometry_paths or []:
+            g = QTable.read(path, format="ascii.ecsv")[0]
+            rh.setdefault(str(g["epoch"]), []).append(float(g["r_h"].to_value(u.au)))
+        act = activity_table(table, {k: float(np.mean(v)) for k, v in rh.items()},
+                             float(config["limits"]["activity_slope"]), float(table["confidence"][0])
+                             if len(table) else 0.99865)
+        act.meta["provenance"] = provenance_record(config, [*species_paths, *(geometry_paths or [])], "limits")
+        write_table(act, activity_path)
