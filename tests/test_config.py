@@ -36,7 +36,7 @@ def test_defaults_filled_from_the_schema():
             assert key in config, key
     assert config["apertures_km"] == props["apertures_km"]["default"]
     assert config["observatory"] == "geocentre"
-    assert config["limits"] == {"nsigma": 3, "window_factor": 1.5}
+    assert config["limits"] == {"nsigma": 3, "window_factor": 1.5, "activity_slope": 2.0}
     assert config["comoving"]["half_width_km_s"] == 40
     assert config["excitation"]["t_kin_K"] == [10, 20, 40, 80]
     assert config["coma"] == {"outflow_km_s": "law", "solar_activity": "quiet"}
@@ -45,7 +45,7 @@ def test_defaults_filled_from_the_schema():
     assert config["cubes"][0]["spectral_response"] == "hanning"
     # given values are kept, not overwritten by defaults
     config = validate_config(_base(limits={"nsigma": 5}))
-    assert config["limits"] == {"nsigma": 5, "window_factor": 1.5}
+    assert config["limits"] == {"nsigma": 5, "window_factor": 1.5, "activity_slope": 2.0}
 
 
 def test_defaults_are_not_shared_between_configs():
