@@ -64,7 +64,7 @@ def test_cube_entries_ids_and_epochs():
 
 @pytest.mark.parametrize("config, match", [
     (_base(speceis=["CO"]), r"camp\.yaml: unknown key 'speceis' under \(top level\) \(misspelt\?\)"),
-    (_base(limits={"nsigmaa": 3}), r"unknown key 'nsigmaa' under limits .*allowed keys there: nsigma, window_factor"),
+    (_base(limits={"nsigmaa": 3}), r"unknown key 'nsigmaa' under limits .*allowed keys there: activity_slope, nsigma, window_factor"),
     (_base(budget={"nucleus": {"radius_kmm": [1, 2]}}), r"unknown key 'radius_kmm' under budget\.nucleus"),
     (_base(observatory={"lon_deg": 1.0, "lat_deg": 2.0, "heigth_m": 3.0}), r"unknown key 'heigth_m' under observatory"),
     (_base(target={"ephemeris": "e.ecsv", "nmae": "x"}), r"unknown key 'nmae' under target"),

@@ -28,14 +28,15 @@ def _subcube(tmp_path, data, bunit="Jy/beam", pix_arcsec=0.3, beam_arcsec=1.0):
 
 def test_flux_of_uniform_surface_brightness(tmp_path):
     # a uniform 1 Jy/beam map: an aperture of radius r holds (pi r^2 / beam area) Jy (beam area pi/(4 ln2) B^2)
-    data = np.ones((200, 64, 64))
+    # (plus a little noise: perfectly constant data carry no noise to measure and are refused)
+    data = np.ones((200, 64, 64)) + 1e-3 * np.random.default_rng(2).standard_normal((200, 64, 64))
     path = _subcube(tmp_path, data)
     settings = ExtractionSettings(radii=[2.0 * u.arcsec], window=1.0 * u.km / u.s, other_lines=[] * u.km / u.s,
                                   baseline_order=0)
     hdul = extract_spectra(path, settings)
     raw = np.pi * 2.0**2 / (np.pi / (4 * np.log(2)) * 1.0**2)
     # the baseline (order 0) takes the constant out; the APERTURES table keeps the geometry
-    assert np.allclose(hdul[0].data, 0.0, atol=1e-6 * raw)
+    assert abs(np.mean(hdul[0].data)) < 1e-3 * raw
     aps = Table.read(hdul["APERTURES"])
     assert aps["area_pix"][0] == pytest.approx(np.pi * (2.0 / 0.3) ** 2, rel=1e-9)   # exact overlap area
 
