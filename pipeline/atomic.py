@@ -10,7 +10,9 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import socket
 import tempfile
+import time
 from pathlib import Path
 from typing import Any, Iterator
 
@@ -23,6 +25,41 @@ os.umask(_UMASK)
 __all__ = ["atomic_path", "write_table", "write_fits", "write_text", "write_json"]
 
 
+_HOST = socket.gethostname().replace(".", "_")
+_STALE_ELSEWHERE_S = 86400.0
+
+
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _remove_stale(path: Path) -> None:
+    """Remove temporary files of ``path`` left by writers that were killed.
+
+    A temporary name carries the writer's host and process id: one from this
+    host whose process is gone is removed; one from another host (a shared
+    cluster file system) only when it is a day old. Live writers' files are
+    never touched.
+    """
+    for stale in path.parent.glob(f".{path.name}.*.part"):
+        parts = stale.name[len(path.name) + 2:].split(".")
+        try:
+            host, pid = parts[0], int(parts[1])
+        except (IndexError, ValueError):
+            continue
+        with contextlib.suppress(FileNotFoundError):
+            if host == _HOST and not _pid_alive(pid):
+                stale.unlink()
+            elif host != _HOST and time.time() - stale.stat().st_mtime > _STALE_ELSEWHERE_S:
+                stale.unlink()
+
+
 @contextlib.contextmanager
 def atomic_path(path: str | Path) -> Iterator[Path]:
     """Yield a temporary path next to ``path``; rename it to ``path`` on success.
@@ -31,10 +68,8 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    for stale in path.parent.glob(f".{path.name}.*.part"):  # left behind by a run that was killed mid-write
-        with contextlib.suppress(FileNotFoundError):
-            stale.unlink()
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    _remove_stale(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{_HOST}.{os.getpid()}.", suffix=".part", dir=path.parent)
     os.close(fd)
     tmp_path = Path(tmp)
     os.chmod(tmp_path, 0o666 & ~_UMASK)  # mkstemp makes 0600 files; outputs get the usual permissions

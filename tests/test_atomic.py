@@ -156,3 +156,22 @@ def test_large_files_use_the_block_tree_hash(tmp_path, monkeypatch):
     f.write_bytes(data)
     blocks = b"".join(hashlib.sha256(data[i:i + 7]).digest() for i in range(0, 40, 7))
     assert prov.file_checksum(f) == "sha256-tree16M:" + hashlib.sha256(blocks).hexdigest()
+
+
+def test_stale_temporary_files_of_dead_writers_only_are_removed(tmp_path):
+    # a live writer's temporary file (this process) survives another write; a dead writer's is removed
+    import os
+    import subprocess
+    import sys
+
+    from pipeline.atomic import _HOST, write_text
+
+    target = tmp_path / "out.txt"
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    dead_pid = int(dead.stdout)
+    stale = tmp_path / f".out.txt.{_HOST}.{dead_pid}.abc.part"
+    live = tmp_path / f".out.txt.{_HOST}.{os.getpid()}.xyz.part"
+    stale.write_text("half")
+    live.write_text("in progress")
+    write_text("done", target)
+    assert target.read_text() == "done" and not stale.exists() and live.exists()

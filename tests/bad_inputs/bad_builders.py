@@ -1,17 +1,21 @@
-"""A tiny, self-consistent one-cube campaign for the bad-input tests, and ways to spoil it.
+"""A tiny, self-consistent one-cube campaign for the bad-input tests, and the workflow's steps run in-process.
 
 :func:`tiny_campaign` writes one small noise cube holding the HCN 265.886 GHz line's band (TOPOCENT, Jy/beam,
 0.3 arcsec pixels), an ephemeris table that keeps the target at the cube's centre with a known range rate, and
 returns a validated campaign config pointing at them. Each bad-input test then spoils one thing (a header card,
-a column, a config key) and runs the stage that meets it. Everything is invented (no real object or site).
+a column, a config key) and runs :func:`run_workflow`: the checks rules/common.smk makes while Snakemake builds
+the job graph, then every stage in workflow order inside ``stage_errors``, as the rule scripts run them.
+Everything is invented (no real object or site).
 """
 
 from __future__ import annotations
 
 import copy
+import logging
+import re
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import astropy.constants as const
 import astropy.units as u
@@ -21,11 +25,17 @@ from astropy.table import QTable
 from astropy.time import Time
 
 from pipeline.catalogue import load_catalogue
-from pipeline.config import validate_config
+from pipeline.config import check_inputs_exist, cube_entries, validate_config
+from pipeline.errors import GasledgerError
 from pipeline.orbit import write_ephemeris
+from pipeline.stages import comoving, extract, geometry, limits, stack
+from pipeline.stages.common import catalogue_from_config, stage_errors
+from pipeline.stages.plan import lines_for_cube
 
 __all__ = ["TinyCampaign", "tiny_campaign", "cube_hdu", "write_hdu", "ephemeris_table", "outputs_below",
-           "LINE_ID", "CUBE_ID"]
+           "LINE_ID", "CUBE_ID", "N_CHAN", "Failed", "dag_checks", "run_workflow", "assert_one_sentence"]
+
+log = logging.getLogger("gasledger.test")
 
 LINE_ID = "HCN_265886"
 CUBE_ID = "c1"
@@ -117,3 +127,70 @@ def outputs_below(folder: str | Path) -> list[str]:
     if not folder.exists():
         return []
     return sorted(str(p.relative_to(folder)) for p in folder.rglob("*") if p.is_file())
+
+
+class Failed(Exception):
+    """A step of the run stopped: which step, the output it did not write, its exit code and its message."""
+
+    def __init__(self, step: str, output: Path | None, code, message: str):
+        super().__init__(f"{step}: {message}")
+        self.step, self.output, self.code, self.message = step, output, code, message
+
+
+def dag_checks(config: dict) -> tuple[dict, dict, Any]:
+    """The calls rules/common.smk makes while Snakemake builds the job graph: (cubes, lines per cube, catalogue).
+
+    On a GasledgerError rules/common.smk calls ``sys.exit(f"gasledger: {exc}")``, which prints that line to
+    stderr and exits with status 1 (Python's SystemExit semantics; test_cli_bad_inputs.py sees it for real);
+    here that is a :class:`Failed` of step ``'dag'`` carrying the sentence.
+    """
+    try:
+        validate_config(config, source="config")
+        check_inputs_exist(config, source="config")
+        catalogue = catalogue_from_config(config)
+        for name in config["species"]:
+            catalogue.get_species(name)
+        cubes = {c.cube_id: c for c in cube_entries(config)}
+        lines = {cid: lines_for_cube(c.path, catalogue, config["species"]) for cid, c in cubes.items()}
+    except GasledgerError as exc:
+        raise Failed("dag", None, 1, str(exc)) from None
+    return cubes, lines, catalogue
+
+
+def _stage(step: str, output: Path, func: Callable, *args) -> None:
+    """Run one stage as its rule script does (inside stage_errors); raise Failed on its exit."""
+    try:
+        with stage_errors(log):
+            func(*args)
+    except SystemExit as stop:
+        raise Failed(step, output, stop.code, "") from None
+
+
+def run_workflow(config: dict) -> Path:
+    """The job graph's checks, then every stage in workflow order; returns the outdir."""
+    cubes, lines, catalogue = dag_checks(config)
+    out = Path(config["outdir"])
+    spectra = {}
+    for cid, c in cubes.items():
+        geo = out / "geometry" / f"{cid}.ecsv"
+        _stage("geometry", geo, geometry.run, c.path, cid, c.epoch, c.time, config, str(geo), c.tracked,
+               c.position, c.offset)
+        for line in lines[cid]:
+            sub = out / "comoving" / cid / f"{line}.fits"
+            _stage("comoving", sub, comoving.run, c.path, str(geo), line, config, str(sub), c.spectral_response)
+            spec = out / "spectra" / cid / f"{line}.fits"
+            _stage("extract", spec, extract.run, str(sub), config, str(spec))
+            spectra.setdefault(catalogue.get_line(line).species, []).append(str(spec))
+    for species in config["species"]:
+        stk = out / "stack" / f"{species}.fits"
+        _stage("stack", stk, stack.run, spectra.get(species, []), species, config, str(stk))
+        lim = out / "limits" / f"{species}.ecsv"
+        _stage("limits", lim, limits.run_species, str(stk), config, str(lim))
+    return out
+
+
+def assert_one_sentence(text: str) -> None:
+    """One line, no traceback, no second sentence (a full stop followed by a capital letter)."""
+    assert text and "\n" not in text.strip(), text
+    assert "Traceback" not in text, text
+    assert not re.search(r"[.!?]\s+[A-Z]", text), text

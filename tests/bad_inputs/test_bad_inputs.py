@@ -17,7 +17,6 @@ these cases through the real ``snakemake`` command line.
 
 import logging
 import re
-import sys
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
@@ -27,84 +26,13 @@ import numpy as np
 import pytest
 from astropy.io import fits
 from astropy.table import QTable, Table
-from bad_builders import (CUBE_ID, LINE_ID, N_CHAN, TinyCampaign, cube_hdu, ephemeris_table, outputs_below,
-                          tiny_campaign, write_hdu)
+from bad_builders import (CUBE_ID, LINE_ID, N_CHAN, Failed, TinyCampaign, assert_one_sentence, cube_hdu, dag_checks,
+                          ephemeris_table, outputs_below, run_workflow, tiny_campaign, write_hdu)
 
 from pipeline.catalogue import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE
-from pipeline.config import check_inputs_exist, cube_entries, validate_config
-from pipeline.errors import GasledgerError
 from pipeline.orbit import write_ephemeris
-from pipeline.stages import comoving, extract, geometry, limits, stack
-from pipeline.stages.common import catalogue_from_config, stage_errors
-from pipeline.stages.plan import lines_for_cube
 
 REPO = Path(__file__).resolve().parents[2]
-log = logging.getLogger("gasledger.test")
-
-
-class Failed(Exception):
-    """A step of the run stopped: which step, the output it did not write, its exit code and its message."""
-
-    def __init__(self, step: str, output: Path | None, code, message: str):
-        super().__init__(f"{step}: {message}")
-        self.step, self.output, self.code, self.message = step, output, code, message
-
-
-def dag_checks(config: dict) -> tuple[dict, dict]:
-    """The calls rules/common.smk makes while Snakemake builds the job graph, with its exit on an error."""
-    try:
-        validate_config(config, source="config")
-        check_inputs_exist(config, source="config")
-        catalogue = catalogue_from_config(config)
-        for name in config["species"]:
-            catalogue.get_species(name)
-        cubes = {c.cube_id: c for c in cube_entries(config)}
-        lines = {cid: lines_for_cube(c.path, catalogue, config["species"]) for cid, c in cubes.items()}
-    except GasledgerError as exc:
-        with pytest.raises(SystemExit) as stop:
-            sys.exit(f"gasledger: {exc}")
-        # sys.exit(text) prints the text to stderr and exits with status 1 (Python documentation of SystemExit)
-        raise Failed("dag", None, 1, str(stop.value.code).removeprefix("gasledger: ")) from None
-    return cubes, lines
-
-
-def _stage(step: str, output: Path, func: Callable, *args) -> None:
-    """Run one stage as its rule script does (inside stage_errors); raise Failed on its exit."""
-    try:
-        with stage_errors(log):
-            func(*args)
-    except SystemExit as stop:
-        raise Failed(step, output, stop.code, "") from None
-
-
-def run_workflow(config: dict) -> Path:
-    """The job graph's checks, then every stage in workflow order; returns the outdir."""
-    cubes, lines = dag_checks(config)
-    out = Path(config["outdir"])
-    spectra = {}
-    for cid, c in cubes.items():
-        geo = out / "geometry" / f"{cid}.ecsv"
-        _stage("geometry", geo, geometry.run, c.path, cid, c.epoch, c.time, config, str(geo), c.tracked,
-               c.position, c.offset)
-        for line in lines[cid]:
-            sub = out / "comoving" / cid / f"{line}.fits"
-            _stage("comoving", sub, comoving.run, c.path, str(geo), line, config, str(sub), c.spectral_response)
-            spec = out / "spectra" / cid / f"{line}.fits"
-            _stage("extract", spec, extract.run, str(sub), config, str(spec))
-            spectra.setdefault(line.split("_")[0], []).append(str(spec))
-    for species in config["species"]:
-        stk = out / "stack" / f"{species}.fits"
-        _stage("stack", stk, stack.run, spectra.get(species, []), species, config, str(stk))
-        lim = out / "limits" / f"{species}.ecsv"
-        _stage("limits", lim, limits.run_species, str(stk), config, str(lim))
-    return out
-
-
-def assert_one_sentence(text: str) -> None:
-    """One line, no traceback, no second sentence (a full stop followed by a capital letter)."""
-    assert text and "\n" not in text.strip(), text
-    assert "Traceback" not in text, text
-    assert not re.search(r"[.!?]\s+[A-Z]", text), text
 
 
 # --------------------------------------------------------------------------------------------------------------- #
@@ -421,7 +349,7 @@ def test_line_outside_the_band_is_recorded_not_an_error(tmp_path, caplog):
 def test_line_far_outside_the_band_is_not_scheduled(tmp_path):
     campaign = tiny_campaign(tmp_path)
     config = campaign.fresh_config(species=["CO", "HCN"])     # CO 230.5 GHz is far from the 265.9 GHz band
-    cubes, lines = dag_checks(config)
+    _, lines, _ = dag_checks(config)
     assert lines[CUBE_ID] == [LINE_ID]
 
 

@@ -24,8 +24,7 @@ from pathlib import Path
 import pytest
 import yaml
 from astropy.table import QTable
-from bad_builders import CUBE_ID, tiny_campaign
-from test_bad_inputs import run_workflow
+from bad_builders import CUBE_ID, run_workflow, tiny_campaign
 
 from pipeline.catalogue import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE, load_catalogue
 from pipeline.config import load_config, validate_config
