@@ -54,13 +54,15 @@ def file_checksum(path: str | Path, cache_dir: str | Path | None = None) -> str:
     """
     if cache_dir is None:
         return _sha256(path)
-    from .atomic import write_json
+    from .atomic import _remove_stale, write_json
 
     path = Path(path).resolve()
     st = path.stat()
     key = hashlib.sha1(str(path).encode()).hexdigest()
     entry = Path(cache_dir) / f"{key}.json"
     stamp = {"path": str(path), "size": st.st_size, "mtime_ns": st.st_mtime_ns}
+    if entry.parent.is_dir():
+        _remove_stale(entry)
     try:
         cached = json.loads(entry.read_text())
         if all(cached.get(k) == v for k, v in stamp.items()):
