@@ -7,6 +7,7 @@ rule stack:
     params:
         excitation=canon(config["excitation"]),
         coma=canon(config["coma"]),
+        interferometer=canon(config.get("interferometer")),
     log:
         f"{OUT}/logs/stack/{{species}}.log",
     benchmark:

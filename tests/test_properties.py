@@ -38,7 +38,7 @@ N_PIX = 24
 EPS32 = float(np.finfo(np.float32).eps)
 
 seeds = st.integers(min_value=0, max_value=2**32 - 1)
-n_chans = st.integers(min_value=100, max_value=180)
+n_chans = st.integers(min_value=200, max_value=300)
 steps = st.floats(min_value=0.15, max_value=0.4)
 
 
@@ -100,7 +100,7 @@ def test_reversed_spectral_axis_gives_the_same_spectrum_and_limits(tmp_path_fact
 def test_prefixed_brightness_units_give_the_same_flux_in_jy(tmp_path_factory, seed, pair):
     prefixed, plain, factor = pair
     folder = tmp_path_factory.mktemp("unit")
-    noise, line, _ = _parts(seed, 140, 0.3, amp=0.05)
+    noise, line, _ = _parts(seed, 220, 0.3, amp=0.05)
     data = noise + line
     ref = write_subcube(folder / "plain.fits", data, bunit=plain)
     scaled = write_subcube(folder / "prefixed.fits", data * factor, bunit=prefixed)
@@ -178,7 +178,7 @@ def test_a_continuum_is_removed_by_the_baseline(tmp_path_factory, seed, nchan, d
 @given(seed=seeds, k=st.floats(min_value=1.1, max_value=10.0), amp=st.floats(min_value=0.0, max_value=0.2))
 def test_noise_and_limits_grow_with_the_noise(tmp_path_factory, seed, k, amp):
     folder = tmp_path_factory.mktemp("noise")
-    noise, line, _ = _parts(seed, 140, 0.3, amp)
+    noise, line, _ = _parts(seed, 220, 0.3, amp)
     h1, _, aps1, _, _ = _extract(write_subcube(folder / "one.fits", line + noise))
     hk, _, apsk, _, _ = _extract(write_subcube(folder / "k.fits", line + k * noise))
     # the baseline and every noise figure are linear in the noise of the line-free channels (no line there)

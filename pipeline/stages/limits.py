@@ -87,6 +87,18 @@ def _opacity(table: QTable, inputs: Table, catalogue, species_name: str) -> None
                     worst["aperture_km"].to_value(u.km), worst["t_kin_K"])
 
 
+def _filtering(table: QTable, inputs: Table) -> None:
+    """Mean fraction of the model flux that survives interferometric filtering, per row (1 = not configured)."""
+    frac = np.ones(len(table))
+    if "surviving_fraction" in inputs.colnames:
+        for k, row in enumerate(table):
+            sel = inputs[((inputs["epoch"] == row["epoch"]) | (row["epoch"] == "all"))
+                         & np.isclose(np.asarray(inputs["aperture_km"], dtype=float), row["aperture_km"].to_value(u.km))]
+            if len(sel):
+                frac[k] = float(np.mean(sel["surviving_fraction"]))
+    table["surviving_fraction"] = frac
+
+
 def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
     """Limits of one species from its stack file; detections also get a line-profile fit."""
     catalogue = catalogue_from_config(config)
@@ -116,6 +128,7 @@ def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
             _add_fit_columns(rows)
             _fit_detections(rows, str(group), stack_hdul, inputs, t, catalogue.get_species(species).mass)
             _opacity(rows, inputs, catalogue, species)
+            _filtering(rows, inputs)
             tables.append(rows)
     if tables:
         table = join_limits(tables)
@@ -124,6 +137,7 @@ def run_species(stack_path: str, config: dict[str, Any], out_path: str) -> None:
                            np.ones((0, 0)) / u.s, nsigma, [], [])
         _add_fit_columns(table)
         table["tau_peak"] = np.zeros(0)
+        table["surviving_fraction"] = np.zeros(0)
     table.meta["provenance"] = provenance_record(config, [stack_path], "limits")
     write_table(table, out_path)
 

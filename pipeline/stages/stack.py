@@ -14,6 +14,7 @@ from ..atomic import write_fits
 from ..provenance import add_to_header, provenance_record
 from ..coma_image import aperture_count_on_grid
 from ..excitation import flux_per_molecule
+from ..filtering import min_spatial_frequency, surviving_fraction
 from ..response import line_response, outflow_speed, scale_lengths, window_capture
 from ..stacking import StackInput, combine, velocity_grid
 from .common import catalogue_from_config, coma_model, temperatures
@@ -41,6 +42,7 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
     model = coma_model(config)
     v_out = outflow_speed(model, r_h)
     radii = np.asarray(aps["radius_km"], dtype=float) * u.km
+    surviving = np.ones(len(aps))
     if "GLPIXSC" in h:  # the model coma summed on the data's own pixel grid with the extraction's weights
         pix_km = (h["GLPIXSC"] * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
         beam_pix = ((h["BMAJ"] * 3600 / h["GLPIXSC"], h["BMIN"] * 3600 / h["GLPIXSC"], h.get("BPA", 0.0))
@@ -51,6 +53,13 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
                                        length, daughter)
         resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
         method = "grid"
+        if "interferometer" in config:
+            q_min = min_spatial_frequency(config["interferometer"]["shortest_baseline_m"] * u.m, line.freq)
+            surviving = surviving_fraction((h["GLNY"], h["GLNX"]), h["GLAPX"], h["GLAPY"], h["GLPIXSC"],
+                                           list(np.asarray(aps["radius_pix"], dtype=float)), beam_pix, v_out,
+                                           length, q_min, delta, daughter)
+            if config["interferometer"].get("correct", True):
+                resp = resp * surviving[None, :]
     else:
         resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model, parent).to_value(u.Jy * u.km)
         method = "analytic"
@@ -71,7 +80,8 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
                          "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
                          "window": float(h["GLWIN"]), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
-                         "spectral_response": h.get("GLSPRESP", "hanning"), "response_model": method})
+                         "spectral_response": h.get("GLSPRESP", "hanning"), "response_model": method,
+                         "surviving_fraction": float(surviving[j])})
     return inp, rows
 
 
