@@ -309,6 +309,16 @@ def _interval_unit(x: float, alpha: float, z1: float, zc: float) -> tuple[float,
     return lower, upper
 
 
+def _elementwise(fn, values: np.ndarray, alpha: float, z1: float, zc: float) -> tuple[np.ndarray, np.ndarray]:
+    """Apply a unit-sigma interval function to every finite element; NaN elsewhere."""
+    lower = np.full(values.shape, np.nan)
+    upper = np.full(values.shape, np.nan)
+    for idx in np.ndindex(values.shape):
+        if np.isfinite(values[idx]):
+            lower[idx], upper[idx] = fn(float(values[idx]), alpha, z1, zc)
+    return lower, upper
+
+
 def feldman_cousins_acceptance_interval(
     mu: ArrayOrQuantity, sigma: ArrayOrQuantity, confidence: float
 ) -> tuple[ArrayOrQuantity, ArrayOrQuantity]:
@@ -338,12 +348,7 @@ def feldman_cousins_acceptance_interval(
     if np.any(m < 0):
         msg = f"'mu' must be >= 0, found {mu!r}"
         raise LimitError(msg)
-    mu_u = m / s
-    lower = np.full(mu_u.shape, np.nan)
-    upper = np.full(mu_u.shape, np.nan)
-    for idx in np.ndindex(mu_u.shape):
-        if np.isfinite(mu_u[idx]):
-            lower[idx], upper[idx] = _acceptance_unit(float(mu_u[idx]), alpha, z1, zc)
+    lower, upper = _elementwise(_acceptance_unit, m / s, alpha, z1, zc)
     return _wrap(lower * s, unit), _wrap(upper * s, unit)
 
 
@@ -399,12 +404,7 @@ def feldman_cousins_interval(
     """
     alpha, z1, zc = _fc_setup(confidence)
     x, s, unit = _split(estimate, sigma)
-    xu = x / s
-    lower = np.full(xu.shape, np.nan)
-    upper = np.full(xu.shape, np.nan)
-    for idx in np.ndindex(xu.shape):
-        if np.isfinite(xu[idx]):
-            lower[idx], upper[idx] = _interval_unit(float(xu[idx]), alpha, z1, zc)
+    lower, upper = _elementwise(_interval_unit, x / s, alpha, z1, zc)
     return _wrap(lower * s, unit), _wrap(upper * s, unit)
 
 
