@@ -1,0 +1,179 @@
+"""The campaign command line: start a campaign from a folder of cubes, add cubes as they arrive, check it.
+
+    gasledger new  CUBE_DIR --ephemeris EPH.ecsv --species HCN CH3OH CO -o campaign.yaml [--observatory ...]
+    gasledger add  campaign.yaml NEW_CUBE.fits [...] [--epoch LABEL]
+    gasledger check campaign.yaml
+
+Exit codes: 0 fine; 1 the campaign has problems (check); 2 bad input (unreadable cube or config, bad option).
+Run the campaign with ``snakemake --cores N --configfile campaign.yaml``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+import yaml
+
+from .atomic import write_text
+from .catalogue import load_catalogue
+from .config import check_inputs_exist, cube_entries, load_config, validate_config
+from .cube_io import observation_times, read_cube_info
+from .ephemeris import read_ephemeris
+from .errors import GasledgerError
+from .offline import future_time_tolerated
+from .spectral_frame import radio_velocity, to_target_frame, to_topocentric
+from .stages.common import catalogue_from_config, location_from_config
+
+__all__ = ["main", "covered_lines"]
+
+
+def covered_lines(path: str, ephemeris, catalogue, species: list[str], location, time_override=None,
+                  margin_km_s: float = 5.0) -> list[str]:
+    """Line ids whose rest frequency, at the target's actual Doppler shift, falls inside the cube's band."""
+    info = read_cube_info(path)
+    _, mid, _ = observation_times(info, time_override)
+    geo = ephemeris.at(mid, what=str(path))
+    if info.specsys == "SOURCE":
+        rest = info.frequencies
+    else:
+        topo = to_topocentric(info.frequencies, info.specsys, mid, location, geo["ra"], geo["dec"])
+        rest = to_target_frame(topo, geo["delta_dot"])
+    out = []
+    for name in species:
+        for line in catalogue.lines_of(name):
+            v = radio_velocity(rest, line.freq).to_value(u.km / u.s)
+            if v.min() < -margin_km_s and v.max() > margin_km_s:
+                out.append(line.line_id)
+    return out
+
+
+def _write_config(config: dict, path: Path, header: str) -> None:
+    validate_config(config, source=str(path))
+    write_text(header + yaml.safe_dump(config, sort_keys=False), path)
+
+
+def cmd_new(args) -> int:
+    cubes = sorted(Path(args.cube_dir).glob(args.pattern))
+    if not cubes:
+        print(f"gasledger: no files matching {args.pattern!r} in {args.cube_dir}", file=sys.stderr)
+        return 2
+    config = {"campaign": args.campaign or Path(args.cube_dir).name, "outdir": args.outdir,
+              "target": {"name": args.target or "target", "ephemeris": str(args.ephemeris)},
+              "observatory": (dict(zip(("lon_deg", "lat_deg", "height_m"), args.observatory))
+                              if args.observatory else "geocentre"),
+              "cubes": [], "species": list(args.species)}
+    validate_config(dict(config, cubes=[{"path": str(cubes[0])}]), source="(new campaign)")
+    catalogue = load_catalogue()
+    ephem = read_ephemeris(args.ephemeris)
+    location = location_from_config(config)
+    for path in cubes:
+        lines = covered_lines(str(path), ephem, catalogue, config["species"], location)
+        config["cubes"].append({"path": str(path), "id": path.name.split(".")[0]})
+        print(f"{path.name}: {', '.join(lines) if lines else 'no catalogue line of these species'}")
+    _write_config(config, Path(args.output), "# Written by 'gasledger new'.\n")
+    print(f"wrote {args.output} with {len(cubes)} cube(s); run: snakemake --cores 2 --configfile {args.output}")
+    return 0
+
+
+def cmd_add(args) -> int:
+    path = Path(args.config)
+    config = load_config(path)
+    raw = yaml.safe_load(path.read_text())
+    known = {c.cube_id for c in cube_entries(config)}
+    for cube in args.cubes:
+        read_cube_info(cube)                                   # refuse an unreadable cube before touching the file
+        entry = {"path": str(cube), "id": Path(cube).name.split(".")[0]}
+        if args.epoch:
+            entry["epoch"] = args.epoch
+        if entry["id"] in known:
+            print(f"gasledger: {path}: a cube with id {entry['id']!r} is already in the campaign", file=sys.stderr)
+            return 2
+        known.add(entry["id"])
+        raw["cubes"].append(entry)
+        print(f"added {cube} as {entry['id']}")
+    _write_config(raw, path, "")
+    return 0
+
+
+def cmd_check(args) -> int:
+    config = load_config(args.config)
+    problems = []
+    try:
+        check_inputs_exist(config, source=args.config)
+    except GasledgerError as exc:
+        problems.append(str(exc))
+    catalogue = catalogue_from_config(config)
+    for name in config["species"]:
+        try:
+            catalogue.get_species(name)
+        except GasledgerError as exc:
+            problems.append(str(exc))
+    print(f"campaign: {config['campaign']}  ({len(config['cubes'])} cubes, species {', '.join(config['species'])})")
+    ephem = read_ephemeris(config["target"]["ephemeris"]) if "ephemeris" in config["target"] else None
+    if ephem is not None:
+        lo, hi = ephem.span
+        print(f"ephemeris: {config['target']['ephemeris']} spans {lo.isot} to {hi.isot}")
+    location = location_from_config(config)
+    covered = {s: 0 for s in config["species"]}
+    for entry in cube_entries(config):
+        try:
+            info = read_cube_info(entry.path)
+            _, mid, _ = observation_times(info, entry.time)
+            lines = covered_lines(entry.path, ephem, catalogue, config["species"], location, entry.time) \
+                if ephem is not None else []
+            for ln in lines:
+                covered[catalogue.get_line(ln).species] += 1
+            f = info.frequencies.to_value(u.GHz)
+            print(f"  {entry.cube_id:18s} epoch {entry.epoch:8s} {mid.isot[:19]}  {np.min(f):.3f}-{np.max(f):.3f} GHz "
+                  f"{info.specsys:8s} lines: {', '.join(lines) or 'none'}")
+        except GasledgerError as exc:
+            problems.append(str(exc))
+    for name, n in covered.items():
+        if n == 0:
+            problems.append(f"species {name!r} has no line in any cube (it will be reported as not observed)")
+    if problems:
+        print("problems:")
+        for p in problems:
+            print(f"  - {p}")
+        return 1
+    print("no problems found")
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="gasledger", description=__doc__.splitlines()[0])
+    sub = parser.add_subparsers(dest="command", required=True)
+    p_new = sub.add_parser("new", help="write a campaign config from a folder of cubes")
+    p_new.add_argument("cube_dir")
+    p_new.add_argument("--ephemeris", required=True, help="ephemeris table (ECSV/CSV) of the target")
+    p_new.add_argument("--species", nargs="+", required=True, help="species names from the catalogue")
+    p_new.add_argument("-o", "--output", default="campaign.yaml")
+    p_new.add_argument("--pattern", default="*.fits", help="which files are cubes (default *.fits)")
+    p_new.add_argument("--observatory", nargs=3, type=float, metavar=("LON_DEG", "LAT_DEG", "HEIGHT_M"))
+    p_new.add_argument("--campaign", help="campaign title")
+    p_new.add_argument("--target", help="target name")
+    p_new.add_argument("--outdir", default="results")
+    p_new.set_defaults(func=cmd_new)
+    p_add = sub.add_parser("add", help="add newly arrived cubes to a campaign config")
+    p_add.add_argument("config")
+    p_add.add_argument("cubes", nargs="+")
+    p_add.add_argument("--epoch", help="epoch label for the new cubes (default: their ids)")
+    p_add.set_defaults(func=cmd_add)
+    p_check = sub.add_parser("check", help="check a campaign without running it and print a summary")
+    p_check.add_argument("config")
+    p_check.set_defaults(func=cmd_check)
+    args = parser.parse_args(argv)
+    try:
+        with future_time_tolerated():
+            return args.func(args)
+    except GasledgerError as exc:
+        print(f"gasledger: {exc}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())
