@@ -22,6 +22,7 @@ include: "rules/stack.smk"
 include: "rules/limits.smk"
 include: "rules/budget.smk"
 include: "rules/injection.smk"
+include: "rules/forecast.smk"
 include: "rules/report.smk"
 
 

@@ -158,7 +158,7 @@ cp "$SLURM_CONF" "$ETC_CONF"
 # same pidfile that the daemon itself writes, and the EXIT trap stops it from there.
 munged --foreground --force --socket="$MUNGE_SOCKET" --key-file="$TMP/munge/munge.key" \
     --pid-file="$TMP/run/munged.pid" --log-file="$TMP/log/munged.log" \
-    --seed-file="$TMP/munge/munged.seed" &
+    --seed-file="$TMP/munge/munged.seed" </dev/null >>"$TMP/log/munged.out" 2>&1 &
 echo $! >"$TMP/run/munged.pid"
 for i in $(seq 50); do
     [[ -S $MUNGE_SOCKET ]] && break
@@ -169,9 +169,9 @@ timeout 10 munge -S "$MUNGE_SOCKET" -n </dev/null | timeout 10 unmunge -S "$MUNG
     || die "munge round trip failed"
 
 SLURM_UP=yes
-slurmctld -D -f "$SLURM_CONF" >>"$TMP/log/slurmctld.out" 2>&1 &
+slurmctld -D -f "$SLURM_CONF" </dev/null >>"$TMP/log/slurmctld.out" 2>&1 &
 echo $! >"$TMP/run/slurmctld.pid"
-slurmd -D -N localhost -f "$SLURM_CONF" >>"$TMP/log/slurmd.out" 2>&1 &
+slurmd -D -N localhost -f "$SLURM_CONF" </dev/null >>"$TMP/log/slurmd.out" 2>&1 &
 echo $! >"$TMP/run/slurmd.pid"
 
 say "waiting (at most $NODE_TIMEOUT s) for node localhost to come up idle ..."

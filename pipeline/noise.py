@@ -29,6 +29,8 @@ def line_free_mask(velocity: np.ndarray, line_velocities: np.ndarray, exclude_ha
     """Channels farther than ``exclude_half_width`` from every line position (all in km/s).
 
     ``valid`` (optional) marks the channels with usable data; the others are never line-free.
+    A channel within rounding (1e-9 of the channel step) of the exclusion edge counts as on it, and so
+    is excluded, whichever way the axis runs and however its velocities were rounded.
 
     Raises
     ------
@@ -36,9 +38,11 @@ def line_free_mask(velocity: np.ndarray, line_velocities: np.ndarray, exclude_ha
         When ``valid`` is given and marks no channel at all (e.g. an all-NaN cube).
     """
     velocity = np.asarray(velocity, dtype=float)
+    step = float(np.median(np.abs(np.diff(velocity)))) if velocity.size > 1 else 0.0
+    edge = exclude_half_width + 1e-9 * max(step, abs(exclude_half_width))
     free = np.ones(velocity.shape, dtype=bool)
     for v in np.atleast_1d(line_velocities):
-        free &= np.abs(velocity - v) > exclude_half_width
+        free &= np.abs(velocity - v) > edge
     if valid is not None:
         valid = np.asarray(valid, dtype=bool)
         if valid.size and not valid.any():
@@ -92,13 +96,20 @@ def window_weights(velocity: np.ndarray, half_width: float, centre: float = 0.0)
     Channels are taken as bins of width |dv| around their centres; partial
     channels at the window edges get fractional weights, so the window sum
     times |dv| is the flux-conserving integral over exactly the window.
+    Fractions within 1e-9 of 0 or 1 (a window edge on a channel edge, up to
+    the rounding of the channel velocities) are set to 0 or 1, so that a
+    rounding sliver never adds a channel to the window: the window, and the
+    noise kernel made from it, are then the same whichever way the axis runs.
     """
     velocity = np.asarray(velocity, dtype=float)
     dv = np.abs(np.median(np.diff(velocity)))
     lo = velocity - dv / 2
     hi = velocity + dv / 2
     overlap = np.clip(np.minimum(hi, centre + half_width) - np.maximum(lo, centre - half_width), 0, None)
-    return overlap / dv
+    frac = overlap / dv
+    frac[frac < 1e-9] = 0.0
+    frac[frac > 1 - 1e-9] = 1.0
+    return frac
 
 
 @dataclass(frozen=True)

@@ -9,6 +9,7 @@ rule report:
         injection=injection_files(),
         exclusion=f"{OUT}/exclusion.ecsv",
         activity=f"{OUT}/activity.ecsv",
+        forecast=f"{OUT}/forecast.ecsv",
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),

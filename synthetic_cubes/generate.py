@@ -148,7 +148,8 @@ def write_scenario(sc: Scenario, outdir: str | Path, config_path: str | Path | N
     location = EarthLocation.from_geodetic(sc.site["lon_deg"] * u.deg, sc.site["lat_deg"] * u.deg,
                                            sc.site["height_m"] * u.m)
     mids = Time([t for _, t in sc.epochs], scale="utc")
-    start, stop = mids.min() - 1 * u.day, mids.max() + 1 * u.day
+    span = Time([t for _, t in sc.epochs] + [p["time"] for p in sc.planned], scale="utc")
+    start, stop = span.min() - 1 * u.day, span.max() + 1 * u.day
     progress(f"ephemeris of {sc.target_name} from {start.isot} to {stop.isot}")
     with future_time_tolerated():
         table = ephemeris_from_elements(elements, start, stop, sc.ephemeris_step_min * u.min, location)
@@ -177,6 +178,7 @@ def write_scenario(sc: Scenario, outdir: str | Path, config_path: str | Path | N
         "limits": {"nsigma": 3},
         "excitation": {"t_kin_K": [10, 20, 40, 80]},
         "coma": {"outflow_km_s": "law", "solar_activity": "quiet"},
+        "planned": [dict(p) for p in sc.planned],
         "budget": {"acceleration_m_s2": list(sc.acceleration_m_s2), "interval_days": 30,
                    "nucleus": {"radius_km": list(sc.nucleus_radius_km),
                                "density_kg_m3": list(sc.nucleus_density_kg_m3)},

@@ -46,6 +46,7 @@ class Scenario:
     acceleration_m_s2: tuple[float, float] = (2.4e-6, 0.3e-6)
     nucleus_radius_km: tuple[float, float] = (0.15, 0.6)
     nucleus_density_kg_m3: tuple[float, float] = (300.0, 1000.0)
+    planned: tuple[dict, ...] = ()
     extra: dict = field(default_factory=dict)
 
 
@@ -75,6 +76,9 @@ def demo_scenario() -> Scenario:
         pointing_offset_arcsec=(1.2, -0.8),
         apertures_km=(1000.0, 3000.0),
         half_width_km_s=40.0,
+        planned=({"label": "p4", "time": "2031-03-20T04:30:00", "lines": ["HCN_265886", "CO_230538"],
+                  "noise_jy_beam": 0.004, "channel_khz": 244.140625, "beam_arcsec": [1.2, 0.9, 65.0],
+                  "pixel_arcsec": 0.3, "npix": 64},),
     )
 
 

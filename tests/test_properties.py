@@ -30,7 +30,7 @@ from pipeline.extraction import ExtractionSettings, extract_spectra
 from pipeline.limits import limit_rows
 from pipeline.stages.stack import stack_input
 
-FAST = settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 CAT = load_catalogue()
 CONFIG = {"excitation": {"t_kin_K": [40.0]}, "coma": {"outflow_km_s": "law", "solar_activity": "quiet"}}
 SETTINGS = ExtractionSettings(radii=[1.2 * u.arcsec], window=1.0 * u.km / u.s, other_lines=[] * u.km / u.s)
@@ -83,15 +83,16 @@ def test_reversed_spectral_axis_gives_the_same_spectrum_and_limits(tmp_path_fact
     h_f, flux_f, aps_f, ch_f, sum_f = _extract(forward)
     h_b, flux_b, aps_b, ch_b, sum_b = _extract(backward)
     assert_allclose(np.asarray(ch_b["velocity"])[::-1], ch_f["velocity"], rtol=0, atol=1e-9)
+    # float32 aperture sums of the channels in another order round differently (about 1e-7 of the noise)
     scale = float(aps_f["sigma_chan"][0])
-    assert_allclose(flux_b[:, ::-1], flux_f, rtol=1e-9, atol=1e-9 * scale)
+    assert_allclose(flux_b[:, ::-1], flux_f, rtol=1e-5, atol=1e-5 * scale)
     assert_allclose(np.asarray(ch_b["line_free"])[::-1], ch_f["line_free"])
     for name in ("sigma_chan", "sigma_window", "sigma_window_naive"):
-        assert_allclose(aps_b[name], aps_f[name], rtol=1e-9)
-    assert abs(sum_b - sum_f) <= 1e-9 * float(aps_f["sigma_window"][0])
+        assert_allclose(aps_b[name], aps_f[name], rtol=1e-5)
+    assert abs(sum_b - sum_f) <= 1e-5 * float(aps_f["sigma_window"][0])
     q_f, s_f, up_f = _q_and_limit(h_f)
     q_b, s_b, up_b = _q_and_limit(h_b)
-    assert_allclose([q_b, s_b, up_b], [q_f, s_f, up_f], rtol=1e-9, atol=1e-9 * s_f)
+    assert_allclose([q_b, s_b, up_b], [q_f, s_f, up_f], rtol=1e-5, atol=1e-5 * s_f)
 
 
 @FAST
@@ -133,8 +134,8 @@ def test_freq_vrad_wave_vopt_axes_of_the_same_channels_agree(tmp_path_factory, f
     assert_allclose(vrad.frequencies.to_value(u.Hz), expected, rtol=1e-12)
     # the radio velocities of those frequencies are the VRAD axis values (nu = nu0 (1 - v/c))
     v_axis = v_ref + (chan + 1 - crpix) * (-c * df / f0)
-    assert_allclose(c * (1 - freq.frequencies.to_value(u.Hz) / f0), v_axis, rtol=0,
-                    atol=1e-9 * c * abs(df) / f0 + 1e-6 * abs(v_ref) * 1e-6)
+    # (c (1 - nu/nu0) cancels: double precision leaves about c x 1e-16 = 3e-8 m/s, allow 1e-6 m/s)
+    assert_allclose(c * (1 - freq.frequencies.to_value(u.Hz) / f0), v_axis, rtol=1e-12, atol=1e-6)
     # a wavelength axis and an optical-velocity axis of the same (wavelength-linear) channels
     lam0, lam_ref = c / f0, c / f_ref
     dlam = -lam_ref * df / f_ref
@@ -162,15 +163,18 @@ def test_a_continuum_is_removed_by_the_baseline(tmp_path_factory, seed, nchan, d
     continuum = (level + slope * vel)[:, None, None] * np.ones((1, N_PIX, N_PIX))
     _, flux_0, aps_0, _, sum_0 = _extract(write_subcube(folder / "bare.fits", data))
     hdul, flux_c, aps_c, _, sum_c = _extract(write_subcube(folder / "cont.fits", data + continuum))
-    # "within rounding": float32 storage and float32 aperture sums of values up to |continuum| + |data|, i.e. a
-    # few hundred float32 epsilons of the continuum flux in the aperture
+    # "within rounding": the data are stored and summed in float32, so each channel's aperture flux carries an
+    # error of a few float32 epsilons of the largest flux in the aperture (about 1 epsilon is seen; 20 allowed,
+    # which is about 1 % of the channel noise for the largest continua drawn)
     area = float(aps_0["area_pix"][0])
-    pix_per_beam = (0.3 / 1.0) ** 2 / (np.pi / (4 * np.log(2)))
+    pix_per_beam = (0.3 / 1.0) ** 2 / (np.pi / (4 * np.log(2)))      # pixel / Gaussian beam area
     big = (np.max(np.abs(continuum)) + np.max(np.abs(data))) * area * pix_per_beam
-    tol = 500 * EPS32 * big
+    tol = 20 * EPS32 * big
     assert_allclose(flux_c, flux_0, rtol=0, atol=tol)
-    assert abs(sum_c - sum_0) <= tol * np.sum(np.asarray(Table.read(hdul["CHANNELS"])["window_weight"])) * dv
-    assert_allclose(aps_c["sigma_window"], aps_0["sigma_window"], rtol=0, atol=tol * 5 * dv)
+    # a window sum (and so the RMS of window sums) moves by at most tol x sum(weights) x dv
+    window_tol = tol * float(np.sum(np.asarray(Table.read(hdul["CHANNELS"])["window_weight"]))) * dv
+    assert abs(sum_c - sum_0) <= window_tol
+    assert_allclose(aps_c["sigma_window"], aps_0["sigma_window"], rtol=0, atol=window_tol)
     assert_allclose(aps_c["sigma_chan"], aps_0["sigma_chan"], rtol=0, atol=tol)
 
 

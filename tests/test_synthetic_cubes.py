@@ -58,7 +58,7 @@ def test_demo_config_matches_generator(tmp_path):
                                             progress=lambda s: None).read_text())
     shipped = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
     for key in ("campaign", "outdir", "observatory", "species", "apertures_km", "limits", "excitation", "coma",
-                "budget", "comoving"):
+                "budget", "comoving", "planned"):
         assert shipped[key] == written[key], key
     assert [c["id"] for c in shipped["cubes"]] == [f"{e}_{w.name}" for e, _ in demo_scenario().epochs
                                                    for w in demo_scenario().windows]

@@ -157,6 +157,34 @@ def _joint_section(exclusion_path: str, activity_path: str) -> str:
     return html_
 
 
+def _forecast_section(forecast_path: str, limits: QTable) -> str:
+    fc = QTable.read(forecast_path, format="ascii.ecsv")
+    if not len(fc) or "sigma_q" not in fc.colnames:
+        return "<p>No planned epochs in the config (key <code>planned</code>).</p>"
+    rows = []
+    for species in dict.fromkeys(str(s) for s in fc["species"]):
+        meas = limits[(limits["species"] == species) & (limits["epoch"] == "all") & limits["conservative"]]
+        if len(meas):
+            m = meas[np.argmin(meas["aperture_km"].to_value(u.km))]
+            t, ap = float(m["t_kin_K"]), float(m["aperture_km"].to_value(u.km))
+        else:
+            t, ap = float(fc["t_kin_K"][0]), float(np.min(fc["aperture_km"]))
+        sel = fc[(fc["species"] == species) & (fc["t_kin_K"] == t) & np.isclose(fc["aperture_km"], ap, rtol=0.05)]
+        if not len(sel):
+            sel = fc[(fc["species"] == species) & (fc["t_kin_K"] == t)]
+        for r in sel:
+            rows.append([str(r["epoch"]), r["time"], species, float(r["aperture_km"]), t, float(r["sigma_q"].value),
+                         float(r["q_upper_forecast"].value), float(r["significance_required"]),
+                         float(m["q_err"].value) if len(meas) else float("nan"),
+                         float(m["q_upper"].value) if len(meas) else float("nan")])
+    return (table_html(["planned epoch", "time (UTC)", "species", "aperture [km]", "T_kin [K]", "forecast σ_Q [1/s]",
+                        "forecast limit (Q = 0) [1/s]", "needed gas seen at [σ]", "measured σ_Q, all epochs [1/s]",
+                        "measured limit, all epochs [1/s]"], rows, left=3)
+            + "<p>Forecasts run the measurement code on noise-only sub-cubes with the planned noise, channel width "
+              "and beam at the planned geometry. 'Needed gas' is the rate the push needs from that species alone "
+              "for the lightest nucleus.</p>")
+
+
 def run(inputs, outputs, config: dict[str, Any]) -> None:
     """Build the report from the run's tables and stacks."""
     catalogue = catalogue_from_config(config)
@@ -221,6 +249,8 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
           "</p>"))
     sections.append(("Injection–recovery", _injection_section(list(inputs.injection))))
     sections.append(("All epochs in one test", _joint_section(inputs.exclusion, inputs.activity)))
+    sections.append(("Forecast for planned epochs, beside the measurements", _forecast_section(inputs.forecast,
+                                                                                              limits)))
     sections.append(("Temperature sweep", figure_html(
         fig_sweep, "Upper limit (all epochs, smallest aperture) against the assumed kinetic temperature; the circled "
                    "point is the most conservative value, the one reported.", "temperature sweep")))

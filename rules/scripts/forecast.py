@@ -1,0 +1,8 @@
+"""Rule 'forecast': thin wrapper around pipeline.stages.forecast.run."""
+from pipeline.stages import forecast
+from pipeline.stages.common import setup_logging, stage_errors
+
+log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+with stage_errors(log):
+    eph = list(snakemake.input.ephemeris)  # noqa: F821
+    forecast.run(snakemake.input.budget, snakemake.config, snakemake.output[0], eph[0] if eph else None)  # noqa: F821
