@@ -136,7 +136,7 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     # the new cube's own jobs (one HCN line), the HCN aggregation, the campaign tables, and the injections,
     # which depend on the campaign tables for every species
     assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "limits_species": 1, "limits": 1,
-                    "budget": 1, "injection": 3, "report": 1, "all": 1}, dry.stdout[-3000:]
+                    "budget": 1, "injection": 3, "forecast": 1, "report": 1, "all": 1}, dry.stdout[-3000:]
 
 
 def test_report_renders_in_a_real_browser(campaign, tmp_path):
@@ -233,6 +233,7 @@ def test_changing_one_value_reruns_only_what_uses_it(campaign, tmp_path):
     changed.write_text(yaml.safe_dump(cfg))
     dry = snakemake(root, changed, "--dry-run")
     assert dry.returncode == 0, dry.stderr[-2000:]
-    # limits.nsigma is a param of limits_species and injection only: those rerun, with the tables after them
+    # limits.nsigma is a param of limits_species, injection and forecast: those rerun, with the tables after them
     jobs = _jobs(dry.stdout)
-    assert jobs == {"limits_species": 3, "limits": 1, "budget": 1, "injection": 3, "report": 1, "all": 1}, jobs
+    assert jobs == {"limits_species": 3, "limits": 1, "budget": 1, "injection": 3, "forecast": 1, "report": 1,
+                    "all": 1}, jobs
