@@ -11,6 +11,7 @@ Run the campaign with ``snakemake --cores N --configfile campaign.yaml``.
 from __future__ import annotations
 
 import argparse
+import copy
 import sys
 from pathlib import Path
 
@@ -52,7 +53,8 @@ def covered_lines(path: str, ephemeris, catalogue, species: list[str], location,
 
 
 def _write_config(config: dict, path: Path, header: str) -> None:
-    validate_config(config, source=str(path))
+    """Validate a copy (defaults are not written into the user's file), then write atomically."""
+    validate_config(copy.deepcopy(config), source=str(path))
     write_text(header + yaml.safe_dump(config, sort_keys=False), path)
 
 
