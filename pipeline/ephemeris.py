@@ -26,6 +26,7 @@ __all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_er
 class SpacingWarning(GasledgerWarning):
     """The ephemeris table is too coarse for the accuracy asked for."""
 
+
 #: A table step longer than this many times the median step of the rows nearby is a gap.
 GAP_FACTOR = 5.0
 _GAP_NEIGHBOURS = 5   # steps on each side whose median is the local spacing
@@ -83,7 +84,6 @@ class Ephemeris:
                 interp = np.mod(interp, 360.0)
             out[name] = (interp if np.ndim(times) else interp[0]) * col.unit
         return out
-
 
     def _check_gaps(self, jd: np.ndarray, what: str) -> None:
         """Refuse times that fall in a step much longer than the table's spacing around it."""

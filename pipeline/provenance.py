@@ -34,15 +34,17 @@ def _sha256(path: str | Path) -> str:
             while block := fh.read(_CHUNK):
                 digest.update(block)
         return "sha256:" + digest.hexdigest()
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        def block_digest(offset: int) -> bytes:
-            return hashlib.sha256(os.pread(fd, _TREE_BLOCK, offset)).digest()
-
-        with ThreadPoolExecutor(max_workers=max(1, os.cpu_count() or 1)) as pool:
-            digests = list(pool.map(block_digest, range(0, size, _TREE_BLOCK)))
-    finally:
-        os.close(fd)
+    # read sequentially (the disk's read-ahead keeps streaming) and hash the blocks on a pool of threads;
+    # at most a few blocks are in flight, so memory stays bounded
+    workers = max(1, os.cpu_count() or 1)
+    digests: list = []
+    with ThreadPoolExecutor(max_workers=workers) as pool, open(path, "rb", buffering=0) as fh:
+        pending: list = []
+        while block := fh.read(_TREE_BLOCK):
+            pending.append(pool.submit(lambda b: hashlib.sha256(b).digest(), block))
+            if len(pending) >= 2 * workers:
+                digests.append(pending.pop(0).result())
+        digests.extend(f.result() for f in pending)
     return "sha256-tree16M:" + hashlib.sha256(b"".join(digests)).hexdigest()
 
 

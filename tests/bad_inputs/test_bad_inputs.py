@@ -26,10 +26,14 @@ import numpy as np
 import pytest
 from astropy.io import fits
 from astropy.table import QTable, Table
+from astropy.time import Time
 from bad_builders import (CUBE_ID, LINE_ID, N_CHAN, Failed, TinyCampaign, assert_one_sentence, cube_hdu, dag_checks,
                           ephemeris_table, outputs_below, run_workflow, tiny_campaign, write_hdu)
 
 from pipeline.catalogue import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE
+from pipeline.cube_io import read_cube_info
+from pipeline.ephemeris import read_ephemeris
+from pipeline.errors import EphemerisError
 from pipeline.orbit import write_ephemeris
 
 REPO = Path(__file__).resolve().parents[2]
@@ -232,7 +236,8 @@ CASES = [
           r"expected the target inside the field")),
     # the campaign config
     Case("misspelt config key", _config(_set("apertures_kms", [1000.0])), "dag",
-         (r"config: unknown key 'apertures_kms' under \(top level\) \(misspelt\?\)", r"allowed keys there: .*apertures_km,")),
+         (r"config: unknown key 'apertures_kms' under \(top level\) \(misspelt\?\)",
+          r"allowed keys there: .*apertures_km,")),
     Case("misspelt nested key", _config(lambda c, cfg: cfg["comoving"].update(half_widht_km_s=20.0)), "dag",
          (r"config: unknown key 'half_widht_km_s' under comoving", r"allowed keys there: half_width_km_s")),
     Case("unknown species", _config(_set("species", ["HCNX"])), "dag",
@@ -254,7 +259,8 @@ CASES = [
     Case("cube id with a path separator", _config(_id("a/b")), "dag",
          (r"config: key cubes\[0\]\.id = 'a/b' is not valid", r"no '/' or '\.\.'")),
     Case("catalogue missing a column", _config(_user_catalogue(lambda t: t[[n for n in t.colnames if n != "mass"]])),
-         "dag", (r"species catalogue file '.*my_species\.ecsv' has no column 'mass'", r"expected columns: species, mass")),
+         "dag", (r"species catalogue file '.*my_species\.ecsv' has no column 'mass'",
+                 r"expected columns: species, mass")),
     Case("catalogue species name with path characters", _config(_user_catalogue(_rename_hcn)), "dag",
          (r"species catalogue '.*my_species\.ecsv': species name '\.\./HCN' is not usable in file names",
           r"expected letters, digits and _ \+ - only")),
@@ -354,8 +360,44 @@ def test_line_far_outside_the_band_is_not_scheduled(tmp_path):
 
 
 def test_the_dag_checks_mirror_rules_common_smk():
-    # dag_checks above must make the calls the workflow makes when it builds the job graph
+    # bad_builders.dag_checks must make the calls the workflow makes when it builds the job graph
     text = (REPO / "rules" / "common.smk").read_text()
     for call in ("validate_config(config", "check_inputs_exist(config", "catalogue_from_config(config)",
                  ".get_species(", "cube_entries(config)", "lines_for_cube(", 'sys.exit(f"gasledger: {exc}")'):
         assert call in text, call
+
+
+def test_the_gap_rule_only_refuses_a_gap_at_the_cube_time(tmp_path):
+    def table_without(first_h, last_h):
+        t = ephemeris_table()
+        hours = (t["time"] - t["time"][0]).to_value(u.h)
+        path = tmp_path / f"eph_{first_h}_{last_h}.ecsv"
+        write_ephemeris(t[(hours < first_h) | (hours > last_h)], path)
+        return read_ephemeris(path)
+
+    exposure = Time(["2030-06-01T02:00:00", "2030-06-01T02:30:00", "2030-06-01T03:00:00"], scale="utc")
+    # one row missing at the cube time: a 4-h step among 2-h steps (2x, not a gap)
+    table_without(26, 26).at(exposure, what="cube c1")
+    # a 14-h gap a day later: not at the cube time, so not refused
+    table_without(51, 63).at(exposure, what="cube c1")
+    # the same gap at the cube time is refused; so is a step of just over 5x the spacing (12 h -> 5 missing rows)
+    with pytest.raises(EphemerisError, match="falls in a gap"):
+        table_without(21, 33).at(exposure, what="cube c1")
+    with pytest.raises(EphemerisError, match=r"\(12 h, more than 5 times the 120 min spacing"):
+        table_without(23, 33).at(exposure, what="cube c1")
+    # exactly 5x (10 h) is still accepted (the rule is 'more than 5 times')
+    table_without(23, 31).at(exposure, what="cube c1")
+    # the first and the last row of a table can be asked for
+    full = table_without(-1, -1)
+    full.at(Time(full.jd[[0, -1]], format="jd", scale="utc"), what="the table's ends")
+
+
+@pytest.mark.parametrize("bunit, base, scale", [("mJy/beam", u.Jy / u.beam, 1e-3), ("uJy/beam", u.Jy / u.beam, 1e-6),
+                                               ("JY/BEAM", u.Jy / u.beam, 1.0), ("mJy/sr", u.Jy / u.sr, 1e-3),
+                                               ("MJy/sr", u.Jy / u.sr, 1e6), ("MJY/SR", u.Jy / u.sr, 1e6),
+                                               ("mK", u.K, 1e-3)])
+def test_brightness_unit_prefixes_are_read_as_written(tmp_path, bunit, base, scale):
+    # FITS standard 4.0 (table 28): 'm' is milli, 'u' micro, 'M' mega; an upper-cased 'MJY/SR' is taken as the
+    # usual mega-jansky per steradian (an upper-cased spelling cannot say milli)
+    info = read_cube_info(write_hdu(cube_hdu(BUNIT=bunit), tmp_path / "u.fits"))
+    assert info.bunit.to(base) == pytest.approx(scale, rel=1e-12)

@@ -72,10 +72,10 @@ def test_python_object_tag_refused_by_snakemake_configfile(tmp_path):
 
 
 @pytest.mark.workflow
-@pytest.mark.xfail(strict=True, raises=AssertionError, reason="Snakemake (9.x) reads --configfile through YTE, which evaluates the "
-                                       "file's ?-expressions when it opts in with '__use_yte__: true'; this "
-                                       "happens before the Snakefile runs, so gasledger cannot refuse it: only "
-                                       "run config files you trust")
+@pytest.mark.xfail(strict=True, raises=AssertionError,
+                   reason="Snakemake (9.x) reads --configfile through YTE, which evaluates the file's ?-expressions "
+                          "when it opts in with '__use_yte__: true'; this happens before the Snakefile runs, so "
+                          "gasledger cannot refuse it: only run config files you trust")
 def test_yte_templates_in_a_configfile_are_not_evaluated(tmp_path):
     marker = tmp_path / "evaluated"
     path = tmp_path / "template.yaml"
