@@ -68,7 +68,8 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
     flux = np.asarray(spectra[0].data, dtype=float)                                                # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
-    window_sum = np.nansum(flux * wts[None, :], axis=1) * dv                                       # (ap,)
+    # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
+    window_sum = np.sum(np.where(wts[None, :] > 0, flux, 0.0) * wts[None, :], axis=1) * dv          # (ap,)
     q = window_sum[None, :] / scale
     sigma = np.asarray(aps["sigma_window"], dtype=float)[None, :] / scale
     inp = StackInput(epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=line.line_id, velocity=vel,
@@ -96,6 +97,11 @@ def run(spectra_paths: list[str], species: str, config: dict[str, Any], out_path
                 skipped.append(f"{spectra[0].header.get('GLCUBE')}:{spectra[0].header.get('GLLINE')}")
                 continue
             inp, r = stack_input(spectra, catalogue, config)
+        if not np.all(np.isfinite(inp.q)):
+            log.warning("%s: line %s in cube %s has blank channels inside the integration window; left out",
+                        species, inp.line_id, inp.cube_id)
+            skipped.append(f"{inp.cube_id}:{inp.line_id} (blank window channels)")
+            continue
         inputs.append(inp)
         rows.extend(r)
     if skipped:
