@@ -208,7 +208,8 @@ timeout 600 .venv/bin/python -m pip install --quiet -e '.[cluster]' >"$TMP/log/p
 # nothing here meets another run in the checkout), and the config -- which the tables record in
 # their provenance, outdir and input paths included -- is the same for both.
 DATA="$TMP/data"
-timeout 300 .venv/bin/python -m synthetic_cubes --small "$DATA" --results results >"$TMP/log/generate.txt"
+timeout 300 .venv/bin/python -m synthetic_cubes --small "$DATA" --results results >"$TMP/log/generate.txt" 2>&1 \
+    || { tail -n 20 "$TMP/log/generate.txt" >&2; die "generating the small scenario failed"; }
 LOCAL="$TMP/local/results"
 CLUSTER="$TMP/slurm/results"
 
@@ -271,7 +272,7 @@ if (( ${#differing[@]} )); then
 fi
 
 say "summary:"
-say "  cluster     one node 'localhost' ($layout RealMemory=$real_mb MB), partition $PARTITION, squeue status checks"
+say "  cluster     one node 'localhost' (${layout}RealMemory=$real_mb MB), partition $PARTITION, squeue status checks"
 say "  local run   $n_local jobs (profiles/workstation)"
 say "  SLURM run   $n_slurm SLURM jobs: ${states%, } (profiles/slurm)"
 say "  tables      limits.ecsv and budget.ecsv byte-identical"
