@@ -32,6 +32,8 @@ elapsed() { echo $(( $(date +%s) - T0 )); }
 # One test cluster at a time on this machine (it uses SLURM's default ports and /etc/slurm/slurm.conf).
 exec 9>/run/lock/gasledger-slurm-test.lock
 flock -w 900 9 || die "another .ci/slurm_test.sh still holds /run/lock/gasledger-slurm-test.lock after 900 s"
+(( $(elapsed) < 2 )) || say "waited $(elapsed) s for another .ci/slurm_test.sh to finish"
+T0=$(date +%s)
 for port in 6817 6818; do
     if (exec 3<>"/dev/tcp/127.0.0.1/$port") 2>/dev/null; then
         die "something already listens on 127.0.0.1:$port (SLURM's default port): is another slurmctld/slurmd running?"
