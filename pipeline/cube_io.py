@@ -301,6 +301,15 @@ class _DataContext:
             raise named from exc
 
 
+def _iso_card(h: fits.Header, card: str, path, example: str) -> Time:
+    """A header card holding an ISO UTC time, or one sentence naming the card."""
+    try:
+        return Time(str(h[card]), scale="utc")
+    except ValueError as exc:
+        msg = f"{path}: header card {card} = {h[card]!r} is not an ISO time; expected e.g. '{example}' (UTC)"
+        raise CubeError(msg) from exc
+
+
 def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time, Time, Time]:
     """Start, mid and end time of the exposure (UTC).
 
@@ -316,12 +325,7 @@ def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time
             raise CubeError(msg) from exc
         return t, t, t
     if "DATE-OBS" in h:
-        try:
-            start = Time(str(h["DATE-OBS"]), scale="utc")
-        except ValueError as exc:
-            msg = (f"{path}: header card DATE-OBS = {h['DATE-OBS']!r} is not an ISO time; expected e.g. "
-                   "'2030-06-01T02:00:00' (UTC)")
-            raise CubeError(msg) from exc
+        start = _iso_card(h, "DATE-OBS", path, "2030-06-01T02:00:00")
     elif "MJD-OBS" in h:
         try:
             start = Time(float(h["MJD-OBS"]), format="mjd", scale="utc")
@@ -333,12 +337,7 @@ def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time
                "(or the cube's 'time' key in the config)")
         raise CubeError(msg)
     if "DATE-END" in h:
-        try:
-            end = Time(str(h["DATE-END"]), scale="utc")
-        except ValueError as exc:
-            msg = (f"{path}: header card DATE-END = {h['DATE-END']!r} is not an ISO time; expected e.g. "
-                   "'2030-06-01T03:00:00' (UTC)")
-            raise CubeError(msg) from exc
+        end = _iso_card(h, "DATE-END", path, "2030-06-01T03:00:00")
     else:
         exptime = h.get("EXPTIME", h.get("XPOSURE", 0.0))
         end = start + float(exptime) * u.s

@@ -24,10 +24,21 @@ REPO = Path(__file__).resolve().parents[1]
 pytestmark = pytest.mark.workflow
 
 
+def _command(workdir: Path, config: Path, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
+            "--configfile", str(config), "--cores", "2", *extra]
+
+
 def snakemake(workdir: Path, config: Path, *extra: str) -> subprocess.CompletedProcess:
-    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
-           "--configfile", str(config), "--cores", "2", *extra]
-    return subprocess.run(cmd, capture_output=True, text=True, timeout=900)
+    return subprocess.run(_command(workdir, config, *extra), capture_output=True, text=True, timeout=900)
+
+
+def _dry_run_jobs(root: Path, cfg: dict, path: Path) -> dict[str, int]:
+    """Write ``cfg`` to ``path`` and return the rule -> job count of a dry run with it."""
+    path.write_text(yaml.safe_dump(cfg))
+    dry = snakemake(root, path, "--dry-run")
+    assert dry.returncode == 0, dry.stderr[-2000:]
+    return _jobs(dry.stdout)
 
 
 @pytest.fixture(scope="module")
@@ -128,15 +139,11 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     new = root / "data" / "e4_hcn.fits"
     shutil.copy(src, new)
     cfg["cubes"].append({"path": str(new), "id": "e4_hcn", "epoch": "e4"})
-    cfg4 = tmp_path / "four.yaml"
-    cfg4.write_text(yaml.safe_dump(cfg))
-    dry = snakemake(root, cfg4, "--dry-run")
-    assert dry.returncode == 0, dry.stderr[-2000:]
-    jobs = _jobs(dry.stdout)
+    jobs = _dry_run_jobs(root, cfg, tmp_path / "four.yaml")
     # the new cube's own jobs (one HCN line), the HCN aggregation, the campaign tables, and the injections,
     # which depend on the campaign tables for every species
     assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "limits_species": 1, "limits": 1,
-                    "budget": 1, "injection": 3, "forecast": 1, "report": 1, "all": 1}, dry.stdout[-3000:]
+                    "budget": 1, "injection": 3, "forecast": 1, "report": 1, "all": 1}, jobs
 
 
 def test_report_renders_in_a_real_browser(campaign, tmp_path):
@@ -171,9 +178,8 @@ def _run_until(workdir: Path, config: Path, condition, timeout: float = 300) -> 
     import signal
     import time
 
-    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
-           "--configfile", str(config), "--cores", "2", "--rerun-incomplete"]
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    proc = subprocess.Popen(_command(workdir, config, "--rerun-incomplete"), stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, start_new_session=True)
     t0 = time.monotonic()
     try:
         while proc.poll() is None and time.monotonic() - t0 < timeout:
@@ -229,11 +235,7 @@ def test_changing_one_value_reruns_only_what_uses_it(campaign, tmp_path):
     root, config = campaign
     cfg = yaml.safe_load(config.read_text())
     cfg["limits"]["nsigma"] = 2.5
-    changed = tmp_path / "nsigma.yaml"
-    changed.write_text(yaml.safe_dump(cfg))
-    dry = snakemake(root, changed, "--dry-run")
-    assert dry.returncode == 0, dry.stderr[-2000:]
+    jobs = _dry_run_jobs(root, cfg, tmp_path / "nsigma.yaml")
     # limits.nsigma is a param of limits_species, injection and forecast: those rerun, with the tables after them
-    jobs = _jobs(dry.stdout)
     assert jobs == {"limits_species": 3, "limits": 1, "budget": 1, "injection": 3, "forecast": 1, "report": 1,
                     "all": 1}, jobs
