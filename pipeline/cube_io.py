@@ -4,6 +4,17 @@ Cubes are FITS images with two celestial axes and one spectral axis (a
 degenerate Stokes axis of length one is accepted and ignored). The data are
 read memory-mapped, one region at a time; the whole cube is never loaded.
 Inputs are opened read-only and never modified.
+
+The cube is the primary HDU's image when it has one; otherwise an image extension
+named SCI (or the first 3-D image extension), as infrared integral-field pipelines
+write them, with the primary header's cards (times, exposure) filling in what the
+extension lacks. An image extension named ERR of the same shape, when present, is
+the per-pixel 1-sigma error of the data (:func:`open_error`).
+
+Millimetre cubes carry Jy/beam, Jy/pixel, MJy/sr or K; infrared cubes a surface
+brightness per unit frequency (MJy/sr) or per unit wavelength (W m^-2 um^-1 sr^-1,
+erg s^-1 cm^-2 A^-1 sr^-1). :attr:`CubeInfo.regime` says which chain a cube goes
+down: infrared when every channel lies short of 30 um.
 """
 
 from __future__ import annotations
@@ -29,6 +40,8 @@ __all__ = [
     "SPECSYS_VALUES",
     "BRIGHTNESS_KINDS",
     "brightness_unit",
+    "open_error",
+    "INFRARED_LIMIT",
 ]
 
 SPECSYS_VALUES = ("TOPOCENT", "GEOCENTR", "BARYCENT", "LSRK", "SOURCE")
@@ -45,9 +58,17 @@ _BRIGHTNESS_UNITS = {
     "JY/PIX": u.Jy / u.pix,
     "MJY/SR": u.MJy / u.sr,
     "K": u.K,
+    "ERG/S/CM2/A/SR": u.erg / u.s / u.cm**2 / u.AA / u.sr,
+    "ERG/S/CM2/ANGSTROM/SR": u.erg / u.s / u.cm**2 / u.AA / u.sr,
+    "ERG/S/CM2/AA/SR": u.erg / u.s / u.cm**2 / u.AA / u.sr,
+    "W/M2/UM/SR": u.W / u.m**2 / u.um / u.sr,
+    "W/M2/MICRON/SR": u.W / u.m**2 / u.um / u.sr,
+    "W/M^2/UM/SR": u.W / u.m**2 / u.um / u.sr,
 }
 #: The kinds of brightness unit a cube may have; any prefix of them (mJy/beam, uJy/beam, mK, ...) is accepted.
-BRIGHTNESS_KINDS = (u.Jy / u.beam, u.Jy / u.pix, u.Jy / u.sr, u.K)
+BRIGHTNESS_KINDS = (u.Jy / u.beam, u.Jy / u.pix, u.Jy / u.sr, u.K, u.W / u.m**2 / u.um / u.sr)
+#: Cubes whose every channel lies short of this wavelength go down the infrared (band) chain.
+INFRARED_LIMIT = 30 * u.um
 
 
 @dataclass(frozen=True)
@@ -65,6 +86,19 @@ class CubeInfo:
     beam_minor: u.Quantity | None
     beam_pa: u.Quantity | None
     pixel_scale: u.Quantity              # geometric mean pixel side (angle)
+    hdu: int = 0                         # index of the HDU holding the cube
+    error_hdu: int | None = None         # index of the ERR extension, when there is one
+
+    @property
+    def regime(self) -> str:
+        """'infrared' when every channel lies short of :data:`INFRARED_LIMIT`, else 'millimetre'."""
+        longest = self.frequencies.min().to(u.um, equivalencies=u.spectral())
+        return "infrared" if longest < INFRARED_LIMIT else "millimetre"
+
+    @property
+    def wavelengths(self) -> u.Quantity:
+        """Vacuum wavelength of each channel, as labelled (um)."""
+        return self.frequencies.to(u.um, equivalencies=u.spectral())
 
     @property
     def channel_width(self) -> u.Quantity:
@@ -147,8 +181,45 @@ def brightness_unit(text: str) -> u.UnitBase | None:
         except ValueError:
             unit = _BRIGHTNESS_UNITS.get("".join(str(text).upper().split()))
     if unit is None or not any(unit.is_equivalent(kind) for kind in BRIGHTNESS_KINDS):
+        unit = _BRIGHTNESS_UNITS.get("".join(str(text).upper().split()))  # e.g. 'erg/s/cm2/A/sr' (A read as ampere)
+    if unit is None or not any(unit.is_equivalent(kind) for kind in BRIGHTNESS_KINDS):
         return None
     return unit
+
+
+#: Primary-header cards copied into the header of a cube held in an extension, when the extension lacks them.
+_INHERITED = ("DATE-OBS", "DATE-END", "MJD-OBS", "EXPTIME", "XPOSURE", "TELESCOP", "INSTRUME", "OBJECT",
+              "SPECSYS", "BUNIT", "BMAJ", "BMIN", "BPA", "RESTFRQ", "RESTFREQ")
+
+
+def _cube_hdus(hdul: fits.HDUList, path: Path) -> tuple[int, int | None]:
+    """Index of the HDU holding the cube and of its ERR extension (None when absent)."""
+    def is_image(h) -> bool:
+        return isinstance(h, (fits.PrimaryHDU, fits.ImageHDU)) and int(h.header.get("NAXIS", 0)) >= 3
+
+    if is_image(hdul[0]):
+        index = 0
+    else:
+        named = [i for i, h in enumerate(hdul) if i and h.name == "SCI" and is_image(h)]
+        images = [i for i, h in enumerate(hdul) if i and is_image(h) and h.name != "ERR"]
+        if not (named or images) and int(hdul[0].header.get("NAXIS", 0)) > 0:
+            return 0, None  # a primary image of the wrong dimension: read_cube_info says what is wrong with it
+        if not (named or images):
+            kinds = ", ".join(f"{h.name or i} (NAXIS = {h.header.get('NAXIS', 0)})" for i, h in enumerate(hdul))
+            msg = (f"{path}: no HDU holds a 3-D image (found {kinds}); expected the cube in the primary HDU or "
+                   "in an image extension named SCI")
+            raise CubeError(msg)
+        index = (named or images)[0]
+    errors = [i for i, h in enumerate(hdul) if i and h.name == "ERR" and is_image(h)]
+    err = errors[0] if errors else None
+    if err is not None:
+        shape = [hdul[index].header.get(f"NAXIS{k}") for k in range(1, int(hdul[index].header["NAXIS"]) + 1)]
+        eshape = [hdul[err].header.get(f"NAXIS{k}") for k in range(1, int(hdul[err].header["NAXIS"]) + 1)]
+        if shape != eshape:
+            msg = (f"{path}: the ERR extension has axis lengths {eshape} but the cube {shape}; expected the "
+                   "per-pixel error cube of the same shape")
+            raise CubeError(msg)
+    return index, err
 
 
 def read_cube_info(path: str | Path) -> CubeInfo:
@@ -163,7 +234,12 @@ def read_cube_info(path: str | Path) -> CubeInfo:
     """
     path = Path(path)
     with _open_hdul(path) as hdul:
-        header = hdul[0].header.copy()
+        index, err_index = _cube_hdus(hdul, path)
+        header = hdul[index].header.copy()
+        if index:
+            for card in _INHERITED:
+                if card in hdul[0].header and card not in header:
+                    header[card] = hdul[0].header[card]
     naxis = header.get("NAXIS", 0)
     dims = [header.get(f"NAXIS{i}", 1) for i in range(1, naxis + 1)]
     if naxis < 3 or sum(d > 1 for d in dims) < 3:
@@ -182,11 +258,11 @@ def read_cube_info(path: str | Path) -> CubeInfo:
     if specsys not in SPECSYS_VALUES:
         msg = f"{path}: header card SPECSYS = {specsys!r}; expected one of {', '.join(SPECSYS_VALUES)}"
         raise CubeError(msg)
-    bunit_text = str(_card(header, "BUNIT", path, "a brightness unit (Jy/beam, Jy/pixel, MJy/sr, K)"))
+    bunit_text = str(_card(header, "BUNIT", path, "a brightness unit (Jy/beam, Jy/pixel, MJy/sr, K, W/m2/um/sr)"))
     bunit = brightness_unit(bunit_text)
     if bunit is None:
         msg = (f"{path}: header card BUNIT = {bunit_text!r}; expected one of Jy/beam, Jy/pixel, MJy/sr, K "
-               "(or a prefixed form such as mJy/beam)")
+               "(or a prefixed form such as mJy/beam), or for infrared cubes W/m2/um/sr or erg/s/cm2/A/sr")
         raise CubeError(msg)
 
     nchan = dims[2]
@@ -260,7 +336,7 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         raise CubeError(msg)
     return CubeInfo(path=path, header=header, shape=(nchan, dims[1], dims[0]), celestial_wcs=celestial,
                     frequencies=freqs, specsys=specsys, bunit=bunit, beam_major=bmaj, beam_minor=bmin,
-                    beam_pa=bpa, pixel_scale=pixel_scale.to(u.arcsec))
+                    beam_pa=bpa, pixel_scale=pixel_scale.to(u.arcsec), hdu=index, error_hdu=err_index)
 
 
 def open_data(path: str | Path):
@@ -274,17 +350,34 @@ def open_data(path: str | Path):
     return _DataContext(Path(path))
 
 
+def open_error(path: str | Path):
+    """Open a cube's ERR extension (per-pixel 1-sigma, same shape and unit as the data), like :func:`open_data`.
+
+    Yields None when the file has no ERR extension.
+    """
+    return _DataContext(Path(path), error=True)
+
+
 class _DataContext:
-    def __init__(self, path: Path):
+    def __init__(self, path: Path, error: bool = False):
         self.path = path
+        self.error = error
         self.hdul = None
 
-    def __enter__(self) -> np.ndarray:
+    def __enter__(self) -> np.ndarray | None:
         self.hdul = _open_hdul(self.path)
-        data = self.hdul[0].data
+        try:
+            index, err = _cube_hdus(self.hdul, self.path)
+        except CubeError:
+            self.hdul.close()
+            raise
+        if self.error and err is None:
+            return None
+        hdu = self.hdul[err if self.error else index]
+        data = hdu.data
         if data is None:
             self.hdul.close()
-            msg = f"{self.path}: the primary HDU has no data; expected a cube"
+            msg = f"{self.path}: HDU {hdu.name or index} has no data; expected a cube"
             raise CubeError(msg)
         if data.ndim == 4:
             data = data[0]
