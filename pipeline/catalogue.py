@@ -66,6 +66,8 @@ _BAND_COLUMNS = {
     "band": None,
     "wavelength": u.um,
     "g_1au": 1 / u.s,
+    "extent_lo": u.um,
+    "extent_hi": u.um,
 }
 _LINE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
 #: Species names become file names (stack/<species>.fits) and a workflow wildcard: no path characters.
@@ -146,6 +148,8 @@ class Band:
     band: str
     wavelength: u.Quantity
     g_1au: u.Quantity
+    extent_lo: u.Quantity = None      # rest wavelengths between which the band's rotational lines lie
+    extent_hi: u.Quantity = None
 
     def g_factor(self, r_h: u.Quantity) -> u.Quantity:
         """Fluorescence efficiency (photons per molecule per second) at ``r_h``.
@@ -260,13 +264,18 @@ def _read_bands(path: Path, species: dict[str, Species], species_file: Path) -> 
             raise CatalogueError(msg)
         wavelength = u.Quantity(row["wavelength"], u.um)
         g_1au = u.Quantity(row["g_1au"], 1 / u.s)
-        for col, value in (("wavelength", wavelength), ("g_1au", g_1au)):
+        lo, hi = u.Quantity(row["extent_lo"], u.um), u.Quantity(row["extent_hi"], u.um)
+        for col, value in (("wavelength", wavelength), ("g_1au", g_1au), ("extent_lo", lo), ("extent_hi", hi)):
             if not (np.isfinite(value.value) and value.value > 0):
                 msg = (f"band catalogue {str(path)!r}: band {band_id!r} has {col} {value}, "
                        "expected a positive finite value")
                 raise CatalogueError(msg)
+        if not lo < wavelength < hi:
+            msg = (f"band catalogue {str(path)!r}: band {band_id!r} has extent_lo {lo} and extent_hi {hi} around "
+                   f"its wavelength {wavelength}; expected extent_lo < wavelength < extent_hi")
+            raise CatalogueError(msg)
         bands.append(Band(band_id=band_id, species=name, band=str(row["band"]),
-                          wavelength=wavelength, g_1au=g_1au))
+                          wavelength=wavelength, g_1au=g_1au, extent_lo=lo, extent_hi=hi))
     return tuple(bands)
 
 

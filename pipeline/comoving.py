@@ -22,7 +22,7 @@ from .catalogue import Line
 from .cube_io import CubeInfo, open_data
 from .spectral_frame import linear_axis, radio_velocity, to_target_frame, to_topocentric
 
-__all__ = ["SubCube", "target_frame_velocities", "cut_subcube", "crop_box"]
+__all__ = ["SubCube", "target_frame_frequencies", "target_frame_velocities", "cut_subcube", "crop_box"]
 
 
 @dataclass
@@ -36,20 +36,28 @@ class SubCube:
     velocity: np.ndarray | None = None   # exact radio velocity of each channel [km/s]
 
 
+def target_frame_frequencies(info: CubeInfo, geometry, location: EarthLocation | None) -> u.Quantity:
+    """Frequency of every channel of ``info`` in the target's rest frame.
+
+    ``geometry`` is the cube's one-row geometry table (or a row of it). A SPECSYS = SOURCE axis is
+    already in that frame; any other is brought to the observatory's frame, then the target's
+    topocentric radial velocity is removed (relativistic Doppler).
+    """
+    if info.specsys == "SOURCE":
+        return info.frequencies
+    time = Time(geometry["time_mid"])
+    topo = to_topocentric(info.frequencies, info.specsys, time, location,
+                          u.Quantity(geometry["ra"]), u.Quantity(geometry["dec"]))
+    return to_target_frame(topo, u.Quantity(geometry["delta_dot"]))
+
+
 def target_frame_velocities(info: CubeInfo, geometry, line: Line,
                             location: EarthLocation | None) -> u.Quantity:
     """Radio velocity of every channel of ``info`` relative to ``line`` in the target's frame.
 
     ``geometry`` is the cube's one-row geometry table (or a row of it).
     """
-    if info.specsys == "SOURCE":
-        rest = info.frequencies
-    else:
-        time = Time(geometry["time_mid"])
-        topo = to_topocentric(info.frequencies, info.specsys, time, location,
-                              u.Quantity(geometry["ra"]), u.Quantity(geometry["dec"]))
-        rest = to_target_frame(topo, u.Quantity(geometry["delta_dot"]))
-    return radio_velocity(rest, line.freq)
+    return radio_velocity(target_frame_frequencies(info, geometry, location), line.freq)
 
 
 def crop_box(shape: tuple[int, int], x: float, y: float, half_size: float) -> tuple[slice, slice]:

@@ -719,3 +719,24 @@ def test_unknown_partition_kind(tmp_path):
     with pytest.raises(CatalogueError, match="column 'partition' must be 'linear' or 'asymmetric', "
                                              "found 'symtop'"):
         sp.partition_function(20 * u.K)
+
+
+@pytest.mark.parametrize("band_id, j_step", [("CO_v1-0", 1), ("CO2_nu3", 2)])
+def test_band_extent_holds_the_rotational_branches(cat, band_id, j_step):
+    # Rigid-rotor P and R branch positions nu = nu0 + 2B(J+1) (R) and nu0 - 2BJ (P), populations
+    # (2J+1) exp(-hBJ(J+1)/kT) (Herzberg, Spectra of Diatomic Molecules, 1950: closed forms; the
+    # small change of B with v is neglected). Every line with >= 1 % of the peak population at 100 K
+    # must lie inside [extent_lo, extent_hi]; CO2 (spinless 16O) has only even J.
+    band = cat.get_band(band_id)
+    b_cm = (cat.get_species(band.species).rot_b / const.c).to_value(1 / u.cm)
+    kt_cm = (const.k_B * 100 * u.K / (const.h * const.c)).to_value(1 / u.cm)
+    j = np.arange(0, 200, j_step)
+    pop = (2 * j + 1) * np.exp(-b_cm * j * (j + 1) / kt_cm)
+    j = j[pop >= 0.01 * pop.max()]
+    nu0 = 1e4 / band.wavelength.to_value(u.um)
+    lines_um = 1e4 / np.concatenate([nu0 + 2 * b_cm * (j + 1), nu0 - 2 * b_cm * j[j > 0]])
+    assert band.extent_lo.to_value(u.um) <= lines_um.min()
+    assert lines_um.max() <= band.extent_hi.to_value(u.um)
+    # and the extent is not much wider than the branches (within 0.01 um)
+    assert lines_um.min() - band.extent_lo.to_value(u.um) < 0.01
+    assert band.extent_hi.to_value(u.um) - lines_um.max() < 0.01
