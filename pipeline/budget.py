@@ -139,7 +139,7 @@ def _verdict(q_upper: float, m_allowed: float, m_min: float, m_max: float) -> st
 
 
 def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: BudgetAssumptions | list,
-                 catalogue: Catalogue) -> QTable:
+                 catalogue: Catalogue, dust_force: dict[str, u.Quantity] | None = None) -> QTable:
     """One row per driver species and epoch group: required Q, limit, ratios, allowed mass, verdict.
 
     Parameters
@@ -152,6 +152,10 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
         One row per assumption set (column ``assumption_set``).
     catalogue : Catalogue
         For the molecular masses.
+    dust_force : dict, optional
+        Largest push the dust can give at each epoch group (N): the gas then has to supply only
+        M a - F_dust (never less than zero), so Mdot_gas = max(M a - F_dust, 0) / (zeta v) and the
+        largest mass a limit allows is (zeta v Q m + F_dust) / a. Groups not in the dict get 0.
     """
     sets = assume if isinstance(assume, list) else [assume]
     measured = list(dict.fromkeys(str(s) for s in limits["species"]))
@@ -162,15 +166,19 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
         mol = catalogue.get_species(name).mass.to(u.kg)
         a, a_err = acceleration_at(aset, r_h)
         v_ej = ejection_speed_at(aset, r_h, mol)
+        f_dust = u.Quantity((dust_force or {}).get(group, 0 * u.N), u.N)
+        if not np.isfinite(f_dust.value):
+            f_dust = 0 * u.N
         mdot = required_mass_loss_rate(u.Quantity([m_min, m_max]), a, v_ej, aset.efficiency)
+        mdot = np.maximum(mdot - (f_dust / (aset.efficiency * v_ej)).to(u.kg / u.s), 0 * u.kg / u.s)
         q_req = required_production_rate(mdot, mol).to_value(1 / u.s)
         sel = limits[(limits["species"] == name) & (limits["epoch"] == group)]
         if len(sel):
             k = int(np.argmax(sel["q_upper"].to_value(1 / u.s)))
             q_up = float(sel["q_upper"][k].to_value(1 / u.s))
             t_best, ap_best = float(sel["t_kin_K"][k]), float(sel["aperture_km"][k].to_value(u.km))
-            m_allowed = float(max_nucleus_mass(q_up / u.s, mol, a, v_ej, aset.efficiency).to_value(u.kg)) \
-                if a > 0 else np.inf
+            m_allowed = float((max_nucleus_mass(q_up / u.s, mol, a, v_ej, aset.efficiency)
+                               + f_dust / a).to_value(u.kg)) if a > 0 else np.inf
             detected = bool(np.any(sel["detected"]))
         else:
             q_up = t_best = ap_best = m_allowed = np.nan
@@ -195,13 +203,14 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
             "ratio_max": q_req[1] / q_up if np.isfinite(q_up) else np.nan,
             "mass_allowed": m_allowed, "density_allowed_rmin": rho_max[0], "density_allowed_rmax": rho_max[1],
             "sunlit_area_ratio_min": area_ratio[0], "sunlit_area_ratio_max": area_ratio[1],
+            "dust_force": f_dust.to_value(u.N),
             "verdict": _verdict(q_up, m_allowed, m_min.value, m_max.value),
         })
     table = QTable(rows=rows)
     units = {"r_h": u.au, "acceleration": u.m / u.s**2, "acceleration_err": u.m / u.s**2,
              "ejection_speed": u.km / u.s, "mdot_required_min": u.kg / u.s, "mdot_required_max": u.kg / u.s,
              "q_required_min": 1 / u.s, "q_required_max": 1 / u.s, "q_upper": 1 / u.s, "aperture_km": u.km,
-             "mass_allowed": u.kg, "density_allowed_rmin": u.kg / u.m**3, "density_allowed_rmax": u.kg / u.m**3}
+             "mass_allowed": u.kg, "dust_force": u.N, "density_allowed_rmin": u.kg / u.m**3, "density_allowed_rmax": u.kg / u.m**3}
     for name, unit in units.items():
         table[name] = table[name] * unit
     return table

@@ -43,6 +43,7 @@ class CubeEntry:
     tracked: bool = True
     position: str = "auto"
     offset: tuple[float, float] = (0.0, 0.0)
+    resolving_power: float | None = None     # infrared cubes: lambda / FWHM of the line-spread function
 
 
 def _load_schema() -> dict:
@@ -162,7 +163,8 @@ def cube_entries(config: dict[str, Any], source: str = "config") -> list[CubeEnt
                                  spectral_response=item.get("spectral_response", "hanning"),
                                  tracked=bool(item.get("tracked", True)),
                                  position=item.get("position", "auto"),
-                                 offset=tuple(item.get("offset_arcsec", (0.0, 0.0)))))
+                                 offset=tuple(item.get("offset_arcsec", (0.0, 0.0))),
+                                 resolving_power=item.get("resolving_power")))
     return entries
 
 

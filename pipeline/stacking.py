@@ -7,6 +7,11 @@ The rescaled spectra are rebinned flux-conservingly onto one velocity grid in
 the target's frame and combined with inverse-variance weights, one weight per
 spectrum from its empirical window noise. Combining epochs assumes Q was
 constant over them; per-epoch stacks are kept too.
+
+Infrared bands are unresolved at the resolving powers of integral-field
+spectrographs: they enter as Q estimates without a velocity spectrum
+(``velocity`` and ``density`` None), combined with the lines' window estimates
+in the inverse-variance mean of Q but not in the stacked spectrum.
 """
 
 from __future__ import annotations
@@ -38,8 +43,14 @@ class StackInput:
 
 
 def velocity_grid(inputs: list[StackInput], half_width: float) -> np.ndarray:
-    """Channel edges (km/s) of a common grid: the coarsest input channel, centred on 0."""
-    step = max(float(np.abs(np.median(np.diff(i.velocity)))) for i in inputs)
+    """Channel edges (km/s) of a common grid: the coarsest input channel, centred on 0.
+
+    Inputs without a spectrum (bands) are ignored; with none left the grid is one 1 km/s channel.
+    """
+    steps = [float(np.abs(np.median(np.diff(i.velocity)))) for i in inputs if i.velocity is not None]
+    if not steps:
+        return np.array([-0.5, 0.5])
+    step = max(steps)
     n = int(np.floor(half_width / step))
     return (np.arange(-n, n + 2) - 0.5) * step
 
@@ -88,7 +99,9 @@ def combine(inputs: list[StackInput], edges: np.ndarray) -> dict[str, np.ndarray
     wsum = w.sum(axis=0)
     q_mean = (w * q).sum(axis=0) / wsum
     sigma = 1.0 / np.sqrt(wsum)
-    rebinned = np.array([rebin_density(i.velocity, i.density, edges) for i in inputs])  # (n_in,T,ap,g)
+    blank = np.full(q.shape[1:] + (edges.size - 1,), np.nan)
+    rebinned = np.array([blank if i.velocity is None else rebin_density(i.velocity, i.density, edges)
+                         for i in inputs])                                  # (n_in, T, ap, g); bands all NaN
     ww = np.where(np.isfinite(rebinned), w[..., None], 0.0)
     num = np.nansum(np.where(np.isfinite(rebinned), rebinned, 0.0) * ww, axis=0)
     den = ww.sum(axis=0)

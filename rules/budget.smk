@@ -3,6 +3,7 @@ rule budget:
     input:
         limits=f"{OUT}/limits.ecsv",
         geometry=geometry_files(),
+        dust=f"{OUT}/dust.ecsv",
     output:
         ecsv=report(f"{OUT}/budget.ecsv", caption="../report/budget.rst", category="Tables"),
         json=f"{OUT}/budget.json",

@@ -2,10 +2,11 @@
 import json
 import sys
 
+from pipeline.cube_io import read_cube_info
 from pipeline.config import check_inputs_exist, cube_entries, validate_config
 from pipeline.errors import GasledgerError
 from pipeline.stages.common import catalogue_from_config
-from pipeline.stages.plan import lines_for_cube
+from pipeline.stages.plan import bands_for_cube, lines_for_cube
 
 try:
     validate_config(config, source="config")
@@ -15,6 +16,8 @@ try:
         CATALOGUE.get_species(_name)
     CUBES = {c.cube_id: c for c in cube_entries(config)}
     LINES = {cid: lines_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
+    IR_CUBES = {cid: read_cube_info(c.path).regime == "infrared" for cid, c in CUBES.items()}
+    BANDS = {cid: bands_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
 except GasledgerError as exc:
     sys.exit(f"gasledger: {exc}")
 
@@ -53,6 +56,20 @@ def per_line_files(folder):
         ]
 
     return files
+
+
+def band_files_of_species(wildcards):
+    """Input function: the bands file of every infrared cube that covers a band of one species."""
+    return [
+        f"{OUT}/bands/{cid}.fits"
+        for cid in CUBES
+        if any(CATALOGUE.get_band(b).species == wildcards.species for b in BANDS[cid])
+    ]
+
+
+def bands_files():
+    """Every infrared cube's bands file (also those covering no configured species: they hold the dust)."""
+    return [f"{OUT}/bands/{cid}.fits" for cid in CUBES if IR_CUBES[cid]]
 
 
 spectra_of_species = per_line_files("spectra")

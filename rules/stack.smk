@@ -1,13 +1,15 @@
 rule stack:
     """Spectra of one species in Q units, combined per epoch and over all epochs."""
     input:
-        spectra_of_species,
+        spectra=spectra_of_species,
+        bands=band_files_of_species,
     output:
         f"{OUT}/stack/{{species}}.fits",
     params:
         excitation=canon(config["excitation"]),
         coma=canon(config["coma"]),
         interferometer=canon(config.get("interferometer")),
+        infrared=canon(config["infrared"]),
     log:
         f"{OUT}/logs/stack/{{species}}.log",
     benchmark:

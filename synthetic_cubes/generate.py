@@ -38,6 +38,7 @@ from pipeline.offline import future_time_tolerated
 from pipeline.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
 from pipeline.spectral_frame import observer_frame_factor, radio_velocity, to_target_frame
 
+from .infrared import write_ir_cube
 from .scenario import Scenario
 
 __all__ = ["write_scenario", "hanning"]
@@ -165,6 +166,15 @@ def write_scenario(sc: Scenario, outdir: str | Path, config_path: str | Path | N
                 info = _write_cube(path, sc, window, label, mids[k], g, catalogue, location, rng)
             progress(f"wrote {path} ({info['nchan']} channels, lines {', '.join(info['lines']) or 'none'})")
             cubes.append({"path": str(path), "id": f"{label}_{window.name}", "epoch": label})
+        for setup in sc.infrared:
+            if label not in setup.epochs:
+                continue
+            path = outdir / f"{label}_{setup.name}.fits"
+            with future_time_tolerated():
+                info = write_ir_cube(path, sc, setup, label, mids[k], g, catalogue, rng)
+            progress(f"wrote {path} ({info['nchan']} channels, bands {', '.join(info['bands']) or 'none'})")
+            cubes.append({"path": str(path), "id": f"{label}_{setup.name}", "epoch": label,
+                          "resolving_power": setup.resolving_power})
     config = {
         "campaign": sc.campaign,
         "outdir": results,
@@ -178,13 +188,17 @@ def write_scenario(sc: Scenario, outdir: str | Path, config_path: str | Path | N
         "limits": {"nsigma": 3},
         "excitation": {"t_kin_K": [10, 20, 40, 80]},
         "coma": {"outflow_km_s": "law", "solar_activity": "quiet"},
+        "infrared": {"margin_fwhm": 1.5, "continuum_factor": 1.0, "continuum_order": 1},
+        "dust": {"wavelengths_um": [2.5, 2.9, 4.1, 4.45, 4.9], "half_width_um": 0.04, "grain_radius_um": 1.0,
+                 "grain_density_kg_m3": 1000.0, "speed_km_s": 0.1, "albedo": 0.16},
         "planned": [dict(p) for p in sc.planned],
         "budget": {"acceleration_m_s2": list(sc.acceleration_m_s2), "interval_days": 30,
                    "nucleus": {"radius_km": list(sc.nucleus_radius_km),
                                "density_kg_m3": list(sc.nucleus_density_kg_m3)},
-                   "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0},
+                   "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0, "include_dust": False},
     }
-    truth = {"production_rates_per_s": sc.production_rates, "t_kin_K": sc.t_kin_K, "seed": sc.seed}
+    truth = {"production_rates_per_s": sc.production_rates, "t_kin_K": sc.t_kin_K, "seed": sc.seed,
+             "dust": dict(sc.extra.get("dust", {}))}
     write_text(yaml.safe_dump(truth, sort_keys=True), outdir / "truth.yaml")
     config_path = Path(config_path) if config_path is not None else outdir / "campaign.yaml"
     write_text("# Written by synthetic_cubes: an invented campaign (fictional object, site and epochs).\n"

@@ -7,6 +7,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
 
+from .infrared import InfraredSetup
+
 __all__ = ["SpectralWindow", "Scenario", "demo_scenario", "small_scenario"]
 
 
@@ -47,6 +49,7 @@ class Scenario:
     nucleus_radius_km: tuple[float, float] = (0.15, 0.6)
     nucleus_density_kg_m3: tuple[float, float] = (300.0, 1000.0)
     planned: tuple[dict, ...] = ()
+    infrared: tuple[InfraredSetup, ...] = ()
     extra: dict = field(default_factory=dict)
 
 
@@ -67,7 +70,7 @@ def demo_scenario() -> Scenario:
             SpectralWindow("hcn", ("HCN_265886",), 60.0),
             SpectralWindow("co", ("CO_230538",), 60.0),
         ),
-        production_rates={"HCN": 2.0e25, "CH3OH": 3.0e26, "CO": 0.0},
+        production_rates={"HCN": 2.0e25, "CH3OH": 3.0e26, "CO": 0.0, "H2O": 4.0e26, "CO2": 0.0},
         t_kin_K=40.0,
         noise_jy_beam=0.006,
         beam_arcsec=(1.2, 0.9, 65.0),
@@ -79,6 +82,14 @@ def demo_scenario() -> Scenario:
         planned=({"label": "p4", "time": "2031-03-20T04:30:00", "lines": ["HCN_265886", "CO_230538"],
                   "noise_jy_beam": 0.004, "channel_khz": 244.140625, "beam_arcsec": [1.2, 0.9, 65.0],
                   "pixel_arcsec": 0.3, "npix": 64},),
+        # two grating settings of a fictional space-borne integral-field spectrograph, at epochs e1 and e3
+        infrared=(
+            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0024, 550.0, 0.3, 64, 0.25, 1.5e-8, "MJy/sr"),
+            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0040, 600.0, 0.3, 64, 0.35, 1.0e-8, "W/m2/um/sr"),
+        ),
+        extra={"dust": {"afrho_cm": 40.0, "lam_ref_um": 2.5, "slope": 2.0},
+               "ir_facility": "Tenkara Orbital Infrared Observatory (fictional)",
+               "ir_pointing_offset_arcsec": (0.4, -0.3)},
     )
 
 
@@ -95,6 +106,10 @@ def small_scenario() -> Scenario:
         ),
         npix=64,
         half_width_km_s=30.0,
+        infrared=(
+            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0030, 450.0, 0.4, 48, 0.25, 1.5e-8, "MJy/sr"),
+            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0050, 480.0, 0.4, 48, 0.35, 1.0e-8, "W/m2/um/sr"),
+        ),
         # Any seed will do; with the demo's seed the small version's CH3OH estimate happens to fall 2.6 sigma
         # low (a fluctuation: over seeds 1-12 the pulls have mean -0.5..0.3 and spread 0.7-1.2).
         seed=1,

@@ -107,3 +107,19 @@ def test_assumption_sets_rows_and_g_variant():
     t = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, a, CAT)
     assert t[0]["acceleration"].to_value(u.m / u.s**2) == pytest.approx(
         (5e-8 * u.au / u.day**2).to_value(u.m / u.s**2), rel=1e-9)
+
+
+def test_dust_push_reduces_the_gas_needed():
+    # Hand-worked from momentum balance M a = zeta Mdot v + F_dust (same numbers as the hand-worked row above):
+    # M_min a = 1.6755e10 kg * 2e-6 m/s^2 = 3.351e4 N; with F_dust = 1.0e4 N the gas supplies 2.351e4 N,
+    # Mdot = 2.351e4 / 500 = 47.02 kg/s; M_max = (500 * 1e28 * 4.6512e-26 + 1e4) / 2e-6 = 1.2128e11 kg.
+    table = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, _assume(), CAT,
+                         dust_force={"all": 1.0e4 * u.N})
+    row = table[(table["species"] == "CO") & (table["epoch"] == "all")][0]
+    assert row["mdot_required_min"].to_value(u.kg / u.s) == pytest.approx(47.02, rel=1e-3)
+    assert row["mass_allowed"].to_value(u.kg) == pytest.approx(1.2128e11, rel=1e-3)
+    assert row["dust_force"].to_value(u.N) == pytest.approx(1.0e4)
+    # a dust push larger than M a leaves nothing for the gas to do (never a negative requirement)
+    big = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, _assume(), CAT,
+                       dust_force={"all": 1.0e9 * u.N})
+    assert np.all(big["mdot_required_min"].to_value(u.kg / u.s) == 0.0)

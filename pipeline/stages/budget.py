@@ -27,18 +27,38 @@ def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
     return out
 
 
+def dust_forces(dust_path: str | None, include: bool) -> dict[str, u.Quantity]:
+    """The dust's largest push per epoch group (N) from dust.ecsv, at the largest aperture; empty unless included."""
+    if not include or dust_path is None:
+        return {}
+    dust = QTable.read(dust_path, format="ascii.ecsv")
+    out: dict[str, u.Quantity] = {}
+    if "momentum_rate" not in dust.colnames:
+        return out
+    for group in dict.fromkeys(str(e) for e in dust["epoch"]):
+        sel = dust[dust["epoch"] == group]
+        row = sel[int(np.argmax(sel["aperture_km"].to_value(u.km)))]
+        if np.isfinite(row["momentum_rate"].value):
+            out[group] = u.Quantity(row["momentum_rate"], u.N)
+    return out
+
+
 def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str,
-        out_exclusion: str | None = None) -> None:
-    """Compute and write the budget tables."""
+        out_exclusion: str | None = None, dust_path: str | None = None) -> None:
+    """Compute and write the budget tables (with the dust's push when budget.include_dust is set)."""
     limits = QTable.read(limits_path, format="ascii.ecsv")
+    include_dust = bool(config["budget"].get("include_dust", False))
+    forces = dust_forces(dust_path, include_dust)
     sets = assumption_sets(config["budget"])
     assume = sets[0]
     rh = epoch_distances(geometry_paths)
     catalogue = catalogue_from_config(config)
-    table = budget_table(limits, rh, sets, catalogue)
-    record = provenance_record(config, [limits_path, *geometry_paths], "budget")
+    table = budget_table(limits, rh, sets, catalogue, forces)
+    record = provenance_record(config, [limits_path, *geometry_paths, *([dust_path] if dust_path else [])], "budget")
     table.meta["provenance"] = record
-    table.meta["assumptions"] = assume.as_dict()
+    table.meta["assumptions"] = dict(assume.as_dict(), dust=(
+        "the dust's momentum rate (dust.ecsv, largest aperture) pays for part of the push first" if include_dust
+        else "not included (budget.include_dust: false)"))
     table.meta["assumption_sets"] = [a.as_dict() for a in sets]
     write_table(table, out_ecsv)
     joint = joint_exclusion(limits, rh, assume, catalogue)
@@ -49,7 +69,8 @@ def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out
     water = catalogue.get_species("H2O").mass if isinstance(assume.ejection, dict) else None
     summary = {
         "campaign": config["campaign"],
-        "assumptions": assume.as_dict(),
+        "assumptions": table.meta["assumptions"],
+        "dust_force_N": {k: float(v.to_value(u.N)) for k, v in forces.items()},
         "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"], water),
         "assumption_sets": [a.as_dict() for a in sets],
         "verdicts_by_assumption_set": [

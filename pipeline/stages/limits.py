@@ -38,6 +38,10 @@ def _fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table
                     mass) -> None:
     """Fill q_fit, q_fit_err, v_offset, v_offset_err for the detected rows of one epoch group."""
     members = inputs[(inputs["epoch"] == group)] if group != "all" else inputs
+    if "kind" in members.colnames:  # infrared bands have no velocity spectrum to fit
+        members = members[members["kind"] == "line"]
+    if len(members) == 0:
+        return
     hdu = hdul[f"STACK_{group}"]
     n = hdu.data.shape[-1]
     vel = hdu.header["CRVAL1"] + (np.arange(n) + 1 - hdu.header["CRPIX1"]) * hdu.header["CDELT1"]
@@ -74,11 +78,13 @@ def _opacity(table: QTable, inputs: Table, catalogue, species_name: str) -> None
         column = parent_aperture_count(rho, row["q"], v, length) / (np.pi * rho**2)
         taus = []
         for line_id in str(row["lines"]).split(","):
+            if line_id not in {ln.line_id for ln in catalogue.lines}:
+                continue  # an infrared band: optically thin fluorescence is assumed (see the README)
             line = catalogue.get_line(line_id)
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", OpacityWarning)
                 taus.append(float(line_optical_depth(line, species, row["t_kin_K"] * u.K, column, 2 * v)))
-        table["tau_peak"][k] = max(taus)
+        table["tau_peak"][k] = max(taus) if taus else np.nan
     strong = table[np.nan_to_num(table["tau_peak"]) > 0.1]
     if len(strong):
         worst = strong[np.argmax(strong["tau_peak"])]
@@ -204,6 +210,9 @@ def run_join(species_paths: list[str], config: dict[str, Any], out_path: str, js
         "coma": "Haser parent distribution, isotropic uniform outflow",
         "outflow_km_s": config["coma"]["outflow_km_s"],
         "photodestruction": f"{config['coma']['solar_activity']} Sun, lifetimes scaled as r_h^2",
+        "infrared bands": "optically thin solar-pumped fluorescence, g-factor scaled as r_h^-2 (no Swings effect); "
+                          "band flux = continuum-subtracted integral over the band extent widened by the line-spread "
+                          "function; Q does not depend on T_kin",
         "q_upper": "Bayesian, flat prior on Q >= 0, one-sided confidence of nsigma",
         "nsigma": config["limits"]["nsigma"],
         "epoch 'all'": "constant Q over the epochs combined",

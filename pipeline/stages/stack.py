@@ -19,7 +19,7 @@ from ..response import line_response, outflow_speed, scale_lengths, window_captu
 from ..stacking import StackInput, combine, velocity_grid
 from .common import catalogue_from_config, coma_model, temperatures
 
-__all__ = ["run", "stack_input", "ALL"]
+__all__ = ["run", "stack_input", "band_inputs", "ALL"]
 
 log = logging.getLogger(__name__)
 ALL = "all"
@@ -82,17 +82,60 @@ def stack_input(spectra: fits.HDUList, catalogue, config) -> tuple[StackInput, l
                          "window": float(h["GLWIN"]), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
                          "spectral_response": h.get("GLSPRESP", "hanning"), "response_model": method,
-                         "surviving_fraction": float(surviving[j])})
+                         "surviving_fraction": float(surviving[j]), "kind": "line"})
     return inp, rows
 
 
+def band_inputs(bands: fits.HDUList, species: str, config) -> tuple[list[StackInput], list[dict], list[str]]:
+    """The covered bands of ``species`` in one bands file as stack inputs (Q the same at every T_kin).
+
+    Returns the inputs, their rows for the INPUTS table and the bands left out (not covered) as 'cube:band'.
+    """
+    h = bands[0].header
+    table = Table.read(bands["BANDS"])
+    t_kin = temperatures(config).to_value(u.K)
+    inputs, rows, skipped = [], [], []
+    if "species" not in table.colnames:
+        return inputs, rows, skipped
+    table = table[table["species"] == species]
+    for band_id in dict.fromkeys(str(b) for b in table["band_id"]):
+        sel = table[table["band_id"] == band_id]
+        sel = sel[np.argsort(np.asarray(sel["aperture_index"]))]
+        if not all(bool(c) for c in sel["covered"]):
+            skipped.append(f"{h['GLCUBE']}:{band_id}")
+            continue
+        q = np.tile(np.asarray(sel["q"], dtype=float), (t_kin.size, 1))
+        sq = np.tile(np.asarray(sel["sigma_q"], dtype=float), (t_kin.size, 1))
+        radii = np.asarray(sel["aperture_km"], dtype=float)
+        inputs.append(StackInput(epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=band_id, velocity=None,
+                                 density=None, q=q, sigma_q=sq, radius_km=radii))
+        for t in t_kin:
+            for r in sel:
+                rows.append({"epoch": h["GLEPOCH"], "cube_id": h["GLCUBE"], "line_id": band_id, "t_kin": t,
+                             "aperture_km": float(r["aperture_km"]), "response": float(r["response"]),
+                             "window_fraction": float(r["capture"]), "window": np.nan, "q": float(r["q"]),
+                             "sigma_q": float(r["sigma_q"]), "r_h": float(r["r_h"]), "delta": float(r["delta"]),
+                             "outflow": float(r["outflow"]), "spectral_response": "band",
+                             "response_model": "grid", "surviving_fraction": 1.0, "kind": "band"})
+    return inputs, rows, skipped
+
+
 def run(spectra_paths: list[str], species: str, config: dict[str, Any], out_path: str) -> None:
-    """Stack every covered spectrum of ``species`` and write the stack file."""
+    """Stack every covered spectrum (and infrared band measurement) of ``species`` and write the stack file.
+
+    ``spectra_paths`` holds spectra files of millimetre lines and bands files of infrared cubes.
+    """
     catalogue = catalogue_from_config(config)
     catalogue.get_species(species)
     inputs, rows, skipped = [], [], []
     for path in spectra_paths:
         with fits.open(path) as spectra:
+            if spectra[0].header.get("GLREGIME") == "infrared":
+                band_in, band_rows, band_skipped = band_inputs(spectra, species, config)
+                inputs.extend(band_in)
+                rows.extend(band_rows)
+                skipped.extend(band_skipped)
+                continue
             if not spectra[0].header.get("GLCOVER", False) or spectra[0].data is None:
                 skipped.append(f"{spectra[0].header.get('GLCUBE')}:{spectra[0].header.get('GLLINE')}")
                 continue

@@ -4,5 +4,5 @@ from pipeline.stages.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):
-    stack.run(list(snakemake.input), snakemake.wildcards.species, snakemake.config,  # noqa: F821
+    stack.run(list(snakemake.input.spectra) + list(snakemake.input.bands), snakemake.wildcards.species, snakemake.config,  # noqa: F821
               snakemake.output[0])  # noqa: F821

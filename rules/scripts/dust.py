@@ -1,0 +1,7 @@
+"""Rule 'dust': thin wrapper around pipeline.stages.dust.run."""
+from pipeline.stages import dust
+from pipeline.stages.common import setup_logging, stage_errors
+
+log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+with stage_errors(log):
+    dust.run(list(snakemake.input), snakemake.config, snakemake.output.afrho, snakemake.output.dust)  # noqa: F821
