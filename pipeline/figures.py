@@ -10,7 +10,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-__all__ = ["SpectrumPanel", "plot_stacked_spectra", "plot_mass_budget", "plot_temperature_sweep", "to_png"]
+__all__ = ["SpectrumPanel", "BandPanel", "plot_band_spectra", "plot_stacked_spectra", "plot_mass_budget", "plot_temperature_sweep", "to_png"]
 
 
 class SpectrumPanel:
@@ -20,6 +20,41 @@ class SpectrumPanel:
                  model: np.ndarray, label: str, detected: bool):
         self.species, self.velocity, self.density = species, velocity, density
         self.window, self.model, self.label, self.detected = window, model, label, detected
+
+
+class BandPanel:
+    """One infrared cube's aperture spectrum with its fitted continua and band windows (rest wavelength, um)."""
+
+    def __init__(self, title: str, wavelength: np.ndarray, flux: np.ndarray, sigma: np.ndarray,
+                 continua: list[np.ndarray], windows: list[tuple[str, float, float]]):
+        self.title, self.wavelength, self.flux, self.sigma = title, wavelength, flux, sigma
+        self.continua, self.windows = continua, windows
+
+
+def plot_band_spectra(panels: list[BandPanel]):
+    """One panel per infrared cube: F_lambda in the smallest aperture, continuum fits, band windows shaded."""
+    n = max(1, len(panels))
+    fig, axes = plt.subplots(n, 1, figsize=(7.5, 2.4 * n), squeeze=False)
+    if not panels:
+        axes[0, 0].text(0.5, 0.5, "no infrared cube in this campaign", ha="center", va="center")
+        axes[0, 0].set_axis_off()
+    for ax, p in zip(axes[:, 0], panels):
+        scale = 10.0 ** np.floor(np.log10(np.nanmax(np.abs(p.flux)) or 1.0))
+        ax.fill_between(p.wavelength, (p.flux - p.sigma) / scale, (p.flux + p.sigma) / scale, step="mid",
+                        color="0.8", lw=0, label="±1σ (ERR)")
+        ax.step(p.wavelength, p.flux / scale, where="mid", color="0.15", lw=0.8, label="aperture spectrum")
+        for k, c in enumerate(p.continua):
+            ax.plot(p.wavelength, c / scale, color="tab:green", lw=1.2, label="continuum fit" if k == 0 else None)
+        for k, (name, lo, hi) in enumerate(p.windows):
+            ax.axvspan(lo, hi, color="tab:blue", alpha=0.12, label="band windows" if k == 0 else None)
+            ax.text(0.5 * (lo + hi), 0.95, name, transform=ax.get_xaxis_transform(), ha="center", va="top",
+                    fontsize=7)
+        ax.set_ylabel(f"F$_\\lambda$ [10$^{{{int(np.log10(scale))}}}$ W m$^{{-2}}$ µm$^{{-1}}$]", fontsize=8)
+        ax.set_title(p.title, fontsize=8)
+        ax.legend(fontsize=7, loc="lower right", frameon=False)
+    axes[-1, 0].set_xlabel("wavelength in the target's rest frame [µm]")
+    fig.tight_layout()
+    return fig
 
 
 def to_png(fig) -> bytes:

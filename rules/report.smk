@@ -10,13 +10,16 @@ rule report:
         exclusion=f"{OUT}/exclusion.ecsv",
         activity=f"{OUT}/activity.ecsv",
         forecast=f"{OUT}/forecast.ecsv",
+        bands=bands_files(),
+        dust=f"{OUT}/dust.ecsv",
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),
         budget=report(f"{OUT}/figures/mass_budget.png", caption="../report/budget_figure.rst", category="Figures"),
         sweep=report(f"{OUT}/figures/temperature_sweep.png", caption="../report/sweep.rst", category="Figures"),
+        infrared=report(f"{OUT}/figures/infrared_spectra.png", caption="../report/infrared.rst", category="Figures"),
     params:
-        shown=canon({k: config.get(k) for k in ("campaign", "target", "species", "limits", "budget", "coma")}),
+        shown=canon({k: config.get(k) for k in ("campaign", "target", "species", "limits", "budget", "coma", "dust")}),
     log:
         f"{OUT}/logs/report.log",
     benchmark:

@@ -10,12 +10,12 @@ import astropy.units as u
 import numpy as np
 import yaml
 from astropy.io import fits
-from astropy.table import QTable
+from astropy.table import QTable, Table
 
 from .. import __version__
 from ..atomic import atomic_path, write_text
 from ..budget import acceleration_at, assumptions_from_config, ejection_speed_at
-from ..figures import SpectrumPanel, plot_mass_budget, plot_stacked_spectra, plot_temperature_sweep, to_png
+from ..figures import BandPanel, SpectrumPanel, plot_band_spectra, plot_mass_budget, plot_stacked_spectra, plot_temperature_sweep, to_png
 from ..line_profile import channel_fractions, thermal_dispersion
 from ..report_html import figure_html, page, table_html
 from ..response import SPECTRAL_RESPONSES, outflow_speed
@@ -25,7 +25,9 @@ __all__ = ["run"]
 
 CAUTION = ("These production rates and limits rest on model assumptions: LTE excitation at the kinetic "
            "temperatures listed, optically thin lines, a Haser parent distribution with isotropic uniform outflow, "
-           "the photodestruction rates of the catalogue, and, for the budget, momentum balance with the stated "
+           "the photodestruction rates of the catalogue, for infrared bands optically thin solar fluorescence with "
+           "the catalogue's g-factors scaled as r_h^-2, for the dust a single grain size, density, speed and albedo, "
+           "and, for the budget, momentum balance with the stated "
            "efficiency and ejection speed with all mass loss in one species at a time. Change an assumption and "
            "the numbers change. gasledger reports numbers; whether outgassing can or cannot drive the push is a "
            "conclusion that belongs to peer review, not to this tool.")
@@ -51,6 +53,10 @@ def _spectrum_panels(stack_paths: list[str], limits: QTable, config: dict[str, A
             from astropy.table import Table
 
             inputs = Table.read(hdul["INPUTS"])
+        if "kind" in inputs.colnames:
+            inputs = inputs[inputs["kind"] == "line"]
+        if not len(inputs):
+            continue  # infrared bands only: no velocity spectrum (see the infrared section)
         sel = limits[(limits["species"] == species) & (limits["epoch"] == "all") & limits["conservative"]]
         if not len(sel):
             continue
@@ -69,6 +75,71 @@ def _spectrum_panels(stack_paths: list[str], limits: QTable, config: dict[str, A
         panels.append(SpectrumPanel(species, vel, density, window, shape * q_model,
                                     f"{label} ({row['aperture_km'].value:.0f} km, {row['t_kin_K']:.0f} K)", detected))
     return panels
+
+
+def _band_panels(bands_paths: list[str]) -> list[BandPanel]:
+    panels = []
+    for path in bands_paths:
+        with fits.open(path) as hdul:
+            h = hdul[0].header
+            wave = Table.read(hdul["WAVE"])
+            flux = np.asarray(hdul["SPECTRA"].data[0], dtype=float)
+            sigma = np.asarray(hdul["SIGMA"].data[0], dtype=float)
+            continua = [np.asarray(c[0], dtype=float) for c in hdul["CONTINUUM"].data] \
+                if hdul["CONTINUUM"].data is not None else []
+            bands = Table.read(hdul["BANDS"])
+        rest = np.asarray(wave["rest"], dtype=float)
+        dopp = float(h["GLDOPP"])
+        windows = []
+        if "window_lo" in bands.colnames:
+            for b in dict.fromkeys(str(x) for x in bands["band_id"]):
+                r = bands[bands["band_id"] == b][0]
+                windows.append((b, float(r["window_lo"]) / dopp, float(r["window_hi"]) / dopp))
+        panels.append(BandPanel(f"{h['GLCUBE']} (epoch {h['GLEPOCH']}, R = {h['GLRPOW']:.0f})", rest, flux, sigma,
+                                continua, windows))
+    return panels
+
+
+def _infrared_section(bands_paths: list[str], dust_path: str, fig: bytes) -> str:
+    if not bands_paths:
+        return "<p>No infrared cube in this campaign.</p>"
+    rows = []
+    for path in bands_paths:
+        with fits.open(path) as hdul:
+            t = Table.read(hdul["BANDS"])
+        if "covered" not in t.colnames:
+            continue
+        for r in t:
+            if not r["covered"]:
+                rows.append([str(r["cube_id"]), str(r["band_id"]), float(r["aperture_km"]), "not covered", "–", "–",
+                             "–", "–"])
+                continue
+            rows.append([str(r["cube_id"]), str(r["band_id"]), float(r["aperture_km"]),
+                         f"{r['flux']:.3g} ± {r['sigma']:.2g}", f"{r['sigma_err']:.2g} / {r['sigma_empirical']:.2g} "
+                         f"({r['empirical_method']})", f"{r['capture']:.4f}", float(r["g_factor"]),
+                         f"{r['q']:.3g} ± {r['sigma_q']:.2g}"])
+    out = figure_html(fig, "Infrared aperture spectra (smallest aperture) with the continuum fits and band windows.",
+                      "infrared spectra")
+    out += table_html(["cube", "band", "aperture [km]", "band flux [W/m²]", "σ from ERR / empirical [W/m²]",
+                       "window capture", "g(r_h) [1/s]", "Q [1/s]"], rows, left=2)
+    out += ("<p>Band flux: integral of the continuum-subtracted spectrum over the band's extent widened by 1.5 "
+            "line-spread FWHM, divided by the fraction of the band template the window holds; the adopted σ is the "
+            "larger of the ERR propagation and the empirical estimate. Q: band flux over the fluorescence flux per "
+            "molecule (g-factor scaled as r_h⁻², optically thin, no Swings effect) times the Haser coma counted on "
+            "the cube's pixel grid with its PSF.</p>")
+    dust = QTable.read(dust_path, format="ascii.ecsv")
+    if len(dust) and "afrho" in dust.colnames:
+        out += table_html(["epoch", "aperture [km]", "λ_ref [µm]", "Afρ [cm]", "slope [%/100 nm]",
+                           "dust production [kg/s]", "momentum rate [N]"],
+                          [[str(r["epoch"]), float(r["aperture_km"].value), float(r["wavelength_ref"].value),
+                            f"{r['afrho'].value:.3g} ± {r['afrho_err'].value:.2g}",
+                            "–" if not np.isfinite(r["slope"]) else f"{r['slope']:.2f} ± {r['slope_err']:.2f}",
+                            f"{r['q_dust'].value:.3g} ± {r['q_dust_err'].value:.2g}", float(r["momentum_rate"].value)]
+                           for r in dust], left=1)
+        a = dust.meta.get("assumptions", {})
+        out += (f"<p>Afρ after A'Hearn et al. (1984) with the solar model: {html.escape(str(dust.meta.get('solar_model')))}"
+                f". The dust production rests on: {html.escape('; '.join(f'{k}: {v}' for k, v in a.items()))}.</p>")
+    return out
 
 
 def _budget_figure(budget: QTable, config: dict[str, Any], catalogue):
@@ -197,6 +268,8 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
     fig_spec = to_png(plot_stacked_spectra(_spectrum_panels(list(inputs.stacks), limits, config)))
     fig_budget = to_png(_budget_figure(budget, config, catalogue))
     fig_sweep = to_png(plot_temperature_sweep(_sweep_curves(limits)))
+    fig_ir = to_png(plot_band_spectra(_band_panels(list(inputs.bands))))
+    _write_png(fig_ir, outputs.infrared)
     _write_png(fig_spec, outputs.spectra)
     _write_png(fig_budget, outputs.budget)
     _write_png(fig_sweep, outputs.sweep)
@@ -247,6 +320,7 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
           "limits, every temperature and every aperture. For detections, a fit of the outflow line profile gives Q "
           "again and the line centre; a centre far from 0 km/s points at an error in the ephemeris' range rate."
           "</p>"))
+    sections.append(("Infrared bands and dust", _infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
     sections.append(("Injection–recovery", _injection_section(list(inputs.injection))))
     sections.append(("All epochs in one test", _joint_section(inputs.exclusion, inputs.activity)))
     sections.append(("Forecast for planned epochs, beside the measurements", _forecast_section(inputs.forecast,
