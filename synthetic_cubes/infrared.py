@@ -135,7 +135,7 @@ def write_ir_cube(path: Path, sc, setup: InfraredSetup, epoch: str, mid: Time, g
     err_si = np.full(signal.shape, sigma)
     to_unit = (1.0 * u.W / u.m**2 / u.um / u.sr).to(u.Unit(setup.bunit, format="fits"),
                                                    equivalencies=u.spectral_density(lam_obs))
-    scale = np.asarray(to_unit.value)[:, None, None] * np.ones((1, n, n))
+    scale = np.broadcast_to(np.asarray(to_unit.value, dtype=float), lam_obs.shape)[:, None, None] * np.ones((1, n, n))
     prim = fits.PrimaryHDU()
     half_exp = sc.exposure_s / 2 * u.s
     prim.header["DATE-OBS"] = (mid - half_exp).isot

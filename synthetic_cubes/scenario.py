@@ -84,8 +84,8 @@ def demo_scenario() -> Scenario:
                   "pixel_arcsec": 0.3, "npix": 64},),
         # two grating settings of a fictional space-borne integral-field spectrograph, at epochs e1 and e3
         infrared=(
-            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0024, 550.0, 0.3, 64, 0.25, 1.5e-8, "MJy/sr"),
-            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0040, 600.0, 0.3, 64, 0.35, 1.0e-8, "W/m2/um/sr"),
+            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0024, 550.0, 0.3, 64, 0.25, 4.0e-7, "MJy/sr"),
+            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0040, 600.0, 0.3, 64, 0.35, 3.0e-7, "W/m2/um/sr"),
         ),
         extra={"dust": {"afrho_cm": 40.0, "lam_ref_um": 2.5, "slope": 2.0},
                "ir_facility": "Tenkara Orbital Infrared Observatory (fictional)",
@@ -107,8 +107,8 @@ def small_scenario() -> Scenario:
         npix=64,
         half_width_km_s=30.0,
         infrared=(
-            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0030, 450.0, 0.4, 48, 0.25, 1.5e-8, "MJy/sr"),
-            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0050, 480.0, 0.4, 48, 0.35, 1.0e-8, "W/m2/um/sr"),
+            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0030, 450.0, 0.4, 48, 0.25, 4.0e-7, "MJy/sr"),
+            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0050, 480.0, 0.4, 48, 0.35, 3.0e-7, "W/m2/um/sr"),
         ),
         # Any seed will do; with the demo's seed the small version's CH3OH estimate happens to fall 2.6 sigma
         # low (a fluctuation: over seeds 1-12 the pulls have mean -0.5..0.3 and spread 0.7-1.2).

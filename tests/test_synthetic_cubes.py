@@ -58,10 +58,12 @@ def test_demo_config_matches_generator(tmp_path):
                                             progress=lambda s: None).read_text())
     shipped = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
     for key in ("campaign", "outdir", "observatory", "species", "apertures_km", "limits", "excitation", "coma",
-                "budget", "comoving", "planned"):
+                "budget", "comoving", "planned", "infrared", "dust"):
         assert shipped[key] == written[key], key
-    assert [c["id"] for c in shipped["cubes"]] == [f"{e}_{w.name}" for e, _ in demo_scenario().epochs
-                                                   for w in demo_scenario().windows]
+    sc = demo_scenario()
+    assert [c["id"] for c in shipped["cubes"]] == [
+        cid for e, _ in sc.epochs
+        for cid in [f"{e}_{w.name}" for w in sc.windows] + [f"{e}_{s.name}" for s in sc.infrared if e in s.epochs]]
 
 
 def test_generation_is_deterministic(tmp_path):

@@ -6,7 +6,9 @@ continuum fit and band integral (:mod:`pipeline.band_measure`) and the band
 flux per unit production rate (fluorescence efficiency at r_h times the Haser
 coma counted on the cube's own pixel grid, convolved with the point-spread
 function when BMAJ/BMIN give one), and the dust continuum as Afrho at the
-configured wavelengths with its colour (:mod:`pipeline.dust`).
+configured wavelengths with its colour (:mod:`pipeline.dust`). The continuum
+under a band is the solar spectrum times a polynomial (the reflectance) unless
+``infrared.continuum_shape`` is 'flat'.
 
 The integration windows are placed at the target's rest wavelengths mapped to
 the observed axis (one Doppler factor for the whole cube); the band flux is the
@@ -36,6 +38,7 @@ from ..errors import CoverageError, CubeError
 from ..ir_spectra import F_LAMBDA, IRSpectra, extract_ir_spectra
 from ..provenance import add_to_header, provenance_record
 from ..response import outflow_speed, scale_lengths
+from ..solar import solar_flux_density
 from .common import aperture_radii, catalogue_from_config, coma_model, location_from_config
 
 __all__ = ["run", "resolving_power_of", "doppler_factor", "scatter_sigma"]
@@ -98,6 +101,10 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
         return [dict(base, covered=False, reason=reason, aperture_km=r, aperture_index=j)
                 for j, r in enumerate(radii_km)], models
     capture = band_capture(lo, hi, wlo, whi, resolving_power)
+    shape = None
+    if ir.get("continuum_shape", "solar") == "solar":  # reflected sunlight: the polynomial is the reflectance
+        sun = solar_flux_density(obs).value
+        shape = sun / np.mean(sun)
     exclude = [(w[2], w[3]) for k, w in windows.items() if k != band.band_id]
     free = continuum_mask(obs, wlo, whi, float(ir.get("continuum_factor", 1.0)), exclude)
     species = catalogue.get_species(band.species)
@@ -116,7 +123,7 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
     for j, radius in enumerate(radii_km):
         try:
             m = measure_band(obs, spectra.flux[j], sigma[j], wlo, whi, free,
-                             order=int(ir.get("continuum_order", 1)), capture=capture)
+                             order=int(ir.get("continuum_order", 1)), capture=capture, continuum_shape=shape)
         except CoverageError as exc:
             msg = f"cube {geo['cube_id']}, band {band.band_id}, aperture {radius:g} km: {exc}"
             raise CoverageError(msg) from exc
