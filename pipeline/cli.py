@@ -34,7 +34,10 @@ __all__ = ["main", "covered_lines"]
 
 def covered_lines(path: str, ephemeris, catalogue, species: list[str], location, time_override=None,
                   margin_km_s: float = 5.0) -> list[str]:
-    """Line ids whose rest frequency, at the target's actual Doppler shift, falls inside the cube's band."""
+    """Line ids whose rest frequency, at the target's actual Doppler shift, falls inside the cube's band.
+
+    For an infrared cube: the ids of the bands whose whole extent falls inside its rest-frame wavelength range.
+    """
     info = read_cube_info(path)
     _, mid, _ = observation_times(info, time_override)
     geo = ephemeris.at(mid, what=str(path))
@@ -44,6 +47,10 @@ def covered_lines(path: str, ephemeris, catalogue, species: list[str], location,
         topo = to_topocentric(info.frequencies, info.specsys, mid, location, geo["ra"], geo["dec"])
         rest = to_target_frame(topo, geo["delta_dot"])
     out = []
+    if info.regime == "infrared":
+        lam = rest.to(u.um, equivalencies=u.spectral())
+        return [b.band_id for name in species for b in catalogue.bands_of(name)
+                if b.extent_lo > lam.min() and b.extent_hi < lam.max()]
     for name in species:
         for line in catalogue.lines_of(name):
             v = radio_velocity(rest, line.freq).to_value(u.km / u.s)
@@ -127,16 +134,17 @@ def cmd_check(args) -> int:
             _, mid, _ = observation_times(info, entry.time)
             lines = covered_lines(entry.path, ephem, catalogue, config["species"], location, entry.time) \
                 if ephem is not None else []
+            ir = info.regime == "infrared"
             for ln in lines:
-                covered[catalogue.get_line(ln).species] += 1
-            f = info.frequencies.to_value(u.GHz)
-            print(f"  {entry.cube_id:18s} epoch {entry.epoch:8s} {mid.isot[:19]}  {np.min(f):.3f}-{np.max(f):.3f} GHz "
-                  f"{info.specsys:8s} lines: {', '.join(lines) or 'none'}")
+                covered[(catalogue.get_band(ln) if ir else catalogue.get_line(ln)).species] += 1
+            f = info.wavelengths.to_value(u.um) if ir else info.frequencies.to_value(u.GHz)
+            print(f"  {entry.cube_id:18s} epoch {entry.epoch:8s} {mid.isot[:19]}  {np.min(f):.3f}-{np.max(f):.3f} "
+                  f"{'um ' if ir else 'GHz'} {info.specsys:8s} {'bands' if ir else 'lines'}: {', '.join(lines) or 'none'}")
         except GasledgerError as exc:
             problems.append(str(exc))
     for name, n in covered.items():
         if n == 0:
-            problems.append(f"species {name!r} has no line in any cube (it will be reported as not observed)")
+            problems.append(f"species {name!r} has no line or band in any cube (it will be reported as not observed)")
     if problems:
         print("problems:")
         for p in problems:

@@ -67,6 +67,15 @@ def band_files_of_species(wildcards):
     ]
 
 
+def ir_cubes_of_species(wildcards):
+    """Input function: the infrared cube files that cover a band of one species (the band injections read them)."""
+    return [
+        CUBES[cid].path
+        for cid in CUBES
+        if any(CATALOGUE.get_band(b).species == wildcards.species for b in BANDS[cid])
+    ]
+
+
 def bands_files():
     """Every infrared cube's bands file (also those covering no configured species: they hold the dust)."""
     return [f"{OUT}/bands/{cid}.fits" for cid in CUBES if IR_CUBES[cid]]

@@ -1,7 +1,8 @@
 rule dust:
     """Afrho of every infrared cube (afrho.ecsv); colour and dust production per epoch (dust.ecsv)."""
     input:
-        bands_files(),
+        bands=bands_files(),
+        geometry=geometry_files(),  # so that a campaign without infrared cubes still writes nothing before them
     output:
         afrho=f"{OUT}/afrho.ecsv",
         dust=report(f"{OUT}/dust.ecsv", caption="../report/dust.rst", category="Tables"),

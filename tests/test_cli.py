@@ -29,7 +29,8 @@ def test_new_finds_the_lines_each_cube_covers(cubes, tmp_path, capsys):
     assert "e1_hcn.fits: HCN_265886" in text and "e1_co.fits: CO_230538" in text
     assert "CH3OH_241767" in text and "CH3OH_241700" not in text       # outside the small window at its Doppler shift
     config = yaml.safe_load(out.read_text())
-    assert len(config["cubes"]) == 6 and config["species"] == ["HCN", "CO", "CH3OH"]
+    assert "e1_ir_long.fits: CO_v1-0" in text                               # an infrared cube lists its bands
+    assert len(config["cubes"]) == 8 and config["species"] == ["HCN", "CO", "CH3OH"]
     assert main(["check", str(out)]) == 0
     assert "no problems found" in capsys.readouterr().out
 
@@ -53,7 +54,7 @@ def test_check_reports_problems_with_exit_1(cubes, tmp_path, capsys):
                  "--pattern", "e1_*.fits", "-o", str(out)]) == 0
     capsys.readouterr()
     assert main(["check", str(out)]) == 1
-    assert "species 'H2CO' has no line in any cube" in capsys.readouterr().out
+    assert "species 'H2CO' has no line or band in any cube" in capsys.readouterr().out
 
 
 def test_bad_input_exit_2_and_help(tmp_path, capsys):

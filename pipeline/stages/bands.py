@@ -41,7 +41,7 @@ from ..response import outflow_speed, scale_lengths
 from ..solar import solar_flux_density
 from .common import aperture_radii, catalogue_from_config, coma_model, location_from_config
 
-__all__ = ["run", "resolving_power_of", "doppler_factor", "scatter_sigma"]
+__all__ = ["run", "resolving_power_of", "doppler_factor", "scatter_sigma", "band_windows", "band_setup"]
 
 log = logging.getLogger(__name__)
 _RESPONSE = u.W / u.m**2 * u.s
@@ -84,6 +84,28 @@ def _band_windows(bands: list[Band], factor: float, resolving_power: float, marg
     return out
 
 
+def band_windows(obs: u.Quantity, catalogue: Catalogue, band_ids: list[str], factor: float, resolving_power: float,
+                 config) -> dict:
+    """Windows of every catalogue band in the cube's range and of ``band_ids`` (observed frame, um)."""
+    margin = float(config.get("infrared", {}).get("margin_fwhm", 1.5))
+    in_range = [b for b in catalogue.bands if b.extent_hi * factor >= obs.min() and b.extent_lo * factor <= obs.max()]
+    wanted = [catalogue.get_band(b) for b in band_ids if b not in {x.band_id for x in in_range}]
+    return _band_windows(in_range + wanted, factor, resolving_power, margin)
+
+
+def band_setup(band_id: str, windows: dict, obs: u.Quantity, config) -> tuple[np.ndarray, np.ndarray | None]:
+    """The continuum mask of one band (other bands' windows excluded) and the continuum shape (None = flat)."""
+    ir = config.get("infrared", {})
+    wlo, whi = windows[band_id][2:]
+    exclude = [(w[2], w[3]) for k, w in windows.items() if k != band_id]
+    free = continuum_mask(obs, wlo, whi, float(ir.get("continuum_factor", 1.0)), exclude)
+    shape = None
+    if ir.get("continuum_shape", "solar") == "solar":  # reflected sunlight: the polynomial is the reflectance
+        sun = solar_flux_density(obs).value
+        shape = sun / np.mean(sun)
+    return free, shape
+
+
 def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Band, windows, catalogue: Catalogue,
                config, geo, info: CubeInfo, radii_km: list[float], x: float, y: float, resolving_power: float,
                free_all: np.ndarray) -> tuple[list[dict], np.ndarray]:
@@ -101,12 +123,7 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
         return [dict(base, covered=False, reason=reason, aperture_km=r, aperture_index=j)
                 for j, r in enumerate(radii_km)], models
     capture = band_capture(lo, hi, wlo, whi, resolving_power)
-    shape = None
-    if ir.get("continuum_shape", "solar") == "solar":  # reflected sunlight: the polynomial is the reflectance
-        sun = solar_flux_density(obs).value
-        shape = sun / np.mean(sun)
-    exclude = [(w[2], w[3]) for k, w in windows.items() if k != band.band_id]
-    free = continuum_mask(obs, wlo, whi, float(ir.get("continuum_factor", 1.0)), exclude)
+    free, shape = band_setup(band.band_id, windows, obs, config)
     species = catalogue.get_species(band.species)
     parent = catalogue.get_species(species.parent) if species.parent else None
     model = coma_model(config)
@@ -215,8 +232,7 @@ def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[st
              info.shape[0], obs.min().to_value(u.um), obs.max().to_value(u.um), rpow, rsource, len(radii))
     spectra = extract_ir_spectra(info, x, y, radii_pix)
     # every catalogue band in range is kept out of the continuum, configured species or not
-    all_bands = [b for b in catalogue.bands if b.extent_hi * factor >= obs.min() and b.extent_lo * factor <= obs.max()]
-    windows = _band_windows(all_bands, factor, rpow, float(config.get("infrared", {}).get("margin_fwhm", 1.5)))
+    windows = band_windows(obs, catalogue, band_ids, factor, rpow, config)
     free_all = np.ones(obs.shape, dtype=bool)
     for w in windows.values():
         free_all &= ~((obs >= w[2]) & (obs <= w[3]))
@@ -230,8 +246,6 @@ def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[st
     band_rows, continua = [], []
     for band_id in band_ids:
         band = catalogue.get_band(band_id)
-        if band_id not in windows:
-            windows.update(_band_windows([band], factor, rpow, float(config.get("infrared", {}).get("margin_fwhm", 1.5))))
         rows, models = _band_rows(spectra, sigma, obs, band, windows, catalogue, config, geo, info, radii_km, x, y,
                                   rpow, free_all)
         band_rows.extend(rows)

@@ -8,11 +8,17 @@ from typing import Any
 import astropy.units as u
 import numpy as np
 from astropy.io import fits
-from astropy.table import QTable
+from astropy.table import QTable, Table
 
 from ..atomic import write_table
+from ..band_injection import inject_band, ring_positions
+from ..config import cube_entries
+from ..cube_io import read_cube_info
 from ..injection import inject_spectra, placements
+from ..stacking import StackInput
+from .bands import band_setup, band_windows
 from ..provenance import provenance_record
+from ..ir_spectra import F_LAMBDA
 from .common import catalogue_from_config, coma_model, temperatures
 from .extract import extraction_settings
 from .stack import stack_input
@@ -42,9 +48,48 @@ def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list
     return levels, t_kin
 
 
+def band_groups(bands_paths: list[str], species: str, q: float, config: dict[str, Any], catalogue, model,
+                n_t: int) -> dict[tuple[int, int], list[StackInput]]:
+    """Band injections of rate ``q`` in every infrared cube of ``species``, grouped by placement (velocity slot 0)."""
+    sp = catalogue.get_species(species)
+    paths = {c.cube_id: c.path for c in cube_entries(config)}
+    groups: dict[tuple[int, int], list[StackInput]] = {}
+    for path in bands_paths:
+        with fits.open(path) as hdul:
+            h = hdul[0].header
+            bands = Table.read(hdul["BANDS"])
+            aps = Table.read(hdul["APERTURES"])
+            sigma = np.asarray(hdul["SIGMA"].data, dtype=float)
+        if "species" not in bands.colnames:
+            continue
+        info = read_cube_info(paths[h["GLCUBE"]])
+        obs = info.wavelengths
+        radii_pix = list(np.asarray(aps["radius_pix"], dtype=float))
+        radii_km = np.asarray(aps["radius_km"], dtype=float)
+        ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
+        windows = band_windows(obs, catalogue, ids, float(h["GLDOPP"]), float(h["GLRPOW"]), config)
+        where = ring_positions(info.shape[1:], float(h["GLAPX"]), float(h["GLAPY"]), max(radii_pix))
+        for band_id in ids:
+            free, shape = band_setup(band_id, windows, obs, config)
+            results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,
+                                  float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au, float(h["GLDOPP"]),
+                                  float(h["GLRPOW"]), windows[band_id][2:], free, sigma * F_LAMBDA, model,
+                                  int(config.get("infrared", {}).get("continuum_order", 1)), shape)
+            for res in results:
+                groups.setdefault((res.index, 0), []).append(StackInput(
+                    epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=band_id, velocity=None, density=None,
+                    q=np.tile(res.q_recovered, (n_t, 1)), sigma_q=np.tile(res.q_err, (n_t, 1)), radius_km=radii_km))
+    return groups
+
+
 def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: str, config: dict[str, Any],
-        out_path: str) -> None:
-    """Inject, extract, measure and combine; write the per-placement results."""
+        out_path: str, bands_paths: list[str] | None = None) -> None:
+    """Inject, extract, measure and combine; write the per-placement results.
+
+    Millimetre lines are injected into their sub-cubes (``subcube_paths``) at velocities away from the real
+    lines; infrared bands into their cubes (via ``bands_paths``) at sky positions, differenced
+    (:mod:`pipeline.band_injection`). Members of one placement index are combined like the real stack.
+    """
     catalogue = catalogue_from_config(config)
     sp = catalogue.get_species(species)
     limits = QTable.read(limits_path, format="ascii.ecsv")
@@ -71,6 +116,9 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
                 inp, _ = stack_input(hdul, catalogue, config)
                 vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
                 groups.setdefault((where[k].index, vrank), []).append(inp)
+        for key, members in band_groups(list(bands_paths or []), species, q, config, catalogue, model,
+                                        t_all.size).items():
+            groups.setdefault(key, []).extend(members)
         for (index, vrank), members in sorted(groups.items()):
             w = np.array([1 / m.sigma_q[it] ** 2 for m in members])             # (n, n_ap)
             qs = np.array([m.q[it] for m in members])
@@ -94,5 +142,8 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     if "aperture_km" in table.colnames:
         table["aperture_km"] = table["aperture_km"] * u.km
     table.meta["species"] = species
-    table.meta["provenance"] = provenance_record(config, [*subcube_paths, limits_path, budget_path], "injection")
+    table.meta["provenance"] = provenance_record(config, [*subcube_paths, *(bands_paths or []), limits_path,
+                                                          budget_path], "injection")
+    table.meta["bands"] = ("infrared bands: injected at the nucleus and on a ring of sky positions; recovered = "
+                           "measurement with minus without the injection (the estimator is linear)")
     write_table(table, out_path)

@@ -4,4 +4,4 @@ from pipeline.stages.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):
-    dust.run(list(snakemake.input), snakemake.config, snakemake.output.afrho, snakemake.output.dust)  # noqa: F821
+    dust.run(list(snakemake.input.bands), snakemake.config, snakemake.output.afrho, snakemake.output.dust)  # noqa: F821
