@@ -51,7 +51,7 @@ def plot_band_spectra(panels: list[BandPanel]):
                     fontsize=7)
         ax.set_ylabel(f"F$_\\lambda$ [10$^{{{int(np.log10(scale))}}}$ W m$^{{-2}}$ µm$^{{-1}}$]", fontsize=8)
         ax.set_title(p.title, fontsize=8)
-        ax.legend(fontsize=7, loc="lower right", frameon=False)
+        ax.legend(fontsize=6, loc="best", framealpha=0.8)
     axes[-1, 0].set_xlabel("wavelength in the target's rest frame [µm]")
     fig.tight_layout()
     return fig

@@ -144,7 +144,9 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
         except CoverageError as exc:
             msg = f"cube {geo['cube_id']}, band {band.band_id}, aperture {radius:g} km: {exc}"
             raise CoverageError(msg) from exc
-        models[j] = np.asarray(u.Quantity(m.continuum_model).to_value(F_LAMBDA))
+        span = obs[free | ((obs >= wlo) & (obs <= whi))]
+        inside = (obs >= span.min()) & (obs <= span.max())          # the model only where it was fitted and used
+        models[j] = np.where(inside, np.asarray(u.Quantity(m.continuum_model).to_value(F_LAMBDA)), np.nan)
         response = (per_molecule * count[j]).to_value(u.W / u.m**2)        # band flux per unit Q (s)
         flux = m.flux.to_value(u.W / u.m**2)
         rows.append(dict(base, covered=True, reason="", aperture_km=radius, aperture_index=j,
