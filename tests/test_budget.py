@@ -123,3 +123,15 @@ def test_dust_push_reduces_the_gas_needed():
     big = budget_table(_limits([("CO", "all", 1e28)]), {"all": 1.0 * u.au}, _assume(), CAT,
                        dust_force={"all": 1.0e9 * u.N})
     assert np.all(big["mdot_required_min"].to_value(u.kg / u.s) == 0.0)
+
+
+def test_dust_forces_read_from_the_dust_table(tmp_path):
+    # dust_forces takes each epoch's largest aperture's momentum rate, and nothing unless include_dust is set
+    from pipeline.stages.budget import dust_forces
+    table = QTable({"epoch": ["e1", "e1", "all", "all"], "aperture_km": [1000.0, 3000.0, 1000.0, 3000.0] * u.km,
+                    "momentum_rate": [1.0, 3.0, 2.0, np.nan] * u.N})
+    path = tmp_path / "dust.ecsv"
+    table.write(path, format="ascii.ecsv")
+    assert dust_forces(str(path), include=False) == {}
+    forces = dust_forces(str(path), include=True)
+    assert forces["e1"].to_value(u.N) == 3.0 and "all" not in forces      # a NaN rate is no push at all
