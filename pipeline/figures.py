@@ -31,10 +31,23 @@ class BandPanel:
         self.continua, self.windows = continua, windows
 
 
-def plot_band_spectra(panels: list[BandPanel]):
-    """One panel per infrared cube: F_lambda in the smallest aperture, continuum fits, band windows shaded."""
-    n = max(1, len(panels))
+def plot_band_spectra(panels: list[BandPanel], afrho: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] | None = None,
+                      afrho_label: str = ""):
+    """One panel per infrared cube: F_lambda in the smallest aperture, continuum fits, band windows shaded.
+
+    ``afrho`` (epoch -> wavelengths [um], Afrho and its error [cm]) adds a last panel: the dust's Afrho against
+    wavelength, whose slope is the dust colour.
+    """
+    n = max(1, len(panels)) + (1 if afrho else 0)
     fig, axes = plt.subplots(n, 1, figsize=(7.5, 2.4 * n), squeeze=False)
+    if afrho:
+        ax = axes[-1, 0]
+        for epoch, (lam, val, err) in sorted(afrho.items()):
+            ax.errorbar(lam, val, yerr=err, fmt="o-", ms=4, lw=1, capsize=2, label=f"epoch {epoch}")
+        ax.set_ylabel("Afρ [cm]", fontsize=8)
+        ax.set_title(f"dust continuum: Afρ against wavelength {afrho_label}".strip(), fontsize=8)
+        ax.legend(fontsize=7, loc="best", framealpha=0.8)
+        ax.set_xlabel("wavelength [µm]")
     if not panels:
         axes[0, 0].text(0.5, 0.5, "no infrared cube in this campaign", ha="center", va="center")
         axes[0, 0].set_axis_off()
@@ -52,7 +65,7 @@ def plot_band_spectra(panels: list[BandPanel]):
         ax.set_ylabel(f"F$_\\lambda$ [10$^{{{int(np.log10(scale))}}}$ W m$^{{-2}}$ µm$^{{-1}}$]", fontsize=8)
         ax.set_title(p.title, fontsize=8)
         ax.legend(fontsize=6, loc="best", framealpha=0.8)
-    axes[-1, 0].set_xlabel("wavelength in the target's rest frame [µm]")
+    axes[len(panels) - 1 if panels else 0, 0].set_xlabel("wavelength in the target's rest frame [µm]")
     fig.tight_layout()
     return fig
 

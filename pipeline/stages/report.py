@@ -100,6 +100,25 @@ def _band_panels(bands_paths: list[str]) -> list[BandPanel]:
     return panels
 
 
+def _afrho_points(bands_paths: list[str]) -> tuple[dict, str]:
+    """Afrho against wavelength per epoch at the largest aperture, from the bands files' DUST tables."""
+    rows = []
+    for path in bands_paths:
+        with fits.open(path) as hdul:
+            t = Table.read(hdul["DUST"])
+        if "afrho" in t.colnames:
+            rows.extend(list(t))
+    if not rows:
+        return {}, ""
+    largest = max(float(r["aperture_km"]) for r in rows)
+    out: dict[str, list] = {}
+    for r in rows:
+        if float(r["aperture_km"]) == largest:
+            out.setdefault(str(r["epoch"]), []).append((float(r["wavelength"]), float(r["afrho"]), float(r["afrho_err"])))
+    points = {e: tuple(np.array(v).T) for e, v in ((e, sorted(v)) for e, v in out.items())}
+    return points, f"({largest:.0f} km aperture)"
+
+
 def _infrared_section(bands_paths: list[str], dust_path: str, fig: bytes) -> str:
     if not bands_paths:
         return "<p>No infrared cube in this campaign.</p>"
@@ -268,7 +287,7 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
     fig_spec = to_png(plot_stacked_spectra(_spectrum_panels(list(inputs.stacks), limits, config)))
     fig_budget = to_png(_budget_figure(budget, config, catalogue))
     fig_sweep = to_png(plot_temperature_sweep(_sweep_curves(limits)))
-    fig_ir = to_png(plot_band_spectra(_band_panels(list(inputs.bands))))
+    fig_ir = to_png(plot_band_spectra(_band_panels(list(inputs.bands)), *_afrho_points(list(inputs.bands))))
     _write_png(fig_ir, outputs.infrared)
     _write_png(fig_spec, outputs.spectra)
     _write_png(fig_budget, outputs.budget)
