@@ -82,13 +82,15 @@ def demo_scenario() -> Scenario:
         planned=({"label": "p4", "time": "2031-03-20T04:30:00", "lines": ["HCN_265886", "CO_230538"],
                   "noise_jy_beam": 0.004, "channel_khz": 244.140625, "beam_arcsec": [1.2, 0.9, 65.0],
                   "pixel_arcsec": 0.3, "npix": 64},),
-        # two grating settings of a fictional space-borne integral-field spectrograph, at epochs e1 and e3
+        # two grating settings of a fictional integral-field spectrograph at the same fictional site, at epochs e1
+        # and e3 (an invented convenience: real 4.3 um CO2 bands need a telescope above the atmosphere, and
+        # gasledger has one observatory per campaign)
         infrared=(
             InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0024, 550.0, 0.3, 64, 0.25, 4.0e-7, "MJy/sr"),
             InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0040, 600.0, 0.3, 64, 0.35, 3.0e-7, "W/m2/um/sr"),
         ),
         extra={"dust": {"afrho_cm": 40.0, "lam_ref_um": 2.5, "slope": 2.0},
-               "ir_facility": "Tenkara Orbital Infrared Observatory (fictional)",
+               "ir_facility": "Cerro Lumbre Infrared Telescope (fictional)",
                "ir_pointing_offset_arcsec": (0.4, -0.3)},
     )
 
