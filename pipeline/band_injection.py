@@ -27,6 +27,7 @@ from .catalogue import Band, Species
 from .coma_image import aperture_count_on_grid
 from .conversion import band_flux_from_molecules
 from .cube_io import CubeInfo
+from .errors import CoverageError
 from .ir_spectra import F_LAMBDA, extract_ir_spectra
 from .response import ComaModel, outflow_speed, scale_lengths
 
@@ -45,16 +46,22 @@ class BandInjection:
 
 
 def ring_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float, n: int = 4) -> list[tuple[float, float]]:
-    """The nucleus and up to ``n`` ring positions at 2.5 aperture radii whose apertures fit in the field."""
+    """The nucleus and up to ``n`` positions around it whose apertures of ``radius_pix`` fit in the field.
+
+    Each lies along a diagonal, as far out as 2.5 aperture radii allows inside the field (at least a quarter
+    radius out); the injections are differenced, so overlapping the real coma or each other does no harm.
+    """
     out = [(x, y)]
     for k in range(n):
         ang = 2 * np.pi * k / n + np.pi / 4
-        px, py = x + 2.5 * radius_pix * np.cos(ang), y + 2.5 * radius_pix * np.sin(ang)
-        try:
-            aperture_weights(shape, px, py, radius_pix)
-        except Exception:  # noqa: BLE001 - the aperture does not fit there: skip the position
-            continue
-        out.append((float(px), float(py)))
+        for factor in np.linspace(2.5, 0.25, 10):
+            px, py = x + factor * radius_pix * np.cos(ang), y + factor * radius_pix * np.sin(ang)
+            try:
+                aperture_weights(shape, px, py, radius_pix)
+            except CoverageError:
+                continue
+            out.append((float(px), float(py)))
+            break
     return out
 
 
