@@ -23,6 +23,7 @@ import astropy.units as u
 import numpy as np
 
 from . import haser
+from .checks import checked_array as _checked
 from .catalogue import Line, Species
 from .errors import CatalogueError, ConfigError, EphemerisError
 from .excitation import T_CMB, flux_per_molecule
@@ -52,36 +53,6 @@ _RATE = u.Unit("1 / s")
 _GAUSS_AREA = math.pi / (4.0 * math.log(2.0))  # solid angle of a Gaussian beam / FWHM^2
 _RJ_JY = 2.0 * const.k_B.si.value / const.c.si.value**2 * 1e26  # 2 k / c^2, in Jy s^2 / (K sr)
 _HC = const.h.si.value * const.c.si.value  # J m
-
-
-# ----------------------------------------------------------------------------- input checks
-def _checked(x, unit, name: str, *, sign: str = "positive", allow_inf: bool = False,
-             error: type[Exception] = ConfigError) -> np.ndarray:
-    """``x`` in ``unit`` as a float array; ``sign`` is 'positive', 'non-negative' or 'any'."""
-    if not isinstance(x, u.Quantity):
-        if unit != u.dimensionless_unscaled:
-            msg = f"'{name}' must be a Quantity in units of {unit}, found {x!r}"
-            raise error(msg)
-        x = u.Quantity(x, u.dimensionless_unscaled)
-    try:
-        out = np.asarray(x.to_value(unit), dtype=float)
-    except u.UnitsError as exc:
-        msg = f"'{name}' must have units convertible to {unit}, found {x.unit}"
-        raise error(msg) from exc
-    bad = np.isnan(out)
-    if sign == "positive":
-        bad |= out <= 0
-    elif sign == "non-negative":
-        bad |= out < 0
-    if not allow_inf:
-        bad |= np.isinf(out)
-    if np.any(bad):
-        want = {"positive": "> 0", "non-negative": ">= 0", "any": "a number"}[sign]
-        want += "" if allow_inf else " and finite"
-        found = float(out[bad].ravel()[0])
-        msg = f"'{name}' must be {want}, found {found!r} {unit}".rstrip()
-        raise error(msg)
-    return out
 
 
 def _flux_per_molecule(line: Line, species: Species, t_kin, delta, t_bg) -> np.ndarray:

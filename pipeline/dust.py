@@ -25,7 +25,8 @@ import astropy.units as u
 import numpy as np
 
 from .errors import ConfigError, EphemerisError
-from .solar import _checked, solar_flux_density
+from .checks import checked_array as _checked
+from .solar import solar_flux_density
 
 __all__ = ["afrho", "reflectance", "spectral_slope", "slope_percent_per_100nm", "dust_production_rate",
            "dust_momentum_rate"]

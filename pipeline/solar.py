@@ -24,7 +24,8 @@ import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError, EphemerisError
+from .checks import checked_array as _checked
+from .errors import EphemerisError
 
 __all__ = ["SOLAR_MODEL", "solar_flux_density", "solar_constant", "solar_effective_temperature"]
 
@@ -41,31 +42,6 @@ _LOG_C1 = math.log(math.pi * 2.0 * const.h.si.value * const.c.si.value**2 / 1e-3
 SOLAR_MODEL = (f"blackbody Sun, T_eff = {_T_EFF:.1f} K from IAU 2015 Resolution B3 nominal L_sun and R_sun "
                f"(astropy.constants), F_lambda = pi B_lambda(T_eff) (R_sun / r_h)^2, integral at 1 au = "
                f"{_L_SUN / (4.0 * math.pi * _AU**2):.1f} W m^-2; not a measured solar spectrum")
-
-
-def _checked(x, unit, name: str, *, sign: str = "positive", error: type[Exception] = ConfigError) -> np.ndarray:
-    """``x`` in ``unit`` as a finite float array; ``sign`` is 'positive', 'non-negative' or 'any'."""
-    if not isinstance(x, u.Quantity):
-        if unit != u.dimensionless_unscaled:
-            msg = f"'{name}' must be a Quantity in units of {unit}, found {x!r}"
-            raise error(msg)
-        x = u.Quantity(x, u.dimensionless_unscaled)
-    try:
-        out = np.asarray(x.to_value(unit), dtype=float)
-    except u.UnitsError as exc:
-        msg = f"'{name}' must have units convertible to {unit}, found {x.unit}"
-        raise error(msg) from exc
-    bad = ~np.isfinite(out)
-    if sign == "positive":
-        bad |= out <= 0
-    elif sign == "non-negative":
-        bad |= out < 0
-    if np.any(bad):
-        want = {"positive": "> 0", "non-negative": ">= 0", "any": "a number"}[sign]
-        found = float(out[bad].ravel()[0])
-        msg = f"'{name}' must be {want} and finite, found {found!r} {unit}".rstrip()
-        raise error(msg)
-    return out
 
 
 def solar_effective_temperature() -> u.Quantity:
