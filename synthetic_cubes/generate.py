@@ -39,6 +39,7 @@ from pipeline.orbit import OrbitalElements, ephemeris_from_elements, observe, wr
 from pipeline.spectral_frame import observer_frame_factor, radio_velocity, to_target_frame
 
 from .infrared import write_ir_cube
+from .sky import sky_header
 from .scenario import Scenario
 
 __all__ = ["write_scenario", "hanning"]
@@ -75,13 +76,7 @@ def _write_cube(path: Path, sc: Scenario, window, epoch: str, mid: Time, geo, ca
     pix = sc.pixel_arcsec * u.arcsec
     pix_km = (pix.to_value(u.rad) * delta).to_value(u.km)
     # target position: phase centre is offset from the target
-    off_ra, off_dec = sc.pointing_offset_arcsec
-    centre = SkyCoord(ra, dec, frame="icrs").spherical_offsets_by(off_ra * u.arcsec, off_dec * u.arcsec)
-    header = fits.Header()
-    header["CTYPE1"], header["CUNIT1"] = "RA---SIN", "deg"
-    header["CRVAL1"], header["CDELT1"], header["CRPIX1"] = centre.ra.deg, -pix.to_value(u.deg), n / 2 + 0.5
-    header["CTYPE2"], header["CUNIT2"] = "DEC--SIN", "deg"
-    header["CRVAL2"], header["CDELT2"], header["CRPIX2"] = centre.dec.deg, pix.to_value(u.deg), n / 2 + 0.5
+    header = sky_header(ra, dec, sc.pointing_offset_arcsec, pix, n, "SIN")
     specsys = sc.specsys[epoch]
     factor = 1.0 if specsys == "TOPOCENT" else observer_frame_factor(specsys, mid, location, ra, dec)
     f_label = f_topo * factor

@@ -35,6 +35,8 @@ from pipeline.ir_spectra import F_LAMBDA
 from pipeline.response import ComaModel, outflow_speed, scale_lengths
 from pipeline.solar import solar_flux_density
 
+from .sky import sky_header
+
 __all__ = ["InfraredSetup", "write_ir_cube", "afrho_model"]
 
 
@@ -74,13 +76,7 @@ def write_ir_cube(path: Path, sc, setup: InfraredSetup, epoch: str, mid: Time, g
     pix = setup.pixel_arcsec * u.arcsec
     pix_km = (pix.to_value(u.rad) * delta).to_value(u.km)
     omega_pix = pix.to_value(u.rad) ** 2                         # sr
-    off_ra, off_dec = sc.extra.get("ir_pointing_offset_arcsec", (0.4, -0.3))
-    centre = SkyCoord(ra, dec, frame="icrs").spherical_offsets_by(off_ra * u.arcsec, off_dec * u.arcsec)
-    header = fits.Header()
-    header["CTYPE1"], header["CUNIT1"] = "RA---TAN", "deg"
-    header["CRVAL1"], header["CDELT1"], header["CRPIX1"] = centre.ra.deg, -pix.to_value(u.deg), n / 2 + 0.5
-    header["CTYPE2"], header["CUNIT2"] = "DEC--TAN", "deg"
-    header["CRVAL2"], header["CDELT2"], header["CRPIX2"] = centre.dec.deg, pix.to_value(u.deg), n / 2 + 0.5
+    header = sky_header(ra, dec, sc.extra.get("ir_pointing_offset_arcsec", (0.4, -0.3)), pix, n, "TAN")
     header["CTYPE3"], header["CUNIT3"] = "WAVE", "um"
     header["CRVAL3"], header["CDELT3"], header["CRPIX3"] = lam_obs[0].to_value(u.um), setup.channel_um, 1.0
     header["SPECSYS"] = "TOPOCENT"
