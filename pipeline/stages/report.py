@@ -148,7 +148,7 @@ def _infrared_section(bands_paths: list[str], dust_path: str, fig: bytes) -> str
             "the cube's pixel grid with its PSF.</p>")
     dust = QTable.read(dust_path, format="ascii.ecsv")
     if len(dust) and "afrho" in dust.colnames:
-        out += table_html(["epoch", "aperture [km]", "λ_ref [µm]", "Afρ [cm]", "slope [%/100 nm]",
+        out += table_html(["epoch", "aperture [km]", "λ_ref [µm]", "Afρ [cm]", "slope [%/100 nm] (at mean λ)",
                            "dust production [kg/s]", "momentum rate [N]"],
                           [[str(r["epoch"]), float(r["aperture_km"].value), float(r["wavelength_ref"].value),
                             f"{r['afrho'].value:.3g} ± {r['afrho_err'].value:.2g}",
@@ -324,20 +324,24 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
                   "temperature. Shaded: integration window. Red: model at the measured Q (detection); orange: model at "
                   "the upper limit.", "stacked spectra")))
     cons = limits[limits["conservative"]]
+    band_ids = {b.band_id for b in catalogue.bands}
     sections.append(("Production rates and upper limits (conservative temperature)", table_html(
         ["species", "epoch", "aperture [km]", "T_kin [K]", "Q [1/s]", "σ_Q [1/s]", "SNR", "detected",
-         "Q upper [1/s]", "profile-fit Q [1/s]", "line centre [km/s]", "lines [MHz]"],
-        [[str(r["species"]), str(r["epoch"]), float(r["aperture_km"].value), float(r["t_kin_K"]),
+         "Q upper [1/s]", "profile-fit Q [1/s]", "line centre [km/s]", "lines [MHz] / IR bands"],
+        [[str(r["species"]), str(r["epoch"]), float(r["aperture_km"].value),
+          "–" if all(x in band_ids for x in str(r["lines"]).split(",")) else float(r["t_kin_K"]),
           float(r["q"].value), float(r["q_err"].value), float(r["snr"]), "yes" if r["detected"] else "no",
           float(r["q_upper"].value),
           "–" if not np.isfinite(r["q_fit"].value) else f"{r['q_fit'].value:.3g} ± {r['q_fit_err'].value:.2g}",
           "–" if not np.isfinite(r["v_offset"].value)
           else f"{r['v_offset'].value:+.3f} ± {r['v_offset_err'].value:.3f}",
-          ", ".join(x.split("_", 1)[-1] for x in str(r["lines"]).split(","))] for r in cons], left=2)
+          ", ".join(f"{x.split('_', 1)[-1]} band" if x in band_ids else x.split("_", 1)[-1]
+                    for x in str(r["lines"]).split(","))] for r in cons], left=2)
         + "<p>Q upper: Bayesian limit with a flat prior on Q ≥ 0 at the one-sided confidence of "
           f"{config['limits']['nsigma']}σ; limits.ecsv also holds the classical Q + nσ and the Feldman–Cousins "
           "limits, every temperature and every aperture. For detections, a fit of the outflow line profile gives Q "
-          "again and the line centre; a centre far from 0 km/s points at an error in the ephemeris' range rate."
+          "again and the line centre; a centre far from 0 km/s points at an error in the ephemeris' range rate. "
+          "Infrared band rates do not depend on T_kin (shown as –)."
           "</p>"))
     sections.append(("Infrared bands and dust", _infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
     sections.append(("Injection–recovery", _injection_section(list(inputs.injection))))
