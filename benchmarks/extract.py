@@ -2,7 +2,7 @@
 
 Makes a float32 cube (default 2000 x 512 x 512, 2 GB) in a temporary folder and prints, in one run, medians of:
 the bounding-box slab copy out of the memory map (the floor), a whole-cube read pass, the per-channel photutils
-aperture_photometry loop, and gasledger's extraction (pipeline.apertures.aperture_spectra), with a warm page cache
+aperture_photometry loop, and gasledger's extraction (pipeline.spectra.apertures.aperture_spectra), with a warm page cache
 and with the file evicted (posix_fadvise DONTNEED) before each run; as seconds, ratios against the baselines of
 the same run, and the anonymous resident memory (RssAnon, which excludes mapped file pages).
 
@@ -22,7 +22,7 @@ import numpy as np
 from astropy.io import fits
 from photutils.aperture import CircularAperture, aperture_photometry
 
-from pipeline.apertures import aperture_spectra, aperture_weights
+from pipeline.spectra.apertures import aperture_spectra, aperture_weights
 
 
 def rss_anon_mb() -> float:

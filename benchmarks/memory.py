@@ -2,7 +2,7 @@
 
 Writes a float32 cube (default 2048 x 1024 x 1024 channels x pixels, 8.6 GB) with a topocentric FREQ axis
 around HCN J=3-2 and an ephemeris in a temporary folder, then runs the three per-cube stages in this process
-exactly as the workflow does (pipeline.stages.*.run), and prints, in one run: the time of a raw sequential read of
+exactly as the workflow does (pipeline.workflow.*.run), and prints, in one run: the time of a raw sequential read of
 the file (the baseline), the time of each stage, the ratio of the stages' total to the raw pass, and the peak
 resident memory (ru_maxrss, which includes mapped file pages) and the anonymous memory (RssAnon).
 
@@ -25,10 +25,10 @@ from astropy.io import fits
 from astropy.table import QTable
 from astropy.time import Time
 
-from pipeline.config import validate_config
+from pipeline.settings import validate_config
 from pipeline.offline import future_time_tolerated
-from pipeline.orbit import write_ephemeris
-from pipeline.stages import comoving, extract, geometry
+from pipeline.geometry.orbit import write_ephemeris
+from pipeline.workflow import comoving, extract, geometry
 
 
 def rss_anon_mb() -> float:

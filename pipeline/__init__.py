@@ -7,7 +7,7 @@ Importing the package configures astropy for offline use (see
 
 from importlib.metadata import PackageNotFoundError, version as _version
 
-from . import offline as _offline
+from pipeline import offline as _offline
 
 try:
     __version__ = _version("gasledger")

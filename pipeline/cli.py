@@ -19,15 +19,15 @@ import astropy.units as u
 import numpy as np
 import yaml
 
-from .atomic import write_text
-from .catalogue import load_catalogue
-from .config import check_inputs_exist, cube_entries, load_config, validate_config
-from .cube_io import observation_times, read_cube_info
-from .ephemeris import read_ephemeris
-from .errors import GasledgerError
-from .offline import future_time_tolerated
-from .spectral_frame import radio_velocity, to_target_frame, to_topocentric
-from .stages.common import catalogue_from_config, location_from_config
+from pipeline.io.atomic import write_text
+from pipeline.catalogue.entries import load_catalogue
+from pipeline.settings import check_inputs_exist, cube_entries, load_config, validate_config
+from pipeline.io.cubes import observation_times, read_cube_info
+from pipeline.geometry.ephemeris import read_ephemeris
+from pipeline.errors import GasledgerError
+from pipeline.offline import future_time_tolerated
+from pipeline.geometry.frames import radio_velocity, to_target_frame, to_topocentric
+from pipeline.workflow.common import catalogue_from_config, location_from_config
 
 __all__ = ["main", "covered_lines"]
 

@@ -2,11 +2,11 @@
 import json
 import sys
 
-from pipeline.cube_io import read_cube_info
-from pipeline.config import check_inputs_exist, cube_entries, validate_config
+from pipeline.io.cubes import read_cube_info
+from pipeline.settings import check_inputs_exist, cube_entries, validate_config
 from pipeline.errors import GasledgerError
-from pipeline.stages.common import catalogue_from_config
-from pipeline.stages.plan import bands_for_cube, lines_for_cube
+from pipeline.workflow.common import catalogue_from_config
+from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 
 try:
     validate_config(config, source="config")

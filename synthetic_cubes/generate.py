@@ -30,13 +30,13 @@ from astropy.time import Time
 from astropy.wcs import WCS, FITSFixedWarning
 from scipy.signal import fftconvolve
 
-from pipeline.atomic import write_fits, write_text
-from pipeline.catalogue import load_catalogue
-from pipeline.coma_image import apply_spectral_response, beam_kernel, model_line_cube
-from pipeline.response import SPECTRAL_RESPONSES, ComaModel
+from pipeline.io.atomic import write_fits, write_text
+from pipeline.catalogue.entries import load_catalogue
+from pipeline.coma.image import apply_spectral_response, beam_kernel, model_line_cube
+from pipeline.coma.response import SPECTRAL_RESPONSES, ComaModel
 from pipeline.offline import future_time_tolerated
-from pipeline.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
-from pipeline.spectral_frame import observer_frame_factor, radio_velocity, to_target_frame
+from pipeline.geometry.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
+from pipeline.geometry.frames import observer_frame_factor, radio_velocity, to_target_frame
 
 from .infrared import write_ir_cube
 from .sky import sky_header

@@ -27,13 +27,13 @@ from astropy.time import Time
 from astropy.wcs import WCS, FITSFixedWarning
 from scipy.signal import fftconvolve
 
-from pipeline.atomic import write_fits
-from pipeline.band_measure import binned_band_template
-from pipeline.coma_image import beam_kernel, coma_molecules_image, pixel_column_integral
-from pipeline.conversion import band_flux_from_molecules
-from pipeline.ir_spectra import F_LAMBDA
-from pipeline.response import ComaModel, outflow_speed, scale_lengths
-from pipeline.solar import solar_flux_density
+from pipeline.io.atomic import write_fits
+from pipeline.spectra.band_measure import binned_band_template
+from pipeline.coma.image import beam_kernel, coma_molecules_image, pixel_column_integral
+from pipeline.coma.conversion import band_flux_from_molecules
+from pipeline.spectra.ir_spectra import F_LAMBDA
+from pipeline.coma.response import ComaModel, outflow_speed, scale_lengths
+from pipeline.dust.solar import solar_flux_density
 
 from .sky import sky_header
 

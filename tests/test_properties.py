@@ -24,11 +24,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from pipeline.catalogue import load_catalogue
-from pipeline.cube_io import read_cube_info
-from pipeline.extraction import ExtractionSettings, extract_spectra
-from pipeline.limits import limit_rows
-from pipeline.stages.stack import stack_input
+from pipeline.catalogue.entries import load_catalogue
+from pipeline.io.cubes import read_cube_info
+from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
+from pipeline.rates.limits_table import limit_rows
+from pipeline.workflow.stack import stack_input
 
 FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 CAT = load_catalogue()

@@ -9,7 +9,7 @@ import yaml
 from scipy import integrate
 
 from synthetic_cubes import demo_scenario, small_scenario, write_scenario
-from pipeline.coma_image import beam_kernel, pixel_column_integral
+from pipeline.coma.image import beam_kernel, pixel_column_integral
 from synthetic_cubes.generate import _HANNING, hanning
 
 REPO = Path(__file__).resolve().parents[1]

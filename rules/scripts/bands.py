@@ -1,6 +1,6 @@
-"""Rule 'bands': thin wrapper around pipeline.stages.bands.run."""
-from pipeline.stages import bands
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'bands': thin wrapper around pipeline.workflow.bands.run."""
+from pipeline.workflow import bands
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

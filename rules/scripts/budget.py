@@ -1,6 +1,6 @@
-"""Rule 'budget': thin wrapper around pipeline.stages.budget.run."""
-from pipeline.stages import budget
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'budget': thin wrapper around pipeline.workflow.budget.run."""
+from pipeline.workflow import budget
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'comoving': thin wrapper around pipeline.stages.comoving.run."""
-from pipeline.stages import comoving
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'comoving': thin wrapper around pipeline.workflow.comoving.run."""
+from pipeline.workflow import comoving
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'dust': thin wrapper around pipeline.stages.dust.run."""
-from pipeline.stages import dust
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'dust': thin wrapper around pipeline.workflow.dust.run."""
+from pipeline.workflow import dust
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'extract': thin wrapper around pipeline.stages.extract.run."""
-from pipeline.stages import extract
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'extract': thin wrapper around pipeline.workflow.extract.run."""
+from pipeline.workflow import extract
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'forecast': thin wrapper around pipeline.stages.forecast.run."""
-from pipeline.stages import forecast
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'forecast': thin wrapper around pipeline.workflow.forecast.run."""
+from pipeline.workflow import forecast
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

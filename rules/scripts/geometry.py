@@ -1,6 +1,6 @@
-"""Rule 'geometry': thin wrapper around pipeline.stages.geometry.run."""
-from pipeline.stages import geometry
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'geometry': thin wrapper around pipeline.workflow.geometry.run."""
+from pipeline.workflow import geometry
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'injection': thin wrapper around pipeline.stages.injection.run."""
-from pipeline.stages import injection
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'injection': thin wrapper around pipeline.workflow.injection.run."""
+from pipeline.workflow import injection
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'limits_species': thin wrapper around pipeline.stages.limits.run_species."""
-from pipeline.stages import limits
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'limits_species': thin wrapper around pipeline.workflow.limits.run_species."""
+from pipeline.workflow import limits
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -1,6 +1,6 @@
-"""Rule 'stack': thin wrapper around pipeline.stages.stack.run."""
-from pipeline.stages import stack
-from pipeline.stages.common import setup_logging, stage_errors
+"""Rule 'stack': thin wrapper around pipeline.workflow.stack.run."""
+from pipeline.workflow import stack
+from pipeline.workflow.common import setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
 with stage_errors(log):

@@ -24,13 +24,13 @@ from astropy.io import fits
 from astropy.table import QTable
 from astropy.time import Time
 
-from pipeline.catalogue import load_catalogue
-from pipeline.config import check_inputs_exist, cube_entries, validate_config
+from pipeline.catalogue.entries import load_catalogue
+from pipeline.settings import check_inputs_exist, cube_entries, validate_config
 from pipeline.errors import GasledgerError
-from pipeline.orbit import write_ephemeris
-from pipeline.stages import comoving, extract, geometry, limits, stack
-from pipeline.stages.common import catalogue_from_config, stage_errors
-from pipeline.stages.plan import lines_for_cube
+from pipeline.geometry.orbit import write_ephemeris
+from pipeline.workflow import comoving, extract, geometry, limits, stack
+from pipeline.workflow.common import catalogue_from_config, stage_errors
+from pipeline.catalogue.coverage import lines_for_cube
 
 __all__ = ["TinyCampaign", "tiny_campaign", "cube_hdu", "write_hdu", "ephemeris_table", "outputs_below",
            "LINE_ID", "CUBE_ID", "N_CHAN", "Failed", "dag_checks", "run_workflow", "assert_one_sentence"]

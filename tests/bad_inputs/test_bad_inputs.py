@@ -30,11 +30,11 @@ from astropy.time import Time
 from bad_builders import (CUBE_ID, LINE_ID, N_CHAN, Failed, TinyCampaign, assert_one_sentence, cube_hdu, dag_checks,
                           ephemeris_table, outputs_below, run_workflow, tiny_campaign, write_hdu)
 
-from pipeline.catalogue import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE
-from pipeline.cube_io import read_cube_info
-from pipeline.ephemeris import read_ephemeris
+from pipeline.catalogue.entries import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE
+from pipeline.io.cubes import read_cube_info
+from pipeline.geometry.ephemeris import read_ephemeris
 from pipeline.errors import EphemerisError
-from pipeline.orbit import write_ephemeris
+from pipeline.geometry.orbit import write_ephemeris
 
 REPO = Path(__file__).resolve().parents[2]
 

@@ -26,8 +26,8 @@ import yaml
 from astropy.table import QTable
 from bad_builders import CUBE_ID, run_workflow, tiny_campaign
 
-from pipeline.catalogue import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE, load_catalogue
-from pipeline.config import load_config, validate_config
+from pipeline.catalogue.entries import DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE, load_catalogue
+from pipeline.settings import load_config, validate_config
 from pipeline.errors import CatalogueError, ConfigError
 
 REPO = Path(__file__).resolve().parents[2]

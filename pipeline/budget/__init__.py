@@ -1,0 +1,1 @@
+"""The mass budget: momentum and rocket physics, the budget table and the joint exclusion test."""

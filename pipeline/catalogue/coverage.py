@@ -1,0 +1,51 @@
+"""Planning the workflow: which catalogue lines (millimetre cubes) or bands (infrared cubes) each cube may cover.
+
+Called when Snakemake builds its job graph, so it reads headers only. A line is
+assigned to a millimetre cube when its rest frequency, shifted by any radial
+velocity up to ``margin``, overlaps the band; whether the integration window is
+really covered at the actual Doppler shift is decided in the comoving stage. An
+infrared band is assigned to an infrared cube when its extent, shifted the same
+way, overlaps the cube's wavelength range; the bands stage decides coverage.
+"""
+
+from __future__ import annotations
+
+import astropy.constants as const
+import astropy.units as u
+
+from pipeline.catalogue.entries import Catalogue
+from pipeline.io.cubes import read_cube_info
+
+__all__ = ["lines_for_cube", "bands_for_cube"]
+
+
+def lines_for_cube(path: str, catalogue: Catalogue, species: list[str],
+                   margin: u.Quantity = 100 * u.km / u.s) -> list[str]:
+    """Line ids of ``species`` that may fall in the band of the cube at ``path``."""
+    info = read_cube_info(path)
+    if info.regime == "infrared":
+        return []
+    fmin, fmax = info.frequencies.min(), info.frequencies.max()
+    beta = (margin / const.c).decompose().value
+    out = []
+    for name in species:
+        for line in catalogue.lines_of(name):
+            if line.freq * (1 + beta) >= fmin and line.freq * (1 - beta) <= fmax:
+                out.append(line.line_id)
+    return out
+
+
+def bands_for_cube(path: str, catalogue: Catalogue, species: list[str],
+                   margin: u.Quantity = 100 * u.km / u.s) -> list[str]:
+    """Band ids of ``species`` whose extent may overlap the wavelength range of the infrared cube at ``path``."""
+    info = read_cube_info(path)
+    if info.regime != "infrared":
+        return []
+    lam = info.wavelengths
+    beta = (margin / const.c).decompose().value
+    out = []
+    for name in species:
+        for band in catalogue.bands_of(name):
+            if band.extent_hi * (1 + beta) >= lam.min() and band.extent_lo * (1 - beta) <= lam.max():
+                out.append(band.band_id)
+    return out

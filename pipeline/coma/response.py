@@ -1,0 +1,102 @@
+"""Model response: the flux a line gives per unit production rate, for one geometry and aperture.
+
+R(T, ρ) = [∫S dv per molecule](T, Δ) × N_ap(ρ; Q = 1 s⁻¹, v, L, beam), so that a
+measured integrated flux F in the aperture gives Q = F / R. N_ap counts the
+molecules a circular aperture sees on an image convolved with the beam (Haser
+parent distribution, :func:`pipeline.coma.haser.convolved_aperture_count`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import astropy.units as u
+import numpy as np
+
+from pipeline.catalogue.entries import Line, Species
+from pipeline.errors import CatalogueError
+from pipeline.coma.excitation import flux_per_molecule
+from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, scale_length
+from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
+
+__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES"]
+
+
+@dataclass(frozen=True)
+class ComaModel:
+    """The coma assumptions shared by every response: outflow and photodestruction."""
+
+    outflow: str | float = "law"      # 'law' (0.85 r_h^-0.5 km/s) or a speed in km/s
+    solar_activity: str = "quiet"
+
+
+def outflow_speed(model: ComaModel, r_h: u.Quantity) -> u.Quantity:
+    """Outflow speed at ``r_h`` under the model."""
+    if model.outflow == "law":
+        return outflow_speed_law(u.Quantity(r_h, u.au))
+    return float(model.outflow) * u.km / u.s
+
+
+def scale_lengths(species: Species, parent: Species | None, model: ComaModel, r_h: u.Quantity,
+                  speed: u.Quantity) -> tuple[u.Quantity, u.Quantity | None]:
+    """Haser scale lengths (parent, daughter): a parent species gives (L, None); a daughter (L_parent, L)."""
+    r_h = u.Quantity(r_h, u.au)
+    own = scale_length(speed, species.photo_rate(model.solar_activity), r_h)
+    if species.parent is None:
+        return own, None
+    if parent is None or parent.name != species.parent:
+        msg = f"species {species.name!r} is a daughter of {species.parent!r}; its parent's entry is needed"
+        raise CatalogueError(msg)
+    return scale_length(speed, parent.photo_rate(model.solar_activity), r_h), own
+
+
+def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quantity,
+                  r_h: u.Quantity, delta: u.Quantity, beam_fwhm: u.Quantity,
+                  model: ComaModel, parent: Species | None = None) -> u.Quantity:
+    """Integrated flux per unit production rate, shape (n_T, n_radii), in Jy km/s s.
+
+    Parameters
+    ----------
+    line, species : catalogue entries
+    t_kin : Quantity [temperature], shape (n_T,)
+    radii : Quantity [length], shape (n_radii,), aperture radii at the target
+    r_h, delta : Quantity [length], heliocentric and observer distances
+    beam_fwhm : Quantity [length], beam FWHM at the target (0 for no beam)
+    model : ComaModel
+    parent : Species, optional
+        The parent's entry, needed when ``species`` is a daughter (Haser parent-daughter model).
+    """
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    radii = np.atleast_1d(u.Quantity(radii, u.km))
+    v = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v)
+    per_molecule = flux_per_molecule(line, species, t_kin, delta)          # (n_T,)
+    count = convolved_aperture_count(radii, u.Quantity(beam_fwhm, u.km), 1.0 / u.s, v, length, daughter)  # (n_r,)
+    return (per_molecule[:, None] * u.Quantity(count, u.dimensionless_unscaled)[None, :] * u.s).to(
+        u.Jy * u.km / u.s * u.s)
+
+
+SPECTRAL_RESPONSES = {"none": np.array([1.0]), "hanning": np.array([0.25, 0.5, 0.25])}
+
+
+def window_capture(species: Species, t_kin: u.Quantity, velocity: np.ndarray, weights: np.ndarray,
+                   v_out: u.Quantity, spectral_response: str = "hanning") -> np.ndarray:
+    """Fraction of the line flux that the weighted window sum captures, per temperature.
+
+    The model profile (arcsine plus thermal, :mod:`pipeline.coma.line_profile`) is
+    integrated over each channel of ``velocity`` [km/s], convolved with the
+    instrument's channel response (``'hanning'``: [1/4, 1/2, 1/4], as most
+    correlators deliver; ``'none'``), and summed with the window ``weights``.
+    """
+    if spectral_response not in SPECTRAL_RESPONSES:
+        msg = f"spectral_response must be one of {', '.join(SPECTRAL_RESPONSES)}, found {spectral_response!r}"
+        raise ValueError(msg)
+    kernel = SPECTRAL_RESPONSES[spectral_response]
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    sig = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
+    v = u.Quantity(v_out).to_value(u.km / u.s)
+    out = []
+    for s in sig:
+        prof = np.convolve(channel_fractions(velocity, v, s), kernel, mode="same")
+        out.append(float(np.sum(prof * weights)))
+    return np.array(out)

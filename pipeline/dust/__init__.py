@@ -1,0 +1,1 @@
+"""The dust continuum: the solar model, Afrho, colour and dust production."""

@@ -1,0 +1,134 @@
+"""Per-line sub-cubes on a velocity axis in the target's rest frame.
+
+For each catalogue line a cube covers, the channels within ``half_width`` of
+the line's Doppler-predicted position are cut out (no resampling: the channels
+stay the observed ones) and relabelled with the radio velocity relative to the
+line's rest frequency in the target's frame (SPECSYS = SOURCE). The sky is
+cropped to a box around the target's predicted position that holds the largest
+aperture and its off-source companions.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import astropy.units as u
+import numpy as np
+from astropy.coordinates import EarthLocation
+from astropy.io import fits
+from astropy.time import Time
+
+from pipeline.catalogue.entries import Line
+from pipeline.io.cubes import CubeInfo, open_data
+from pipeline.geometry.frames import linear_axis, radio_velocity, to_target_frame, to_topocentric
+
+__all__ = ["SubCube", "target_frame_frequencies", "target_frame_velocities", "cut_subcube", "crop_box"]
+
+
+@dataclass
+class SubCube:
+    """A line's sub-cube, or the reason there is none."""
+
+    data: np.ndarray | None           # (n_chan, n_y, n_x) float32, or None when not covered
+    header: fits.Header
+    covered: bool
+    reason: str
+    velocity: np.ndarray | None = None   # exact radio velocity of each channel [km/s]
+
+
+def target_frame_frequencies(info: CubeInfo, geometry, location: EarthLocation | None) -> u.Quantity:
+    """Frequency of every channel of ``info`` in the target's rest frame.
+
+    ``geometry`` is the cube's one-row geometry table (or a row of it). A SPECSYS = SOURCE axis is
+    already in that frame; any other is brought to the observatory's frame, then the target's
+    topocentric radial velocity is removed (relativistic Doppler).
+    """
+    if info.specsys == "SOURCE":
+        return info.frequencies
+    time = Time(geometry["time_mid"])
+    topo = to_topocentric(info.frequencies, info.specsys, time, location,
+                          u.Quantity(geometry["ra"]), u.Quantity(geometry["dec"]))
+    return to_target_frame(topo, u.Quantity(geometry["delta_dot"]))
+
+
+def target_frame_velocities(info: CubeInfo, geometry, line: Line,
+                            location: EarthLocation | None) -> u.Quantity:
+    """Radio velocity of every channel of ``info`` relative to ``line`` in the target's frame.
+
+    ``geometry`` is the cube's one-row geometry table (or a row of it).
+    """
+    return radio_velocity(target_frame_frequencies(info, geometry, location), line.freq)
+
+
+def crop_box(shape: tuple[int, int], x: float, y: float, half_size: float) -> tuple[slice, slice]:
+    """Pixel slices (y, x) of a square box of ``half_size`` pixels around (x, y), clipped to the image."""
+    ny, nx = shape
+    h = int(np.ceil(half_size))
+    xc, yc = int(round(x)), int(round(y))
+    return slice(max(0, yc - h), min(ny, yc + h + 1)), slice(max(0, xc - h), min(nx, xc + h + 1))
+
+
+def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
+                window: u.Quantity, crop_half_size: float,
+                location: EarthLocation | None) -> SubCube:
+    """Cut the sub-cube of ``line`` from the cube.
+
+    Parameters
+    ----------
+    info : CubeInfo
+    geometry : row of the cube's geometry table
+    line : catalogue line
+    half_width : Quantity [speed]
+        Half-width of the velocity range kept (for the line-free noise channels).
+    window : Quantity [speed]
+        Half-width of the integration window that must be fully covered.
+    crop_half_size : float
+        Half-size of the sky box in pixels.
+    location : EarthLocation or None
+        Observatory (None = geocentre).
+    """
+    vel = target_frame_velocities(info, geometry, line, location).to_value(u.km / u.s)
+    hw, win = half_width.to_value(u.km / u.s), window.to_value(u.km / u.s)
+    step = abs(vel[1] - vel[0])
+    header = fits.Header()
+    header["GLLINE"] = (line.line_id, "catalogue line id")
+    header["GLSPEC"] = (line.species, "species")
+    header["RESTFRQ"] = (line.freq.to_value(u.Hz), "[Hz] line rest frequency")
+    lo, hi = vel.min(), vel.max()
+    if not (lo - 0.5 * step <= -win and hi + 0.5 * step >= win):
+        reason = (f"the integration window +-{win:.2f} km/s of line {line.line_id} is not fully inside "
+                  f"the band (which spans {lo:+.1f} to {hi:+.1f} km/s around the line)")
+        header["GLCOVER"] = (False, "integration window covered by the band")
+        header["GLREASON"] = reason
+        return SubCube(data=None, header=header, covered=False, reason=reason)
+    keep = np.flatnonzero(np.abs(vel) <= hw)
+    c0, c1 = int(keep.min()), int(keep.max()) + 1
+    ys, xs = crop_box(info.shape[1:], float(geometry["x_pix"]), float(geometry["y_pix"]), crop_half_size)
+    with open_data(info.path) as data:
+        sub = np.array(data[c0:c1, ys, xs], dtype=np.float32)
+    v0, dv, deviation = linear_axis(vel[c0:c1])
+    wcs2 = info.celestial_wcs[ys, xs]
+    header.update(wcs2.to_header())
+    header["WCSAXES"] = 3
+    header["CTYPE3"] = "VRAD"
+    header["CUNIT3"] = "km/s"
+    header["CRPIX3"] = 1.0
+    header["CRVAL3"] = v0
+    header["CDELT3"] = dv
+    header["SPECSYS"] = ("SOURCE", "velocity in the target's rest frame")
+    header["VELREF"] = 259  # radio convention, SOURCE frame (AIPS convention code)
+    header["BUNIT"] = info.header["BUNIT"]
+    for card in ("BMAJ", "BMIN", "BPA"):
+        if card in info.header:
+            header[card] = info.header[card]
+    header["GLCOVER"] = (True, "integration window covered by the band")
+    header["GLVLIN"] = (deviation < 1e-3, "linear WCS exact (else see the VELOCITY table)")
+    header["GLCHAN0"] = (c0, "first channel taken from the cube (0-based)")
+    header["GLXPIX"] = (float(geometry["x_pix"]) - xs.start, "target x pixel (0-based) in this sub-cube")
+    header["GLYPIX"] = (float(geometry["y_pix"]) - ys.start, "target y pixel (0-based) in this sub-cube")
+    header["GLDELTA"] = (u.Quantity(geometry["delta"]).to_value(u.au), "[au] observer-target distance")
+    header["GLRH"] = (u.Quantity(geometry["r_h"]).to_value(u.au), "[au] heliocentric distance")
+    header["GLDDOT"] = (u.Quantity(geometry["delta_dot"]).to_value(u.km / u.s), "[km/s] topocentric range rate")
+    header["GLFREQ0"] = (info.frequencies[c0].to_value(u.Hz), "[Hz] labelled frequency of the first channel")
+    header["GLDFREQ"] = ((info.frequencies[1] - info.frequencies[0]).to_value(u.Hz), "[Hz] labelled channel step")
+    return SubCube(data=sub, header=header, covered=True, reason="", velocity=vel[c0:c1])

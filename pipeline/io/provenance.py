@@ -1,0 +1,113 @@
+"""Provenance records: which config, which inputs (by checksum) and which version made an output.
+
+Records hold no timestamps, so identical inputs give byte-identical tables.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+from typing import Any, Iterable
+
+from astropy.io import fits
+
+__all__ = ["file_checksum", "provenance_record", "add_to_header", "from_header"]
+
+_CHUNK = 1 << 22
+
+
+_TREE_MIN = 256 << 20     # files larger than this are hashed as a tree of 16 MiB blocks, in parallel
+_TREE_BLOCK = 16 << 20
+
+
+def _sha256(path: str | Path) -> str:
+    """``sha256:<hex>`` of the bytes; for large files ``sha256-tree16M:<hex>``, the SHA-256 of the
+    concatenated SHA-256 digests of consecutive 16 MiB blocks (hashed on all cores, so a cube is hashed at the
+    speed of reading it)."""
+    size = os.path.getsize(path)
+    if size <= _TREE_MIN:
+        digest = hashlib.sha256()
+        with open(path, "rb") as fh:
+            while block := fh.read(_CHUNK):
+                digest.update(block)
+        return "sha256:" + digest.hexdigest()
+    # read sequentially (the disk's read-ahead keeps streaming) and hash the blocks on a pool of threads;
+    # at most a few blocks are in flight, so memory stays bounded
+    workers = max(1, os.cpu_count() or 1)
+    digests: list = []
+    with ThreadPoolExecutor(max_workers=workers) as pool, open(path, "rb", buffering=0) as fh:
+        pending: list = []
+        while block := fh.read(_TREE_BLOCK):
+            pending.append(pool.submit(lambda b: hashlib.sha256(b).digest(), block))
+            if len(pending) >= 2 * workers:
+                digests.append(pending.pop(0).result())
+        digests.extend(f.result() for f in pending)
+    return "sha256-tree16M:" + hashlib.sha256(b"".join(digests)).hexdigest()
+
+
+def file_checksum(path: str | Path, cache_dir: str | Path | None = None) -> str:
+    """SHA-256 of a file's bytes, read in 4 MiB chunks (bounded memory).
+
+    With ``cache_dir``, the checksum is remembered per file (keyed by its absolute path, size and modification
+    time), so a large cube is hashed once per change rather than once per job that reads it.
+    """
+    if cache_dir is None:
+        return _sha256(path)
+    from pipeline.io.atomic import _remove_stale, write_json
+
+    path = Path(path).resolve()
+    st = path.stat()
+    key = hashlib.sha1(str(path).encode()).hexdigest()
+    entry = Path(cache_dir) / f"{key}.json"
+    stamp = {"path": str(path), "size": st.st_size, "mtime_ns": st.st_mtime_ns}
+    if entry.parent.is_dir():
+        _remove_stale(entry)
+    try:
+        cached = json.loads(entry.read_text())
+        if all(cached.get(k) == v for k, v in stamp.items()):
+            return cached["checksum"]
+    except (OSError, ValueError, KeyError):
+        pass
+    checksum = _sha256(path)
+    write_json({**stamp, "checksum": checksum}, entry)
+    return checksum
+
+
+def provenance_record(config: dict[str, Any] | None, inputs: Iterable[str | Path],
+                      stage: str) -> dict[str, Any]:
+    """A JSON-serialisable record of what made an output.
+
+    Parameters
+    ----------
+    config : dict or None
+        The validated campaign config (stored whole).
+    inputs : paths
+        Every file the output was computed from.
+    stage : str
+        Name of the workflow stage.
+    """
+    from pipeline import __version__
+
+    cache = Path(config["outdir"]) / ".checksums" if config and "outdir" in config else None
+    return {
+        "software": "gasledger",
+        "version": __version__,
+        "stage": stage,
+        "inputs": {str(p): file_checksum(p, cache) for p in sorted(map(str, inputs))},
+        "config": config,
+    }
+
+
+def add_to_header(header: fits.Header, record: dict[str, Any]) -> None:
+    """Store a provenance record in a FITS header (long-string card GLPROV)."""
+    header["GLVERS"] = (record["version"], "gasledger version")
+    header["GLSTAGE"] = (record["stage"], "gasledger stage that wrote this file")
+    header["GLPROV"] = json.dumps(record, sort_keys=True, separators=(",", ":"), default=str)
+
+
+def from_header(header: fits.Header) -> dict[str, Any]:
+    """Read back a provenance record written by :func:`add_to_header`."""
+    return json.loads(header["GLPROV"])

@@ -1,0 +1,2 @@
+"""Production rates: Q-unit stacking, limit statistics, the limits table, line fits, activity laws, injection,
+forecasts."""

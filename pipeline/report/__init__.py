@@ -1,0 +1,1 @@
+"""The report: figures and the self-contained HTML page."""

@@ -1,0 +1,1 @@
+"""Spectra from cubes: apertures, noise, millimetre line spectra, infrared aperture spectra and band measurement."""

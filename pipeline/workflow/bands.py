@@ -1,0 +1,303 @@
+"""Stage 'bands': infrared band fluxes, production rates and the dust continuum of one infrared cube.
+
+One pass over the cube: aperture spectra on the target (F_lambda, with the ERR
+extension's sigma), then for every catalogue band of the configured species the
+continuum fit and band integral (:mod:`pipeline.spectra.band_measure`) and the band
+flux per unit production rate (fluorescence efficiency at r_h times the Haser
+coma counted on the cube's own pixel grid, convolved with the point-spread
+function when BMAJ/BMIN give one), and the dust continuum as Afrho at the
+configured wavelengths with its colour (:mod:`pipeline.dust.afrho`). The continuum
+under a band is the solar spectrum times a polynomial (the reflectance) unless
+``infrared.continuum_shape`` is 'flat'.
+
+The integration windows are placed at the target's rest wavelengths mapped to
+the observed axis (one Doppler factor for the whole cube); the band flux is the
+integral over observed wavelength, the energy flux at the telescope.
+"""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.table import QTable, Table
+
+from pipeline.spectra.apertures import radius_in_pixels
+from pipeline.io.atomic import write_fits
+from pipeline.spectra.band_measure import band_capture, continuum_level, continuum_mask, integration_window, measure_band
+from pipeline.catalogue.entries import Band, Catalogue
+from pipeline.coma.image import aperture_count_on_grid
+from pipeline.geometry.comoving import target_frame_frequencies
+from pipeline.coma.conversion import band_flux_from_molecules
+from pipeline.io.cubes import CubeInfo, read_cube_info
+from pipeline.dust.afrho import afrho, spectral_slope
+from pipeline.errors import CoverageError, CubeError
+from pipeline.spectra.ir_spectra import F_LAMBDA, IRSpectra, extract_ir_spectra
+from pipeline.io.provenance import add_to_header, provenance_record
+from pipeline.coma.response import outflow_speed, scale_lengths
+from pipeline.dust.solar import solar_flux_density
+from pipeline.workflow.common import aperture_radii, catalogue_from_config, coma_model, location_from_config
+
+__all__ = ["run", "resolving_power_of", "doppler_factor", "scatter_sigma", "band_windows", "band_setup"]
+
+log = logging.getLogger(__name__)
+_RESPONSE = u.W / u.m**2 * u.s
+
+
+def resolving_power_of(info: CubeInfo, given: float | None) -> tuple[float, str]:
+    """The resolving power to use and where it came from (config, or Nyquist sampling of the channels)."""
+    if given is not None:
+        return float(given), "config"
+    lam = info.wavelengths.to_value(u.um)
+    return float(np.median(lam[1:] / (2 * np.abs(np.diff(lam))))), "Nyquist sampling, lambda / (2 dlambda)"
+
+
+def doppler_factor(info: CubeInfo, geometry, location) -> float:
+    """Observed over rest wavelength of the target (one factor for all channels)."""
+    rest = target_frame_frequencies(info, geometry, location)
+    return float(np.median((rest / info.frequencies).decompose().value))
+
+
+def scatter_sigma(wavelength: np.ndarray, flux: np.ndarray, free: np.ndarray) -> np.ndarray:
+    """Per-channel sigma of a spectrum without an ERR extension: std of first differences / sqrt(2), line-free.
+
+    Differencing removes a smooth continuum; for white noise the difference of two channels has variance 2 sigma^2.
+    """
+    diffs = np.diff(np.where(free, flux, np.nan))
+    diffs = diffs[np.isfinite(diffs)]
+    if diffs.size < 5:
+        msg = f"only {diffs.size} line-free channel pairs to estimate the noise (no ERR extension); expected 5 or more"
+        raise CoverageError(msg)
+    return np.full(wavelength.shape, float(np.std(diffs, ddof=1) / np.sqrt(2.0)))
+
+
+def _band_windows(bands: list[Band], factor: float, resolving_power: float, margin: float):
+    """Observed-frame (extent_lo, extent_hi, window_lo, window_hi) of each band, in um."""
+    out = {}
+    for band in bands:
+        lo, hi = band.extent_lo * factor, band.extent_hi * factor
+        wlo, whi = integration_window(lo, hi, resolving_power, margin)
+        out[band.band_id] = (lo, hi, wlo, whi)
+    return out
+
+
+def band_windows(obs: u.Quantity, catalogue: Catalogue, band_ids: list[str], factor: float, resolving_power: float,
+                 config) -> dict:
+    """Windows of every catalogue band in the cube's range and of ``band_ids`` (observed frame, um)."""
+    margin = float(config.get("infrared", {}).get("margin_fwhm", 1.5))
+    in_range = [b for b in catalogue.bands if b.extent_hi * factor >= obs.min() and b.extent_lo * factor <= obs.max()]
+    wanted = [catalogue.get_band(b) for b in band_ids if b not in {x.band_id for x in in_range}]
+    return _band_windows(in_range + wanted, factor, resolving_power, margin)
+
+
+def band_setup(band_id: str, windows: dict, obs: u.Quantity, config) -> tuple[np.ndarray, np.ndarray | None]:
+    """The continuum mask of one band (other bands' windows excluded) and the continuum shape (None = flat)."""
+    ir = config.get("infrared", {})
+    wlo, whi = windows[band_id][2:]
+    exclude = [(w[2], w[3]) for k, w in windows.items() if k != band_id]
+    free = continuum_mask(obs, wlo, whi, float(ir.get("continuum_factor", 1.0)), exclude)
+    shape = None
+    if ir.get("continuum_shape", "solar") == "solar":  # reflected sunlight: the polynomial is the reflectance
+        sun = solar_flux_density(obs).value
+        shape = sun / np.mean(sun)
+    return free, shape
+
+
+def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Band, windows, catalogue: Catalogue,
+               config, geo, info: CubeInfo, radii_km: list[float], x: float, y: float, resolving_power: float,
+               free_all: np.ndarray) -> tuple[list[dict], np.ndarray]:
+    """Rows of the BANDS table for one band (one per aperture) and its continuum models (n_ap, n_chan)."""
+    lo, hi, wlo, whi = windows[band.band_id]
+    ir = config.get("infrared", {})
+    n_ap, n_chan = spectra.flux.shape
+    models = np.full((n_ap, n_chan), np.nan)
+    base = {"band_id": band.band_id, "species": band.species, "cube_id": str(geo["cube_id"]),
+            "epoch": str(geo["epoch"]), "window_lo": wlo.to_value(u.um), "window_hi": whi.to_value(u.um)}
+    if wlo < obs.min() or whi > obs.max():
+        reason = (f"the window {wlo.to_value(u.um):.4f}-{whi.to_value(u.um):.4f} um is not inside the cube's "
+                  f"{obs.min().to_value(u.um):.4f}-{obs.max().to_value(u.um):.4f} um")
+        log.warning("band %s in cube %s is not used: %s", band.band_id, geo["cube_id"], reason)
+        return [dict(base, covered=False, reason=reason, aperture_km=r, aperture_index=j)
+                for j, r in enumerate(radii_km)], models
+    capture = band_capture(lo, hi, wlo, whi, resolving_power)
+    free, shape = band_setup(band.band_id, windows, obs, config)
+    species = catalogue.get_species(band.species)
+    parent = catalogue.get_species(species.parent) if species.parent else None
+    model = coma_model(config)
+    r_h, delta = u.Quantity(geo["r_h"]), u.Quantity(geo["delta"])
+    v_out = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
+    pix_km = info.pixel_scale.to_value(u.rad) * delta.to_value(u.km)
+    psf = ((info.beam_major / info.pixel_scale).decompose().value, (info.beam_minor / info.pixel_scale).decompose().value,
+           info.beam_pa.to_value(u.deg)) if info.beam_major is not None else None
+    count = aperture_count_on_grid(info.shape[1:], x, y, list(spectra.radius_pix), pix_km, psf, v_out, length,
+                                   daughter)
+    per_molecule = band_flux_from_molecules(1.0 * u.one, band.wavelength, band.g_1au, r_h, delta)
+    rows = []
+    for j, radius in enumerate(radii_km):
+        try:
+            m = measure_band(obs, spectra.flux[j], sigma[j], wlo, whi, free,
+                             order=int(ir.get("continuum_order", 1)), capture=capture, continuum_shape=shape)
+        except CoverageError as exc:
+            msg = f"cube {geo['cube_id']}, band {band.band_id}, aperture {radius:g} km: {exc}"
+            raise CoverageError(msg) from exc
+        span = obs[free | ((obs >= wlo) & (obs <= whi))]
+        inside = (obs >= span.min()) & (obs <= span.max())          # the model only where it was fitted and used
+        models[j] = np.where(inside, np.asarray(u.Quantity(m.continuum_model).to_value(F_LAMBDA)), np.nan)
+        response = (per_molecule * count[j]).to_value(u.W / u.m**2)        # band flux per unit Q (s)
+        flux = m.flux.to_value(u.W / u.m**2)
+        rows.append(dict(base, covered=True, reason="", aperture_km=radius, aperture_index=j,
+                         radius_pix=float(spectra.radius_pix[j]), flux=flux,
+                         sigma=m.sigma.to_value(u.W / u.m**2), sigma_err=m.sigma_err.to_value(u.W / u.m**2),
+                         sigma_empirical=m.sigma_empirical.to_value(u.W / u.m**2),
+                         empirical_method=m.empirical_method, chi2_reduced=float(m.chi2_reduced),
+                         capture=float(capture), n_window=int(m.n_window_channels), n_continuum=int(m.n_continuum),
+                         continuum=m.continuum_at_centre.to_value(F_LAMBDA),
+                         g_factor=band.g_factor(r_h).to_value(1 / u.s), response=response,
+                         q=flux / response, sigma_q=m.sigma.to_value(u.W / u.m**2) / response,
+                         outflow=v_out.to_value(u.km / u.s), r_h=r_h.to_value(u.au), delta=delta.to_value(u.au),
+                         resolving_power=resolving_power))
+    log.info("band %s in cube %s: F = %.3g +- %.3g W/m2 (first aperture) -> Q = %.3g +- %.3g /s", band.band_id,
+             geo["cube_id"], rows[0]["flux"], rows[0]["sigma"], rows[0]["q"], rows[0]["sigma_q"])
+    return rows, models
+
+
+def _dust_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, free_all: np.ndarray, config, geo,
+               radii_km: list[float], windows) -> tuple[list[dict], list[dict]]:
+    """Afrho at the configured wavelengths (DUST) and the colour between them (COLOUR), per aperture."""
+    dust = config.get("dust", {})
+    half = float(dust.get("half_width_um", 0.04)) * u.um
+    r_h, delta = u.Quantity(geo["r_h"]), u.Quantity(geo["delta"])
+    rows, colour = [], []
+    for j, radius in enumerate(radii_km):
+        lam_ok, values, errors = [], [], []
+        for lam_um in dust.get("wavelengths_um", [2.5, 3.5, 4.45]):
+            lam = lam_um * u.um
+            inside = any(w[2] - half <= lam <= w[3] + half for w in windows.values())
+            if lam - half < obs.min() or lam + half > obs.max() or inside:
+                continue
+            try:
+                level, err = continuum_level(obs, spectra.flux[j], sigma[j], lam, half, free_all)
+            except CoverageError as exc:
+                log.warning("cube %s: no continuum at %.3f um (%s)", geo["cube_id"], lam_um, exc)
+                continue
+            rho = radius * u.km
+            a = afrho(level, lam, rho, r_h, delta).to(u.cm)
+            a_err = afrho(err, lam, rho, r_h, delta).to(u.cm)
+            rows.append({"cube_id": str(geo["cube_id"]), "epoch": str(geo["epoch"]), "aperture_km": radius,
+                         "wavelength": lam_um, "flux_density": level.to_value(F_LAMBDA),
+                         "flux_density_err": err.to_value(F_LAMBDA), "afrho": a.value, "afrho_err": abs(a_err.value),
+                         "r_h": r_h.to_value(u.au), "delta": delta.to_value(u.au),
+                         "phase": float(u.Quantity(geo["phase"]).to_value(u.deg))})
+            lam_ok.append(lam_um)
+            values.append(a.value)
+            errors.append(abs(a_err.value))
+        if len(lam_ok) >= 2:
+            slope, slope_err = spectral_slope(lam_ok * u.um, values * u.cm, errors * u.cm)
+            colour.append({"cube_id": str(geo["cube_id"]), "epoch": str(geo["epoch"]), "aperture_km": radius,
+                           "wavelength_min": min(lam_ok), "wavelength_max": max(lam_ok),
+                           "slope": _percent_per_100nm(slope), "slope_err": _percent_per_100nm(slope_err)})
+    return rows, colour
+
+
+def _percent_per_100nm(value) -> float:
+    q = u.Quantity(value)
+    if q.unit.is_equivalent(1 / u.um):
+        return float(q.to_value(1 / u.nm) * 100 * 100)
+    return float(q.to_value(u.percent))
+
+
+def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[str, Any], out_path: str,
+        resolving_power: float | None = None) -> None:
+    """Measure the bands ``band_ids`` and the dust continuum of one infrared cube and write the bands file."""
+    info = read_cube_info(cube_path)
+    if info.regime != "infrared":
+        msg = (f"{cube_path}: the spectral axis reaches {info.wavelengths.max():.1f}; expected an infrared cube "
+               "(every channel short of 30 um) for band measurement")
+        raise CubeError(msg)
+    geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
+    catalogue = catalogue_from_config(config)
+    location = location_from_config(config)
+    rpow, rsource = resolving_power_of(info, resolving_power)
+    factor = doppler_factor(info, geo, location)
+    obs = info.wavelengths
+    delta = u.Quantity(geo["delta"])
+    radii = aperture_radii(config)
+    radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in radii]
+    radii_km = [float((r if r.unit.physical_type == "length" else (r.to_value(u.rad) * delta)).to_value(u.km))
+                for r in radii]
+    x, y = float(geo["x_pix"]), float(geo["y_pix"])
+    log.info("cube %s: infrared, %d channels %.4f-%.4f um, R = %.0f (%s), %d apertures", geo["cube_id"],
+             info.shape[0], obs.min().to_value(u.um), obs.max().to_value(u.um), rpow, rsource, len(radii))
+    spectra = extract_ir_spectra(info, x, y, radii_pix)
+    # every catalogue band in range is kept out of the continuum, configured species or not
+    windows = band_windows(obs, catalogue, band_ids, factor, rpow, config)
+    free_all = np.ones(obs.shape, dtype=bool)
+    for w in windows.values():
+        free_all &= ~((obs >= w[2]) & (obs <= w[3]))
+    if spectra.sigma is not None:
+        sigma = spectra.sigma
+        sigma_source = "ERR extension"
+    else:
+        sigma = np.array([scatter_sigma(obs.value, f, free_all) for f in spectra.flux.value]) * F_LAMBDA
+        sigma_source = "scatter of line-free channel differences (no ERR extension)"
+        log.warning("cube %s has no ERR extension: the per-channel sigma is the %s", geo["cube_id"], sigma_source)
+    band_rows, continua = [], []
+    for band_id in band_ids:
+        band = catalogue.get_band(band_id)
+        rows, models = _band_rows(spectra, sigma, obs, band, windows, catalogue, config, geo, info, radii_km, x, y,
+                                  rpow, free_all)
+        band_rows.extend(rows)
+        continua.append(models)
+    dust_rows, colour_rows = _dust_rows(spectra, sigma, obs, free_all, config, geo, radii_km, windows)
+
+    prim = fits.PrimaryHDU()
+    h = prim.header
+    for key, value, comment in (
+            ("GLREGIME", "infrared", "cube regime"), ("GLCUBE", str(geo["cube_id"]), "cube id"),
+            ("GLEPOCH", str(geo["epoch"]), "epoch label"), ("GLRH", float(geo["r_h"].to_value(u.au)), "[au]"),
+            ("GLDELTA", float(delta.to_value(u.au)), "[au]"), ("GLRPOW", rpow, "resolving power used"),
+            ("GLRPSRC", rsource[:60], "where the resolving power came from"),
+            ("GLDOPP", factor, "observed / rest wavelength of the target"),
+            ("GLAPX", x, "target x (0-based pixel)"), ("GLAPY", y, "target y (0-based pixel)"),
+            ("GLPIXSC", float(info.pixel_scale.to_value(u.arcsec)), "[arcsec] pixel scale"),
+            ("GLSIGSRC", sigma_source[:60], "per-channel sigma from")):
+        h[key] = (value, comment)
+    h["GLBANDS"] = (",".join(band_ids), "bands measured")
+    add_to_header(h, provenance_record(config, [cube_path, geometry_path], "bands"))
+    flux_hdu = fits.ImageHDU(spectra.flux.to_value(F_LAMBDA), name="SPECTRA")
+    flux_hdu.header["BUNIT"] = "W m-2 um-1"
+    err_hdu = fits.ImageHDU(sigma.to_value(F_LAMBDA), name="SIGMA")
+    err_hdu.header["BUNIT"] = "W m-2 um-1"
+    cont_hdu = fits.ImageHDU(np.array(continua) if continua else np.zeros((0, len(radii), obs.size)), name="CONTINUUM")
+    cont_hdu.header["BUNIT"] = "W m-2 um-1"
+    wave = fits.table_to_hdu(Table({"observed": obs.to(u.um), "rest": (obs / factor).to(u.um)}))
+    wave.name = "WAVE"
+    aps = fits.table_to_hdu(Table({"radius_km": np.array(radii_km) * u.km, "radius_pix": spectra.radius_pix,
+                                   "area_pix": spectra.area_pix}))
+    aps.name = "APERTURES"
+    hdus = [prim, flux_hdu, err_hdu, cont_hdu, wave, aps]
+    for name, rows in (("BANDS", band_rows), ("DUST", dust_rows), ("COLOUR", colour_rows)):
+        table = Table(rows=_uniform(rows)) if rows else Table(names=["cube_id"], dtype=[str])
+        hdu = fits.table_to_hdu(table)
+        hdu.name = name
+        hdus.append(hdu)
+    write_fits(fits.HDUList(hdus), out_path)
+
+
+def _uniform(rows: list[dict]) -> list[dict]:
+    """Rows with the same keys (missing numeric values as NaN, strings as '')."""
+    keys: dict[str, Any] = {}
+    for r in rows:
+        for k, v in r.items():
+            keys.setdefault(k, v)
+    out = []
+    for r in rows:
+        out.append({k: r.get(k, "" if isinstance(v, str) else (False if isinstance(v, bool) else
+                                                               (-1 if isinstance(v, int) else np.nan)))
+                    for k, v in keys.items()})
+    return out
+

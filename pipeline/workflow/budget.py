@@ -1,0 +1,98 @@
+"""Stage 'budget': budget.ecsv and budget.json from the limits and the per-cube geometry."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.table import QTable
+
+from pipeline.io.atomic import write_json, write_table
+from pipeline.budget.table import assumption_sets, budget_table, joint_exclusion, rocket_fraction
+from pipeline.io.provenance import provenance_record
+from pipeline.workflow.common import catalogue_from_config
+
+__all__ = ["run", "epoch_distances"]
+
+
+def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
+    """Mean heliocentric distance of each epoch group and of all cubes ('all')."""
+    rows = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
+    groups: dict[str, list[float]] = {}
+    for r in rows:
+        groups.setdefault(str(r["epoch"]), []).append(float(r["r_h"].to_value(u.au)))
+    out = {g: float(np.mean(v)) * u.au for g, v in sorted(groups.items())}
+    out["all"] = float(np.mean([x for v in groups.values() for x in v])) * u.au
+    return out
+
+
+def dust_forces(dust_path: str | None, include: bool) -> dict[str, u.Quantity]:
+    """The dust's largest push per epoch group (N) from dust.ecsv, at the largest aperture; empty unless included."""
+    if not include or dust_path is None:
+        return {}
+    dust = QTable.read(dust_path, format="ascii.ecsv")
+    out: dict[str, u.Quantity] = {}
+    if "momentum_rate" not in dust.colnames:
+        return out
+    for group in dict.fromkeys(str(e) for e in dust["epoch"]):
+        sel = dust[dust["epoch"] == group]
+        row = sel[int(np.argmax(sel["aperture_km"].to_value(u.km)))]
+        if np.isfinite(row["momentum_rate"].value):
+            out[group] = u.Quantity(row["momentum_rate"], u.N)
+    return out
+
+
+def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str,
+        out_exclusion: str | None = None, dust_path: str | None = None) -> None:
+    """Compute and write the budget tables (with the dust's push when budget.include_dust is set)."""
+    limits = QTable.read(limits_path, format="ascii.ecsv")
+    include_dust = bool(config["budget"].get("include_dust", False))
+    forces = dust_forces(dust_path, include_dust)
+    sets = assumption_sets(config["budget"])
+    assume = sets[0]
+    rh = epoch_distances(geometry_paths)
+    catalogue = catalogue_from_config(config)
+    table = budget_table(limits, rh, sets, catalogue, forces)
+    record = provenance_record(config, [limits_path, *geometry_paths, *([dust_path] if dust_path else [])], "budget")
+    table.meta["provenance"] = record
+    table.meta["assumptions"] = dict(assume.as_dict(), dust=(
+        "the dust's momentum rate (dust.ecsv, largest aperture) pays for part of the push first" if include_dust
+        else "not included (budget.include_dust: false)"))
+    table.meta["assumption_sets"] = [a.as_dict() for a in sets]
+    write_table(table, out_ecsv)
+    joint = joint_exclusion(limits, rh, assume, catalogue)
+    joint.meta["provenance"] = record
+    if out_exclusion is not None:
+        write_table(joint, out_exclusion)
+    combined = table[(table["epoch"] == "all") & (table["assumption_set"] == assume.name)]
+    water = catalogue.get_species("H2O").mass if isinstance(assume.ejection, dict) else None
+    summary = {
+        "campaign": config["campaign"],
+        "assumptions": table.meta["assumptions"],
+        "dust_force_N": {k: float(v.to_value(u.N)) for k, v in forces.items()},
+        "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"], water),
+        "assumption_sets": [a.as_dict() for a in sets],
+        "verdicts_by_assumption_set": [
+            {"assumption_set": str(r["assumption_set"]), "species": str(r["species"]), "verdict": str(r["verdict"]),
+             "ratio_required_to_limit": [None if not np.isfinite(r["ratio_min"]) else float(r["ratio_min"]),
+                                         None if not np.isfinite(r["ratio_max"]) else float(r["ratio_max"])]}
+            for r in table[table["epoch"] == "all"]],
+        "drivers": [
+            {"species": str(r["species"]), "verdict": str(r["verdict"]),
+             "q_upper_per_s": None if not np.isfinite(r["q_upper"].value) else float(r["q_upper"].value),
+             "q_required_per_s": [float(r["q_required_min"].value), float(r["q_required_max"].value)],
+             "ratio_required_to_limit": [None if not np.isfinite(r["ratio_min"]) else float(r["ratio_min"]),
+                                         None if not np.isfinite(r["ratio_max"]) else float(r["ratio_max"])],
+             "largest_mass_allowed_kg": None if not np.isfinite(r["mass_allowed"].value)
+             else float(r["mass_allowed"].value)}
+            for r in combined],
+        "joint_test": {"mass_at_3sigma_kg": joint.meta["mass_at_3sigma_kg"], "test": joint.meta["test"],
+                       "reading": "below this nucleus mass the hypothesis that the species alone carries the push "
+                                  "survives at 3 sigma; above it the data exclude it"},
+        "caution": ("These numbers rest on the stated model assumptions (LTE, optically thin lines, Haser "
+                    "outflow, momentum balance with the given efficiency and ejection speed). They are not "
+                    "conclusions: those belong to peer review."),
+        "provenance": record,
+    }
+    write_json(summary, out_json)

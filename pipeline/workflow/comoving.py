@@ -1,0 +1,60 @@
+"""Stage 'comoving': one line's sub-cube in the target's rest frame, as FITS."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.table import QTable, Table
+
+from pipeline.spectra.apertures import radius_in_pixels
+from pipeline.io.atomic import write_fits
+from pipeline.geometry.comoving import cut_subcube
+from pipeline.io.cubes import read_cube_info
+from pipeline.io.provenance import add_to_header, provenance_record
+from pipeline.coma.response import outflow_speed
+from pipeline.workflow.common import aperture_radii, catalogue_from_config, coma_model, location_from_config
+
+__all__ = ["run", "crop_half_size"]
+
+log = logging.getLogger(__name__)
+
+
+def crop_half_size(radii_pix: list[float], beam_pix: float) -> float:
+    """Half-size of the sky box: room for the largest aperture and its off-source ring."""
+    r = max(radii_pix)
+    return 4.0 * r + 3.0 * beam_pix
+
+
+def run(cube_path: str, geometry_path: str, line_id: str, config: dict[str, Any], out_path: str,
+        spectral_response: str = "hanning") -> None:
+    """Cut and write the sub-cube of ``line_id`` from one cube."""
+    info = read_cube_info(cube_path)
+    geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
+    line = catalogue_from_config(config).get_line(line_id)
+    v_out = outflow_speed(coma_model(config), geo["r_h"])
+    window = config["limits"]["window_factor"] * v_out
+    delta = u.Quantity(geo["delta"])
+    radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in aperture_radii(config)]
+    beam_pix = float((np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose()) \
+        if info.beam_major is not None else 1.0
+    sub = cut_subcube(info, geo, line, config["comoving"]["half_width_km_s"] * u.km / u.s, window,
+                      crop_half_size(radii_pix, beam_pix), location_from_config(config))
+    header = sub.header
+    header["GLCUBE"] = (str(geo["cube_id"]), "cube id")
+    header["GLEPOCH"] = (str(geo["epoch"]), "epoch label")
+    header["GLSPRESP"] = (spectral_response, "channel response of the spectrometer")
+    add_to_header(header, provenance_record(config, [cube_path, geometry_path], "comoving"))
+    if sub.covered:
+        log.info("line %s in cube %s: %d channels, %d x %d pixels", line_id, geo["cube_id"], *sub.data.shape)
+        hdu = fits.PrimaryHDU(sub.data, header=header)
+        velocity = fits.BinTableHDU(Table({"velocity": sub.velocity * u.km / u.s}), name="VELOCITY")
+        write_fits(fits.HDUList([hdu, velocity]), out_path)
+        return
+    else:
+        log.warning("line %s in cube %s is not used: %s", line_id, geo["cube_id"], sub.reason)
+        hdu = fits.PrimaryHDU(header=header)
+    write_fits(fits.HDUList([hdu]), out_path)

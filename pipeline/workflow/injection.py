@@ -1,0 +1,149 @@
+"""Stage 'injection': would the gas the push needs (or gas at the limit) have been seen? Per species, ECSV."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.table import QTable, Table
+
+from pipeline.io.atomic import write_table
+from pipeline.rates.band_injection import inject_band, ring_positions
+from pipeline.settings import cube_entries
+from pipeline.io.cubes import read_cube_info
+from pipeline.rates.line_injection import inject_spectra, placements
+from pipeline.rates.stacking import StackInput
+from pipeline.workflow.bands import band_setup, band_windows
+from pipeline.io.provenance import provenance_record
+from pipeline.spectra.ir_spectra import F_LAMBDA
+from pipeline.workflow.common import catalogue_from_config, coma_model, temperatures
+from pipeline.workflow.extract import extraction_settings
+from pipeline.workflow.stack import stack_input
+
+__all__ = ["run", "injection_levels"]
+
+log = logging.getLogger(__name__)
+
+
+def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list[tuple[str, float]], float]:
+    """The production rates to inject and the temperature to model them at.
+
+    'limit': the species' combined upper limit (conservative temperature, smallest aperture); 'required': the
+    rate it would need to carry the push alone for the lightest nucleus of the range.
+    """
+    sel = limits[(limits["species"] == species) & (limits["epoch"] == "all") & limits["conservative"]]
+    levels, t_kin = [], 40.0
+    if len(sel):
+        row = sel[np.argmin(sel["aperture_km"].to_value(u.km))]
+        levels.append(("limit", float(row["q_upper"].to_value(1 / u.s))))
+        t_kin = float(row["t_kin_K"])
+    baseline = budget["assumption_set"][0] if "assumption_set" in budget.colnames and len(budget) else None
+    bsel = budget[(budget["species"] == species) & (budget["epoch"] == "all")
+                  & ((budget["assumption_set"] == baseline) if baseline is not None else True)]
+    if len(bsel) and np.isfinite(bsel["q_required_min"][0].value):
+        levels.append(("required", float(bsel["q_required_min"][0].to_value(1 / u.s))))
+    return levels, t_kin
+
+
+def band_groups(bands_paths: list[str], species: str, q: float, config: dict[str, Any], catalogue, model,
+                n_t: int) -> dict[tuple[int, int], list[StackInput]]:
+    """Band injections of rate ``q`` in every infrared cube of ``species``, grouped by placement (velocity slot 0)."""
+    sp = catalogue.get_species(species)
+    paths = {c.cube_id: c.path for c in cube_entries(config)}
+    groups: dict[tuple[int, int], list[StackInput]] = {}
+    for path in bands_paths:
+        with fits.open(path) as hdul:
+            h = hdul[0].header
+            bands = Table.read(hdul["BANDS"])
+            aps = Table.read(hdul["APERTURES"])
+            sigma = np.asarray(hdul["SIGMA"].data, dtype=float)
+        if "species" not in bands.colnames:
+            continue
+        info = read_cube_info(paths[h["GLCUBE"]])
+        obs = info.wavelengths
+        radii_pix = list(np.asarray(aps["radius_pix"], dtype=float))
+        radii_km = np.asarray(aps["radius_km"], dtype=float)
+        ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
+        windows = band_windows(obs, catalogue, ids, float(h["GLDOPP"]), float(h["GLRPOW"]), config)
+        where = ring_positions(info.shape[1:], float(h["GLAPX"]), float(h["GLAPY"]), max(radii_pix))
+        for band_id in ids:
+            free, shape = band_setup(band_id, windows, obs, config)
+            results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,
+                                  float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au, float(h["GLDOPP"]),
+                                  float(h["GLRPOW"]), windows[band_id][2:], free, sigma * F_LAMBDA, model,
+                                  int(config.get("infrared", {}).get("continuum_order", 1)), shape)
+            for res in results:
+                groups.setdefault((res.index, 0), []).append(StackInput(
+                    epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=band_id, velocity=None, density=None,
+                    q=np.tile(res.q_recovered, (n_t, 1)), sigma_q=np.tile(res.q_err, (n_t, 1)), radius_km=radii_km))
+    return groups
+
+
+def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: str, config: dict[str, Any],
+        out_path: str, bands_paths: list[str] | None = None) -> None:
+    """Inject, extract, measure and combine; write the per-placement results.
+
+    Millimetre lines are injected into their sub-cubes (``subcube_paths``) at velocities away from the real
+    lines; infrared bands into their cubes (via ``bands_paths``) at sky positions, differenced
+    (:mod:`pipeline.rates.band_injection`). Members of one placement index are combined like the real stack.
+    """
+    catalogue = catalogue_from_config(config)
+    sp = catalogue.get_species(species)
+    limits = QTable.read(limits_path, format="ascii.ecsv")
+    budget = QTable.read(budget_path, format="ascii.ecsv")
+    levels, t_kin = injection_levels(species, limits, budget)
+    t_all = temperatures(config).to_value(u.K)
+    it = int(np.argmin(np.abs(t_all - t_kin)))
+    model = coma_model(config)
+    rows = []
+    covered = []
+    for path in subcube_paths:
+        if fits.getheader(path).get("GLCOVER", False):
+            covered.append(path)
+    for level, q in levels:
+        groups: dict[tuple[int, int], list] = {}
+        for path in covered:
+            header = fits.getheader(path)
+            settings = extraction_settings(header, config, catalogue)
+            where = placements(path, settings)
+            line = catalogue.get_line(header["GLLINE"])
+            parent = catalogue.get_species(sp.parent) if sp.parent else None
+            for k, hdul in enumerate(inject_spectra(path, settings, line, sp, q, t_kin * u.K, model, where,
+                                                    parent)):
+                inp, _ = stack_input(hdul, catalogue, config)
+                vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
+                groups.setdefault((where[k].index, vrank), []).append(inp)
+        for key, members in band_groups(list(bands_paths or []), species, q, config, catalogue, model,
+                                        t_all.size).items():
+            groups.setdefault(key, []).extend(members)
+        for (index, vrank), members in sorted(groups.items()):
+            w = np.array([1 / m.sigma_q[it] ** 2 for m in members])             # (n, n_ap)
+            qs = np.array([m.q[it] for m in members])
+            q_rec = (w * qs).sum(axis=0) / w.sum(axis=0)
+            sig = 1 / np.sqrt(w.sum(axis=0))
+            for j, radius in enumerate(members[0].radius_km):
+                rows.append({"level": level, "q_injected": q, "t_kin_K": float(t_all[it]), "placement": index,
+                             "velocity_slot": vrank, "aperture_km": float(radius), "q_recovered": q_rec[j],
+                             "q_err": sig[j], "snr": q_rec[j] / sig[j], "n_spectra": len(members)})
+        if groups:
+            first = min(r["aperture_km"] for r in rows if r["level"] == level)
+            snr = [r["snr"] for r in rows if r["level"] == level and r["aperture_km"] == first]
+            what = "at its upper limit" if level == "limit" else "at the rate the push needs (lightest nucleus)"
+            log.info("%s: a coma %s, Q = %.3g /s, would be seen at %.1f sigma (median; %.1f to %.1f over %d "
+                     "placements, %.0f km aperture)", species, what, q, np.median(snr), np.min(snr), np.max(snr),
+                     len(snr), first)
+    table = QTable(rows=rows) if rows else QTable(names=["level", "q_injected", "snr"], dtype=[str, float, float])
+    for name in ("q_injected", "q_recovered", "q_err"):
+        if name in table.colnames:
+            table[name] = table[name] / u.s
+    if "aperture_km" in table.colnames:
+        table["aperture_km"] = table["aperture_km"] * u.km
+    table.meta["species"] = species
+    table.meta["provenance"] = provenance_record(config, [*subcube_paths, *(bands_paths or []), limits_path,
+                                                          budget_path], "injection")
+    table.meta["bands"] = ("infrared bands: injected at the nucleus and on a ring of sky positions; recovered = "
+                           "measurement with minus without the injection (the estimator is linear)")
+    write_table(table, out_path)

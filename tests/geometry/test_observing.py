@@ -1,0 +1,126 @@
+"""Per-cube geometry: position modes, offsets, tracking, ephemeris spacing, JD/MJD tables, the ephemeris command."""
+
+import warnings
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.coordinates import SkyCoord
+from astropy.table import QTable
+from astropy.time import Time
+from cubes import write_cube
+
+from pipeline.io.cubes import read_cube_info
+from pipeline.geometry.ephemeris import SpacingWarning, check_spacing, interpolation_error, read_ephemeris
+from pipeline.geometry.observing import MotionWarning, cube_geometry
+from pipeline.geometry.make_ephemeris import main as make_ephemeris
+from pipeline.offline import future_time_tolerated
+from pipeline.geometry.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
+
+ELEMENTS = {"q_au": 1.12, "e": 2.7, "i_deg": 122.0, "node_deg": 211.0, "peri_deg": 37.0,
+            "tp": "2031-02-20T06:00:00"}
+
+
+def _table(tmp_path, ra, dec, name="eph.ecsv", ddot=10.0):
+    times = Time("2024-02-29T00:00:00") + np.arange(0, 73, 3) * u.hour
+    n = len(times)
+    eph = QTable({"time": times, "ra": np.full(n, ra) * u.deg, "dec": np.full(n, dec) * u.deg,
+                  "r_h": np.full(n, 1.5) * u.au, "delta": np.full(n, 1.0) * u.au,
+                  "delta_dot": np.full(n, ddot) * u.km / u.s})
+    write_ephemeris(eph, tmp_path / name)
+    return read_ephemeris(tmp_path / name)
+
+
+def test_phase_centre_and_offset(tmp_path):
+    cube = read_cube_info(write_cube(tmp_path / "c.fits"))
+    eph = _table(tmp_path, 150.0005, -20.0002)
+    geo = cube_geometry(cube, "c", "e", ephemeris=eph, position="phase_centre")[0]
+    # the phase centre is the reference pixel CRPIX (1-based) = 0-based CRPIX - 1 (FITS WCS paper I)
+    assert geo["x_pix"] == pytest.approx(cube.header["CRPIX1"] - 1, abs=1e-6)
+    assert geo["y_pix"] == pytest.approx(cube.header["CRPIX2"] - 1, abs=1e-6)
+    off = cube_geometry(cube, "c", "e", ephemeris=eph, position="phase_centre", offset=(1.0, 0.5))[0]
+    # 0.5 arcsec pixels: 1" east is 2 pixels towards -x (RA increases to the left), 0.5" north is +1 pixel in y
+    assert off["x_pix"] - geo["x_pix"] == pytest.approx(-2.0, abs=1e-3)
+    assert off["y_pix"] - geo["y_pix"] == pytest.approx(1.0, abs=1e-3)
+    sep = SkyCoord(off["ra_target"], off["dec_target"]).separation(SkyCoord(150 * u.deg, -20 * u.deg))
+    assert sep.to_value(u.arcsec) == pytest.approx(np.hypot(1.0, 0.5), rel=1e-4)
+
+
+def test_auto_uses_phase_centre_for_source_frame(tmp_path, caplog):
+    cube = read_cube_info(write_cube(tmp_path / "c.fits", SPECSYS="SOURCE"))
+    eph = _table(tmp_path, 150.0005, -20.0002)
+    with caplog.at_level("INFO"):
+        geo = cube_geometry(cube, "c", "e", ephemeris=eph)[0]
+    assert geo["position"] == "phase_centre" and "automatic choice" in caplog.text
+    geo = cube_geometry(read_cube_info(write_cube(tmp_path / "d.fits")), "d", "e", ephemeris=eph)[0]
+    assert geo["position"] == "ephemeris"
+
+
+def test_untracked_motion_warns(tmp_path):
+    times = Time("2024-02-29T00:00:00") + np.arange(0, 73, 3) * u.hour
+    ra = 150.0 + (np.arange(len(times)) * 3) * 10 / 3600  # 10 arcsec per hour
+    eph = QTable({"time": times, "ra": ra * u.deg, "dec": np.full(len(times), -20.0) * u.deg,
+                  "r_h": np.full(len(times), 1.5) * u.au, "delta": np.full(len(times), 1.0) * u.au,
+                  "delta_dot": np.full(len(times), 5.0) * u.km / u.s})
+    write_ephemeris(eph, tmp_path / "e.ecsv")
+    ephem = read_ephemeris(tmp_path / "e.ecsv")
+    t0 = Time("2024-03-01T10:00:00")  # DATE-OBS of the test cube, EXPTIME 1800 s
+    ra_mid = 150.0 + (t0 + 900 * u.s - times[0]).to_value(u.h) * 10 / 3600
+    cube = read_cube_info(write_cube(tmp_path / "c2.fits", CRVAL1=ra_mid))
+    with pytest.warns(MotionWarning, match="moved"):
+        geo = cube_geometry(cube, "c", "e", ephemeris=ephem, tracked=False)[0]
+    # 30 min exposure at 10"/h along RA at Dec -20: 5 arcsec of arc times cos(dec) (small-angle geometry)
+    assert geo["motion"].to_value(u.arcsec) == pytest.approx(5.0 * np.cos(np.deg2rad(20)), rel=1e-3)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", MotionWarning)
+        cube_geometry(cube, "c", "e", ephemeris=ephem, tracked=True)
+
+
+def test_spacing_warning_for_coarse_table(tmp_path):
+    el = OrbitalElements.from_mapping(ELEMENTS)
+    with future_time_tolerated():
+        fine = ephemeris_from_elements(el, Time("2031-03-09"), Time("2031-03-12"), 30 * u.min)
+        coarse = ephemeris_from_elements(el, Time("2031-03-09"), Time("2031-03-19"), 1 * u.day)
+        write_ephemeris(fine, tmp_path / "fine.ecsv")
+        write_ephemeris(coarse, tmp_path / "coarse.ecsv")
+        f, c = read_ephemeris(tmp_path / "fine.ecsv"), read_ephemeris(tmp_path / "coarse.ecsv")
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", SpacingWarning)
+            check_spacing(f)
+        with pytest.warns(SpacingWarning, match="finer table"):
+            check_spacing(c)
+        # the estimate must bound the real error: compare the coarse interpolation with direct propagation
+        t = Time("2031-03-13T11:17:00")
+        real = observe(el, t.reshape(1))
+        got = c.at(t)
+        miss = SkyCoord(got["ra"], got["dec"]).separation(SkyCoord(real["ra"][0], real["dec"][0])).to(u.arcsec)
+        est = interpolation_error(c)["position"]
+        assert miss < 3 * est  # Richardson estimate within a small factor (cubic spline error ~ h^4)
+
+
+@pytest.mark.parametrize("column,values", [("jd", lambda t: t.jd), ("mjd", lambda t: t.mjd),
+                                           ("time", lambda t: t.mjd), ("time", lambda t: t.jd)])
+def test_numeric_time_columns(tmp_path, column, values):
+    times = Time("2024-02-29T00:00:00") + np.arange(0, 10) * u.hour
+    n = len(times)
+    t = QTable({column: values(times), "ra": np.linspace(10, 10.1, n) * u.deg, "dec": np.zeros(n) * u.deg,
+                "r_h": np.ones(n) * u.au, "delta": np.ones(n) * u.au, "delta_dot": np.ones(n) * u.km / u.s})
+    t.write(tmp_path / "e.ecsv", format="ascii.ecsv")
+    e = read_ephemeris(tmp_path / "e.ecsv")
+    lo, hi = e.span
+    assert abs((lo - times[0]).to_value(u.s)) < 1e-3 and abs((hi - times[-1]).to_value(u.s)) < 1e-3
+
+
+def test_make_ephemeris_command(tmp_path, capsys):
+    import json
+
+    out = tmp_path / "e.ecsv"
+    rc = make_ephemeris(["--elements", json.dumps(ELEMENTS), "--start", "2031-03-10", "--stop", "2031-03-11",
+                         "--step", "60", "--out", str(out)])
+    assert rc == 0 and "25 rows" in capsys.readouterr().out
+    with future_time_tolerated():
+        table = read_ephemeris(out)
+        direct = observe(OrbitalElements.from_mapping(ELEMENTS), Time(["2031-03-10T05:00:00"]))
+    assert table.at(Time("2031-03-10T05:00:00"))["delta"].to_value(u.au) == pytest.approx(
+        direct["delta"][0].to_value(u.au), rel=1e-9)
+    assert make_ephemeris(["--start", "x", "--stop", "y", "--out", str(out)]) == 2

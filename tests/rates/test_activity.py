@@ -1,0 +1,42 @@
+"""Activity-law fits Q(r_h) = Q0 r_h^-n, checked against scipy's curve_fit and a hand-worked example."""
+
+import numpy as np
+import pytest
+from scipy.optimize import curve_fit
+
+from pipeline.rates.activity import fit_fixed_slope, fit_free_slope
+
+
+def test_fixed_slope_hand_worked():
+    # two epochs at r = 1 and 2 au, n = 2: f = (1, 0.25); q = (4, 1.5), sigma = (1, 0.5) -> w = (1, 4)
+    # Q0 = (1*4*1 + 4*1.5*0.25) / (1*1 + 4*0.0625) = (4 + 1.5) / 1.25 = 4.4 ; sigma = 1/sqrt(1.25) = 0.8944
+    fit = fit_fixed_slope([4.0, 1.5], [1.0, 0.5], [1.0, 2.0], 2.0, 0.99865)
+    assert fit.q0 == pytest.approx(4.4, rel=1e-12) and fit.q0_err == pytest.approx(1 / np.sqrt(1.25), rel=1e-12)
+    assert fit.q0_upper > fit.q0
+
+
+def test_fixed_slope_matches_curve_fit():
+    rng = np.random.default_rng(4)
+    r = np.array([1.1, 1.3, 1.6, 2.0, 2.4])
+    s = np.array([0.3, 0.2, 0.25, 0.1, 0.15])
+    q = 5.0 * r**-2.5 + rng.normal(0, s)
+    fit = fit_fixed_slope(q, s, r, 2.5, 0.99865)
+    popt, pcov = curve_fit(lambda x, q0: q0 * x**-2.5, r, q, p0=[1.0], sigma=s, absolute_sigma=True)
+    assert fit.q0 == pytest.approx(popt[0], rel=1e-8) and fit.q0_err == pytest.approx(np.sqrt(pcov[0, 0]), rel=1e-6)
+
+
+def test_free_slope_recovers_the_law_and_its_error():
+    rng = np.random.default_rng(5)
+    r = np.linspace(1.0, 3.0, 8)
+    s = 0.02 * 10 * r**-3
+    q = 10 * r**-3 + rng.normal(0, s)
+    fit = fit_free_slope(q, s, r, 0.99865)
+    popt, pcov = curve_fit(lambda x, q0, n: q0 * x**-n, r, q, p0=[5, 2], sigma=s, absolute_sigma=True)
+    assert fit.n == pytest.approx(popt[1], abs=1e-4) and fit.q0 == pytest.approx(popt[0], rel=1e-4)
+    half = 0.5 * (fit.n_hi - fit.n_lo)       # profile interval vs the curve_fit covariance (near-linear problem)
+    assert half == pytest.approx(np.sqrt(pcov[1, 1]), rel=0.05)
+
+
+def test_free_slope_needs_spread_epochs():
+    with pytest.raises(ValueError, match="at least 3 epochs"):
+        fit_free_slope([1.0, 2.0], [0.1, 0.1], [1.0, 1.2], 0.99)

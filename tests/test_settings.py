@@ -1,0 +1,182 @@
+"""Tests of pipeline.settings: schema defaults, one-sentence errors naming the key, safe YAML loading.
+
+The reference for the schema semantics is the JSON Schema 2020-12 specification as implemented by
+the jsonschema package; defaults are checked against the values written in config/schema.yaml.
+"""
+
+import copy
+
+import pytest
+import yaml
+
+from pipeline.settings import SCHEMA_FILE, check_inputs_exist, cube_entries, load_config, validate_config
+from pipeline.errors import ConfigError
+
+ELEMENTS = {"q_au": 1.2, "e": 3.1, "i_deg": 40.0, "node_deg": 120.0, "peri_deg": 60.0, "tp": "2031-05-10T00:00:00"}
+
+
+def _base(**changes):
+    config = {
+        "target": {"ephemeris": "eph.ecsv"},
+        "cubes": [{"path": "data/c1.fits"}, {"path": "data/c2.fits", "id": "second", "epoch": "e2"}],
+        "species": ["CO", "HCN"],
+    }
+    config.update(copy.deepcopy(changes))
+    return config
+
+
+def test_defaults_filled_from_the_schema():
+    config = validate_config(_base())
+    with open(SCHEMA_FILE, encoding="utf-8") as fh:
+        schema = yaml.safe_load(fh)
+    props = schema["properties"]
+    # every top-level default written in the schema file appears in the validated config
+    for key, sub in props.items():
+        if "default" in sub:
+            assert key in config, key
+    assert config["apertures_km"] == props["apertures_km"]["default"]
+    assert config["observatory"] == "geocentre"
+    assert config["limits"] == {"nsigma": 3, "window_factor": 1.5, "activity_slope": 2.0}
+    assert config["comoving"]["half_width_km_s"] == 40
+    assert config["excitation"]["t_kin_K"] == [10, 20, 40, 80]
+    assert config["coma"] == {"outflow_km_s": "law", "solar_activity": "quiet"}
+    assert config["budget"]["nucleus"] == {"radius_km": [0.1, 1.0], "density_kg_m3": [300, 1000]}
+    assert config["target"]["name"] == "target"
+    assert config["cubes"][0]["spectral_response"] == "hanning"
+    # given values are kept, not overwritten by defaults
+    config = validate_config(_base(limits={"nsigma": 5}))
+    assert config["limits"] == {"nsigma": 5, "window_factor": 1.5, "activity_slope": 2.0}
+
+
+def test_defaults_are_not_shared_between_configs():
+    a = validate_config(_base())
+    a["apertures_km"].append(99)
+    b = validate_config(_base())
+    assert 99 not in b["apertures_km"]
+
+
+def test_cube_entries_ids_and_epochs():
+    entries = cube_entries(validate_config(_base()))
+    assert [(e.cube_id, e.epoch, e.path) for e in entries] == [("c1", "c1", "data/c1.fits"),
+                                                               ("second", "e2", "data/c2.fits")]
+    assert entries[0].time is None
+
+
+@pytest.mark.parametrize("config, match", [
+    (_base(speceis=["CO"]), r"camp\.yaml: unknown key 'speceis' under \(top level\) \(misspelt\?\)"),
+    (_base(limits={"nsigmaa": 3}), r"unknown key 'nsigmaa' under limits .*allowed keys there: activity_slope, nsigma, window_factor"),
+    (_base(budget={"nucleus": {"radius_kmm": [1, 2]}}), r"unknown key 'radius_kmm' under budget\.nucleus"),
+    (_base(observatory={"lon_deg": 1.0, "lat_deg": 2.0, "heigth_m": 3.0}), r"unknown key 'heigth_m' under observatory"),
+    (_base(target={"ephemeris": "e.ecsv", "nmae": "x"}), r"unknown key 'nmae' under target"),
+    (_base(limits={"nsigma": "three"}), r"key limits\.nsigma = 'three' is not valid: 'three' is not of type 'number'"),
+    (_base(species="CO"), r"key species = 'CO' is not valid: 'CO' is not of type 'array'"),
+    (_base(apertures_km=[1000, -5]), r"key apertures_km\[1\] = -5 is not valid: .*minimum of 0"),
+    (_base(apertures_arcsec=[0]), r"key apertures_arcsec\[0\] = 0 is not valid"),
+    (_base(observatory={"lon_deg": 1.0, "lat_deg": 200.0, "height_m": 3.0}),
+     r"key observatory\.lat_deg = 200\.0 is not valid: .*maximum of 90"),
+    (_base(coma={"outflow_km_s": "fast"}), r"key coma\.outflow_km_s = 'fast' is not valid: .*not one of \['law'\]"),
+    (_base(target={"ephemeris": "e.ecsv", "elements": ELEMENTS}),
+     r"target must give exactly one of 'ephemeris' or 'elements'"),
+    (_base(target={"name": "x"}), r"target must give exactly one of 'ephemeris' or 'elements'"),
+    (_base(target={"elements": {**ELEMENTS, "e": -0.5}}), r"key target\.elements\.e = -0\.5 is not valid"),
+    (_base(target={"elements": {k: v for k, v in ELEMENTS.items() if k != "tp"}}),
+     r"target\.elements is missing the required key 'tp'"),
+    (_base(cubes=[{"path": "a.fits", "id": "../x"}]), r"key cubes\[0\]\.id = '\.\./x' is not valid"),
+    (_base(cubes=[{"path": "a.fits", "epoch": "e/1"}]), r"key cubes\[0\]\.epoch = 'e/1' is not valid"),
+    (_base(cubes=[{"path": "a.fits", "spectral_response": "boxcar"}]), r"key cubes\[0\]\.spectral_response"),
+    (_base(cubes=[]), r"key cubes = \[\] is not valid"),
+    (_base(cubes=[{"id": "x"}]), r"cubes\[0\] is missing the required key 'path'"),
+])
+def test_invalid_configs_name_the_key(config, match):
+    with pytest.raises(ConfigError, match=match):
+        validate_config(config, source="camp.yaml")
+
+
+def test_missing_required_top_level_key():
+    config = _base()
+    del config["species"]
+    with pytest.raises(ConfigError, match=r"camp\.yaml: \(top level\) is missing the required key 'species'"):
+        validate_config(config, source="camp.yaml")
+
+
+def test_duplicated_cube_ids():
+    config = _base(cubes=[{"path": "a/c1.fits"}, {"path": "b/c1.fits"}])
+    with pytest.raises(ConfigError, match=r"cube id 'c1' is used by both 'a/c1\.fits' and 'b/c1\.fits'"):
+        validate_config(config)
+    config = _base(cubes=[{"path": "a.fits", "id": "x"}, {"path": "b.fits", "id": "x"}])
+    with pytest.raises(ConfigError, match="cube id 'x' is used by both"):
+        validate_config(config)
+
+
+def test_id_from_a_hidden_file_name_is_refused():
+    with pytest.raises(ConfigError, match=r"cubes\[0\]: the id '' \(from the file name\) is not usable"):
+        validate_config(_base(cubes=[{"path": "data/.hidden.fits"}]))
+
+
+def test_elements_target_is_accepted():
+    config = validate_config(_base(target={"elements": ELEMENTS}))
+    assert config["target"]["elements"] == ELEMENTS
+
+
+def test_check_inputs_exist(tmp_path):
+    eph = tmp_path / "eph.ecsv"
+    eph.write_text("x")
+    cube = tmp_path / "c1.fits"
+    cube.write_text("x")
+    config = validate_config(_base(target={"ephemeris": str(eph)}, cubes=[{"path": str(cube)}]))
+    check_inputs_exist(config)                 # all present: no error
+    config["cubes"].append({"path": str(tmp_path / "c2.fits")})
+    with pytest.raises(ConfigError, match=r"camp\.yaml: cubes\[1\]\.path names the file '.*c2\.fits', which does not"):
+        check_inputs_exist(config, source="camp.yaml")
+    config = validate_config(_base(target={"ephemeris": str(tmp_path / "none.ecsv")}, cubes=[{"path": str(cube)}]))
+    with pytest.raises(ConfigError, match=r"target\.ephemeris names the file"):
+        check_inputs_exist(config)
+    config = validate_config(_base(target={"ephemeris": str(eph)}, cubes=[{"path": str(cube)}],
+                                   catalogue={"species_file": str(eph), "lines_file": "no_lines.ecsv"}))
+    with pytest.raises(ConfigError, match=r"catalogue\.lines_file names the file 'no_lines\.ecsv'"):
+        check_inputs_exist(config)
+    # a directory is not a file
+    config = validate_config(_base(target={"ephemeris": str(tmp_path)}, cubes=[{"path": str(cube)}]))
+    with pytest.raises(ConfigError, match="target.ephemeris"):
+        check_inputs_exist(config)
+
+
+def test_load_config_round_trip(tmp_path):
+    path = tmp_path / "camp.yaml"
+    path.write_text(yaml.safe_dump(_base(campaign="a test campaign")))
+    config = load_config(path)
+    assert config["campaign"] == "a test campaign"
+    assert config["limits"]["nsigma"] == 3
+
+
+@pytest.mark.parametrize("text, match", [
+    ("- a\n- b\n", "expected a mapping of keys at the top level, found list"),
+    ("just a sentence\n", "expected a mapping of keys at the top level, found str"),
+    ("", "found NoneType"),
+    ("target: [unclosed\n", "is not valid YAML"),
+])
+def test_yaml_that_is_not_a_mapping(tmp_path, text, match):
+    path = tmp_path / "bad.yaml"
+    path.write_text(text)
+    with pytest.raises(ConfigError, match=match):
+        load_config(path)
+
+
+def test_python_tags_are_not_executed(tmp_path):
+    # yaml.safe_load refuses python/* tags (PyYAML documentation: only standard YAML tags are built);
+    # the tag would create a folder if it were ever constructed
+    marker = tmp_path / "constructed"
+    path = tmp_path / "evil.yaml"
+    path.write_text(f"target: !!python/object/apply:os.mkdir [{str(marker)!r}]\n"
+                    "cubes: [{path: a.fits}]\nspecies: [CO]\n")
+    with pytest.raises(ConfigError, match="is not valid YAML"):
+        load_config(path)
+    assert not marker.exists()
+    path.write_text("target: !!python/object:pipeline.settings.CubeEntry {cube_id: x}\n")
+    with pytest.raises(ConfigError, match="is not valid YAML"):
+        load_config(path)
+
+
+def test_missing_config_file(tmp_path):
+    with pytest.raises(ConfigError, match=r"config file '.*absent\.yaml' does not exist"):
+        load_config(tmp_path / "absent.yaml")

@@ -1,0 +1,265 @@
+"""End to end: the real Snakemake workflow on the small invented scenario, in a temporary folder.
+
+The injected rates come from synthetic_cubes (truth.yaml). The generator shares the pipeline's physics, so
+this is a consistency check of the whole chain (frames, apertures, noise, stacking, limits, budget, report);
+the physics functions have their own external checks in the other test files.
+"""
+
+import json
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+import pytest
+import yaml
+from astropy.table import QTable
+
+from synthetic_cubes import small_scenario, write_scenario
+
+REPO = Path(__file__).resolve().parents[2]
+pytestmark = pytest.mark.workflow
+
+
+def _command(workdir: Path, config: Path, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
+            "--configfile", str(config), "--cores", "2", *extra]
+
+
+def snakemake(workdir: Path, config: Path, *extra: str) -> subprocess.CompletedProcess:
+    return subprocess.run(_command(workdir, config, *extra), capture_output=True, text=True, timeout=900)
+
+
+def _dry_run_jobs(root: Path, cfg: dict, path: Path) -> dict[str, int]:
+    """Write ``cfg`` to ``path`` and return the rule -> job count of a dry run with it."""
+    path.write_text(yaml.safe_dump(cfg))
+    dry = snakemake(root, path, "--dry-run")
+    assert dry.returncode == 0, dry.stderr[-2000:]
+    return _jobs(dry.stdout)
+
+
+@pytest.fixture(scope="module")
+def campaign(tmp_path_factory):
+    root = tmp_path_factory.mktemp("campaign")
+    config = write_scenario(small_scenario(), root / "data", results=str(root / "results"), progress=lambda s: None)
+    run = snakemake(root, config)
+    assert run.returncode == 0, run.stderr[-4000:]
+    return root, config
+
+
+def _limits(root: Path) -> QTable:
+    return QTable.read(root / "results" / "limits.ecsv", format="ascii.ecsv")
+
+
+def _row(table, species, epoch, aperture, t_kin=40.0):
+    sel = table[(table["species"] == species) & (table["epoch"] == epoch)
+                & (np.isclose(table["aperture_km"].to_value(u.km), aperture)) & (table["t_kin_K"] == t_kin)]
+    assert len(sel) == 1
+    return sel[0]
+
+
+@pytest.mark.parametrize("aperture", [1000.0, 3000.0])
+def test_hcn_recovered(campaign, aperture):
+    root, _ = campaign
+    truth = yaml.safe_load((root / "data" / "truth.yaml").read_text())["production_rates_per_s"]["HCN"]
+    row = _row(_limits(root), "HCN", "all", aperture)   # the injected temperature is 40 K
+    q, err = row["q"].to_value(1 / u.s), row["q_err"].to_value(1 / u.s)
+    assert row["detected"]
+    # "within its stated error": 2 sigma, since a 1-sigma band misses the truth a third of the time by design
+    assert abs(q - truth) < 2 * err
+    assert abs(q - truth) < 0.15 * truth
+
+
+@pytest.mark.parametrize("aperture", [1000.0, 3000.0])
+def test_ch3oh_within_error(campaign, aperture):
+    root, _ = campaign
+    truth = yaml.safe_load((root / "data" / "truth.yaml").read_text())["production_rates_per_s"]["CH3OH"]
+    row = _row(_limits(root), "CH3OH", "all", aperture)
+    q, err = row["q"].to_value(1 / u.s), row["q_err"].to_value(1 / u.s)
+    assert abs(q - truth) < 2 * err
+    assert row["q_upper"].to_value(1 / u.s) > truth * 0.5
+
+
+def test_co_limit_above_zero_truth(campaign):
+    root, _ = campaign
+    co = _limits(root)
+    co = co[co["species"] == "CO"]
+    assert len(co) > 0
+    assert np.all(co["q_upper"].to_value(1 / u.s) > 0)          # the truth is zero
+    assert not np.any(co[co["epoch"] == "all"]["detected"])
+
+
+def test_outputs_contract_and_provenance(campaign):
+    root, config = campaign
+    table = _limits(root)
+    for col in ("species", "epoch", "aperture_km", "t_kin_K", "q", "q_err", "q_upper", "snr", "detected"):
+        assert col in table.colnames
+    assert table["q_upper"].unit == 1 / u.s
+    prov = table.meta["provenance"]
+    assert prov["software"] == "gasledger" and prov["inputs"]
+    assert all(v.startswith("sha256:") for v in prov["inputs"].values())
+    assert prov["config"]["species"] == ["CH3OH", "CO", "CO2", "H2O", "HCN"]
+    budget = json.loads((root / "results" / "budget.json").read_text())
+    verdicts = {d["species"]: d["verdict"] for d in budget["drivers"]}
+    assert all(verdicts[s] != "not observed" for s in ("H2O", "CO2", "CO"))    # the infrared cubes cover them
+    html = (root / "results" / "report.html").read_text()
+    assert html.count("data:image/png;base64,") == 4
+    assert "peer review" in html and "Infrared bands and dust" in html
+    for name in ("stacked_spectra", "mass_budget", "temperature_sweep", "infrared_spectra"):
+        assert (root / "results" / "figures" / f"{name}.png").stat().st_size > 10_000
+
+
+def _jobs(dry_run_stdout: str) -> dict[str, int]:
+    """Rule -> job count from the 'Job stats' table of a dry run."""
+    counts = {}
+    block = dry_run_stdout.split("Job stats:")[-1] if "Job stats:" in dry_run_stdout else ""
+    for line in block.splitlines():
+        m = re.match(r"^([A-Za-z_]\w*)\s+(\d+)\s*$", line.strip())
+        if m and m.group(1) != "total":
+            counts[m.group(1)] = int(m.group(2))
+    return counts
+
+
+def test_rerun_with_nothing_changed_runs_nothing(campaign):
+    root, config = campaign
+    dry = snakemake(root, config, "--dry-run")
+    assert dry.returncode == 0, dry.stderr[-2000:]
+    assert _jobs(dry.stdout) == {}
+    assert "Nothing to be done" in dry.stdout + dry.stderr
+
+
+def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
+    root, config = campaign
+    cfg = yaml.safe_load(config.read_text())
+    src = root / "data" / "e3_hcn.fits"
+    new = root / "data" / "e4_hcn.fits"
+    shutil.copy(src, new)
+    cfg["cubes"].append({"path": str(new), "id": "e4_hcn", "epoch": "e4"})
+    jobs = _dry_run_jobs(root, cfg, tmp_path / "four.yaml")
+    # the new cube's own jobs (one HCN line), the HCN aggregation, the campaign tables, and the injections,
+    # which depend on the campaign tables for every species
+    assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "limits_species": 1, "limits": 1,
+                    "budget": 1, "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
+
+
+def test_report_renders_in_a_real_browser(campaign, tmp_path):
+    """The report opened in headless Chromium shows its figures (pixels in the figures' line colours)."""
+    import os
+
+    sys.path.insert(0, str(REPO / "tools"))
+    import check_report
+
+    if check_report.find_chromium() is None:
+        if os.environ.get("CI"):
+            pytest.fail("CI must have Chromium (.ci/run installs Debian's chromium)")
+        pytest.skip("no Chromium on this machine (Debian: apt-get install chromium); CI installs it")
+    root, _ = campaign
+    png = tmp_path / "report.png"
+    check_report.screenshot(root / "results" / "report.html", png)
+    assert check_report.figure_pixels(png) >= 3000
+
+
+def test_snakemake_report_builds(campaign, tmp_path):
+    """Snakemake's own report (figures and tables registered with report()) builds from the finished run."""
+    root, config = campaign
+    out = tmp_path / "snakemake_report.html"
+    run = snakemake(root, config, "--report", str(out))
+    assert run.returncode == 0, run.stderr[-2000:]
+    assert out.stat().st_size > 100_000
+
+
+def _run_until(workdir: Path, config: Path, condition, timeout: float = 300) -> bool:
+    """Start the workflow, SIGKILL its whole process group as soon as ``condition()`` holds. True if killed."""
+    import os
+    import signal
+    import time
+
+    proc = subprocess.Popen(_command(workdir, config, "--rerun-incomplete"), stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, start_new_session=True)
+    t0 = time.monotonic()
+    try:
+        while proc.poll() is None and time.monotonic() - t0 < timeout:
+            if condition():
+                os.killpg(proc.pid, signal.SIGKILL)
+                proc.wait()
+                return True
+            time.sleep(0.05)
+        return False
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+
+
+def _all_outputs_complete(results: Path) -> None:
+    """Every file under its final name is whole: FITS checksums verify, ECSV tables read."""
+    from astropy.io import fits
+
+    for path in results.rglob("*"):
+        if path.suffix == ".fits":
+            with fits.open(path, checksum=True) as hdul:   # raises/warns on a truncated or altered file
+                hdul.verify("exception")
+        elif path.suffix == ".ecsv":
+            QTable.read(path, format="ascii.ecsv")
+
+
+def test_killed_runs_resume_to_identical_outputs(campaign):
+    """Kill during cube jobs, then during aggregation; each rerun resumes; final tables equal an uninterrupted run."""
+    root, config = campaign
+    results = root / "results"
+    reference = {p.relative_to(results): p.read_bytes() for p in results.rglob("*.ecsv")}
+    shutil.rmtree(results)
+    shutil.rmtree(root / ".snakemake", ignore_errors=True)
+    killed = _run_until(root, config, lambda: len(list((results / "spectra").rglob("*.fits"))) >= 3)
+    assert killed
+    _all_outputs_complete(results)
+    assert snakemake(root, config, "--unlock").returncode == 0
+    killed = _run_until(root, config, lambda: (results / "stack").is_dir() and any((results / "stack").iterdir()))
+    assert killed
+    _all_outputs_complete(results)
+    assert snakemake(root, config, "--unlock").returncode == 0
+    final = snakemake(root, config, "--rerun-incomplete")
+    assert final.returncode == 0, final.stderr[-3000:]
+    assert not list(results.rglob("*.part"))                                  # no temporary files left over
+    now = {p.relative_to(results): p.read_bytes() for p in results.rglob("*.ecsv")}
+    assert now.keys() == reference.keys()
+    for name, data in reference.items():
+        assert now[name] == data, f"{name} differs from the uninterrupted run"
+
+
+def test_changing_one_value_reruns_only_what_uses_it(campaign, tmp_path):
+    root, config = campaign
+    cfg = yaml.safe_load(config.read_text())
+    cfg["limits"]["nsigma"] = 2.5
+    jobs = _dry_run_jobs(root, cfg, tmp_path / "nsigma.yaml")
+    # limits.nsigma is a param of limits_species, injection and forecast: those rerun, with the tables after them
+    assert jobs == {"limits_species": 5, "limits": 1, "budget": 1, "injection": 5, "forecast": 1, "report": 1,
+                    "all": 1}, jobs
+
+
+def test_infrared_rates_limits_and_dust(campaign):
+    """The small scenario's infrared cubes (e1, e3): H2O recovered, CO2 and CO limits, Afrho and colour near truth."""
+    root, _ = campaign
+    truth = yaml.safe_load((root / "data" / "truth.yaml").read_text())
+    table = _limits(root)
+    cons = table[table["conservative"]]
+    h2o = cons[(cons["species"] == "H2O")]
+    assert set(h2o["epoch"]) == {"e1", "e3", "all"}
+    for row in h2o:   # stated error, plus 3 % for the PSF and pixel grid (see tests/test_bands_stage.py)
+        q, err = row["q"].to_value(1 / u.s), row["q_err"].to_value(1 / u.s)
+        assert abs(q - truth["production_rates_per_s"]["H2O"]) < 3.5 * err + 0.03 * q
+        assert row["detected"] and "H2O_nu3" in row["lines"]
+    co2 = cons[(cons["species"] == "CO2") & (cons["epoch"] == "all")]
+    assert len(co2) and not np.any(co2["detected"]) and np.all(co2["q_upper"].to_value(1 / u.s) > 0)
+    co = cons[(cons["species"] == "CO") & (cons["epoch"] == "all")]
+    assert all("CO_v1-0" in str(x) and "CO_230538" in str(x) for x in co["lines"])   # lines and band combined
+    dust = QTable.read(root / "results" / "dust.ecsv", format="ascii.ecsv")
+    row = dust[(dust["epoch"] == "all")][-1]
+    assert abs(row["afrho"].to_value(u.cm) / truth["dust"]["afrho_cm"] - 1) < 0.03
+    assert np.isfinite(row["slope"]) and row["slope"] > 0
+    injection = QTable.read(root / "results" / "injection" / "H2O.ecsv", format="ascii.ecsv")
+    ratio = (injection["q_recovered"] / injection["q_injected"]).decompose().value
+    assert len(ratio) and np.allclose(ratio, 1.0, rtol=1e-3)   # differenced injection: the chain's self-consistency
