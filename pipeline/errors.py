@@ -2,7 +2,8 @@
 
 Every error subclasses both :class:`GasledgerError` and the standard exception
 type that fits it, so callers can catch either.  Messages name the file, the
-config key or the header card, what was found and what was expected.
+config key or the header card, what was found and what was expected.  Soft
+problems are warnings of a :class:`GasledgerWarning` subclass.
 """
 
 __all__ = [
@@ -14,6 +15,9 @@ __all__ = [
     "CoverageError",
     "GasledgerWarning",
     "NoiseWarning",
+    "OpacityWarning",
+    "SpacingWarning",
+    "MotionWarning",
 ]
 
 
@@ -47,3 +51,15 @@ class GasledgerWarning(UserWarning):
 
 class NoiseWarning(GasledgerWarning):
     """The noise estimate rests on fewer samples than it should."""
+
+
+class OpacityWarning(GasledgerWarning):
+    """A line is bright enough that the optically thin assumption may fail."""
+
+
+class SpacingWarning(GasledgerWarning):
+    """The ephemeris table is too coarse for the accuracy asked for."""
+
+
+class MotionWarning(GasledgerWarning):
+    """The target moved by a sizeable fraction of the beam during the exposure."""

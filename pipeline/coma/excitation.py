@@ -13,7 +13,7 @@ import astropy.units as u
 import numpy as np
 
 from pipeline.catalogue.entries import Line, Species
-from pipeline.errors import CatalogueError, GasledgerWarning
+from pipeline.errors import CatalogueError, OpacityWarning
 
 __all__ = [
     "T_CMB",
@@ -21,15 +21,10 @@ __all__ = [
     "background_factor",
     "flux_per_molecule",
     "line_optical_depth",
-    "OpacityWarning",
 ]
 
 #: Cosmic microwave background temperature (Fixsen 2009, ApJ 707, 916).
 T_CMB = 2.72548 * u.K
-
-
-class OpacityWarning(GasledgerWarning):
-    """A line is bright enough that the optically thin assumption may fail."""
 
 
 def upper_level_fraction(line: Line, species: Species, t_kin: u.Quantity) -> np.ndarray:

@@ -17,14 +17,9 @@ from astropy.table import QTable
 from astropy.time import Time
 from scipy.interpolate import CubicSpline
 
-from pipeline.errors import EphemerisError, GasledgerWarning
+from pipeline.errors import EphemerisError, SpacingWarning
 
-__all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing",
-           "SpacingWarning", "GAP_FACTOR"]
-
-
-class SpacingWarning(GasledgerWarning):
-    """The ephemeris table is too coarse for the accuracy asked for."""
+__all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing", "GAP_FACTOR"]
 
 
 #: A table step longer than this many times the median step of the rows nearby is a gap.

@@ -19,17 +19,13 @@ from astropy.time import Time
 
 from pipeline.io.cubes import CubeInfo, observation_times
 from pipeline.geometry.ephemeris import Ephemeris
-from pipeline.errors import CoverageError, GasledgerWarning
+from pipeline.errors import CoverageError, MotionWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, observe
 
-__all__ = ["observer_location", "target_geometry", "cube_geometry", "MotionWarning"]
+__all__ = ["observer_location", "target_geometry", "cube_geometry"]
 
 log = logging.getLogger(__name__)
-
-
-class MotionWarning(GasledgerWarning):
-    """The target moved by a sizeable fraction of the beam during the exposure."""
 
 
 def observer_location(observatory: Any) -> EarthLocation | None:

@@ -16,9 +16,9 @@ from astropy.tests.helper import assert_quantity_allclose
 from numpy.testing import assert_allclose
 
 from pipeline.catalogue.entries import Line, load_catalogue
-from pipeline.errors import CatalogueError
-from pipeline.coma.excitation import (T_CMB, OpacityWarning, background_factor, flux_per_molecule,
-                                 line_optical_depth, upper_level_fraction)
+from pipeline.errors import CatalogueError, OpacityWarning
+from pipeline.coma.excitation import (T_CMB, background_factor, flux_per_molecule, line_optical_depth,
+                                      upper_level_fraction)
 
 CAT = load_catalogue()
 CO = CAT.get_species("CO")

@@ -11,8 +11,9 @@ from astropy.time import Time
 from cubes import write_cube
 
 from pipeline.io.cubes import read_cube_info
-from pipeline.geometry.ephemeris import SpacingWarning, check_spacing, interpolation_error, read_ephemeris
-from pipeline.geometry.observing import MotionWarning, cube_geometry
+from pipeline.errors import MotionWarning, SpacingWarning
+from pipeline.geometry.ephemeris import check_spacing, interpolation_error, read_ephemeris
+from pipeline.geometry.observing import cube_geometry
 from pipeline.geometry.make_ephemeris import main as make_ephemeris
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
