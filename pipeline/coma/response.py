@@ -14,7 +14,7 @@ import astropy.units as u
 import numpy as np
 
 from pipeline.catalogue.entries import Line, Species
-from pipeline.errors import CatalogueError
+from pipeline.errors import CatalogueError, ConfigError
 from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, scale_length
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
@@ -90,7 +90,7 @@ def window_capture(species: Species, t_kin: u.Quantity, velocity: np.ndarray, we
     """
     if spectral_response not in SPECTRAL_RESPONSES:
         msg = f"spectral_response must be one of {', '.join(SPECTRAL_RESPONSES)}, found {spectral_response!r}"
-        raise ValueError(msg)
+        raise ConfigError(msg)
     kernel = SPECTRAL_RESPONSES[spectral_response]
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     sig = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)

@@ -19,7 +19,7 @@ from astropy.time import Time
 
 from pipeline.io.cubes import CubeInfo, observation_times
 from pipeline.geometry.ephemeris import Ephemeris
-from pipeline.errors import CoverageError, MotionWarning
+from pipeline.errors import ConfigError, CoverageError, MotionWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, observe
 
@@ -44,8 +44,10 @@ def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
     Returns a dict of Quantities: ra, dec, r_h, delta, delta_dot, phase (when known).
     """
     if (ephemeris is None) == (elements is None):
-        msg = "give exactly one of an ephemeris table or orbital elements"
-        raise ValueError(msg)
+        found = "neither" if ephemeris is None else "both"
+        msg = (f"{what}: the target geometry needs exactly one of an ephemeris table or orbital elements "
+               f"(config key 'target'), found {found}")
+        raise ConfigError(msg)
     if ephemeris is not None:
         return ephemeris.at(times, what=what)
     with future_time_tolerated():
@@ -101,8 +103,8 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     elif mode == "ephemeris":
         base = sky[1]
     else:
-        msg = f"cube {cube_id}: position must be auto, ephemeris or phase_centre, found {position!r}"
-        raise ValueError(msg)
+        msg = f"cube {cube_id}: config key 'position' = {position!r}; expected 'auto', 'ephemeris' or 'phase_centre'"
+        raise ConfigError(msg)
     target = base.spherical_offsets_by(offset[0] * u.arcsec, offset[1] * u.arcsec) if any(offset) else base
     x, y = info.celestial_wcs.world_to_pixel(target)
     ny, nx = info.shape[1:]

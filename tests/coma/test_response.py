@@ -21,6 +21,7 @@ from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, sca
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 from pipeline.coma.response import (SPECTRAL_RESPONSES, ComaModel, line_response, outflow_speed,
                                window_capture)
+from pipeline.errors import ConfigError
 
 CAT = load_catalogue()
 CO = CAT.get_species("CO")
@@ -162,5 +163,5 @@ def test_window_capture_none_matches_channel_sum():
 
 
 def test_window_capture_unknown_response():
-    with pytest.raises(ValueError, match="spectral_response must be one of none, hanning, found 'boxcar'"):
+    with pytest.raises(ConfigError, match="spectral_response must be one of none, hanning, found 'boxcar'"):
         window_capture(CO, 20 * u.K, VELOCITY, np.ones_like(VELOCITY), 0.8 * u.km / u.s, "boxcar")

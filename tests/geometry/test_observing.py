@@ -11,7 +11,7 @@ from astropy.time import Time
 from cubes import write_cube
 
 from pipeline.io.cubes import read_cube_info
-from pipeline.errors import MotionWarning, SpacingWarning
+from pipeline.errors import ConfigError, MotionWarning, SpacingWarning
 from pipeline.geometry.ephemeris import check_spacing, interpolation_error, read_ephemeris
 from pipeline.geometry.observing import cube_geometry
 from pipeline.geometry.make_ephemeris import main as make_ephemeris
@@ -45,6 +45,19 @@ def test_phase_centre_and_offset(tmp_path):
     assert off["y_pix"] - geo["y_pix"] == pytest.approx(1.0, abs=1e-3)
     sep = SkyCoord(off["ra_target"], off["dec_target"]).separation(SkyCoord(150 * u.deg, -20 * u.deg))
     assert sep.to_value(u.arcsec) == pytest.approx(np.hypot(1.0, 0.5), rel=1e-4)
+
+
+def test_geometry_needs_one_source_and_a_known_position(tmp_path):
+    cube = read_cube_info(write_cube(tmp_path / "c.fits"))
+    eph = _table(tmp_path, 150.0005, -20.0002)
+    with pytest.raises(ConfigError, match=r"cube c \(.*c\.fits\): the target geometry needs exactly one of an "
+                                          r"ephemeris table or orbital elements \(config key 'target'\), found neither"):
+        cube_geometry(cube, "c", "e")
+    with pytest.raises(ConfigError, match="found both"):
+        cube_geometry(cube, "c", "e", ephemeris=eph, elements=OrbitalElements.from_mapping(ELEMENTS))
+    with pytest.raises(ConfigError, match="cube c: config key 'position' = 'centre'; expected 'auto', 'ephemeris' "
+                                          "or 'phase_centre'"):
+        cube_geometry(cube, "c", "e", ephemeris=eph, position="centre")
 
 
 def test_auto_uses_phase_centre_for_source_frame(tmp_path, caplog):
