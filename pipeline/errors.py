@@ -1,13 +1,16 @@
 """Error and warning classes of gasledger.
 
 Every error subclasses both :class:`GasledgerError` and the standard exception
-type that fits it, so callers can catch either.  Messages name the file, the
-config key or the header card, what was found and what was expected.  Soft
-problems are warnings of a :class:`GasledgerWarning` subclass.
+type that fits it, so callers can catch either: :class:`ValueError` for a bad
+value (most of them), :class:`TypeError` for an argument of the wrong kind
+(:class:`GasledgerTypeError`).  Messages name the file, the config key or the
+header card, what was found and what was expected.  Soft problems are warnings
+of a :class:`GasledgerWarning` subclass.
 """
 
 __all__ = [
     "GasledgerError",
+    "GasledgerTypeError",
     "ConfigError",
     "CubeError",
     "EphemerisError",
@@ -23,6 +26,10 @@ __all__ = [
 
 class GasledgerError(Exception):
     """Base class of every error raised by gasledger."""
+
+
+class GasledgerTypeError(GasledgerError, TypeError):
+    """An argument is the wrong kind of object, such as a plain number where a Quantity is needed."""
 
 
 class ConfigError(GasledgerError, ValueError):

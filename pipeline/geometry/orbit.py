@@ -21,8 +21,9 @@ from astropy.coordinates import EarthLocation, get_body_barycentric_posvel, sola
 from astropy.table import QTable
 from astropy.time import Time, TimeDelta
 
-from pipeline.errors import EphemerisError
+from pipeline.errors import EphemerisError, GasledgerTypeError
 from pipeline.offline import future_time_tolerated
+from pipeline.quantities import checked_array
 
 __all__ = [
     "OrbitalElements",
@@ -56,19 +57,14 @@ _ANGLES = ("inc", "node", "peri")
 
 def _value(value, unit: u.Unit, name: str, scalar: bool = False) -> np.ndarray:
     """``value`` in ``unit`` as a finite float array, or EphemerisError naming it."""
-    try:
-        out = np.asarray(value.to_value(unit), dtype=float)
-    except (AttributeError, u.UnitsError) as exc:
-        msg = f"'{name}' must be a Quantity convertible to {unit}, found {value!r}"
-        raise EphemerisError(msg) from exc
-    if not np.all(np.isfinite(out)) or (scalar and out.ndim != 0):
-        msg = f"'{name}' must be finite{' and scalar' if scalar else ''}, found {value!r}"
-        raise EphemerisError(msg)
-    return out
+    return checked_array(value, unit, name, sign="any", scalar=scalar, error=EphemerisError)
 
 
 def _check_time(value, name: str) -> None:
-    if not isinstance(value, Time) or not value.isscalar:
+    if not isinstance(value, Time):
+        msg = f"'{name}' must be a scalar astropy Time, found {value!r}"
+        raise GasledgerTypeError(msg)
+    if not value.isscalar:
         msg = f"'{name}' must be a scalar astropy Time, found {value!r}"
         raise EphemerisError(msg)
 
@@ -88,7 +84,8 @@ class OrbitalElements:
     tp, epoch : `~astropy.time.Time`
         Perihelion time; osculation epoch (optional, kept for the record only).
 
-    Invalid fields raise `EphemerisError` naming the field.
+    Invalid fields raise `EphemerisError` naming the field; a field of the wrong kind (a plain number
+    for ``q``, a string for ``tp``) raises `GasledgerTypeError`.
     """
 
     q: u.Quantity
@@ -433,7 +430,7 @@ def heliocentric_state(elements: OrbitalElements, times: Time) -> tuple[u.Quanti
     if not isinstance(elements, OrbitalElements) or not isinstance(times, Time):
         found = f"{type(elements).__name__}, {type(times).__name__}"
         msg = f"'elements', 'times' must be OrbitalElements and Time, found {found}"
-        raise EphemerisError(msg)
+        raise GasledgerTypeError(msg)
     with future_time_tolerated():
         dt = np.atleast_1d((times.tdb - elements.tp.tdb).to_value(u.s)).ravel()
     q = elements.q.to_value(u.km)
@@ -501,7 +498,7 @@ def observe(
     if not isinstance(times, Time) or not (location is None or isinstance(location, EarthLocation)):
         found = f"{type(times).__name__}, {type(location).__name__}"
         msg = f"'times', 'location' must be Time and EarthLocation or None, found {found}"
-        raise EphemerisError(msg)
+        raise GasledgerTypeError(msg)
     times = times.reshape(-1)
     with future_time_tolerated():
         t_tdb, t_utc = times.tdb, times.utc
@@ -567,7 +564,7 @@ def write_ephemeris(table: QTable, path) -> None:
     """
     if not isinstance(table, QTable):
         msg = f"'table' must be an astropy QTable, found {type(table).__name__}"
-        raise EphemerisError(msg)
+        raise GasledgerTypeError(msg)
     path = os.fspath(path)
     out = table.copy(copy_data=False)
     for name in out.colnames:

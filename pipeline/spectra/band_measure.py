@@ -34,6 +34,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from pipeline.errors import ConfigError, CoverageError, CubeError
+from pipeline.quantities import checked_array
 from pipeline.spectra.ir_spectra import F_LAMBDA
 from pipeline.spectra.noise import window_sum_noise
 
@@ -50,26 +51,11 @@ _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 # ----------------------------------------------------------------------------- input checks
 def _um(x, name: str) -> np.ndarray:
     """``x`` (a length Quantity) in um as a float array, finite."""
-    if not isinstance(x, u.Quantity):
-        msg = f"'{name}' must be a Quantity with units of length, found {x!r}"
-        raise ConfigError(msg)
-    try:
-        out = np.asarray(x.to_value(u.um), dtype=float)
-    except u.UnitsError as exc:
-        msg = f"'{name}' must have units of length, found {x.unit}"
-        raise ConfigError(msg) from exc
-    if not np.all(np.isfinite(out)):
-        msg = f"'{name}' must be finite, found {float(out[~np.isfinite(out)].ravel()[0])!r} um"
-        raise ConfigError(msg)
-    return out
+    return checked_array(x, u.um, name, sign="any")
 
 
 def _scalar_um(x, name: str) -> float:
-    out = _um(x, name)
-    if out.ndim != 0:
-        msg = f"'{name}' must be a single wavelength, found an array of shape {out.shape}"
-        raise ConfigError(msg)
-    return float(out)
+    return float(checked_array(x, u.um, name, sign="any", scalar=True))
 
 
 def _range(lo, hi, names: tuple[str, str]) -> tuple[float, float]:
@@ -107,14 +93,7 @@ def _axis(wavelength) -> np.ndarray:
 
 def _spectrum(x, name: str, n: int) -> np.ndarray:
     """``x`` in W m^-2 um^-1 as a float array of ``n`` channels (NaN allowed)."""
-    if not isinstance(x, u.Quantity):
-        msg = f"'{name}' must be a Quantity in units of {F_LAMBDA}, found {type(x).__name__}"
-        raise ConfigError(msg)
-    try:
-        out = np.asarray(x.to_value(F_LAMBDA), dtype=float)
-    except u.UnitsError as exc:
-        msg = f"'{name}' must have units convertible to {F_LAMBDA}, found {x.unit}"
-        raise ConfigError(msg) from exc
+    out = checked_array(x, F_LAMBDA, name, sign="any", allow_inf=True, allow_nan=True)
     if out.shape != (n,):
         msg = f"'{name}' has shape {out.shape}; expected ({n},), one value per wavelength channel"
         raise CubeError(msg)

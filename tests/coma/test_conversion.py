@@ -19,7 +19,7 @@ from numpy.testing import assert_allclose
 
 from pipeline.coma import conversion as cv
 from pipeline.catalogue.entries import Line, Species, load_catalogue
-from pipeline.errors import CatalogueError, ConfigError, EphemerisError, GasledgerError
+from pipeline.errors import CatalogueError, ConfigError, EphemerisError, GasledgerError, GasledgerTypeError
 
 CAT = load_catalogue()
 CO = CAT.get_species("CO")
@@ -322,7 +322,7 @@ def test_scale_errors_name_the_argument():
 
 
 def test_input_type_errors():
-    with pytest.raises(ConfigError, match="'flux' must be a Quantity in units of Jy km / s"):
+    with pytest.raises(GasledgerTypeError, match="'flux' must be a Quantity in units of Jy km / s"):
         cv.molecules_from_line_flux(1.0, CO21, CO, 20 * u.K, DELTA)
     with pytest.raises(ConfigError, match="'flux' must have units convertible to W / m2"):
         cv.molecules_from_band_flux(1 * JYKMS, 3 * u.um, 1e-3 / u.s, 1 * u.au, 1 * u.au)

@@ -20,7 +20,7 @@ from numpy.testing import assert_allclose
 from scipy.integrate import quad
 
 from pipeline.dust import afrho as dust
-from pipeline.errors import ConfigError, EphemerisError, GasledgerError
+from pipeline.errors import ConfigError, EphemerisError, GasledgerError, GasledgerTypeError
 
 FLAM = u.W / u.m**2 / u.um
 # IAU 2015 Resolution B3 nominal solar luminosity and radius (published values)
@@ -230,7 +230,7 @@ GOOD = {"flux_density": 1e-15 * FLAM, "wavelength": 0.55 * u.um, "rho": 1e4 * u.
 
 
 @pytest.mark.parametrize("name, value, error", [
-    ("flux_density", 1e-15, ConfigError),
+    ("flux_density", 1e-15, GasledgerTypeError),
     ("flux_density", 3 * u.K, ConfigError),
     ("flux_density", np.nan * FLAM, ConfigError),
     ("wavelength", 0 * u.um, ConfigError),
@@ -274,7 +274,7 @@ DUST_GOOD = {"afrho_value": 100 * u.cm, "grain_radius": 1 * u.um, "grain_density
 
 
 @pytest.mark.parametrize("name, value", [
-    ("afrho_value", 100 * u.s), ("grain_radius", 0 * u.um), ("grain_radius", 1.0),
+    ("afrho_value", 100 * u.s), ("grain_radius", 0 * u.um),
     ("grain_density", -1 * u.kg / u.m**3), ("speed", 0 * u.m / u.s), ("speed", np.nan * u.m / u.s),
     ("albedo", 0.0), ("albedo", 4.5), ("albedo", np.inf),
 ])
@@ -282,6 +282,12 @@ def test_dust_production_bad_input(name, value):
     kwargs = dict(DUST_GOOD, **{name: value})
     with pytest.raises(ConfigError, match=f"'{name}'"):
         dust.dust_production_rate(**kwargs)
+
+
+def test_dust_production_plain_number_for_a_length():
+    # a plain number where a Quantity is needed is the wrong kind of object
+    with pytest.raises(GasledgerTypeError, match="'grain_radius'"):
+        dust.dust_production_rate(**dict(DUST_GOOD, grain_radius=1.0))
 
 
 def test_dust_momentum_bad_input():

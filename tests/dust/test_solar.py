@@ -20,7 +20,7 @@ from scipy.integrate import quad
 from scipy.optimize import minimize_scalar
 
 from pipeline.dust import solar
-from pipeline.errors import ConfigError, EphemerisError, GasledgerError
+from pipeline.errors import ConfigError, EphemerisError, GasledgerError, GasledgerTypeError
 
 FLAM = u.W / u.m**2 / u.um
 
@@ -102,10 +102,12 @@ def test_model_string():
     assert "blackbody" in solar.SOLAR_MODEL and "IAU 2015" in solar.SOLAR_MODEL and "\n" not in solar.SOLAR_MODEL
 
 
-@pytest.mark.parametrize("wavelength", [0 * u.um, -1 * u.um, np.nan * u.um, np.inf * u.um, [0.5, -0.1] * u.um,
-                                        5 * u.s, 0.5])
-def test_bad_wavelength(wavelength):
-    with pytest.raises(ConfigError, match="'wavelength'") as info:
+@pytest.mark.parametrize("wavelength, error", [(0 * u.um, ConfigError), (-1 * u.um, ConfigError),
+                                               (np.nan * u.um, ConfigError), (np.inf * u.um, ConfigError),
+                                               ([0.5, -0.1] * u.um, ConfigError), (5 * u.s, ConfigError),
+                                               (0.5, GasledgerTypeError)])
+def test_bad_wavelength(wavelength, error):
+    with pytest.raises(error, match="'wavelength'") as info:
         solar.solar_flux_density(wavelength)
     assert isinstance(info.value, GasledgerError) and str(info.value).count(". ") == 0
 

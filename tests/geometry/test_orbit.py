@@ -30,7 +30,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.integrate import solve_ivp
 
-from pipeline.errors import EphemerisError
+from pipeline.errors import EphemerisError, GasledgerTypeError
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import (
     GM_SUN,
@@ -475,7 +475,7 @@ def test_invalid_elements_raise_naming_the_field():
         _test_orbit(e=-0.1)
     with pytest.raises(EphemerisError, match="'inc'"):
         OrbitalElements(q=1 * u.au, e=0.1, inc=1 * u.m, node=0 * u.deg, peri=0 * u.deg, tp=T0)
-    with pytest.raises(EphemerisError, match="'tp'"):
+    with pytest.raises(GasledgerTypeError, match="'tp'"):
         OrbitalElements(q=1 * u.au, e=0.1, inc=1 * u.deg, node=0 * u.deg, peri=0 * u.deg, tp="x")
     good = {"q_au": 1.0, "e": 0.5, "i_deg": 10, "node_deg": 20, "peri_deg": 30,
             "tp": "2031-05-10T00:00:00"}
