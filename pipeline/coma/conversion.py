@@ -25,8 +25,9 @@ import numpy as np
 from pipeline.coma import haser
 from pipeline.quantities import checked_array as _checked
 from pipeline.catalogue.entries import Line, Species
-from pipeline.errors import CatalogueError, ConfigError, EphemerisError
+from pipeline.errors import ConfigError, EphemerisError
 from pipeline.coma.excitation import T_CMB, flux_per_molecule
+from pipeline.coma.response import ComaModel, scale_lengths
 
 __all__ = [
     "molecules_from_line_flux",
@@ -346,19 +347,7 @@ def _line_scale_lengths(species: Species, parent: Species | None, speed, r_h, so
     """Parent and daughter (or None) photodestruction scale lengths of a line's species."""
     v = _checked(speed, u.km / u.s, "speed") * (u.km / u.s)
     r = _checked(r_h, u.au, "r_h", error=EphemerisError) * u.au
-    if species.parent is None:
-        if parent is not None:
-            msg = (f"species {species.name!r} is a parent molecule in the catalogue; 'parent' must be "
-                   f"None, found species {parent.name!r}")
-            raise CatalogueError(msg)
-        return haser.scale_length(v, species.photo_rate(solar_activity), r), None
-    if parent is None or parent.name != species.parent:
-        found = None if parent is None else parent.name
-        msg = (f"species {species.name!r} is a daughter of {species.parent!r}; 'parent' must be that "
-               f"species, found {found!r}")
-        raise CatalogueError(msg)
-    return (haser.scale_length(v, parent.photo_rate(solar_activity), r),
-            haser.scale_length(v, species.photo_rate(solar_activity), r))
+    return scale_lengths(species, parent, ComaModel(solar_activity=solar_activity), r, v)
 
 
 def _line_flux_per_rate(line, species, t_kin, rho_ap, r_h, delta, speed, solar_activity, parent,

@@ -39,15 +39,26 @@ def outflow_speed(model: ComaModel, r_h: u.Quantity) -> u.Quantity:
 
 def scale_lengths(species: Species, parent: Species | None, model: ComaModel, r_h: u.Quantity,
                   speed: u.Quantity) -> tuple[u.Quantity, u.Quantity | None]:
-    """Haser scale lengths (parent, daughter): a parent species gives (L, None); a daughter (L_parent, L)."""
+    """Haser scale lengths (parent, daughter): a parent species gives (L, None); a daughter (L_parent, L).
+
+    Each is :func:`pipeline.coma.haser.scale_length` of the species' photodestruction rate under
+    ``model.solar_activity``.  ``parent`` must be the catalogue entry of a daughter's parent, and None
+    for a parent species (CatalogueError otherwise).
+    """
     r_h = u.Quantity(r_h, u.au)
-    own = scale_length(speed, species.photo_rate(model.solar_activity), r_h)
     if species.parent is None:
-        return own, None
+        if parent is not None:
+            msg = (f"species {species.name!r} is a parent molecule in the catalogue; 'parent' must be "
+                   f"None, found species {parent.name!r}")
+            raise CatalogueError(msg)
+        return scale_length(speed, species.photo_rate(model.solar_activity), r_h), None
     if parent is None or parent.name != species.parent:
-        msg = f"species {species.name!r} is a daughter of {species.parent!r}; its parent's entry is needed"
+        found = None if parent is None else parent.name
+        msg = (f"species {species.name!r} is a daughter of {species.parent!r}; 'parent' must be that "
+               f"species, found {found!r}")
         raise CatalogueError(msg)
-    return scale_length(speed, parent.photo_rate(model.solar_activity), r_h), own
+    return (scale_length(speed, parent.photo_rate(model.solar_activity), r_h),
+            scale_length(speed, species.photo_rate(model.solar_activity), r_h))
 
 
 def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quantity,

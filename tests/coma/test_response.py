@@ -19,9 +19,9 @@ from pipeline.catalogue.entries import load_catalogue
 from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, scale_length
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
-from pipeline.coma.response import (SPECTRAL_RESPONSES, ComaModel, line_response, outflow_speed,
-                               window_capture)
-from pipeline.errors import ConfigError
+from pipeline.coma.response import (SPECTRAL_RESPONSES, ComaModel, line_response, outflow_speed, scale_lengths,
+                                    window_capture)
+from pipeline.errors import CatalogueError, ConfigError
 
 CAT = load_catalogue()
 CO = CAT.get_species("CO")
@@ -37,6 +37,34 @@ def test_outflow_speed():
     assert_quantity_allclose(outflow_speed(ComaModel(), 4.0 * u.au), 0.425 * u.km / u.s, rtol=1e-12)
     assert_quantity_allclose(outflow_speed(ComaModel(outflow=0.6), 4.0 * u.au), 0.6 * u.km / u.s)
     assert_quantity_allclose(outflow_speed(ComaModel(outflow="0.6"), 1 * u.au), 0.6 * u.km / u.s)
+
+
+# ----------------------------------------------------------------------------- scale lengths
+def test_scale_lengths_of_a_parent_and_a_daughter():
+    # the closed form L = v (r_h / 1 au)^2 / beta_1au (Haser 1957), with each species' own rate
+    v, r_h = 0.7 * u.km / u.s, 1.3 * u.au
+    model = ComaModel(solar_activity="active")
+
+    def closed_form(species):
+        return 0.7 * 1.3**2 / species.photo_active.to_value(1 / u.s) * u.km
+
+    length, daughter = scale_lengths(HCN, None, model, r_h, v)
+    assert daughter is None
+    assert_quantity_allclose(length, closed_form(HCN), rtol=1e-14)
+    cs, cs2 = CAT.get_species("CS"), CAT.get_species("CS2")
+    length, daughter = scale_lengths(cs, cs2, model, r_h, v)  # (the parent's, the daughter's own)
+    assert_quantity_allclose(length, closed_form(cs2), rtol=1e-14)
+    assert_quantity_allclose(daughter, closed_form(cs), rtol=1e-14)
+
+
+def test_scale_lengths_need_the_right_parent():
+    model, r_h, v = ComaModel(), 1.3 * u.au, 0.7 * u.km / u.s
+    with pytest.raises(CatalogueError, match="'CS' is a daughter of 'CS2'; 'parent' must be that species, found None"):
+        scale_lengths(CAT.get_species("CS"), None, model, r_h, v)
+    with pytest.raises(CatalogueError, match="found 'HCN'"):
+        scale_lengths(CAT.get_species("CS"), HCN, model, r_h, v)
+    with pytest.raises(CatalogueError, match="'CO' is a parent molecule in the catalogue; 'parent' must be None"):
+        scale_lengths(CO, HCN, model, r_h, v)
 
 
 # ----------------------------------------------------------------------------- line response
