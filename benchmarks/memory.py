@@ -25,7 +25,7 @@ from astropy.io import fits
 from astropy.table import QTable
 from astropy.time import Time
 
-from pipeline.settings import validate_config
+from pipeline.settings import Settings, validate_config
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import write_ephemeris
 from pipeline.workflow import comoving, extract, geometry
@@ -106,13 +106,14 @@ def main() -> None:
         guard = future_time_tolerated()
         guard.__enter__()
         t0 = time.perf_counter()
-        geometry.run(str(cube), "big", "big", None, config, str(out / "geometry.ecsv"))
+        settings = Settings.from_config(config).with_cube("big")
+        geometry.run(settings, str(out / "geometry.ecsv"))
         steps["geometry (header, ephemeris, input checksum)"] = time.perf_counter() - t0
         t0 = time.perf_counter()
-        comoving.run(str(cube), str(out / "geometry.ecsv"), "HCN_265886", config, str(out / "sub.fits"))
+        comoving.run(str(out / "geometry.ecsv"), "HCN_265886", settings, str(out / "sub.fits"))
         steps["comoving (line window cut)"] = time.perf_counter() - t0
         t0 = time.perf_counter()
-        extract.run(str(out / "sub.fits"), config, str(out / "spectra.fits"))
+        extract.run(str(out / "sub.fits"), settings, str(out / "spectra.fits"))
         steps["extract (aperture spectra, noise)"] = time.perf_counter() - t0
         guard.__exit__(None, None, None)
         peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024

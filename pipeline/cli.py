@@ -21,13 +21,13 @@ import yaml
 
 from pipeline.io.atomic import write_text
 from pipeline.catalogue.entries import load_catalogue
-from pipeline.settings import check_inputs_exist, cube_entries, load_config, validate_config
+from pipeline.settings import Settings, append_cubes, check_inputs_exist, load_config, validate_config, write_campaign
 from pipeline.io.cubes import observation_times, read_cube_info
 from pipeline.geometry.ephemeris import read_ephemeris
 from pipeline.errors import GasledgerError
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.frames import radio_velocity, to_target_frame, to_topocentric
-from pipeline.workflow.common import catalogue_from_config, location_from_config
+from pipeline.geometry.observing import observer_location
 
 __all__ = ["main", "covered_lines"]
 
@@ -59,52 +59,41 @@ def covered_lines(path: str, ephemeris, catalogue, species: list[str], location,
     return out
 
 
-def _write_config(config: dict, path: Path, header: str) -> None:
-    """Validate a copy (defaults are not written into the user's file), then write atomically."""
-    validate_config(copy.deepcopy(config), source=str(path))
-    write_text(header + yaml.safe_dump(config, sort_keys=False), path)
-
-
 def cmd_new(args) -> int:
     cubes = sorted(Path(args.cube_dir).glob(args.pattern))
     if not cubes:
         print(f"gasledger: no files matching {args.pattern!r} in {args.cube_dir}", file=sys.stderr)
         return 2
-    config = {"campaign": args.campaign or Path(args.cube_dir).name, "outdir": args.outdir,
-              "target": {"name": args.target or "target", "ephemeris": str(args.ephemeris)},
-              "observatory": (dict(zip(("lon_deg", "lat_deg", "height_m"), args.observatory))
-                              if args.observatory else "geocentre"),
-              "cubes": [], "species": list(args.species)}
-    validate_config(dict(config, cubes=[{"path": str(cubes[0])}]), source="(new campaign)")
+    observatory = (dict(zip(("lon_deg", "lat_deg", "height_m"), args.observatory)) if args.observatory
+                   else "geocentre")
+    campaign = {"campaign": args.campaign or Path(args.cube_dir).name, "outdir": args.outdir,
+                "target": {"name": args.target or "target", "ephemeris": str(args.ephemeris)},
+                "observatory": observatory, "cubes": [], "species": list(args.species)}
+    validate_config(dict(campaign, cubes=[{"path": str(cubes[0])}]), source="(new campaign)")
     catalogue = load_catalogue()
     ephem = read_ephemeris(args.ephemeris)
-    location = location_from_config(config)
+    location = observer_location(observatory)
     for path in cubes:
-        lines = covered_lines(str(path), ephem, catalogue, config["species"], location)
-        config["cubes"].append({"path": str(path), "id": path.name.split(".")[0]})
+        lines = covered_lines(str(path), ephem, catalogue, list(args.species), location)
+        campaign["cubes"].append({"path": str(path), "id": path.name.split(".")[0]})
         print(f"{path.name}: {', '.join(lines) if lines else 'no catalogue line of these species'}")
-    _write_config(config, Path(args.output), "# Written by 'gasledger new'.\n")
+    write_campaign(campaign, Path(args.output), "# Written by 'gasledger new'.\n")
     print(f"wrote {args.output} with {len(cubes)} cube(s); run: snakemake --cores 2 --configfile {args.output}")
     return 0
 
 
 def cmd_add(args) -> int:
     path = Path(args.config)
-    config = load_config(path)
-    raw = yaml.safe_load(path.read_text())
-    known = {c.cube_id for c in cube_entries(config)}
+    entries = []
     for cube in args.cubes:
         read_cube_info(cube)                                   # refuse an unreadable cube before touching the file
         entry = {"path": str(cube), "id": Path(cube).name.split(".")[0]}
         if args.epoch:
             entry["epoch"] = args.epoch
-        if entry["id"] in known:
-            print(f"gasledger: {path}: a cube with id {entry['id']!r} is already in the campaign", file=sys.stderr)
-            return 2
-        known.add(entry["id"])
-        raw["cubes"].append(entry)
-        print(f"added {cube} as {entry['id']}")
-    _write_config(raw, path, "")
+        entries.append(entry)
+    append_cubes(path, entries)
+    for entry in entries:
+        print(f"added {entry['path']} as {entry['id']}")
     return 0
 
 
@@ -115,24 +104,26 @@ def cmd_check(args) -> int:
         check_inputs_exist(config, source=args.config)
     except GasledgerError as exc:
         problems.append(str(exc))
-    catalogue = catalogue_from_config(config)
-    for name in config["species"]:
+    settings = Settings.from_config(config)
+    catalogue = settings.catalogue()
+    species = list(settings.species)
+    for name in species:
         try:
             catalogue.get_species(name)
         except GasledgerError as exc:
             problems.append(str(exc))
-    print(f"campaign: {config['campaign']}  ({len(config['cubes'])} cubes, species {', '.join(config['species'])})")
-    ephem = read_ephemeris(config["target"]["ephemeris"]) if "ephemeris" in config["target"] else None
+    print(f"campaign: {settings.campaign}  ({len(settings.cubes)} cubes, species {', '.join(species)})")
+    ephem = read_ephemeris(settings.target.ephemeris) if settings.target.ephemeris is not None else None
     if ephem is not None:
         lo, hi = ephem.span
-        print(f"ephemeris: {config['target']['ephemeris']} spans {lo.isot} to {hi.isot}")
-    location = location_from_config(config)
-    covered = {s: 0 for s in config["species"]}
-    for entry in cube_entries(config):
+        print(f"ephemeris: {settings.target.ephemeris} spans {lo.isot} to {hi.isot}")
+    location = settings.location
+    covered = {s: 0 for s in species}
+    for entry in settings.cubes:
         try:
             info = read_cube_info(entry.path)
             _, mid, _ = observation_times(info, entry.time)
-            lines = covered_lines(entry.path, ephem, catalogue, config["species"], location, entry.time) \
+            lines = covered_lines(entry.path, ephem, catalogue, species, location, entry.time) \
                 if ephem is not None else []
             ir = info.regime == "infrared"
             for ln in lines:

@@ -1,26 +1,60 @@
-"""Campaign configuration: loading, schema validation, defaults and semantic checks.
+"""Campaign settings: the YAML file loaded and validated once, then parsed into typed, frozen settings.
 
-The schema is ``config/schema.yaml`` (JSON Schema written in YAML). Validation
-fills in defaults and reports the first problem as one sentence naming the key,
-what was found and what was expected. (Snakemake's own ``validate`` prints the
-whole schema with each error, which buries the one line a user needs, so the
-Snakefile calls :func:`validate_config` instead.)
+The schema is ``config/schema.yaml`` (JSON Schema written in YAML) and is the
+only place a default lives. Validation fills in defaults and reports the first
+problem as one sentence naming the key, what was found and what was expected.
+(Snakemake's own ``validate`` prints the whole schema with each error, which
+buries the one line a user needs, so the workflow calls :func:`validate_config`
+instead.)
+
+:class:`Settings` is what the rest of the package sees: Quantities with units,
+the catalogue, the coma model, the observer, the budget assumptions. This is
+the only module (with :mod:`pipeline.workflow`) that reads a config mapping.
+A workflow step is given only the config sections its rule declares
+(:func:`sections_record`); reading any other section raises
+:class:`~pipeline.errors.SettingsError`, so what triggers a rerun and what the
+code reads are one list.
 """
 
 from __future__ import annotations
 
 import copy
-from dataclasses import dataclass
+import functools
+from collections.abc import Iterable
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
+import astropy.units as u
 import jsonschema
 import yaml
 
 from pipeline.errors import ConfigError
 
+if TYPE_CHECKING:
+    from astropy.coordinates import EarthLocation
+
+    from pipeline.budget.table import BudgetAssumptions
+    from pipeline.catalogue import Catalogue
+    from pipeline.coma.response import ComaModel
+    from pipeline.geometry.orbit import OrbitalElements
+    from pipeline.rates.forecast import PlannedEpoch
+
 __all__ = [
     "SCHEMA_FILE",
+    "Settings",
+    "TargetSettings",
+    "LimitsSettings",
+    "InfraredSettings",
+    "DustSettings",
+    "InterferometerSettings",
+    "BudgetSettings",
+    "sections_record",
+    "schema_keys",
+    "write_campaign",
+    "append_cubes",
+    "assumptions_from_config",
+    "assumption_sets",
     "CubeEntry",
     "load_config",
     "validate_config",
@@ -150,22 +184,21 @@ def cube_entries(config: dict[str, Any], source: str = "config") -> list[CubeEnt
     ConfigError
         When an id taken from a file name is not usable in file names.
     """
-    entries = []
-    for i, item in enumerate(config["cubes"]):
-        cube_id = item.get("id") or Path(item["path"]).name.split(".")[0]
-        if not cube_id or not all(c.isascii() and (c.isalnum() or c in "_.-") for c in cube_id) \
-                or cube_id[0] in ".-_":
-            msg = (f"{source}: cubes[{i}]: the id {cube_id!r} (from the file name) is not usable in file names; "
-                   "expected letters, digits and . _ - (set 'id')")
-            raise ConfigError(msg)
-        entries.append(CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id),
-                                 path=item["path"], time=item.get("time"),
-                                 spectral_response=item.get("spectral_response", "hanning"),
-                                 tracked=bool(item.get("tracked", True)),
-                                 position=item.get("position", "auto"),
-                                 offset=tuple(item.get("offset_arcsec", (0.0, 0.0))),
-                                 resolving_power=item.get("resolving_power")))
-    return entries
+    return [_cube_entry(item, i, source) for i, item in enumerate(config["cubes"])]
+
+
+def _cube_entry(item: dict[str, Any], i: int, source: str) -> CubeEntry:
+    """One validated ``cubes`` entry as a :class:`CubeEntry` (its id from the file name unless given)."""
+    cube_id = item.get("id") or Path(item["path"]).name.split(".")[0]
+    if not cube_id or not all(c.isascii() and (c.isalnum() or c in "_.-") for c in cube_id) \
+            or cube_id[0] in ".-_":
+        msg = (f"{source}: cubes[{i}]: the id {cube_id!r} (from the file name) is not usable in file names; "
+               "expected letters, digits and . _ - (set 'id')")
+        raise ConfigError(msg)
+    return CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id), path=item["path"], time=item.get("time"),
+                     spectral_response=item["spectral_response"], tracked=bool(item["tracked"]),
+                     position=item["position"], offset=tuple(item["offset_arcsec"]),
+                     resolving_power=item.get("resolving_power"))
 
 
 def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:
@@ -181,6 +214,40 @@ def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:
             raise ConfigError(msg)
 
 
+def write_campaign(config: dict[str, Any], path: str | Path, header: str = "") -> None:
+    """Write a campaign file: validate a copy (defaults are not written into the user's file), then write atomically."""
+    from pipeline.io.atomic import write_text
+
+    validate_config(copy.deepcopy(config), source=str(path))
+    write_text(header + yaml.safe_dump(config, sort_keys=False), Path(path))
+
+
+def append_cubes(path: str | Path, entries: list[dict[str, Any]]) -> None:
+    """Append ``cubes`` entries to the campaign file ``path`` (validated; nothing is written on a problem).
+
+    Raises
+    ------
+    ConfigError
+        When an entry's id is already in the campaign (or twice in ``entries``).
+    """
+    path = Path(path)
+    known = {c.cube_id for c in cube_entries(load_config(path), str(path))}
+    raw = yaml.safe_load(path.read_text(encoding="utf-8"))
+    for entry in entries:
+        if entry["id"] in known:
+            msg = f"{path}: a cube with id {entry['id']!r} is already in the campaign; expected a new id (set 'id')"
+            raise ConfigError(msg)
+        known.add(entry["id"])
+        raw["cubes"].append(entry)
+    write_campaign(raw, path)
+
+
+@functools.lru_cache(maxsize=1)
+def schema_keys() -> tuple[str, ...]:
+    """Every top-level key the schema knows (the sections a step may be given)."""
+    return tuple(_load_schema()["properties"])
+
+
 def load_config(path: str | Path) -> dict[str, Any]:
     """Safe-load a campaign YAML file and validate it (defaults filled in)."""
     path = Path(path)
@@ -194,3 +261,366 @@ def load_config(path: str | Path) -> dict[str, Any]:
         msg = f"config file {str(path)!r} is not valid YAML: {exc}"
         raise ConfigError(msg) from exc
     return validate_config(config, source=str(path))
+
+
+# --------------------------------------------------------------------------------------------------------------
+# Typed settings
+
+
+class _NotGiven:
+    """Stands for a config section the running step was not given."""
+
+    def __init__(self, key: str) -> None:
+        self.key = key
+
+    def __repr__(self) -> str:
+        return f"<section {self.key!r} not given>"
+
+
+class _Guarded:
+    """Reading a field that holds :class:`_NotGiven` raises ConfigError naming the section."""
+
+    def __getattribute__(self, name: str) -> Any:
+        value = object.__getattribute__(self, name)
+        if isinstance(value, _NotGiven):
+            msg = (f"settings: this step was not given the config key {value.key!r} (field {name!r}); "
+                   "expected it in the rule's settings params (rules/*.smk, settings_of)")
+            raise ConfigError(msg)
+        return value
+
+
+def _sub(section: dict[str, Any], key: str, where: str, convert=lambda v: v) -> Any:
+    """``convert(section[key])``, or :class:`_NotGiven` when a rule passed the section without that key."""
+    if key not in section:
+        return _NotGiven(f"{where}.{key}")
+    return convert(section[key])
+
+
+@dataclass(frozen=True)
+class TargetSettings:
+    """Where the target is: an ephemeris table (path) or osculating elements."""
+
+    name: str
+    ephemeris: str | None
+    elements: "OrbitalElements | None"
+
+
+@dataclass(frozen=True)
+class LimitsSettings(_Guarded):
+    """Significance of the limits, integration window and the activity-law slope."""
+
+    nsigma: float
+    window_factor: float
+    activity_slope: float
+
+
+@dataclass(frozen=True)
+class InfraredSettings(_Guarded):
+    """Band measurement in infrared cubes."""
+
+    margin_fwhm: float
+    continuum_factor: float
+    continuum_order: int
+    continuum_shape: str
+
+
+@dataclass(frozen=True)
+class DustSettings(_Guarded):
+    """Afrho wavelengths and the assumptions of the dust production estimate."""
+
+    wavelengths: u.Quantity
+    half_width: u.Quantity
+    grain_radius: u.Quantity
+    grain_density: u.Quantity
+    speed: u.Quantity
+    albedo: float
+
+    def as_record(self) -> dict[str, Any]:
+        """The values as written in the tables' meta (units in the key names)."""
+        return {"grain_radius_um": self.grain_radius.to_value(u.um),
+                "grain_density_kg_m3": self.grain_density.to_value(u.kg / u.m**3),
+                "speed_km_s": self.speed.to_value(u.km / u.s), "albedo": self.albedo}
+
+
+@dataclass(frozen=True)
+class InterferometerSettings:
+    """Spatial filtering: the shortest projected baseline and whether the response is corrected."""
+
+    shortest_baseline: u.Quantity
+    correct: bool
+
+
+@dataclass(frozen=True)
+class BudgetSettings:
+    """The budget's assumption sets (the baseline first) and whether the dust's push is counted."""
+
+    assumption_sets: tuple["BudgetAssumptions", ...]
+    include_dust: bool
+
+    @property
+    def baseline(self) -> "BudgetAssumptions":
+        """The first assumption set, named 'baseline'."""
+        return self.assumption_sets[0]
+
+
+_FIELDS = {   # Settings field -> the top-level config keys it is built from
+    "campaign": ("campaign",), "outdir": ("outdir",), "catalogue_files": ("catalogue",), "target": ("target",),
+    "location": ("observatory",), "observatory_name": ("observatory",), "cubes": ("cubes",),
+    "planned": ("planned", "comoving"), "species": ("species",), "apertures": ("apertures_km", "apertures_arcsec"),
+    "half_width": ("comoving",), "interferometer": ("interferometer",), "infrared": ("infrared",),
+    "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "coma": ("coma",), "budget": ("budget",),
+}
+
+
+@dataclass(frozen=True)
+class Settings(_Guarded):
+    """The campaign's settings, typed and frozen (built by :meth:`from_config`).
+
+    A field whose config section was not given to the running step raises
+    :class:`~pipeline.errors.ConfigError` when read. ``cube`` is the one cube a
+    per-cube step works on (None for campaign-level steps); ``record`` is the
+    config sections the settings were built from, for provenance records.
+    """
+
+    record: dict
+    campaign: str
+    outdir: str
+    catalogue_files: tuple[str, str, str | None] | None
+    target: TargetSettings
+    location: "EarthLocation | None"
+    observatory_name: str
+    cubes: tuple["CubeEntry", ...]
+    cube: "CubeEntry | None"
+    planned: tuple["PlannedEpoch", ...]
+    species: tuple[str, ...]
+    apertures: tuple[u.Quantity, ...]
+    half_width: u.Quantity
+    interferometer: InterferometerSettings | None
+    infrared: InfraredSettings
+    dust: DustSettings
+    limits: LimitsSettings
+    t_kin: u.Quantity
+    coma: "ComaModel"
+    budget: BudgetSettings
+
+    @classmethod
+    def from_config(cls, config: dict[str, Any], cube: dict[str, Any] | None = None,
+                    sections: Iterable[str] | None = None) -> "Settings":
+        """Typed settings from a validated config, or from the sections a rule passes (see :func:`sections_record`).
+
+        Parameters
+        ----------
+        config : dict
+            The validated config (defaults filled in), whole or the sections a rule declares.
+        cube : dict, optional
+            The entry of the one cube a per-cube step works on (as in ``cubes``, defaults filled in).
+        sections : iterable of str, optional
+            The config keys given; the settings built from any other key cannot be read. Default: every key
+            of the schema (a whole config; an optional key it lacks is "not configured").
+        """
+        given = set(schema_keys() if sections is None else sections)
+        values: dict[str, Any] = {}
+        for field_name, keys in _FIELDS.items():
+            if not all(k in given for k in keys):
+                values[field_name] = _NotGiven(",".join(keys))
+                continue
+            values[field_name] = _BUILDERS[field_name](config)
+        values["cube"] = _cube_entry(cube, 0, "cube") if cube is not None else None
+        values["record"] = {k: config[k] for k in sorted(config) if k in given and config[k] is not None}
+        return cls(**values)
+
+    def with_cube(self, cube_id: str) -> "Settings":
+        """The same settings for the campaign's cube ``cube_id`` (what a per-cube step is given)."""
+        for entry in self.cubes:
+            if entry.cube_id == cube_id:
+                values = {f.name: object.__getattribute__(self, f.name) for f in fields(self)}
+                return Settings(**{**values, "cube": entry})
+        msg = f"settings: no cube with id {cube_id!r}; expected one of {[c.cube_id for c in self.cubes]}"
+        raise ConfigError(msg)
+
+    def catalogue(self) -> "Catalogue":
+        """The user's catalogue named in the settings, or the built-in one (loaded once per process)."""
+        return _load_catalogue(self.catalogue_files)
+
+    def aperture_radii_km(self, delta: u.Quantity) -> list[float]:
+        """Every aperture radius as a length at the target [km] at distance ``delta``."""
+        return [float((r if r.unit.physical_type == "length" else (r.to_value(u.rad) * delta)).to_value(u.km))
+                for r in self.apertures]
+
+
+def sections_record(config: dict[str, Any], keys: Iterable[str]) -> dict[str, Any]:
+    """The config sections ``keys`` (None for a section not configured), for a rule's params.
+
+    A key ``"section.name"`` gives only that entry of a section (e.g. ``"limits.window_factor"``), so a rule
+    that reads one value of a section is not rerun when another changes. ``outdir`` is always included (the
+    checksum cache of the provenance records lives below it).
+    """
+    out: dict[str, Any] = {"outdir": config.get("outdir")}
+    for key in sorted(set(keys)):
+        top, _, sub = key.partition(".")
+        if not sub:
+            out[top] = copy.deepcopy(config.get(top))
+        elif config.get(top) is not None and sub in config[top]:
+            out.setdefault(top, {})[sub] = copy.deepcopy(config[top][sub])
+        else:
+            out.setdefault(top, {})
+    return out
+
+
+@functools.lru_cache(maxsize=4)
+def _load_catalogue(files: tuple[str, str, str | None] | None) -> "Catalogue":
+    from pipeline.catalogue import load_catalogue
+
+    if files is None:
+        return load_catalogue()
+    return load_catalogue(*files)
+
+
+def _catalogue_files(config: dict[str, Any]):
+    cat = config.get("catalogue")
+    if cat is None:
+        return None
+    return (cat["species_file"], cat["lines_file"], cat.get("bands_file"))
+
+
+def _target(config: dict[str, Any]) -> TargetSettings:
+    from pipeline.geometry.orbit import OrbitalElements
+
+    target = config["target"]
+    elements = OrbitalElements.from_mapping(target["elements"]) if "elements" in target else None
+    return TargetSettings(name=target.get("name", "target"), ephemeris=target.get("ephemeris"), elements=elements)
+
+
+def _location(config: dict[str, Any]):
+    from pipeline.geometry.observing import observer_location
+
+    return observer_location(config["observatory"])
+
+
+def _observatory_name(config: dict[str, Any]) -> str:
+    obs = config["observatory"]
+    return "geocentre" if obs == "geocentre" else str(obs.get("name", "observatory"))
+
+
+def _planned(config: dict[str, Any]):
+    from pipeline.rates.forecast import PlannedEpoch
+
+    half = float(config["comoving"]["half_width_km_s"])
+    return tuple(PlannedEpoch(label=p["label"], time=p["time"], lines=tuple(p["lines"]),
+                              noise_jy_beam=float(p["noise_jy_beam"]), channel_khz=float(p["channel_khz"]),
+                              beam_arcsec=tuple(float(b) for b in p["beam_arcsec"]),
+                              pixel_arcsec=float(p["pixel_arcsec"]) if "pixel_arcsec" in p
+                              else float(p["beam_arcsec"][1]) / 4,
+                              npix=int(p["npix"]), half_width_km_s=half)
+                 for p in config["planned"])
+
+
+def _apertures(config: dict[str, Any]) -> tuple[u.Quantity, ...]:
+    radii = [r * u.km for r in config.get("apertures_km") or []]
+    radii += [r * u.arcsec for r in config.get("apertures_arcsec") or []]
+    return tuple(radii)
+
+
+def _interferometer(config: dict[str, Any]) -> InterferometerSettings | None:
+    section = config.get("interferometer")
+    if section is None:
+        return None
+    return InterferometerSettings(shortest_baseline=section["shortest_baseline_m"] * u.m,
+                                  correct=bool(section["correct"]))
+
+
+def _infrared(config: dict[str, Any]) -> InfraredSettings:
+    ir = config["infrared"]
+    return InfraredSettings(margin_fwhm=_sub(ir, "margin_fwhm", "infrared", float),
+                            continuum_factor=_sub(ir, "continuum_factor", "infrared", float),
+                            continuum_order=_sub(ir, "continuum_order", "infrared", int),
+                            continuum_shape=_sub(ir, "continuum_shape", "infrared", str))
+
+
+def _dust(config: dict[str, Any]) -> DustSettings:
+    d = config["dust"]
+    return DustSettings(wavelengths=_sub(d, "wavelengths_um", "dust", lambda v: u.Quantity(v, u.um)),
+                        half_width=_sub(d, "half_width_um", "dust", lambda v: v * u.um),
+                        grain_radius=_sub(d, "grain_radius_um", "dust", lambda v: v * u.um),
+                        grain_density=_sub(d, "grain_density_kg_m3", "dust", lambda v: v * u.kg / u.m**3),
+                        speed=_sub(d, "speed_km_s", "dust", lambda v: v * u.km / u.s),
+                        albedo=_sub(d, "albedo", "dust"))
+
+
+def _limits(config: dict[str, Any]) -> LimitsSettings:
+    lim = config["limits"]
+    return LimitsSettings(nsigma=_sub(lim, "nsigma", "limits"), window_factor=_sub(lim, "window_factor", "limits"),
+                          activity_slope=_sub(lim, "activity_slope", "limits"))
+
+
+def _coma(config: dict[str, Any]):
+    from pipeline.coma.response import ComaModel
+
+    coma = config["coma"]
+    return ComaModel(outflow=coma["outflow_km_s"], solar_activity=coma["solar_activity"])
+
+
+def _budget(config: dict[str, Any]) -> BudgetSettings:
+    return BudgetSettings(assumption_sets=tuple(assumption_sets(config["budget"])),
+                          include_dust=bool(config["budget"]["include_dust"]))
+
+
+_BUILDERS = {
+    "campaign": lambda c: str(c["campaign"]), "outdir": lambda c: str(c["outdir"]),
+    "catalogue_files": _catalogue_files, "target": _target, "location": _location,
+    "observatory_name": _observatory_name, "cubes": lambda c: tuple(cube_entries(c)), "planned": _planned,
+    "species": lambda c: tuple(c["species"]), "apertures": _apertures,
+    "half_width": lambda c: c["comoving"]["half_width_km_s"] * u.km / u.s, "interferometer": _interferometer,
+    "infrared": _infrared, "dust": _dust, "limits": _limits,
+    "t_kin": lambda c: u.Quantity(c["excitation"]["t_kin_K"], u.K), "coma": _coma, "budget": _budget,
+}
+
+
+# --------------------------------------------------------------------------------------------------------------
+# The budget's assumptions (the config's ``budget`` section)
+
+
+def _radius_range(nucleus: dict[str, Any]) -> tuple[tuple[float, float], str]:
+    from pipeline.budget.momentum import diameter_from_absolute_magnitude
+
+    if "absolute_magnitude" in nucleus:
+        h_mag = float(nucleus["absolute_magnitude"])
+        albedo = nucleus["albedo"]
+        d = [float(diameter_from_absolute_magnitude(h_mag, p).to_value(u.km)) for p in albedo]
+        return (min(d) / 2, max(d) / 2), f"H = {h_mag:g} and albedo {min(albedo):g}-{max(albedo):g}"
+    return (float(nucleus["radius_km"][0]), float(nucleus["radius_km"][1])), "radius and density"
+
+
+def assumptions_from_config(budget: dict[str, Any]) -> "BudgetAssumptions":
+    """The baseline budget assumptions from the config's validated ``budget`` section."""
+    from pipeline.budget.momentum import nucleus_mass
+    from pipeline.budget.table import BudgetAssumptions
+
+    nucleus = budget["nucleus"]
+    if "mass_kg" in nucleus:
+        mass = tuple(float(m) for m in nucleus["mass_kg"])
+        radius = density = None
+        source = "mass range"
+    else:
+        radius, source = _radius_range(nucleus)
+        density = tuple(float(d) for d in nucleus["density_kg_m3"])
+        mass = (float(nucleus_mass(radius[0] * u.km, density[0] * u.kg / u.m**3).to_value(u.kg)),
+                float(nucleus_mass(radius[1] * u.km, density[1] * u.kg / u.m**3).to_value(u.kg)))
+    acc = tuple(float(a) for a in budget["acceleration_m_s2"]) if "acceleration_m_s2" in budget else None
+    nongrav = budget.get("nongrav")
+    return BudgetAssumptions(acceleration=acc, nongrav=nongrav, radius_km=radius,
+                             density_kg_m3=density, mass_kg=(min(mass), max(mass)),
+                             ejection=budget["ejection_speed_km_s"], efficiency=float(budget["momentum_efficiency"]),
+                             interval_days=float(budget["interval_days"]), drivers=tuple(budget["drivers"]),
+                             g_params=(nongrav or {}).get("g_params"), nucleus_from=source)
+
+
+def assumption_sets(budget: dict[str, Any]) -> list["BudgetAssumptions"]:
+    """The baseline assumptions and every further set of ``budget.assumption_sets``."""
+    base = assumptions_from_config(budget)
+    sets = [base]
+    for extra in budget.get("assumption_sets", []):
+        sets.append(replace(base, name=str(extra["name"]),
+                            efficiency=float(extra.get("momentum_efficiency", base.efficiency)),
+                            ejection=extra.get("ejection_speed_km_s", base.ejection)))
+    return sets

@@ -3,15 +3,13 @@ rule bands:
     input:
         cube=cube_path,
         geometry=f"{OUT}/geometry/{{cube}}.ecsv",
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/bands/{{cube}}.fits",
     params:
         bands=lambda w: BANDS[w.cube],
-        resolving_power=lambda w: CUBES[w.cube].resolving_power,
-        infrared=canon(config["infrared"]),
-        dust=canon(config["dust"]),
-        coma=canon(config["coma"]),
-        apertures=canon([config.get("apertures_km", []), config.get("apertures_arcsec", [])]),
+        settings=settings_of("catalogue", "observatory", "apertures_km", "apertures_arcsec", "infrared", "dust.wavelengths_um", "dust.half_width_um", "coma", cube=True),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/bands/{{cube}}.log",
     benchmark:

@@ -4,12 +4,14 @@ rule budget:
         limits=f"{OUT}/limits.ecsv",
         geometry=geometry_files(),
         dust=f"{OUT}/dust.ecsv",
+        catalogue=catalogue_files(),
     output:
         ecsv=report(f"{OUT}/budget.ecsv", caption="../report/budget.rst", category="Tables"),
         json=f"{OUT}/budget.json",
         exclusion=f"{OUT}/exclusion.ecsv",
     params:
-        budget=canon(config["budget"]),
+        settings=settings_of("budget", "campaign", "catalogue"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/budget.log",
     benchmark:

@@ -2,19 +2,21 @@
 import json
 import sys
 
-from pipeline.io.cubes import read_cube_info
-from pipeline.settings import check_inputs_exist, cube_entries, validate_config
-from pipeline.errors import GasledgerError
-from pipeline.workflow.common import catalogue_from_config
 from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
+from pipeline.errors import GasledgerError
+from pipeline.io.cubes import read_cube_info
+from pipeline.io.provenance import code_version
+from pipeline.settings import Settings, check_inputs_exist, cube_entries, schema_keys, sections_record, validate_config
 
 try:
     validate_config(config, source="config")
     check_inputs_exist(config, source="config")
-    CATALOGUE = catalogue_from_config(config)
+    SETTINGS = Settings.from_config(config)
+    CATALOGUE = SETTINGS.catalogue()
     for _name in config["species"]:
         CATALOGUE.get_species(_name)
-    CUBES = {c.cube_id: c for c in cube_entries(config)}
+    CUBES = {c.cube_id: c for c in SETTINGS.cubes}
+    CUBE_ITEMS = {c.cube_id: item for c, item in zip(SETTINGS.cubes, config["cubes"])}
     LINES = {cid: lines_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
     IR_CUBES = {cid: read_cube_info(c.path).regime == "infrared" for cid, c in CUBES.items()}
     BANDS = {cid: bands_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
@@ -23,6 +25,9 @@ except GasledgerError as exc:
 
 OUT = config["outdir"].rstrip("/")
 SPECIES = list(config["species"])
+CONFIG_KEYS = schema_keys()
+# the package's code and data: a change reruns every job (Snakemake's code trigger sees only the rule scripts)
+CODE_VERSION = code_version()
 
 
 wildcard_constraints:
@@ -34,6 +39,24 @@ wildcard_constraints:
 def canon(value):
     """Params as canonical JSON, so key order in the YAML does not make Snakemake rerun jobs."""
     return json.dumps(value, sort_keys=True)
+
+
+def settings_of(*keys, cube=False):
+    """A rule's ``settings`` param: the config sections ``keys`` it reads (and, with ``cube``, its cube's entry).
+
+    The step parses exactly this into typed settings (pipeline.workflow.common.rule_settings) and cannot read
+    any other section, so what triggers a rerun and what the code reads are one list.
+    """
+    sections = sections_record(config, keys)
+    if cube:
+        return lambda w: canon({"sections": sections, "cube": CUBE_ITEMS[w.cube]})
+    return canon({"sections": sections})
+
+
+def catalogue_files():
+    """The user's catalogue files (rule inputs, so that editing one reruns what read it); none for the built-in."""
+    cat = config.get("catalogue") or {}
+    return [cat[k] for k in ("species_file", "lines_file", "bands_file") if k in cat]
 
 
 def cube_path(wildcards):

@@ -3,14 +3,12 @@ rule comoving:
     input:
         cube=cube_path,
         geometry=f"{OUT}/geometry/{{cube}}.ecsv",
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/comoving/{{cube}}/{{line}}.fits",
     params:
-        spectral_response=lambda w: CUBES[w.cube].spectral_response,
-        comoving=canon(config["comoving"]),
-        window=config["limits"]["window_factor"],
-        coma=canon(config["coma"]),
-        apertures=canon([config.get("apertures_km", []), config.get("apertures_arcsec", [])]),
+        settings=settings_of("catalogue", "coma", "limits.window_factor", "apertures_km", "apertures_arcsec", "comoving", "observatory", cube=True),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/comoving/{{cube}}/{{line}}.log",
     benchmark:

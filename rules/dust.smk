@@ -8,7 +8,8 @@ rule dust:
         afrho=f"{OUT}/afrho.ecsv",
         dust=report(f"{OUT}/dust.ecsv", caption="../report/dust.rst", category="Tables"),
     params:
-        dust=canon(config["dust"]),
+        settings=settings_of("dust"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/dust.log",
     benchmark:

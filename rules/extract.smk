@@ -1,13 +1,13 @@
 rule extract:
     """Aperture spectra (Jy per channel) and their measured noise."""
     input:
-        f"{OUT}/comoving/{{cube}}/{{line}}.fits",
+        subcube=f"{OUT}/comoving/{{cube}}/{{line}}.fits",
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/spectra/{{cube}}/{{line}}.fits",
     params:
-        apertures=canon([config.get("apertures_km", []), config.get("apertures_arcsec", [])]),
-        window_factor=config["limits"]["window_factor"],
-        coma=canon(config["coma"]),
+        settings=settings_of("catalogue", "coma", "limits.window_factor", "apertures_km", "apertures_arcsec", "comoving"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/extract/{{cube}}/{{line}}.log",
     benchmark:

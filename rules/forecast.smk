@@ -3,12 +3,12 @@ rule forecast:
     input:
         budget=f"{OUT}/budget.ecsv",
         ephemeris=ephemeris_input,
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/forecast.ecsv",
     params:
-        planned=canon(config.get("planned", [])),
-        limits=canon(config["limits"]),
-        coma=canon(config["coma"]),
+        settings=settings_of("catalogue", "planned", "comoving", "limits.nsigma", "limits.window_factor", "excitation", "coma", "target", "observatory", "apertures_km", "apertures_arcsec", "interferometer"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/forecast.log",
     benchmark:

@@ -6,13 +6,8 @@ rule geometry:
     output:
         f"{OUT}/geometry/{{cube}}.ecsv",
     params:
-        epoch=lambda w: CUBES[w.cube].epoch,
-        time=lambda w: CUBES[w.cube].time,
-        tracked=lambda w: CUBES[w.cube].tracked,
-        position=lambda w: CUBES[w.cube].position,
-        offset=lambda w: list(CUBES[w.cube].offset),
-        target=canon(config["target"]),
-        observatory=canon(config["observatory"]),
+        settings=settings_of("target", "observatory", cube=True),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/geometry/{{cube}}.log",
     benchmark:

@@ -6,13 +6,12 @@ rule injection:
         cubes=ir_cubes_of_species,
         limits=f"{OUT}/limits.ecsv",
         budget=f"{OUT}/budget.ecsv",
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/injection/{{species}}.ecsv",
     params:
-        limits=canon(config["limits"]),
-        coma=canon(config["coma"]),
-        excitation=canon(config["excitation"]),
-        infrared=canon(config["infrared"]),
+        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/injection/{{species}}.log",
     benchmark:

@@ -1,11 +1,13 @@
 rule limits_species:
     """Q, sigma_Q, detections and upper limits of one species."""
     input:
-        f"{OUT}/stack/{{species}}.fits",
+        stack=f"{OUT}/stack/{{species}}.fits",
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/limits/{{species}}.ecsv",
     params:
-        limits=canon(config["limits"]),
+        settings=settings_of("catalogue", "limits.nsigma", "coma"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/limits/{{species}}.log",
     benchmark:
@@ -27,7 +29,8 @@ rule limits:
         json=f"{OUT}/limits.json",
         activity=f"{OUT}/activity.ecsv",
     params:
-        activity_slope=config["limits"]["activity_slope"],
+        settings=settings_of("limits.nsigma", "limits.activity_slope", "coma"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/limits.log",
     benchmark:

@@ -12,6 +12,7 @@ rule report:
         forecast=f"{OUT}/forecast.ecsv",
         bands=bands_files(),
         dust=f"{OUT}/dust.ecsv",
+        catalogue=catalogue_files(),
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),
@@ -19,7 +20,8 @@ rule report:
         sweep=report(f"{OUT}/figures/temperature_sweep.png", caption="../report/sweep.rst", category="Figures"),
         infrared=report(f"{OUT}/figures/infrared_spectra.png", caption="../report/infrared.rst", category="Figures"),
     params:
-        shown=canon({k: config.get(k) for k in ("campaign", "target", "species", "limits", "budget", "coma", "dust")}),
+        settings=settings_of(*CONFIG_KEYS),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/report.log",
     benchmark:

@@ -3,13 +3,12 @@ rule stack:
     input:
         spectra=spectra_of_species,
         bands=band_files_of_species,
+        catalogue=catalogue_files(),
     output:
         f"{OUT}/stack/{{species}}.fits",
     params:
-        excitation=canon(config["excitation"]),
-        coma=canon(config["coma"]),
-        interferometer=canon(config.get("interferometer")),
-        infrared=canon(config["infrared"]),
+        settings=settings_of("catalogue", "coma", "excitation", "comoving", "interferometer"),
+        code=CODE_VERSION,
     log:
         f"{OUT}/logs/stack/{{species}}.log",
     benchmark:

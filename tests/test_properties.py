@@ -28,11 +28,11 @@ from pipeline.catalogue.entries import load_catalogue
 from pipeline.io.cubes import read_cube_info
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from pipeline.rates.limits_table import limit_rows
-from pipeline.workflow.stack import stack_input
+from pipeline.coma.response import ComaModel
+from pipeline.rates.q_units import stack_input
 
 FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 CAT = load_catalogue()
-CONFIG = {"excitation": {"t_kin_K": [40.0]}, "coma": {"outflow_km_s": "law", "solar_activity": "quiet"}}
 SETTINGS = ExtractionSettings(radii=[1.2 * u.arcsec], window=1.0 * u.km / u.s, other_lines=[] * u.km / u.s)
 N_PIX = 24
 EPS32 = float(np.finfo(np.float32).eps)
@@ -64,7 +64,7 @@ def _extract(path):
 
 def _q_and_limit(hdul):
     """Production rate, its error and the Bayesian 3-sigma upper limit of the first aperture (40 K)."""
-    inp, _ = stack_input(hdul, CAT, CONFIG)
+    inp, _ = stack_input(hdul, CAT, [40.0] * u.K, ComaModel("law", "quiet"))
     rows = limit_rows("HCN", "all", [40.0] * u.K, [1.0] * u.km, inp.q / u.s, inp.sigma_q / u.s, 3.0, [], [])
     return float(inp.q[0, 0]), float(inp.sigma_q[0, 0]), float(rows["q_upper"][0].to_value(1 / u.s))
 

@@ -180,3 +180,59 @@ def test_python_tags_are_not_executed(tmp_path):
 def test_missing_config_file(tmp_path):
     with pytest.raises(ConfigError, match=r"config file '.*absent\.yaml' does not exist"):
         load_config(tmp_path / "absent.yaml")
+
+
+# ---- typed settings
+
+
+def test_settings_are_typed_quantities_from_the_validated_config():
+    import astropy.units as u
+    from astropy.tests.helper import assert_quantity_allclose
+
+    from pipeline.settings import Settings
+
+    config = validate_config(_base(apertures_km=[500, 2000], apertures_arcsec=[3.0],
+                                   observatory={"lon_deg": -70.0, "lat_deg": -24.0, "height_m": 5000.0}))
+    s = Settings.from_config(config)
+    assert s.species == ("CO", "HCN")
+    assert_quantity_allclose(u.Quantity(s.apertures[:2]), [500, 2000] * u.km)
+    assert_quantity_allclose(s.apertures[2], 3.0 * u.arcsec)
+    assert_quantity_allclose(s.t_kin, [10, 20, 40, 80] * u.K)
+    assert_quantity_allclose(s.half_width, 40 * u.km / u.s)
+    assert s.coma.outflow == "law" and s.coma.solar_activity == "quiet"
+    # the site: astropy's geodetic -> geocentric conversion of the same numbers (the reference)
+    from astropy.coordinates import EarthLocation
+    ref = EarthLocation.from_geodetic(-70.0 * u.deg, -24.0 * u.deg, 5000.0 * u.m)
+    assert_quantity_allclose(u.Quantity(s.location.geocentric), u.Quantity(ref.geocentric))
+    assert [c.cube_id for c in s.cubes] == ["c1", "second"] and s.cube is None
+    assert s.with_cube("second").cube.epoch == "e2"
+    assert s.interferometer is None and s.catalogue_files is None
+    # the nucleus mass range from the schema's default radius and density: M = 4/3 pi R^3 rho (closed form)
+    m = s.budget.baseline.mass_kg
+    assert m[0] == pytest.approx(4 / 3 * 3.141592653589793 * 100.0**3 * 300, rel=1e-12)
+    assert m[1] == pytest.approx(4 / 3 * 3.141592653589793 * 1000.0**3 * 1000, rel=1e-12)
+    with pytest.raises(ConfigError, match="no cube with id 'third'"):
+        s.with_cube("third")
+
+
+def test_a_step_reads_only_the_sections_its_rule_declares():
+    from pipeline.settings import Settings, sections_record
+
+    config = validate_config(_base())
+    given = sections_record(config, ["coma", "limits.window_factor"])
+    assert given == {"outdir": "results", "coma": config["coma"], "limits": {"window_factor": 1.5}}
+    s = Settings.from_config(given, sections=given)
+    assert s.limits.window_factor == 1.5 and s.coma.outflow == "law"
+    assert s.record == given                                   # what provenance records: exactly what was given
+    with pytest.raises(ConfigError, match=r"not given the config key 'limits.nsigma'"):
+        s.limits.nsigma
+    with pytest.raises(ConfigError, match=r"not given the config key 'excitation'"):
+        s.t_kin
+    # an optional section the campaign does not configure is given as None: "not configured", readable
+    given = sections_record(config, ["interferometer"])
+    assert Settings.from_config(given, sections=given).interferometer is None
+
+
+def test_absolute_magnitude_needs_an_albedo():
+    with pytest.raises(ConfigError, match="albedo"):
+        validate_config(_base(budget={"nucleus": {"absolute_magnitude": 18.0}}))

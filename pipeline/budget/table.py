@@ -8,7 +8,7 @@ measurement is reported as 'not observed', never as excluded.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any
 
 import astropy.units as u
@@ -21,7 +21,7 @@ from pipeline.budget.momentum import (LATENT_HEAT, diameter_from_absolute_magnit
                           nongrav_acceleration, nucleus_mass, required_mass_loss_rate, required_production_rate,
                           rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
 
-__all__ = ["BudgetAssumptions", "assumptions_from_config", "assumption_sets", "joint_exclusion", "acceleration_at", "ejection_speed_at",
+__all__ = ["BudgetAssumptions", "epoch_distances", "dust_forces", "joint_exclusion", "acceleration_at", "ejection_speed_at",
            "budget_table", "rocket_fraction", "VERDICTS"]
 
 VERDICTS = ("not observed", "excluded for every mass in the range", "excluded above the allowed mass",
@@ -55,47 +55,6 @@ class BudgetAssumptions:
                 "drivers": list(self.drivers),
                 "momentum_balance": "M a = zeta Mdot v_ej, all mass loss in one species at a time",
                 "sublimation": "energy-limited, all absorbed sunlight pays the latent heat (no re-radiation)"}
-
-
-def _radius_range(nucleus: dict[str, Any]) -> tuple[tuple[float, float], str]:
-    if "absolute_magnitude" in nucleus:
-        h_mag = float(nucleus["absolute_magnitude"])
-        albedo = nucleus.get("albedo", [0.04, 0.04])
-        d = [float(diameter_from_absolute_magnitude(h_mag, p).to_value(u.km)) for p in albedo]
-        return (min(d) / 2, max(d) / 2), f"H = {h_mag:g} and albedo {min(albedo):g}-{max(albedo):g}"
-    return (float(nucleus["radius_km"][0]), float(nucleus["radius_km"][1])), "radius and density"
-
-
-def assumption_sets(budget: dict[str, Any]) -> list[BudgetAssumptions]:
-    """The baseline assumptions and every further set of ``budget.assumption_sets``."""
-    base = assumptions_from_config(budget)
-    sets = [base]
-    for extra in budget.get("assumption_sets", []):
-        sets.append(replace(base, name=str(extra["name"]),
-                            efficiency=float(extra.get("momentum_efficiency", base.efficiency)),
-                            ejection=extra.get("ejection_speed_km_s", base.ejection)))
-    return sets
-
-
-def assumptions_from_config(budget: dict[str, Any]) -> BudgetAssumptions:
-    """Collect the baseline budget assumptions from the config's ``budget`` section."""
-    nucleus = budget["nucleus"]
-    if "mass_kg" in nucleus:
-        mass = tuple(float(m) for m in nucleus["mass_kg"])
-        radius = density = None
-        source = "mass range"
-    else:
-        radius, source = _radius_range(nucleus)
-        density = tuple(float(d) for d in nucleus.get("density_kg_m3", [500.0, 500.0]))
-        mass = (float(nucleus_mass(radius[0] * u.km, density[0] * u.kg / u.m**3).to_value(u.kg)),
-                float(nucleus_mass(radius[1] * u.km, density[1] * u.kg / u.m**3).to_value(u.kg)))
-    acc = tuple(float(a) for a in budget["acceleration_m_s2"]) if "acceleration_m_s2" in budget else None
-    nongrav = budget.get("nongrav")
-    return BudgetAssumptions(acceleration=acc, nongrav=nongrav, radius_km=radius,
-                             density_kg_m3=density, mass_kg=(min(mass), max(mass)),
-                             ejection=budget["ejection_speed_km_s"], efficiency=float(budget["momentum_efficiency"]),
-                             interval_days=float(budget["interval_days"]), drivers=tuple(budget["drivers"]),
-                             g_params=(nongrav or {}).get("g_params"), nucleus_from=source)
 
 
 def acceleration_at(assume: BudgetAssumptions, r_h: u.Quantity) -> tuple[u.Quantity, u.Quantity]:
@@ -277,3 +236,30 @@ def joint_exclusion(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Bud
                           "chi-bar-square null distribution; one-sided Gaussian significance")
     table.meta["assumption_set"] = assume.name
     return table
+
+
+def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
+    """Mean heliocentric distance of each epoch group and of all cubes ('all')."""
+    rows = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
+    groups: dict[str, list[float]] = {}
+    for r in rows:
+        groups.setdefault(str(r["epoch"]), []).append(float(r["r_h"].to_value(u.au)))
+    out = {g: float(np.mean(v)) * u.au for g, v in sorted(groups.items())}
+    out["all"] = float(np.mean([x for v in groups.values() for x in v])) * u.au
+    return out
+
+
+def dust_forces(dust_path: str | None, include: bool) -> dict[str, u.Quantity]:
+    """The dust's largest push per epoch group (N) from dust.ecsv, at the largest aperture; empty unless included."""
+    if not include or dust_path is None:
+        return {}
+    dust = QTable.read(dust_path, format="ascii.ecsv")
+    out: dict[str, u.Quantity] = {}
+    if "momentum_rate" not in dust.colnames:
+        return out
+    for group in dict.fromkeys(str(e) for e in dust["epoch"]):
+        sel = dust[dust["epoch"] == group]
+        row = sel[int(np.argmax(sel["aperture_km"].to_value(u.km)))]
+        if np.isfinite(row["momentum_rate"].value):
+            out[group] = u.Quantity(row["momentum_rate"], u.N)
+    return out

@@ -18,7 +18,7 @@ import sys
 import astropy.units as u
 from astropy.time import Time
 
-from pipeline.settings import load_config
+from pipeline.settings import Settings, load_config
 from pipeline.errors import GasledgerError
 from pipeline.geometry.observing import observer_location
 from pipeline.offline import future_time_tolerated
@@ -42,19 +42,18 @@ def main(argv: list[str] | None = None) -> int:
     try:
         location = None
         if args.config:
-            config = load_config(args.config)
-            if "elements" not in config["target"]:
+            settings = Settings.from_config(load_config(args.config))
+            if settings.target.elements is None:
                 print(f"gasledger: {args.config}: target has no 'elements'", file=sys.stderr)
                 return 2
-            mapping = config["target"]["elements"]
+            elements = settings.target.elements
             if not args.geocentre:
-                location = observer_location(config["observatory"])
+                location = settings.location
         elif args.elements:
-            mapping = json.loads(args.elements)
+            elements = OrbitalElements.from_mapping(json.loads(args.elements))
         else:
             print("gasledger: give --config or --elements", file=sys.stderr)
             return 2
-        elements = OrbitalElements.from_mapping(mapping)
         with future_time_tolerated():
             table = ephemeris_from_elements(elements, Time(args.start, scale="utc"), Time(args.stop, scale="utc"),
                                             args.step * u.min, location)

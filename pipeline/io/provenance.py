@@ -5,14 +5,18 @@ Records hold no timestamps, so identical inputs give byte-identical tables.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
-from typing import Any, Iterable
+from typing import TYPE_CHECKING, Any, Iterable
 
 from astropy.io import fits
+
+if TYPE_CHECKING:
+    from pipeline.settings import Settings
 
 __all__ = ["file_checksum", "provenance_record", "add_to_header", "from_header"]
 
@@ -76,14 +80,33 @@ def file_checksum(path: str | Path, cache_dir: str | Path | None = None) -> str:
     return checksum
 
 
-def provenance_record(config: dict[str, Any] | None, inputs: Iterable[str | Path],
-                      stage: str) -> dict[str, Any]:
+@functools.lru_cache(maxsize=1)
+def code_version() -> str:
+    """A digest of the package's code and data (every .py and .ecsv file below ``pipeline/``, and the schema).
+
+    It goes into every rule's params, so a change of the code reruns the jobs it could change, and into every
+    provenance record, beside the version number.
+    """
+    root = Path(__file__).resolve().parents[1]
+    files = sorted(p for p in root.rglob("*") if p.suffix in (".py", ".ecsv") and "__pycache__" not in p.parts)
+    files.append(root.parent / "config" / "schema.yaml")
+    digest = hashlib.sha256()
+    for path in files:
+        if path.is_file():
+            digest.update(str(path.relative_to(root.parent)).encode())
+            digest.update(b"\0")
+            digest.update(path.read_bytes())
+    return digest.hexdigest()[:16]
+
+
+def provenance_record(settings: "Settings | None", inputs: Iterable[str | Path], stage: str) -> dict[str, Any]:
     """A JSON-serialisable record of what made an output.
 
     Parameters
     ----------
-    config : dict or None
-        The validated campaign config (stored whole).
+    settings : Settings or None
+        The step's settings: their ``record`` (the config sections the step was given, validated, defaults
+        filled in) is stored, and input checksums are cached below their ``outdir``.
     inputs : paths
         Every file the output was computed from.
     stage : str
@@ -91,13 +114,14 @@ def provenance_record(config: dict[str, Any] | None, inputs: Iterable[str | Path
     """
     from pipeline import __version__
 
-    cache = Path(config["outdir"]) / ".checksums" if config and "outdir" in config else None
+    cache = Path(settings.outdir) / ".checksums" if settings is not None else None
     return {
         "software": "gasledger",
         "version": __version__,
+        "code": code_version(),
         "stage": stage,
         "inputs": {str(p): file_checksum(p, cache) for p in sorted(map(str, inputs))},
-        "config": config,
+        "config": settings.record if settings is not None else None,
     }
 
 

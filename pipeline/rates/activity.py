@@ -11,12 +11,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import astropy.units as u
 import numpy as np
+from astropy.table import QTable
 from scipy.optimize import brentq, minimize_scalar
 
 from pipeline.rates.statistics import bayesian_upper_limit
 
-__all__ = ["ActivityFit", "fit_fixed_slope", "fit_free_slope"]
+__all__ = ["ActivityFit", "fit_fixed_slope", "fit_free_slope", "free_slope_possible", "activity_table"]
 
 
 @dataclass(frozen=True)
@@ -52,11 +54,17 @@ def fit_fixed_slope(q: np.ndarray, sigma: np.ndarray, r_h_au: np.ndarray, n: flo
                        n=float(n), n_lo=np.nan, n_hi=np.nan, chi2=chi2, dof=len(q) - 1, fitted_slope=False)
 
 
+def free_slope_possible(r_h_au: np.ndarray) -> bool:
+    """Whether the epochs allow a free slope: at least 3 of them, spread in r_h."""
+    r = np.asarray(r_h_au, dtype=float)
+    return bool(len(r) >= 3 and np.ptp(np.log(r)) >= 1e-3)
+
+
 def fit_free_slope(q: np.ndarray, sigma: np.ndarray, r_h_au: np.ndarray, confidence: float,
                    n_range: tuple[float, float] = (-10.0, 20.0)) -> ActivityFit:
     """Q0 and n both fitted; the 1σ interval of n from the profile χ² (Δχ² = 1), NaN where it is open."""
     q, s, r = (np.asarray(x, dtype=float) for x in (q, sigma, r_h_au))
-    if len(q) < 3 or np.ptp(np.log(r)) < 1e-3:
+    if not free_slope_possible(r):
         msg = "a free slope needs at least 3 epochs spread in r_h"
         raise ValueError(msg)
 
@@ -79,3 +87,46 @@ def fit_free_slope(q: np.ndarray, sigma: np.ndarray, r_h_au: np.ndarray, confide
     return ActivityFit(q0=float(q0), q0_err=float(err), q0_upper=float(bayesian_upper_limit(q0, err, confidence)),
                        n=n_best, n_lo=float(n_lo), n_hi=float(n_hi), chi2=chi2_min, dof=len(q) - 2,
                        fitted_slope=True)
+
+
+def activity_table(limits: QTable, epoch_rh: dict[str, float], slope: float, confidence: float) -> QTable:
+    """Activity-law fits per species and aperture at the temperature conservative for 'all'.
+
+    Parameters
+    ----------
+    limits : QTable
+        The joined limits table (columns species, epoch, aperture_km, t_kin_K, q, q_err, conservative).
+    epoch_rh : dict
+        Mean heliocentric distance [au] of each epoch group.
+    slope : float
+        The fixed slope n of Q0 (r_h / au)^-n; a free slope is fitted too where :func:`free_slope_possible`.
+    confidence : float
+        One-sided confidence of the Q0 upper limit.
+    """
+    rows = []
+    for species in dict.fromkeys(str(s) for s in limits["species"]):
+        sel = limits[limits["species"] == species]
+        for row in sel[(sel["epoch"] == "all") & sel["conservative"]]:
+            ap, t = row["aperture_km"].to_value(u.km), row["t_kin_K"]
+            ep = sel[(sel["epoch"] != "all") & np.isclose(sel["aperture_km"].to_value(u.km), ap)
+                     & (sel["t_kin_K"] == t)]
+            ep = ep[[str(e) in epoch_rh for e in ep["epoch"]]]
+            if len(ep) < 2:
+                continue
+            q, s_ = ep["q"].to_value(1 / u.s), ep["q_err"].to_value(1 / u.s)
+            r = np.array([epoch_rh[str(e)] for e in ep["epoch"]])
+            fits_ = [fit_fixed_slope(q, s_, r, slope, confidence)]
+            if free_slope_possible(r):
+                fits_.append(fit_free_slope(q, s_, r, confidence))
+            for f in fits_:
+                rows.append({"species": species, "aperture_km": ap, "t_kin_K": t, "slope": "fitted" if
+                             f.fitted_slope else "fixed", "n": f.n, "n_lo": f.n_lo, "n_hi": f.n_hi,
+                             "n_constrained": bool(np.isfinite(f.n_lo) and np.isfinite(f.n_hi)), "q0": f.q0,
+                             "q0_err": f.q0_err, "q0_upper": f.q0_upper, "chi2": f.chi2, "dof": f.dof,
+                             "n_epochs": len(q), "r_h_min": float(r.min()), "r_h_max": float(r.max())})
+    table = QTable(rows=rows) if rows else QTable(names=["species", "q0"], dtype=[str, float])
+    for name in ("q0", "q0_err", "q0_upper"):
+        if name in table.colnames:
+            table[name] = np.asarray(table[name], dtype=float) / u.s
+    table.meta["model"] = "Q(r_h) = Q0 (r_h / 1 au)^-n; n fixed (config limits.activity_slope) and fitted"
+    return table

@@ -20,6 +20,9 @@ from astropy.io import fits
 from scipy.signal import fftconvolve
 
 from pipeline.coma.image import apply_spectral_response, beam_kernel
+from pipeline.coma.response import ComaModel
+from pipeline.rates.q_units import stack_input
+from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 
 __all__ = ["PlannedEpoch", "noise_subcube_header", "noise_realisation", "write_noise_subcube", "forecast_sigma"]
 
@@ -83,17 +86,20 @@ def write_noise_subcube(path: Path, plan: PlannedEpoch, line, geo: dict, seed: i
 
 
 
-def forecast_sigma(plan: PlannedEpoch, line, geo: dict, settings, catalogue, config: dict, workdir: Path,
-                   n_realisations: int = 4, seed: int = 0) -> np.ndarray:
+def forecast_sigma(plan: PlannedEpoch, line, geo: dict, extraction: ExtractionSettings, catalogue,
+                   t_kin: u.Quantity, model: ComaModel, workdir: Path, shortest_baseline: u.Quantity | None = None,
+                   correct_filtering: bool = True, n_realisations: int = 4, seed: int = 0) -> np.ndarray:
     """σ_Q (n_T, n_ap) that the planned observation of ``line`` would give: RMS over noise realisations of the
-    σ the real measurement code returns for noise-only sub-cubes of the planned statistics."""
-    from pipeline.spectra.line_spectra import extract_spectra
-    from pipeline.workflow.stack import stack_input
+    σ the real measurement code returns for noise-only sub-cubes of the planned statistics.
 
+    The sub-cubes are extracted with ``extraction`` and converted to Q units with
+    :func:`pipeline.rates.q_units.stack_input` at the temperatures ``t_kin`` under the coma ``model``
+    (and the interferometer's ``shortest_baseline``, when given), exactly as measured cubes are.
+    """
     sig2 = []
     for k in range(n_realisations):
         path = write_noise_subcube(workdir / f"{plan.label}_{line.line_id}_{k}.fits", plan, line, geo, seed + k)
-        hdul = extract_spectra(path, settings, offsource=False)
-        inp, _ = stack_input(hdul, catalogue, config)
+        hdul = extract_spectra(path, extraction, offsource=False)
+        inp, _ = stack_input(hdul, catalogue, t_kin, model, shortest_baseline, correct_filtering)
         sig2.append(inp.sigma_q**2)
     return np.sqrt(np.mean(sig2, axis=0))

@@ -12,6 +12,7 @@ from __future__ import annotations
 import logging
 from dataclasses import dataclass
 
+import astropy.constants as const
 import astropy.units as u
 import numpy as np
 from astropy.io import fits
@@ -23,7 +24,7 @@ from pipeline.io.cubes import CubeInfo, open_data, read_cube_info
 from pipeline.errors import CoverageError
 from pipeline.spectra.noise import channel_sigma, fit_baseline, line_free_mask, window_sum_noise, window_weights
 
-__all__ = ["ExtractionSettings", "subcube_velocities", "extract_spectra"]
+__all__ = ["ExtractionSettings", "extraction_settings", "other_line_velocities", "subcube_velocities", "extract_spectra"]
 
 log = logging.getLogger(__name__)
 
@@ -61,6 +62,36 @@ def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor) 
     sums = sums * factor
     per_chan = np.nanstd(sums[:, free], axis=0, ddof=1)
     return float(np.nanmedian(per_chan)), len(positions)
+
+
+def other_line_velocities(catalogue, line, half_width: u.Quantity) -> u.Quantity:
+    """Radio velocities, on ``line``'s axis, of every other catalogue line within ``half_width``."""
+    c = const.c.to_value(u.km / u.s)
+    f0 = line.freq.to_value(u.GHz)
+    vel = [c * (1 - other.freq.to_value(u.GHz) / f0) for other in catalogue.lines if other.line_id != line.line_id]
+    vel = np.array([v for v in vel if abs(v) <= half_width.to_value(u.km / u.s)])
+    return vel * u.km / u.s
+
+
+def extraction_settings(line, catalogue, radii: list[u.Quantity], window: u.Quantity,
+                        half_width: u.Quantity) -> ExtractionSettings:
+    """What to extract for ``line``: the apertures, the integration window and the other lines' positions.
+
+    Parameters
+    ----------
+    line : Line
+        The catalogue line of the sub-cube.
+    catalogue : Catalogue
+        Its other lines within ``half_width`` (plus 5 km/s) are kept out of the noise and baseline channels.
+    radii : list of Quantity [length or angle]
+        Aperture radii at the target or on the sky.
+    window : Quantity [speed]
+        Half-width of the integration window (the window factor times the outflow speed).
+    half_width : Quantity [speed]
+        Half-width of the sub-cube's velocity axis.
+    """
+    return ExtractionSettings(radii=list(radii), window=window,
+                              other_lines=other_line_velocities(catalogue, line, half_width + 5 * u.km / u.s))
 
 
 def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray | None = None,

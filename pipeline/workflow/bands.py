@@ -33,85 +33,26 @@ from pipeline.coma.image import aperture_count_on_grid
 from pipeline.geometry.comoving import target_frame_frequencies
 from pipeline.coma.conversion import band_flux_from_molecules
 from pipeline.io.cubes import CubeInfo, read_cube_info
-from pipeline.dust.afrho import afrho, spectral_slope
+from pipeline.dust.afrho import afrho, slope_percent_per_100nm, spectral_slope
 from pipeline.errors import CoverageError, CubeError
 from pipeline.spectra.ir_spectra import F_LAMBDA, IRSpectra, extract_ir_spectra
 from pipeline.io.provenance import add_to_header, provenance_record
-from pipeline.coma.response import outflow_speed, scale_lengths
+from pipeline.coma.response import ComaModel, outflow_speed, scale_lengths
 from pipeline.dust.solar import solar_flux_density
-from pipeline.workflow.common import aperture_radii, catalogue_from_config, coma_model, location_from_config
+from pipeline.settings import DustSettings, InfraredSettings, Settings
+from pipeline.spectra.band_windows import band_setup, band_windows, doppler_factor, resolving_power_of, scatter_sigma
 
-__all__ = ["run", "resolving_power_of", "doppler_factor", "scatter_sigma", "band_windows", "band_setup"]
+__all__ = ["run"]
 
 log = logging.getLogger(__name__)
 _RESPONSE = u.W / u.m**2 * u.s
 
 
-def resolving_power_of(info: CubeInfo, given: float | None) -> tuple[float, str]:
-    """The resolving power to use and where it came from (config, or Nyquist sampling of the channels)."""
-    if given is not None:
-        return float(given), "config"
-    lam = info.wavelengths.to_value(u.um)
-    return float(np.median(lam[1:] / (2 * np.abs(np.diff(lam))))), "Nyquist sampling, lambda / (2 dlambda)"
-
-
-def doppler_factor(info: CubeInfo, geometry, location) -> float:
-    """Observed over rest wavelength of the target (one factor for all channels)."""
-    rest = target_frame_frequencies(info, geometry, location)
-    return float(np.median((rest / info.frequencies).decompose().value))
-
-
-def scatter_sigma(wavelength: np.ndarray, flux: np.ndarray, free: np.ndarray) -> np.ndarray:
-    """Per-channel sigma of a spectrum without an ERR extension: std of first differences / sqrt(2), line-free.
-
-    Differencing removes a smooth continuum; for white noise the difference of two channels has variance 2 sigma^2.
-    """
-    diffs = np.diff(np.where(free, flux, np.nan))
-    diffs = diffs[np.isfinite(diffs)]
-    if diffs.size < 5:
-        msg = f"only {diffs.size} line-free channel pairs to estimate the noise (no ERR extension); expected 5 or more"
-        raise CoverageError(msg)
-    return np.full(wavelength.shape, float(np.std(diffs, ddof=1) / np.sqrt(2.0)))
-
-
-def _band_windows(bands: list[Band], factor: float, resolving_power: float, margin: float):
-    """Observed-frame (extent_lo, extent_hi, window_lo, window_hi) of each band, in um."""
-    out = {}
-    for band in bands:
-        lo, hi = band.extent_lo * factor, band.extent_hi * factor
-        wlo, whi = integration_window(lo, hi, resolving_power, margin)
-        out[band.band_id] = (lo, hi, wlo, whi)
-    return out
-
-
-def band_windows(obs: u.Quantity, catalogue: Catalogue, band_ids: list[str], factor: float, resolving_power: float,
-                 config) -> dict:
-    """Windows of every catalogue band in the cube's range and of ``band_ids`` (observed frame, um)."""
-    margin = float(config.get("infrared", {}).get("margin_fwhm", 1.5))
-    in_range = [b for b in catalogue.bands if b.extent_hi * factor >= obs.min() and b.extent_lo * factor <= obs.max()]
-    wanted = [catalogue.get_band(b) for b in band_ids if b not in {x.band_id for x in in_range}]
-    return _band_windows(in_range + wanted, factor, resolving_power, margin)
-
-
-def band_setup(band_id: str, windows: dict, obs: u.Quantity, config) -> tuple[np.ndarray, np.ndarray | None]:
-    """The continuum mask of one band (other bands' windows excluded) and the continuum shape (None = flat)."""
-    ir = config.get("infrared", {})
-    wlo, whi = windows[band_id][2:]
-    exclude = [(w[2], w[3]) for k, w in windows.items() if k != band_id]
-    free = continuum_mask(obs, wlo, whi, float(ir.get("continuum_factor", 1.0)), exclude)
-    shape = None
-    if ir.get("continuum_shape", "solar") == "solar":  # reflected sunlight: the polynomial is the reflectance
-        sun = solar_flux_density(obs).value
-        shape = sun / np.mean(sun)
-    return free, shape
-
-
 def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Band, windows, catalogue: Catalogue,
-               config, geo, info: CubeInfo, radii_km: list[float], x: float, y: float, resolving_power: float,
-               free_all: np.ndarray) -> tuple[list[dict], np.ndarray]:
+               ir: InfraredSettings, model: ComaModel, geo, info: CubeInfo, radii_km: list[float], x: float, y: float,
+               resolving_power: float, free_all: np.ndarray) -> tuple[list[dict], np.ndarray]:
     """Rows of the BANDS table for one band (one per aperture) and its continuum models (n_ap, n_chan)."""
     lo, hi, wlo, whi = windows[band.band_id]
-    ir = config.get("infrared", {})
     n_ap, n_chan = spectra.flux.shape
     models = np.full((n_ap, n_chan), np.nan)
     base = {"band_id": band.band_id, "species": band.species, "cube_id": str(geo["cube_id"]),
@@ -123,10 +64,9 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
         return [dict(base, covered=False, reason=reason, aperture_km=r, aperture_index=j)
                 for j, r in enumerate(radii_km)], models
     capture = band_capture(lo, hi, wlo, whi, resolving_power)
-    free, shape = band_setup(band.band_id, windows, obs, config)
+    free, shape = band_setup(band.band_id, windows, obs, ir.continuum_factor, ir.continuum_shape)
     species = catalogue.get_species(band.species)
     parent = catalogue.get_species(species.parent) if species.parent else None
-    model = coma_model(config)
     r_h, delta = u.Quantity(geo["r_h"]), u.Quantity(geo["delta"])
     v_out = outflow_speed(model, r_h)
     length, daughter = scale_lengths(species, parent, model, r_h, v_out)
@@ -140,7 +80,7 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
     for j, radius in enumerate(radii_km):
         try:
             m = measure_band(obs, spectra.flux[j], sigma[j], wlo, whi, free,
-                             order=int(ir.get("continuum_order", 1)), capture=capture, continuum_shape=shape)
+                             order=ir.continuum_order, capture=capture, continuum_shape=shape)
         except CoverageError as exc:
             msg = f"cube {geo['cube_id']}, band {band.band_id}, aperture {radius:g} km: {exc}"
             raise CoverageError(msg) from exc
@@ -165,16 +105,15 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
     return rows, models
 
 
-def _dust_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, free_all: np.ndarray, config, geo,
+def _dust_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, free_all: np.ndarray, dust: DustSettings, geo,
                radii_km: list[float], windows) -> tuple[list[dict], list[dict]]:
     """Afrho at the configured wavelengths (DUST) and the colour between them (COLOUR), per aperture."""
-    dust = config.get("dust", {})
-    half = float(dust.get("half_width_um", 0.04)) * u.um
+    half = float(dust.half_width.to_value(u.um)) * u.um
     r_h, delta = u.Quantity(geo["r_h"]), u.Quantity(geo["delta"])
     rows, colour = [], []
     for j, radius in enumerate(radii_km):
         lam_ok, values, errors = [], [], []
-        for lam_um in dust.get("wavelengths_um", [2.5, 3.5, 4.45]):
+        for lam_um in dust.wavelengths.to_value(u.um).tolist():
             lam = lam_um * u.um
             inside = any(w[2] - half <= lam <= w[3] + half for w in windows.values())
             if lam - half < obs.min() or lam + half > obs.max() or inside:
@@ -199,33 +138,27 @@ def _dust_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, free_all:
             slope, slope_err = spectral_slope(lam_ok * u.um, values * u.cm, errors * u.cm)
             colour.append({"cube_id": str(geo["cube_id"]), "epoch": str(geo["epoch"]), "aperture_km": radius,
                            "wavelength_min": min(lam_ok), "wavelength_max": max(lam_ok),
-                           "slope": _percent_per_100nm(slope), "slope_err": _percent_per_100nm(slope_err)})
+                           "slope": slope_percent_per_100nm(slope), "slope_err": slope_percent_per_100nm(slope_err)})
     return rows, colour
 
 
-def _percent_per_100nm(value) -> float:
-    q = u.Quantity(value)
-    if q.unit.is_equivalent(1 / u.um):
-        return float(q.to_value(1 / u.nm) * 100 * 100)
-    return float(q.to_value(u.percent))
-
-
-def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[str, Any], out_path: str,
-        resolving_power: float | None = None) -> None:
-    """Measure the bands ``band_ids`` and the dust continuum of one infrared cube and write the bands file."""
+def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: str) -> None:
+    """Measure the bands ``band_ids`` and the dust continuum of the settings' (infrared) cube; write the bands file."""
+    cube_path = settings.cube.path
+    resolving_power = settings.cube.resolving_power
     info = read_cube_info(cube_path)
     if info.regime != "infrared":
         msg = (f"{cube_path}: the spectral axis reaches {info.wavelengths.max():.1f}; expected an infrared cube "
                "(every channel short of 30 um) for band measurement")
         raise CubeError(msg)
     geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
-    catalogue = catalogue_from_config(config)
-    location = location_from_config(config)
+    catalogue = settings.catalogue()
+    location = settings.location
     rpow, rsource = resolving_power_of(info, resolving_power)
     factor = doppler_factor(info, geo, location)
     obs = info.wavelengths
     delta = u.Quantity(geo["delta"])
-    radii = aperture_radii(config)
+    radii = list(settings.apertures)
     radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in radii]
     radii_km = [float((r if r.unit.physical_type == "length" else (r.to_value(u.rad) * delta)).to_value(u.km))
                 for r in radii]
@@ -234,7 +167,7 @@ def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[st
              info.shape[0], obs.min().to_value(u.um), obs.max().to_value(u.um), rpow, rsource, len(radii))
     spectra = extract_ir_spectra(info, x, y, radii_pix)
     # every catalogue band in range is kept out of the continuum, configured species or not
-    windows = band_windows(obs, catalogue, band_ids, factor, rpow, config)
+    windows = band_windows(obs, catalogue, band_ids, factor, rpow, settings.infrared.margin_fwhm)
     free_all = np.ones(obs.shape, dtype=bool)
     for w in windows.values():
         free_all &= ~((obs >= w[2]) & (obs <= w[3]))
@@ -248,11 +181,11 @@ def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[st
     band_rows, continua = [], []
     for band_id in band_ids:
         band = catalogue.get_band(band_id)
-        rows, models = _band_rows(spectra, sigma, obs, band, windows, catalogue, config, geo, info, radii_km, x, y,
-                                  rpow, free_all)
+        rows, models = _band_rows(spectra, sigma, obs, band, windows, catalogue, settings.infrared, settings.coma, geo,
+                                  info, radii_km, x, y, rpow, free_all)
         band_rows.extend(rows)
         continua.append(models)
-    dust_rows, colour_rows = _dust_rows(spectra, sigma, obs, free_all, config, geo, radii_km, windows)
+    dust_rows, colour_rows = _dust_rows(spectra, sigma, obs, free_all, settings.dust, geo, radii_km, windows)
 
     prim = fits.PrimaryHDU()
     h = prim.header
@@ -267,7 +200,7 @@ def run(cube_path: str, geometry_path: str, band_ids: list[str], config: dict[st
             ("GLSIGSRC", sigma_source[:60], "per-channel sigma from")):
         h[key] = (value, comment)
     h["GLBANDS"] = (",".join(band_ids), "bands measured")
-    add_to_header(h, provenance_record(config, [cube_path, geometry_path], "bands"))
+    add_to_header(h, provenance_record(settings, [cube_path, geometry_path], "bands"))
     flux_hdu = fits.ImageHDU(spectra.flux.to_value(F_LAMBDA), name="SPECTRA")
     flux_hdu.header["BUNIT"] = "W m-2 um-1"
     err_hdu = fits.ImageHDU(sigma.to_value(F_LAMBDA), name="SIGMA")

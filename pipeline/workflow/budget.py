@@ -2,59 +2,30 @@
 
 from __future__ import annotations
 
-from typing import Any
-
 import astropy.units as u
 import numpy as np
 from astropy.table import QTable
 
 from pipeline.io.atomic import write_json, write_table
-from pipeline.budget.table import assumption_sets, budget_table, joint_exclusion, rocket_fraction
+from pipeline.budget.table import budget_table, dust_forces, epoch_distances, joint_exclusion, rocket_fraction
 from pipeline.io.provenance import provenance_record
-from pipeline.workflow.common import catalogue_from_config
+from pipeline.settings import Settings
 
-__all__ = ["run", "epoch_distances"]
-
-
-def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
-    """Mean heliocentric distance of each epoch group and of all cubes ('all')."""
-    rows = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
-    groups: dict[str, list[float]] = {}
-    for r in rows:
-        groups.setdefault(str(r["epoch"]), []).append(float(r["r_h"].to_value(u.au)))
-    out = {g: float(np.mean(v)) * u.au for g, v in sorted(groups.items())}
-    out["all"] = float(np.mean([x for v in groups.values() for x in v])) * u.au
-    return out
+__all__ = ["run"]
 
 
-def dust_forces(dust_path: str | None, include: bool) -> dict[str, u.Quantity]:
-    """The dust's largest push per epoch group (N) from dust.ecsv, at the largest aperture; empty unless included."""
-    if not include or dust_path is None:
-        return {}
-    dust = QTable.read(dust_path, format="ascii.ecsv")
-    out: dict[str, u.Quantity] = {}
-    if "momentum_rate" not in dust.colnames:
-        return out
-    for group in dict.fromkeys(str(e) for e in dust["epoch"]):
-        sel = dust[dust["epoch"] == group]
-        row = sel[int(np.argmax(sel["aperture_km"].to_value(u.km)))]
-        if np.isfinite(row["momentum_rate"].value):
-            out[group] = u.Quantity(row["momentum_rate"], u.N)
-    return out
-
-
-def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out_ecsv: str, out_json: str,
+def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecsv: str, out_json: str,
         out_exclusion: str | None = None, dust_path: str | None = None) -> None:
     """Compute and write the budget tables (with the dust's push when budget.include_dust is set)."""
     limits = QTable.read(limits_path, format="ascii.ecsv")
-    include_dust = bool(config["budget"].get("include_dust", False))
+    include_dust = settings.budget.include_dust
     forces = dust_forces(dust_path, include_dust)
-    sets = assumption_sets(config["budget"])
+    sets = list(settings.budget.assumption_sets)
     assume = sets[0]
     rh = epoch_distances(geometry_paths)
-    catalogue = catalogue_from_config(config)
+    catalogue = settings.catalogue()
     table = budget_table(limits, rh, sets, catalogue, forces)
-    record = provenance_record(config, [limits_path, *geometry_paths, *([dust_path] if dust_path else [])], "budget")
+    record = provenance_record(settings, [limits_path, *geometry_paths, *([dust_path] if dust_path else [])], "budget")
     table.meta["provenance"] = record
     table.meta["assumptions"] = dict(assume.as_dict(), dust=(
         "the dust's momentum rate (dust.ecsv, largest aperture) pays for part of the push first" if include_dust
@@ -68,7 +39,7 @@ def run(limits_path: str, geometry_paths: list[str], config: dict[str, Any], out
     combined = table[(table["epoch"] == "all") & (table["assumption_set"] == assume.name)]
     water = catalogue.get_species("H2O").mass if isinstance(assume.ejection, dict) else None
     summary = {
-        "campaign": config["campaign"],
+        "campaign": settings.campaign,
         "assumptions": table.meta["assumptions"],
         "dust_force_N": {k: float(v.to_value(u.N)) for k, v in forces.items()},
         "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"], water),

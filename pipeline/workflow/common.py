@@ -1,23 +1,19 @@
-"""Shared pieces of the stages: logging, catalogue, coma model, apertures and site from the config."""
+"""Shared pieces of the workflow steps: the log, one-sentence errors, and a rule's typed settings."""
 
 from __future__ import annotations
 
 import contextlib
+import json
 import logging
 import sys
 from pathlib import Path
 from typing import Any
 
-import astropy.units as u
-
-from pipeline.catalogue.entries import Catalogue, load_catalogue
 from pipeline.errors import GasledgerError
 from pipeline.offline import future_time_tolerated
-from pipeline.geometry.observing import observer_location
-from pipeline.coma.response import ComaModel
+from pipeline.settings import Settings
 
-__all__ = ["stage_errors", "setup_logging", "catalogue_from_config", "coma_model", "aperture_radii", "location_from_config",
-           "temperatures"]
+__all__ = ["stage_errors", "setup_logging", "rule_settings"]
 
 
 @contextlib.contextmanager
@@ -52,32 +48,8 @@ def setup_logging(log_path: str | Path | None) -> logging.Logger:
     return logging.getLogger("gasledger")
 
 
-def catalogue_from_config(config: dict[str, Any]) -> Catalogue:
-    """The user catalogue named in the config, or the built-in one."""
-    if "catalogue" in config:
-        cat = config["catalogue"]
-        return load_catalogue(cat["species_file"], cat["lines_file"], cat.get("bands_file"))
-    return load_catalogue()
-
-
-def coma_model(config: dict[str, Any]) -> ComaModel:
-    """Outflow and photodestruction assumptions from the ``coma`` section."""
-    coma = config.get("coma", {})
-    return ComaModel(outflow=coma.get("outflow_km_s", "law"), solar_activity=coma.get("solar_activity", "quiet"))
-
-
-def aperture_radii(config: dict[str, Any]) -> list[u.Quantity]:
-    """Aperture radii: lengths at the target first, then sky angles."""
-    radii = [r * u.km for r in config.get("apertures_km", [])]
-    radii += [r * u.arcsec for r in config.get("apertures_arcsec", [])]
-    return radii
-
-
-def location_from_config(config: dict[str, Any]):
-    """EarthLocation of the observatory, or None for the geocentre."""
-    return observer_location(config.get("observatory", "geocentre"))
-
-
-def temperatures(config: dict[str, Any]) -> u.Quantity:
-    """The kinetic temperatures of the sweep."""
-    return u.Quantity(config["excitation"]["t_kin_K"], u.K)
+def rule_settings(smk: Any) -> Settings:
+    """The typed settings of a rule's job: its ``settings`` param (the config sections the rule declares, and the
+    entry of its cube for per-cube rules) parsed by :meth:`pipeline.settings.Settings.from_config`."""
+    given = json.loads(smk.params.settings)
+    return Settings.from_config(given["sections"], cube=given.get("cube"), sections=given["sections"])

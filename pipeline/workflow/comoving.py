@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import logging
-from typing import Any
 
 import astropy.units as u
 import numpy as np
@@ -16,7 +15,7 @@ from pipeline.geometry.comoving import cut_subcube
 from pipeline.io.cubes import read_cube_info
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.coma.response import outflow_speed
-from pipeline.workflow.common import aperture_radii, catalogue_from_config, coma_model, location_from_config
+from pipeline.settings import Settings
 
 __all__ = ["run", "crop_half_size"]
 
@@ -29,25 +28,26 @@ def crop_half_size(radii_pix: list[float], beam_pix: float) -> float:
     return 4.0 * r + 3.0 * beam_pix
 
 
-def run(cube_path: str, geometry_path: str, line_id: str, config: dict[str, Any], out_path: str,
-        spectral_response: str = "hanning") -> None:
-    """Cut and write the sub-cube of ``line_id`` from one cube."""
+def run(geometry_path: str, line_id: str, settings: Settings, out_path: str) -> None:
+    """Cut and write the sub-cube of ``line_id`` from the settings' cube."""
+    cube_path = settings.cube.path
+    spectral_response = settings.cube.spectral_response
     info = read_cube_info(cube_path)
     geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
-    line = catalogue_from_config(config).get_line(line_id)
-    v_out = outflow_speed(coma_model(config), geo["r_h"])
-    window = config["limits"]["window_factor"] * v_out
+    line = settings.catalogue().get_line(line_id)
+    v_out = outflow_speed(settings.coma, geo["r_h"])
+    window = settings.limits.window_factor * v_out
     delta = u.Quantity(geo["delta"])
-    radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in aperture_radii(config)]
+    radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in settings.apertures]
     beam_pix = float((np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose()) \
         if info.beam_major is not None else 1.0
-    sub = cut_subcube(info, geo, line, config["comoving"]["half_width_km_s"] * u.km / u.s, window,
-                      crop_half_size(radii_pix, beam_pix), location_from_config(config))
+    sub = cut_subcube(info, geo, line, settings.half_width, window, crop_half_size(radii_pix, beam_pix),
+                      settings.location)
     header = sub.header
     header["GLCUBE"] = (str(geo["cube_id"]), "cube id")
     header["GLEPOCH"] = (str(geo["epoch"]), "epoch label")
     header["GLSPRESP"] = (spectral_response, "channel response of the spectrometer")
-    add_to_header(header, provenance_record(config, [cube_path, geometry_path], "comoving"))
+    add_to_header(header, provenance_record(settings, [cube_path, geometry_path], "comoving"))
     if sub.covered:
         log.info("line %s in cube %s: %d channels, %d x %d pixels", line_id, geo["cube_id"], *sub.data.shape)
         hdu = fits.PrimaryHDU(sub.data, header=header)

@@ -3,34 +3,30 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
 
-from pipeline.io.atomic import write_table
-from pipeline.io.cubes import read_cube_info
 from pipeline.geometry.ephemeris import check_spacing, read_ephemeris
 from pipeline.geometry.observing import cube_geometry
-from pipeline.geometry.orbit import OrbitalElements
+from pipeline.io.atomic import write_table
+from pipeline.io.cubes import read_cube_info
 from pipeline.io.provenance import provenance_record
-from pipeline.workflow.common import location_from_config
+from pipeline.settings import Settings
 
 __all__ = ["run"]
 
 
-def run(cube_path: str, cube_id: str, epoch: str, time_override: str | None,
-        config: dict[str, Any], out_path: str, tracked: bool = True, position: str = "auto",
-        offset: tuple[float, float] = (0.0, 0.0)) -> None:
-    """Compute and write the geometry table of one cube."""
-    info = read_cube_info(cube_path)
-    target = config["target"]
-    inputs = [cube_path]
-    if "ephemeris" in target:
-        ephem, elements = read_ephemeris(target["ephemeris"]), None
-        inputs.append(target["ephemeris"])
+def run(settings: Settings, out_path: str) -> None:
+    """Compute and write the geometry table of the settings' cube."""
+    cube = settings.cube
+    info = read_cube_info(cube.path)
+    target = settings.target
+    inputs = [cube.path]
+    ephem = None
+    if target.ephemeris is not None:
+        ephem = read_ephemeris(target.ephemeris)
+        inputs.append(target.ephemeris)
         check_spacing(ephem)
-    else:
-        ephem, elements = None, OrbitalElements.from_mapping(target["elements"])
-    table = cube_geometry(info, cube_id, epoch, time_override, ephemeris=ephem, elements=elements,
-                          location=location_from_config(config), tracked=tracked,
-                          position=position, offset=tuple(offset))
-    table.meta["provenance"] = provenance_record(config, inputs, "geometry")
+    table = cube_geometry(info, cube.cube_id, cube.epoch, cube.time, ephemeris=ephem, elements=target.elements,
+                          location=settings.location, tracked=cube.tracked, position=cube.position,
+                          offset=tuple(cube.offset))
+    table.meta["provenance"] = provenance_record(settings, inputs, "geometry")
     write_table(table, Path(out_path))

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import logging
-from typing import Any
 
 import astropy.units as u
 import numpy as np
@@ -12,16 +11,16 @@ from astropy.table import QTable, Table
 
 from pipeline.io.atomic import write_table
 from pipeline.rates.band_injection import inject_band, ring_positions
-from pipeline.settings import cube_entries
 from pipeline.io.cubes import read_cube_info
 from pipeline.rates.line_injection import inject_spectra, placements
 from pipeline.rates.stacking import StackInput
-from pipeline.workflow.bands import band_setup, band_windows
+from pipeline.spectra.band_windows import band_setup, band_windows
 from pipeline.io.provenance import provenance_record
 from pipeline.spectra.ir_spectra import F_LAMBDA
-from pipeline.workflow.common import catalogue_from_config, coma_model, temperatures
-from pipeline.workflow.extract import extraction_settings
-from pipeline.workflow.stack import stack_input
+from pipeline.coma.response import outflow_speed
+from pipeline.rates.q_units import stack_input
+from pipeline.settings import Settings
+from pipeline.spectra.line_spectra import extraction_settings
 
 __all__ = ["run", "injection_levels"]
 
@@ -48,11 +47,12 @@ def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list
     return levels, t_kin
 
 
-def band_groups(bands_paths: list[str], species: str, q: float, config: dict[str, Any], catalogue, model,
+def band_groups(bands_paths: list[str], species: str, q: float, settings: Settings,
                 n_t: int) -> dict[tuple[int, int], list[StackInput]]:
     """Band injections of rate ``q`` in every infrared cube of ``species``, grouped by placement (velocity slot 0)."""
+    catalogue, model, ir = settings.catalogue(), settings.coma, settings.infrared
     sp = catalogue.get_species(species)
-    paths = {c.cube_id: c.path for c in cube_entries(config)}
+    paths = {c.cube_id: c.path for c in settings.cubes}
     groups: dict[tuple[int, int], list[StackInput]] = {}
     for path in bands_paths:
         with fits.open(path) as hdul:
@@ -67,14 +67,14 @@ def band_groups(bands_paths: list[str], species: str, q: float, config: dict[str
         radii_pix = list(np.asarray(aps["radius_pix"], dtype=float))
         radii_km = np.asarray(aps["radius_km"], dtype=float)
         ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
-        windows = band_windows(obs, catalogue, ids, float(h["GLDOPP"]), float(h["GLRPOW"]), config)
+        windows = band_windows(obs, catalogue, ids, float(h["GLDOPP"]), float(h["GLRPOW"]), ir.margin_fwhm)
         where = ring_positions(info.shape[1:], float(h["GLAPX"]), float(h["GLAPY"]), max(radii_pix))
         for band_id in ids:
-            free, shape = band_setup(band_id, windows, obs, config)
+            free, shape = band_setup(band_id, windows, obs, ir.continuum_factor, ir.continuum_shape)
             results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,
                                   float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au, float(h["GLDOPP"]),
                                   float(h["GLRPOW"]), windows[band_id][2:], free, sigma * F_LAMBDA, model,
-                                  int(config.get("infrared", {}).get("continuum_order", 1)), shape)
+                                  ir.continuum_order, shape)
             for res in results:
                 groups.setdefault((res.index, 0), []).append(StackInput(
                     epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=band_id, velocity=None, density=None,
@@ -82,7 +82,7 @@ def band_groups(bands_paths: list[str], species: str, q: float, config: dict[str
     return groups
 
 
-def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: str, config: dict[str, Any],
+def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: str, settings: Settings,
         out_path: str, bands_paths: list[str] | None = None) -> None:
     """Inject, extract, measure and combine; write the per-placement results.
 
@@ -90,14 +90,15 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     lines; infrared bands into their cubes (via ``bands_paths``) at sky positions, differenced
     (:mod:`pipeline.rates.band_injection`). Members of one placement index are combined like the real stack.
     """
-    catalogue = catalogue_from_config(config)
+    catalogue = settings.catalogue()
     sp = catalogue.get_species(species)
     limits = QTable.read(limits_path, format="ascii.ecsv")
     budget = QTable.read(budget_path, format="ascii.ecsv")
     levels, t_kin = injection_levels(species, limits, budget)
-    t_all = temperatures(config).to_value(u.K)
+    t_all = settings.t_kin.to_value(u.K)
     it = int(np.argmin(np.abs(t_all - t_kin)))
-    model = coma_model(config)
+    model = settings.coma
+    filtering = settings.interferometer
     rows = []
     covered = []
     for path in subcube_paths:
@@ -107,17 +108,20 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
         groups: dict[tuple[int, int], list] = {}
         for path in covered:
             header = fits.getheader(path)
-            settings = extraction_settings(header, config, catalogue)
-            where = placements(path, settings)
             line = catalogue.get_line(header["GLLINE"])
+            v_out = outflow_speed(model, float(header["GLRH"]) * u.au)
+            what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
+                                       settings.half_width)
+            where = placements(path, what)
             parent = catalogue.get_species(sp.parent) if sp.parent else None
-            for k, hdul in enumerate(inject_spectra(path, settings, line, sp, q, t_kin * u.K, model, where,
+            for k, hdul in enumerate(inject_spectra(path, what, line, sp, q, t_kin * u.K, model, where,
                                                     parent)):
-                inp, _ = stack_input(hdul, catalogue, config)
+                inp, _ = stack_input(hdul, catalogue, settings.t_kin, model,
+                                     filtering.shortest_baseline if filtering else None,
+                                     filtering.correct if filtering else True)
                 vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
                 groups.setdefault((where[k].index, vrank), []).append(inp)
-        for key, members in band_groups(list(bands_paths or []), species, q, config, catalogue, model,
-                                        t_all.size).items():
+        for key, members in band_groups(list(bands_paths or []), species, q, settings, t_all.size).items():
             groups.setdefault(key, []).extend(members)
         for (index, vrank), members in sorted(groups.items()):
             w = np.array([1 / m.sigma_q[it] ** 2 for m in members])             # (n, n_ap)
@@ -142,7 +146,7 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     if "aperture_km" in table.colnames:
         table["aperture_km"] = table["aperture_km"] * u.km
     table.meta["species"] = species
-    table.meta["provenance"] = provenance_record(config, [*subcube_paths, *(bands_paths or []), limits_path,
+    table.meta["provenance"] = provenance_record(settings, [*subcube_paths, *(bands_paths or []), limits_path,
                                                           budget_path], "injection")
     table.meta["bands"] = ("infrared bands: injected at the nucleus and on a ring of sky positions; recovered = "
                            "measurement with minus without the injection (the estimator is linear)")

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import html
 import json
-from typing import Any
 
 import astropy.units as u
 import numpy as np
@@ -14,12 +13,12 @@ from astropy.table import QTable, Table
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
-from pipeline.budget.table import acceleration_at, assumptions_from_config, ejection_speed_at
+from pipeline.budget.table import acceleration_at, ejection_speed_at
 from pipeline.report.figures import BandPanel, SpectrumPanel, plot_band_spectra, plot_mass_budget, plot_stacked_spectra, plot_temperature_sweep, to_png
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 from pipeline.report.html import figure_html, page, table_html
 from pipeline.coma.response import SPECTRAL_RESPONSES, outflow_speed
-from pipeline.workflow.common import catalogue_from_config, coma_model
+from pipeline.settings import Settings
 
 __all__ = ["run"]
 
@@ -38,8 +37,8 @@ def _write_png(data: bytes, path: str) -> None:
         tmp.write_bytes(data)
 
 
-def _spectrum_panels(stack_paths: list[str], limits: QTable, config: dict[str, Any]) -> list[SpectrumPanel]:
-    catalogue = catalogue_from_config(config)
+def _spectrum_panels(stack_paths: list[str], limits: QTable, settings: Settings) -> list[SpectrumPanel]:
+    catalogue = settings.catalogue()
     panels = []
     for path in stack_paths:
         with fits.open(path) as hdul:
@@ -161,8 +160,8 @@ def _infrared_section(bands_paths: list[str], dust_path: str, fig: bytes) -> str
     return out
 
 
-def _budget_figure(budget: QTable, config: dict[str, Any], catalogue):
-    assume = assumptions_from_config(config["budget"])
+def _budget_figure(budget: QTable, settings: Settings, catalogue):
+    assume = settings.budget.baseline
     combined = budget[(budget["epoch"] == "all") & (budget["assumption_set"] == assume.name)]
     r_h = float(np.mean(combined["r_h"].to_value(u.au))) * u.au
     a, a_err = acceleration_at(assume, r_h)
@@ -275,17 +274,17 @@ def _forecast_section(forecast_path: str, limits: QTable) -> str:
               "for the lightest nucleus.</p>")
 
 
-def run(inputs, outputs, config: dict[str, Any]) -> None:
+def run(inputs, outputs, settings: Settings) -> None:
     """Build the report from the run's tables and stacks."""
-    catalogue = catalogue_from_config(config)
+    catalogue = settings.catalogue()
     limits = QTable.read(inputs.limits, format="ascii.ecsv")
     budget = QTable.read(inputs.budget_ecsv, format="ascii.ecsv")
     with open(inputs.budget_json, encoding="utf-8") as fh:
         summary = json.load(fh)
     geometry = [QTable.read(p, format="ascii.ecsv")[0] for p in inputs.geometry]
 
-    fig_spec = to_png(plot_stacked_spectra(_spectrum_panels(list(inputs.stacks), limits, config)))
-    fig_budget = to_png(_budget_figure(budget, config, catalogue))
+    fig_spec = to_png(plot_stacked_spectra(_spectrum_panels(list(inputs.stacks), limits, settings)))
+    fig_budget = to_png(_budget_figure(budget, settings, catalogue))
     fig_sweep = to_png(plot_temperature_sweep(_sweep_curves(limits)))
     fig_ir = to_png(plot_band_spectra(_band_panels(list(inputs.bands)), *_afrho_points(list(inputs.bands))))
     _write_png(fig_ir, outputs.infrared)
@@ -338,7 +337,7 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
           ", ".join(f"{x.split('_', 1)[-1]} band" if x in band_ids else x.split("_", 1)[-1]
                     for x in str(r["lines"]).split(","))] for r in cons], left=2)
         + "<p>Q upper: Bayesian limit with a flat prior on Q ≥ 0 at the one-sided confidence of "
-          f"{config['limits']['nsigma']}σ; limits.ecsv also holds the classical Q + nσ and the Feldman–Cousins "
+          f"{settings.limits.nsigma}σ; limits.ecsv also holds the classical Q + nσ and the Feldman–Cousins "
           "limits, every temperature and every aperture. For detections, a fit of the outflow line profile gives Q "
           "again and the line centre; a centre far from 0 km/s points at an error in the ephemeris' range rate. "
           "Infrared band rates do not depend on T_kin (shown as –)."
@@ -366,7 +365,7 @@ def run(inputs, outputs, config: dict[str, Any]) -> None:
     sections.append(("Provenance", f"<p>gasledger {html.escape(__version__)}. Inputs of the limits table:</p>"
                      + table_html(["file", "checksum"], [[k, v] for k, v in prov.get("inputs", {}).items()], left=2)
                      + "<p>Configuration of this run:</p><pre>"
-                     + html.escape(yaml.safe_dump(config, sort_keys=False)) + "</pre>"))
-    title = f"gasledger report: {config['campaign']}"
-    sub = f"Target: {config['target'].get('name', 'target')}. Species: {', '.join(config['species'])}."
+                     + html.escape(yaml.safe_dump(settings.record, sort_keys=False)) + "</pre>"))
+    title = f"gasledger report: {settings.campaign}"
+    sub = f"Target: {settings.target.name}. Species: {', '.join(settings.species)}."
     write_text(page(title, sections, sub), outputs.html)

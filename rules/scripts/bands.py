@@ -1,8 +1,10 @@
 """Rule 'bands': thin wrapper around pipeline.workflow.bands.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import bands
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    bands.run(snakemake.input.cube, snakemake.input.geometry, list(snakemake.params.bands),  # noqa: F821
-              snakemake.config, snakemake.output[0], snakemake.params.resolving_power)  # noqa: F821
+    settings = rule_settings(snakemake)
+    bands.run(snakemake.input.geometry, list(snakemake.params.bands), settings, snakemake.output[0])

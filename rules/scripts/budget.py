@@ -1,9 +1,11 @@
 """Rule 'budget': thin wrapper around pipeline.workflow.budget.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import budget
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    budget.run(snakemake.input.limits, list(snakemake.input.geometry), snakemake.config,  # noqa: F821
-               snakemake.output.ecsv, snakemake.output.json, snakemake.output.exclusion,  # noqa: F821
-               dust_path=snakemake.input.dust)  # noqa: F821
+    settings = rule_settings(snakemake)
+    budget.run(snakemake.input.limits, list(snakemake.input.geometry), settings, snakemake.output.ecsv,
+               snakemake.output.json, snakemake.output.exclusion, dust_path=snakemake.input.dust)

@@ -1,8 +1,10 @@
 """Rule 'comoving': thin wrapper around pipeline.workflow.comoving.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import comoving
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    comoving.run(snakemake.input.cube, snakemake.input.geometry, snakemake.wildcards.line,  # noqa: F821
-                 snakemake.config, snakemake.output[0], snakemake.params.spectral_response)  # noqa: F821
+    settings = rule_settings(snakemake)
+    comoving.run(snakemake.input.geometry, snakemake.wildcards.line, settings, snakemake.output[0])

@@ -1,7 +1,10 @@
 """Rule 'dust': thin wrapper around pipeline.workflow.dust.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import dust
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    dust.run(list(snakemake.input.bands), snakemake.config, snakemake.output.afrho, snakemake.output.dust)  # noqa: F821
+    settings = rule_settings(snakemake)
+    dust.run(list(snakemake.input.bands), settings, snakemake.output.afrho, snakemake.output.dust)

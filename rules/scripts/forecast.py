@@ -1,8 +1,10 @@
 """Rule 'forecast': thin wrapper around pipeline.workflow.forecast.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import forecast
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    eph = list(snakemake.input.ephemeris)  # noqa: F821
-    forecast.run(snakemake.input.budget, snakemake.config, snakemake.output[0], eph[0] if eph else None)  # noqa: F821
+    settings = rule_settings(snakemake)
+    forecast.run(snakemake.input.budget, settings, snakemake.output[0])

@@ -1,9 +1,11 @@
 """Rule 'injection': thin wrapper around pipeline.workflow.injection.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import injection
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    injection.run(list(snakemake.input.subcubes), snakemake.wildcards.species, snakemake.input.limits,  # noqa: F821
-                  snakemake.input.budget, snakemake.config, snakemake.output[0],  # noqa: F821
-                  list(snakemake.input.bands))  # noqa: F821
+    settings = rule_settings(snakemake)
+    injection.run(list(snakemake.input.subcubes), snakemake.wildcards.species, snakemake.input.limits,
+                  snakemake.input.budget, settings, snakemake.output[0], list(snakemake.input.bands))

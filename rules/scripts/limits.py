@@ -1,8 +1,11 @@
 """Rule 'limits': thin wrapper around pipeline.workflow.limits.run_join."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import limits
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    limits.run_join(list(snakemake.input.species), snakemake.config, snakemake.output.ecsv,  # noqa: F821
-                    snakemake.output.json, list(snakemake.input.geometry), snakemake.output.activity)  # noqa: F821
+    settings = rule_settings(snakemake)
+    limits.run_join(list(snakemake.input.species), settings, snakemake.output.ecsv, snakemake.output.json,
+                    list(snakemake.input.geometry), snakemake.output.activity)

@@ -1,7 +1,10 @@
 """Rule 'report': thin wrapper around pipeline.workflow.report.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import report
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    report.run(snakemake.input, snakemake.output, snakemake.config)  # noqa: F821
+    settings = rule_settings(snakemake)
+    report.run(snakemake.input, snakemake.output, settings)

@@ -1,8 +1,11 @@
 """Rule 'stack': thin wrapper around pipeline.workflow.stack.run."""
+# snakemake is injected by Snakemake
+# ruff: noqa: F821
 from pipeline.workflow import stack
-from pipeline.workflow.common import setup_logging, stage_errors
+from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
-log = setup_logging(snakemake.log[0])  # noqa: F821 - injected by Snakemake
+log = setup_logging(snakemake.log[0])
 with stage_errors(log):
-    stack.run(list(snakemake.input.spectra) + list(snakemake.input.bands), snakemake.wildcards.species, snakemake.config,  # noqa: F821
-              snakemake.output[0])  # noqa: F821
+    settings = rule_settings(snakemake)
+    stack.run(list(snakemake.input.spectra) + list(snakemake.input.bands), snakemake.wildcards.species, settings,
+              snakemake.output[0])

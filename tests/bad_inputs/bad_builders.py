@@ -25,11 +25,11 @@ from astropy.table import QTable
 from astropy.time import Time
 
 from pipeline.catalogue.entries import load_catalogue
-from pipeline.settings import check_inputs_exist, cube_entries, validate_config
+from pipeline.settings import Settings, check_inputs_exist, validate_config
 from pipeline.errors import GasledgerError
 from pipeline.geometry.orbit import write_ephemeris
 from pipeline.workflow import comoving, extract, geometry, limits, stack
-from pipeline.workflow.common import catalogue_from_config, stage_errors
+from pipeline.workflow.common import stage_errors
 from pipeline.catalogue.coverage import lines_for_cube
 
 __all__ = ["TinyCampaign", "tiny_campaign", "cube_hdu", "write_hdu", "ephemeris_table", "outputs_below",
@@ -147,10 +147,11 @@ def dag_checks(config: dict) -> tuple[dict, dict, Any]:
     try:
         validate_config(config, source="config")
         check_inputs_exist(config, source="config")
-        catalogue = catalogue_from_config(config)
+        settings = Settings.from_config(config)
+        catalogue = settings.catalogue()
         for name in config["species"]:
             catalogue.get_species(name)
-        cubes = {c.cube_id: c for c in cube_entries(config)}
+        cubes = {c.cube_id: c for c in settings.cubes}
         lines = {cid: lines_for_cube(c.path, catalogue, config["species"]) for cid, c in cubes.items()}
     except GasledgerError as exc:
         raise Failed("dag", None, 1, str(exc)) from None
@@ -169,23 +170,23 @@ def _stage(step: str, output: Path, func: Callable, *args) -> None:
 def run_workflow(config: dict) -> Path:
     """The job graph's checks, then every stage in workflow order; returns the outdir."""
     cubes, lines, catalogue = dag_checks(config)
+    settings = Settings.from_config(config)
     out = Path(config["outdir"])
     spectra = {}
     for cid, c in cubes.items():
         geo = out / "geometry" / f"{cid}.ecsv"
-        _stage("geometry", geo, geometry.run, c.path, cid, c.epoch, c.time, config, str(geo), c.tracked,
-               c.position, c.offset)
+        _stage("geometry", geo, geometry.run, settings.with_cube(cid), str(geo))
         for line in lines[cid]:
             sub = out / "comoving" / cid / f"{line}.fits"
-            _stage("comoving", sub, comoving.run, c.path, str(geo), line, config, str(sub), c.spectral_response)
+            _stage("comoving", sub, comoving.run, str(geo), line, settings.with_cube(cid), str(sub))
             spec = out / "spectra" / cid / f"{line}.fits"
-            _stage("extract", spec, extract.run, str(sub), config, str(spec))
+            _stage("extract", spec, extract.run, str(sub), settings, str(spec))
             spectra.setdefault(catalogue.get_line(line).species, []).append(str(spec))
     for species in config["species"]:
         stk = out / "stack" / f"{species}.fits"
-        _stage("stack", stk, stack.run, spectra.get(species, []), species, config, str(stk))
+        _stage("stack", stk, stack.run, spectra.get(species, []), species, settings, str(stk))
         lim = out / "limits" / f"{species}.ecsv"
-        _stage("limits", lim, limits.run_species, str(stk), config, str(lim))
+        _stage("limits", lim, limits.run_species, str(stk), settings, str(lim))
     return out
 
 

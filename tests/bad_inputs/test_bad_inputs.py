@@ -362,8 +362,8 @@ def test_line_far_outside_the_band_is_not_scheduled(tmp_path):
 def test_the_dag_checks_mirror_rules_common_smk():
     # bad_builders.dag_checks must make the calls the workflow makes when it builds the job graph
     text = (REPO / "rules" / "common.smk").read_text()
-    for call in ("validate_config(config", "check_inputs_exist(config", "catalogue_from_config(config)",
-                 ".get_species(", "cube_entries(config)", "lines_for_cube(", 'sys.exit(f"gasledger: {exc}")'):
+    for call in ("validate_config(config", "check_inputs_exist(config", "Settings.from_config(config)",
+                 "SETTINGS.catalogue()", ".get_species(", "SETTINGS.cubes", "lines_for_cube(", 'sys.exit(f"gasledger: {exc}")'):
         assert call in text, call
 
 

@@ -22,6 +22,8 @@ import sys
 from pathlib import Path
 
 import pytest
+
+from pipeline.settings import _load_catalogue
 import yaml
 from astropy.table import QTable
 from bad_builders import CUBE_ID, run_workflow, tiny_campaign
@@ -282,6 +284,7 @@ def test_inputs_are_opened_read_only_and_left_unchanged(tmp_path, monkeypatch):
     campaign = tiny_campaign(tmp_path)
     inputs = [campaign.cube, campaign.ephemeris, Path(DEFAULT_SPECIES_FILE), Path(DEFAULT_LINES_FILE)]
     before = {p: _state(p) for p in inputs}
+    _load_catalogue.cache_clear()                 # the catalogue is loaded once per process: make this run read it
     spy = _OpenSpy(monkeypatch)
     out = run_workflow(campaign.fresh_config())
     monkeypatch.undo()

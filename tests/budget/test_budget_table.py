@@ -5,7 +5,8 @@ import numpy as np
 import pytest
 from astropy.table import QTable
 
-from pipeline.budget.table import assumptions_from_config, budget_table, rocket_fraction
+from pipeline.budget.table import budget_table, rocket_fraction
+from pipeline.settings import assumptions_from_config
 from pipeline.catalogue.entries import load_catalogue
 
 CAT = load_catalogue()
@@ -89,7 +90,7 @@ def test_thermal_ejection_speed_per_species():
 
 
 def test_assumption_sets_rows_and_g_variant():
-    from pipeline.budget.table import assumption_sets
+    from pipeline.settings import assumption_sets
 
     budget = {"acceleration_m_s2": [2e-6, 2e-7], "interval_days": 30,
               "nucleus": {"radius_km": [0.2, 0.5], "density_kg_m3": [500.0, 500.0]}, "ejection_speed_km_s": 0.5,
@@ -127,7 +128,7 @@ def test_dust_push_reduces_the_gas_needed():
 
 def test_dust_forces_read_from_the_dust_table(tmp_path):
     # dust_forces takes each epoch's largest aperture's momentum rate, and nothing unless include_dust is set
-    from pipeline.workflow.budget import dust_forces
+    from pipeline.budget.table import dust_forces
     table = QTable({"epoch": ["e1", "e1", "all", "all"], "aperture_km": [1000.0, 3000.0, 1000.0, 3000.0] * u.km,
                     "momentum_rate": [1.0, 3.0, 2.0, np.nan] * u.N})
     path = tmp_path / "dust.ecsv"

@@ -66,16 +66,17 @@ def test_stack_input_corrects_for_the_surviving_fraction(tmp_path):
 
     from pipeline.catalogue.entries import load_catalogue
     from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
-    from pipeline.workflow.stack import stack_input
+    from pipeline.coma.response import ComaModel
+    from pipeline.rates.q_units import stack_input
 
     rng = np.random.default_rng(3)
     path = write_subcube(tmp_path / "s.fits", rng.standard_normal((200, 32, 32)) * 0.01)
     settings = ExtractionSettings(radii=[1000 * u.km], window=1.2 * u.km / u.s, other_lines=[] * u.km / u.s)
     hdul = extract_spectra(path, settings, offsource=False)
     cat = load_catalogue()
-    base = {"excitation": {"t_kin_K": [40.0]}, "coma": {"outflow_km_s": "law", "solar_activity": "quiet"}}
-    plain, _ = stack_input(hdul, cat, base)
-    filt, rows = stack_input(hdul, cat, {**base, "interferometer": {"shortest_baseline_m": 15.0, "correct": True}})
+    t_kin, model = [40.0] * u.K, ComaModel(outflow="law", solar_activity="quiet")
+    plain, _ = stack_input(hdul, cat, t_kin, model)
+    filt, rows = stack_input(hdul, cat, t_kin, model, shortest_baseline=15.0 * u.m, correct_filtering=True)
     frac = rows[0]["surviving_fraction"]
     assert 0 < frac < 1
     assert filt.q[0, 0] == pytest.approx(plain.q[0, 0] / frac, rel=1e-12)

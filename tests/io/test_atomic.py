@@ -15,7 +15,8 @@ from astropy.io import fits
 from astropy.table import QTable
 
 from pipeline.io.atomic import atomic_path, write_fits, write_json, write_table, write_text
-from pipeline.io.provenance import add_to_header, file_checksum, from_header, provenance_record
+from pipeline.settings import Settings
+from pipeline.io.provenance import code_version, add_to_header, file_checksum, from_header, provenance_record
 
 
 def _only(folder, name):
@@ -110,13 +111,17 @@ def test_provenance_record_and_header_round_trip(tmp_path):
     b = tmp_path / "b.bin"
     a.write_bytes(b"abc")
     b.write_bytes(b"xyz")
-    record = provenance_record({"limits": {"nsigma": 3}}, [b, a], stage="limits")
+    sections = {"outdir": str(tmp_path / "out"), "limits": {"nsigma": 3}}
+    settings = Settings.from_config(sections, sections=sections)
+    record = provenance_record(settings, [b, a], stage="limits")
     assert list(record["inputs"]) == sorted([str(a), str(b)])
     assert record["inputs"][str(b)] == "sha256:" + hashlib.sha256(b"xyz").hexdigest()
     assert record["stage"] == "limits"
     # no timestamps: identical inputs give identical records
-    assert set(record) == {"software", "version", "stage", "inputs", "config"}
-    assert provenance_record({"limits": {"nsigma": 3}}, [a, b], stage="limits") == record
+    assert set(record) == {"software", "version", "code", "stage", "inputs", "config"}
+    assert record["config"] == sections                        # the sections the step was given, nothing else
+    assert len(record["code"]) == 16 and record["code"] == code_version()
+    assert provenance_record(settings, [a, b], stage="limits") == record
     header = fits.Header()
     add_to_header(header, record)
     path = tmp_path / "p.fits"

@@ -11,9 +11,10 @@ from pipeline.settings import load_config
 from pipeline.geometry.ephemeris import read_ephemeris
 from pipeline.rates.forecast import PlannedEpoch, forecast_sigma, noise_subcube_header
 from pipeline.workflow import comoving, extract, geometry
-from pipeline.workflow.common import catalogue_from_config
-from pipeline.workflow.extract import extraction_settings
-from pipeline.workflow.stack import stack_input
+from pipeline.coma.response import outflow_speed
+from pipeline.rates.q_units import stack_input
+from pipeline.settings import Settings
+from pipeline.spectra.line_spectra import extraction_settings
 from synthetic_cubes import small_scenario, write_scenario
 
 
@@ -26,15 +27,16 @@ def test_forecast_agrees_with_measurements_within_the_scatter(tmp_path):
         root = tmp_path / f"s{seed}"
         cfg_path = write_scenario(replace(sc, seed=seed + 1), root, results=str(root / "res"), progress=lambda s: None)
         config = load_config(cfg_path)
-        cube = config["cubes"][0]
-        geometry.run(cube["path"], cube["id"], cube["epoch"], None, config, str(root / "g.ecsv"))
-        comoving.run(cube["path"], str(root / "g.ecsv"), "HCN_265886", config, str(root / "sub.fits"))
-        extract.run(str(root / "sub.fits"), config, str(root / "spec.fits"))
+        settings = Settings.from_config(config)
+        cube = settings.with_cube(config["cubes"][0]["id"])
+        geometry.run(cube, str(root / "g.ecsv"))
+        comoving.run(str(root / "g.ecsv"), "HCN_265886", cube, str(root / "sub.fits"))
+        extract.run(str(root / "sub.fits"), settings, str(root / "spec.fits"))
         with fits.open(root / "spec.fits") as hdul:
-            inp, _ = stack_input(hdul, catalogue_from_config(config), config)
+            inp, _ = stack_input(hdul, settings.catalogue(), settings.t_kin, settings.coma)
         measured.append(inp.sigma_q)
     measured = np.array(measured)                                     # (seed, T, ap)
-    catalogue = catalogue_from_config(config)
+    catalogue = settings.catalogue()
     line = catalogue.get_line("HCN_265886")
     eph = read_ephemeris(config["target"]["ephemeris"])
     geo = eph.at(Time(sc.epochs[0][1]))
@@ -42,8 +44,11 @@ def test_forecast_agrees_with_measurements_within_the_scatter(tmp_path):
                         channel_khz=sc.windows[0].channel_khz, beam_arcsec=sc.beam_arcsec,
                         pixel_arcsec=sc.pixel_arcsec, npix=sc.npix, half_width_km_s=sc.half_width_km_s)
     header, _ = noise_subcube_header(plan, line, geo)
-    settings = extraction_settings(header, config, catalogue)
-    fc = forecast_sigma(plan, line, geo, settings, catalogue, config, tmp_path, n_realisations=4, seed=99)
+    v_out = outflow_speed(settings.coma, float(header["GLRH"]) * u.au)
+    what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
+                               settings.half_width)
+    fc = forecast_sigma(plan, line, geo, what, catalogue, settings.t_kin, settings.coma, tmp_path, n_realisations=4,
+                        seed=99)
     mean, spread = measured.mean(axis=0), measured.std(axis=0, ddof=1)
     tolerance = 3 * np.sqrt(spread**2 / len(measured) + spread**2 / 4)
     assert np.all(np.abs(fc - mean) < tolerance), (fc / mean)

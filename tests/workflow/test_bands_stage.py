@@ -19,7 +19,7 @@ from astropy.table import QTable, Table
 from astropy.time import Time
 
 from pipeline.catalogue.entries import load_catalogue
-from pipeline.settings import validate_config
+from pipeline.settings import Settings, validate_config
 from pipeline.coma.conversion import band_flux_from_production_rate
 from pipeline.io.cubes import read_cube_info
 from pipeline.geometry.observing import cube_geometry
@@ -62,8 +62,9 @@ def ir_run(tmp_path_factory):
         ids = ["H2O_nu3"] if setup.name == "short" else ["CO2_nu3", "CO_v1-0"]
         with future_time_tolerated(), warnings.catch_warnings():
             warnings.simplefilter("ignore", category=Warning)
-            bands.run(str(path), str(tmp / f"{setup.name}.ecsv"), ids, config, str(tmp / f"{setup.name}_bands.fits"),
-                      setup.resolving_power)
+            config["cubes"][0]["resolving_power"] = setup.resolving_power
+            settings = Settings.from_config(config, cube=config["cubes"][0])
+            bands.run(str(tmp / f"{setup.name}.ecsv"), ids, settings, str(tmp / f"{setup.name}_bands.fits"))
         out[setup.name] = (tmp / f"{setup.name}_bands.fits", table[0], setup)
     return sc, out
 
@@ -71,6 +72,8 @@ def ir_run(tmp_path_factory):
 def test_water_recovered_within_its_error(ir_run):
     _, out = ir_run
     t = Table.read(out["short"][0], hdu="BANDS")
+    assert len(t) == 2 and set(t["band_id"]) == {"H2O_nu3"}           # one band, two apertures
+    assert sorted(float(a) for a in t["aperture_km"]) == [1000.0, 3000.0]
     for r in t:
         assert r["covered"]
         pull = (r["q"] - Q_H2O) / r["sigma_q"]
@@ -82,6 +85,7 @@ def test_absent_gases_give_limits_consistent_with_zero(ir_run):
     _, out = ir_run
     t = Table.read(out["long"][0], hdu="BANDS")
     assert set(t["band_id"]) == {"CO2_nu3", "CO_v1-0"}
+    assert len(t) == 4                                                   # two bands, two apertures
     for r in t:
         assert abs(r["q"] / r["sigma_q"]) < 3.5
         assert r["sigma_q"] > 0 and r["sigma"] >= r["sigma_err"]
@@ -94,6 +98,7 @@ def test_response_against_the_analytic_haser_aperture(ir_run):
     path, geo, _ = out["short"]
     t = Table.read(path, hdu="BANDS")
     band = CAT.get_band("H2O_nu3")
+    assert len(t) == 2                                                   # one band, two apertures
     for r in t:
         analytic = band_flux_from_production_rate(1 / u.s, band.wavelength, band.g_1au, r["aperture_km"] * u.km,
                                                   geo["r_h"], geo["delta"], r["outflow"] * u.km / u.s,
@@ -109,16 +114,19 @@ def test_dust_afrho_and_colour_recovered(ir_run):
         t = Table.read(out[name][0], hdu="DUST")
         rows.extend(list(t))
     assert {round(float(r["wavelength"]), 2) for r in rows} == {2.5, 2.9, 4.1, 4.45, 4.9}
+    assert len(rows) == 10                                               # five wavelengths, two apertures
     lam_ref = dust["lam_ref_um"] * u.um
     for r in rows:
         truth = afrho_model(r["wavelength"] * u.um, dust["afrho_cm"] * u.cm, lam_ref, dust["slope"]).to_value(u.cm)
         # stated error plus the PSF's loss out of the aperture (< 1.5 % for these apertures, see the response test)
         assert abs(r["afrho"] - truth) < 3 * r["afrho_err"] + 0.015 * truth, (r["wavelength"], r["afrho"], truth)
     # colour: the slope normalised at the mean wavelength (pipeline.workflow.dust) against the model's closed form
-    from pipeline.workflow.dust import dust_summary
+    from pipeline.dust.summary import dust_summary
     table = Table(rows=[{k: r[k] for k in ("cube_id", "epoch", "aperture_km", "wavelength", "afrho", "afrho_err")}
                         for r in rows])
-    summary = dust_summary(table, {"dust": {}})
+    defaults = Settings.from_config(validate_config({"target": {"elements": small_scenario().elements},
+                                                     "cubes": [{"path": "x.fits"}], "species": ["H2O"]})).dust
+    summary = dust_summary(table, defaults.grain_radius, defaults.grain_density, defaults.speed, defaults.albedo)
     row = summary[(summary["epoch"] == "e1") & (summary["aperture_km"].to_value(u.km) == 3000.0)][0]
     lam = np.asarray(table["wavelength"], dtype=float)
     w = 1 / np.asarray(table["afrho_err"], dtype=float) ** 2
@@ -139,10 +147,11 @@ def test_without_err_extension_the_scatter_sigma_is_used(ir_run, tmp_path):
     config = {"target": {"elements": small_scenario().elements}, "cubes": [{"path": str(tmp_path / "noerr.fits")}],
               "species": ["H2O"], "apertures_km": [1000.0, 3000.0]}
     validate_config(config, source="test")
+    config["cubes"][0]["resolving_power"] = setup.resolving_power
     with future_time_tolerated(), warnings.catch_warnings():
         warnings.simplefilter("ignore", category=Warning)
-        bands.run(str(tmp_path / "noerr.fits"), str(path.parent / "short.ecsv"), ["H2O_nu3"], config,
-                  str(tmp_path / "b.fits"), setup.resolving_power)
+        bands.run(str(path.parent / "short.ecsv"), ["H2O_nu3"], Settings.from_config(config, cube=config["cubes"][0]),
+                  str(tmp_path / "b.fits"))
     with fits.open(tmp_path / "b.fits") as hdul:
         assert hdul[0].header["GLSIGSRC"].startswith("scatter of line-free")
         with_err = Table.read(path, hdu="BANDS")
@@ -156,7 +165,9 @@ def test_a_millimetre_cube_is_refused(tmp_path):
     from cubes import write_cube
     path = write_cube(tmp_path / "mm.fits")
     with pytest.raises(Exception, match="expected an infrared cube"):
-        bands.run(str(path), "unused.ecsv", [], {"species": []}, str(tmp_path / "x.fits"))
+        config = validate_config({"target": {"elements": small_scenario().elements}, "cubes": [{"path": str(path)}],
+                                  "species": ["H2O"]})
+        bands.run("unused.ecsv", [], Settings.from_config(config, cube=config["cubes"][0]), str(tmp_path / "x.fits"))
 
 
 def test_band_limits_in_a_qtable_have_units(ir_run):

@@ -1,0 +1,25 @@
+"""Tables as plain JSON: the rows of an astropy table with the unit of each column."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from astropy.table import QTable
+
+__all__ = ["table_as_json"]
+
+
+def table_as_json(table: QTable) -> dict[str, Any]:
+    """Rows of a table as plain JSON values, with the unit of each column."""
+    units = {c: str(table[c].unit) for c in table.colnames if getattr(table[c], "unit", None) is not None}
+    rows = []
+    for row in table:
+        rec = {}
+        for c in table.colnames:
+            v = row[c]
+            v = v.value if hasattr(v, "unit") else v
+            v = v.item() if hasattr(v, "item") else v
+            rec[c] = None if isinstance(v, float) and not np.isfinite(v) else v
+        rows.append(rec)
+    return {"units": units, "rows": rows, "meta": dict(table.meta)}

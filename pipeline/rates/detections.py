@@ -1,0 +1,106 @@
+"""What a stacked detection says beyond Q: its line-profile fit, its optical depth and the interferometer's filtering.
+
+These fill extra columns of one species' limits table (:mod:`pipeline.rates.limits_table`) from its stack file's
+STACK and INPUTS extensions.
+"""
+
+from __future__ import annotations
+
+import logging
+import warnings
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.table import QTable, Table
+
+from pipeline.catalogue import Catalogue
+from pipeline.coma.excitation import OpacityWarning, line_optical_depth
+from pipeline.coma.haser import parent_aperture_count, scale_length
+from pipeline.coma.line_profile import thermal_dispersion
+from pipeline.rates.line_fit import fit_line
+
+__all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns"]
+
+log = logging.getLogger(__name__)
+
+
+def add_fit_columns(table: QTable) -> None:
+    """Add the columns of the line-profile fit (q_fit, q_fit_err, v_offset, v_offset_err), NaN until fitted."""
+    n = len(table)
+    table["q_fit"] = np.full(n, np.nan) / u.s
+    table["q_fit_err"] = np.full(n, np.nan) / u.s
+    table["v_offset"] = np.full(n, np.nan) * u.km / u.s
+    table["v_offset_err"] = np.full(n, np.nan) * u.km / u.s
+
+
+def fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table, t_grid: np.ndarray,
+                    mass) -> None:
+    """Fill q_fit, q_fit_err, v_offset, v_offset_err for the detected rows of one epoch group."""
+    members = inputs[(inputs["epoch"] == group)] if group != "all" else inputs
+    if "kind" in members.colnames:  # infrared bands have no velocity spectrum to fit
+        members = members[members["kind"] == "line"]
+    if len(members) == 0:
+        return
+    hdu = hdul[f"STACK_{group}"]
+    n = hdu.data.shape[-1]
+    vel = hdu.header["CRVAL1"] + (np.arange(n) + 1 - hdu.header["CRPIX1"]) * hdu.header["CDELT1"]
+    v_out = float(np.mean(members["outflow"]))
+    window = float(np.max(members["window"]))
+    responses = set(members["spectral_response"]) if "spectral_response" in members.colnames else {"hanning"}
+    response = responses.pop() if len(responses) == 1 else "hanning"
+    aps = np.unique(np.asarray(members["aperture_km"], dtype=float))
+    for k, row in enumerate(table):
+        if not row["detected"]:
+            continue
+        it = int(np.argmin(np.abs(t_grid - row["t_kin_K"])))
+        ja = int(np.argmin(np.abs(aps - row["aperture_km"].to_value(u.km))))
+        sig_th = thermal_dispersion(row["t_kin_K"] * u.K, mass).to_value(u.km / u.s)
+        fit = fit_line(vel, hdu.data[it, ja], v_out, sig_th, window, response, q_guess=row["q"].to_value(1 / u.s))
+        table["q_fit"][k] = fit.q / u.s
+        table["q_fit_err"][k] = fit.q_err / u.s
+        table["v_offset"][k] = fit.v_offset * u.km / u.s
+        table["v_offset_err"][k] = fit.v_offset_err * u.km / u.s
+
+
+def opacity_columns(table: QTable, inputs: Table, catalogue: Catalogue, species_name: str,
+                    solar_activity: str = "quiet") -> None:
+    """Peak optical depth, in the aperture-mean column, of the strongest line of each detected row."""
+    species = catalogue.get_species(species_name)
+    table["tau_peak"] = np.full(len(table), np.nan)
+    for k, row in enumerate(table):
+        if not row["detected"] or not np.isfinite(row["q"].value) or row["q"].value <= 0:
+            continue
+        sel = inputs[(inputs["epoch"] == row["epoch"]) | (row["epoch"] == "all")]
+        rho = row["aperture_km"].to(u.km)
+        v = float(np.mean(sel["outflow"])) * u.km / u.s
+        r_h = float(np.mean(sel["r_h"])) * u.au
+        length = scale_length(v, species.photo_rate(solar_activity), r_h)
+        column = parent_aperture_count(rho, row["q"], v, length) / (np.pi * rho**2)
+        taus = []
+        for line_id in str(row["lines"]).split(","):
+            if line_id not in {ln.line_id for ln in catalogue.lines}:
+                continue  # an infrared band: optically thin fluorescence is assumed (see the README)
+            line = catalogue.get_line(line_id)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", OpacityWarning)
+                taus.append(float(line_optical_depth(line, species, row["t_kin_K"] * u.K, column, 2 * v)))
+        table["tau_peak"][k] = max(taus) if taus else np.nan
+    strong = table[np.nan_to_num(table["tau_peak"]) > 0.1]
+    if len(strong):
+        worst = strong[np.argmax(strong["tau_peak"])]
+        log.warning("%s: the peak optical depth reaches %.2g (epoch %s, %.0f km, %g K): the optically thin Q is a "
+                    "lower bound there", species_name, worst["tau_peak"], worst["epoch"],
+                    worst["aperture_km"].to_value(u.km), worst["t_kin_K"])
+
+
+def filtering_columns(table: QTable, inputs: Table) -> None:
+    """Mean fraction of the model flux that survives interferometric filtering, per row (1 = not configured)."""
+    frac = np.ones(len(table))
+    if "surviving_fraction" in inputs.colnames:
+        for k, row in enumerate(table):
+            sel = inputs[((inputs["epoch"] == row["epoch"]) | (row["epoch"] == "all"))
+                         & np.isclose(np.asarray(inputs["aperture_km"], dtype=float), row["aperture_km"].to_value(u.km))]
+            if len(sel):
+                frac[k] = float(np.mean(sel["surviving_fraction"]))
+    table["surviving_fraction"] = frac
