@@ -42,6 +42,7 @@ __all__ = [
     "brightness_unit",
     "open_error",
     "INFRARED_LIMIT",
+    "linear_axis",
 ]
 
 SPECSYS_VALUES = ("TOPOCENT", "GEOCENTR", "BARYCENT", "LSRK", "SOURCE")
@@ -122,6 +123,48 @@ def _card(header: fits.Header, name: str, path: Path, expected: str):
         msg = f"{path}: header card {name} is missing; expected {expected}"
         raise CubeError(msg)
     return header[name]
+
+
+def linear_axis(header: fits.Header, axis: int, n: int | None = None, path: str | Path | None = None) -> np.ndarray:
+    """World coordinate of each pixel along the linear FITS axis ``axis``, in that axis's unit (CUNITi).
+
+    ``CRVALi + (p - CRPIXi) * step`` for the pixels p = 1 .. ``n`` (default NAXISi), the step being
+    CDELTi x PCi_i (PCi_i defaults to 1), or CDi_i where CDELTi is absent (FITS WCS paper I: Greisen &
+    Calabretta 2002, A&A 395, 1061); CRPIXi defaults to 1.  Meant for every place these cards become an
+    axis: a cube's spectral axis, a sub-cube's velocities, a stacked spectrum's velocities.
+
+    Raises
+    ------
+    CubeError
+        When CRVALi (or NAXISi, with no ``n``) is missing or not a number, or the step is missing or zero;
+        the message names ``path`` (when given) and the card.
+    """
+    where = "" if path is None else f"{path}: "
+
+    def number(card: str, default: float | None, expected: str) -> float:
+        if card not in header:
+            if default is not None:
+                return default
+            msg = f"{where}header card {card} is missing; expected {expected}"
+            raise CubeError(msg)
+        try:
+            return float(header[card])
+        except (TypeError, ValueError) as exc:
+            msg = f"{where}header card {card} = {header[card]!r} is not a number; expected {expected}"
+            raise CubeError(msg) from exc
+
+    crval = number(f"CRVAL{axis}", None, f"the coordinate of the reference pixel of axis {axis}")
+    if f"CDELT{axis}" in header:
+        step = number(f"CDELT{axis}", None, "a number") * number(f"PC{axis}_{axis}", 1.0, "a number")
+    else:
+        step = number(f"CD{axis}_{axis}", 0.0, "a number")
+    if step == 0.0:
+        msg = f"{where}header card CDELT{axis} is missing or zero; expected the pixel step of axis {axis}"
+        raise CubeError(msg)
+    crpix = number(f"CRPIX{axis}", 1.0, "a number")
+    if n is None:
+        n = int(number(f"NAXIS{axis}", None, f"the length of axis {axis}"))
+    return crval + (np.arange(n, dtype=float) + 1 - crpix) * step
 
 
 def _open_hdul(path: Path) -> fits.HDUList:
@@ -265,16 +308,7 @@ def read_cube_info(path: str | Path) -> CubeInfo:
                "(or a prefixed form such as mJy/beam), or for infrared cubes W/m2/um/sr or erg/s/cm2/A/sr")
         raise CubeError(msg)
 
-    nchan = dims[2]
-    chan = np.arange(nchan, dtype=float)
-    crval = float(_card(header, "CRVAL3", path, "the spectral coordinate of the reference channel"))
-    cdelt = float(header.get("CDELT3", header.get("CD3_3", 0.0)))
-    if "CDELT3" in header:  # FITS WCS paper I: the step is CDELT3 x PC3_3 (PC3_3 defaults to 1)
-        cdelt *= float(header.get("PC3_3", 1.0))
-    crpix = float(header.get("CRPIX3", 1.0))
-    if cdelt == 0.0:
-        msg = f"{path}: header card CDELT3 is missing or zero; expected the channel step"
-        raise CubeError(msg)
+    axis_values = linear_axis(header, 3, dims[2], path)
 
     kind = ctype3[:4]
     try:
@@ -301,7 +335,7 @@ def read_cube_info(path: str | Path) -> CubeInfo:
     scales = proj_plane_pixel_scales(celestial)  # deg per pixel along each sky axis
     pixel_scale = np.sqrt(scales[0] * scales[1]) * u.deg
 
-    axis = (crval + (chan + 1 - crpix) * cdelt) * cunit
+    axis = axis_values * cunit
     rest = [float(header[k]) for k in ("RESTFRQ", "RESTFREQ") if k in header]
     if len(rest) == 2 and not np.isclose(rest[0], rest[1], rtol=1e-12):
         msg = (f"{path}: header cards RESTFRQ = {rest[0]} and RESTFREQ = {rest[1]} contradict each other; "
@@ -334,7 +368,7 @@ def read_cube_info(path: str | Path) -> CubeInfo:
         msg = (f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing; expected "
                "BMAJ and BMIN (the beam's FWHM axes, deg)")
         raise CubeError(msg)
-    return CubeInfo(path=path, header=header, shape=(nchan, dims[1], dims[0]), celestial_wcs=celestial,
+    return CubeInfo(path=path, header=header, shape=(dims[2], dims[1], dims[0]), celestial_wcs=celestial,
                     frequencies=freqs, specsys=specsys, bunit=bunit, beam_major=bmaj, beam_minor=bmin,
                     beam_pa=bpa, pixel_scale=pixel_scale.to(u.arcsec), hdu=index, error_hdu=err_index)
 

@@ -16,7 +16,7 @@ from astropy.wcs import WCS, FITSFixedWarning
 from cubes import SHAPE, write_cube
 from numpy.testing import assert_allclose, assert_array_equal
 
-from pipeline.io.cubes import observation_times, open_data, read_cube_info
+from pipeline.io.cubes import linear_axis, observation_times, open_data, read_cube_info
 from pipeline.errors import CubeError
 
 with warnings.catch_warnings():
@@ -251,3 +251,35 @@ def test_contradictory_rest_frequencies(tmp_path):
     path = write_cube(tmp_path / "c.fits", RESTFREQ=230.0e9)
     with pytest.raises(CubeError, match=r"RESTFRQ = .* and RESTFREQ = .* contradict"):
         read_cube_info(path)
+
+
+# ----------------------------------------------------------------------------- linear axes
+@pytest.mark.parametrize("cards", [
+    {"CRVAL1": -3.5, "CDELT1": 0.25, "CRPIX1": 1.0},
+    {"CRVAL1": 2.6, "CDELT1": 0.002, "CRPIX1": 17.5, "PC1_1": -1.5},   # step = CDELT1 x PC1_1
+    {"CRVAL1": 100, "CD1_1": -3, "CRPIX1": 4},                        # integer cards, a CD matrix
+])
+def test_linear_axis_matches_astropy_wcs(cards):
+    header = fits.Header({"NAXIS": 1, "NAXIS1": 40, **cards})  # a plain linear axis (no CTYPE, no unit)
+    expected = WCS(header).pixel_to_world_values(np.arange(40))  # astropy.wcs: FITS WCS paper I
+    assert_allclose(linear_axis(header, 1), expected, rtol=1e-14, atol=1e-12)
+    assert linear_axis(header, 1, 5).shape == (5,)
+
+
+def test_linear_axis_is_the_hand_written_formula():
+    # what the stages wrote out by hand, bit for bit
+    h = fits.Header({"NAXIS1": 33, "CRVAL1": -4.8, "CDELT1": 0.3, "CRPIX1": 1.0})
+    n = h["NAXIS1"]
+    assert_array_equal(linear_axis(h, 1), h["CRVAL1"] + (np.arange(n) + 1 - h["CRPIX1"]) * h["CDELT1"])
+
+
+@pytest.mark.parametrize("cards, match", [
+    ({"CDELT2": 1.0}, "x.fits: header card CRVAL2 is missing; expected the coordinate of the reference pixel of axis 2"),
+    ({"CRVAL2": 1.0, "CDELT2": 0.0}, "header card CDELT2 is missing or zero; expected the pixel step of axis 2"),
+    ({"CRVAL2": 1.0}, "header card CDELT2 is missing or zero"),
+    ({"CRVAL2": "one", "CDELT2": 1.0}, "header card CRVAL2 = 'one' is not a number"),
+    ({"CRVAL2": 1.0, "CDELT2": 1.0}, "header card NAXIS2 is missing; expected the length of axis 2"),
+])
+def test_linear_axis_errors_name_the_card(cards, match):
+    with pytest.raises(CubeError, match=match):
+        linear_axis(fits.Header(cards), 2, path="x.fits")
