@@ -151,7 +151,7 @@ def _design(x: np.ndarray, order: int) -> np.ndarray:
     return np.vander(x, order + 1, increasing=True)
 
 
-def _wls(x: np.ndarray, y: np.ndarray, s: np.ndarray, order: int) -> tuple[np.ndarray, np.ndarray]:
+def _wls(x: np.ndarray, s: np.ndarray, order: int) -> tuple[np.ndarray, np.ndarray]:
     """Weighted least squares y ~ sum_k beta_k x^k (weights 1/s^2): hat matrix H (beta = H y) and covariance."""
     pinv = np.linalg.pinv(_design(x, order) / s[:, None])
     return pinv / s[None, :], pinv @ pinv.T
@@ -468,7 +468,7 @@ def measure_band(wavelength: u.Quantity, flux: u.Quantity, sigma: u.Quantity, wi
     centre = 0.5 * (a + b)
     scale = 0.5 * (b - a)
     x = (lam - centre) / scale                     # conditioning only: beta_0 is the level at the centre
-    hat, cov = _wls(x[use], f[use], s[use], order)
+    hat, cov = _wls(x[use], s[use], order)
     beta = hat @ f[use]
     model = _design(x, order) @ beta
     coef = np.zeros(n)
@@ -549,5 +549,5 @@ def continuum_level(wavelength: u.Quantity, flux: u.Quantity, sigma: u.Quantity,
         msg = (f"only {int(use.sum())} usable line-free channels within {half:.6g} um of {centre:.6g} um; "
                "expected at least 3 for a straight-line continuum")
         raise CoverageError(msg)
-    hat, cov = _wls((lam[use] - centre) / half, f[use], s[use], 1)
+    hat, cov = _wls((lam[use] - centre) / half, s[use], 1)
     return float((hat @ f[use])[0]) * F_LAMBDA, float(np.sqrt(cov[0, 0])) * F_LAMBDA
