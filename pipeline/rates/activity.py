@@ -16,6 +16,7 @@ import numpy as np
 from astropy.table import QTable
 from scipy.optimize import brentq, minimize_scalar
 
+from pipeline.errors import CoverageError
 from pipeline.rates.statistics import bayesian_upper_limit
 
 __all__ = ["ActivityFit", "fit_fixed_slope", "fit_free_slope", "free_slope_possible", "activity_table"]
@@ -65,8 +66,10 @@ def fit_free_slope(q: np.ndarray, sigma: np.ndarray, r_h_au: np.ndarray, confide
     """Q0 and n both fitted; the 1σ interval of n from the profile χ² (Δχ² = 1), NaN where it is open."""
     q, s, r = (np.asarray(x, dtype=float) for x in (q, sigma, r_h_au))
     if not free_slope_possible(r):
-        msg = "a free slope needs at least 3 epochs spread in r_h"
-        raise ValueError(msg)
+        spread = f" at r_h {r.min():.6g}-{r.max():.6g} au" if r.size else ""
+        msg = (f"a free activity slope needs at least 3 epochs spread in r_h (ln r_h over a range >= 1e-3), "
+               f"found {r.size} epoch{'s' if r.size != 1 else ''}{spread}")
+        raise CoverageError(msg)
 
     def prof(n):
         return _q0_for_slope(q, s, r, n)[2]

@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 from scipy.optimize import curve_fit
 
+from pipeline.errors import CoverageError
 from pipeline.rates.activity import fit_fixed_slope, fit_free_slope
 
 
@@ -38,5 +39,7 @@ def test_free_slope_recovers_the_law_and_its_error():
 
 
 def test_free_slope_needs_spread_epochs():
-    with pytest.raises(ValueError, match="at least 3 epochs"):
+    with pytest.raises(CoverageError, match=r"at least 3 epochs spread in r_h .*found 2 epochs at r_h 1-1\.2 au"):
         fit_free_slope([1.0, 2.0], [0.1, 0.1], [1.0, 1.2], 0.99)
+    with pytest.raises(CoverageError, match="found 3 epochs at r_h 1.5-1.5 au"):
+        fit_free_slope([1.0, 2.0, 3.0], [0.1, 0.1, 0.1], [1.5, 1.5, 1.5], 0.99)
