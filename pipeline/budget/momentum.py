@@ -189,6 +189,16 @@ def required_mass_loss_rate(
     Momentum balance ``M a = zeta Mdot v_ej``, so ``Mdot = M a / (zeta v_ej)``.
     The mass is taken as constant; over a long interval use
     :func:`rocket_mass_fraction`.
+
+    Examples
+    --------
+    A 1e12 kg nucleus pushed at 1e-8 m/s^2 by gas leaving at 500 m/s, half of whose momentum
+    pushes along the acceleration: Mdot = 1e12 x 1e-8 / (0.5 x 500) kg/s.
+
+    >>> import astropy.units as u
+    >>> mdot = required_mass_loss_rate(1e12 * u.kg, 1e-8 * u.m / u.s**2, 500 * u.m / u.s, efficiency=0.5)
+    >>> print(f"{mdot:.6g}")
+    40 kg / s
     """
     m = _values("mass", mass, u.kg)
     a = _values("acceleration", acceleration, u.m / u.s**2, allow_zero=True)
@@ -239,6 +249,23 @@ def rocket_mass_fraction(
     .. [1] Tsiolkovsky, K. E. 1903, "Exploration of the World Spaces by Reactive
        Devices"; any astrodynamics text, e.g. Curtis, H. D., Orbital Mechanics for
        Engineering Students, ch. 11.
+
+    Examples
+    --------
+    1e-6 m/s^2 for 1e8 s with gas at 500 m/s is a velocity change of a fifth of the exhaust
+    speed, so the nucleus spends 1 - exp(-0.2) of its mass; a small push (1e-8 m/s^2 for
+    1e7 s) spends about a dt / v_ej = 2e-4:
+
+    >>> import math
+    >>> import astropy.units as u
+    >>> spent = rocket_mass_fraction(1e-6 * u.m / u.s**2, 1e8 * u.s, 500 * u.m / u.s)
+    >>> print(f"{spent.value:.6f}")
+    0.181269
+    >>> print(f"{1 - math.exp(-0.2):.6f}")
+    0.181269
+    >>> small = rocket_mass_fraction(1e-8 * u.m / u.s**2, 1e7 * u.s, 500 * u.m / u.s)
+    >>> print(f"{small.value:.4g}")
+    0.0002
     """
     a = _values("acceleration", acceleration, u.m / u.s**2, allow_zero=True)
     dt = _values("interval", interval, u.s, allow_zero=True)

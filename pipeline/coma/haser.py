@@ -263,6 +263,17 @@ def scale_length(speed: u.Quantity, rate_1au: u.Quantity, r_h: u.Quantity) -> u.
     Notes
     -----
     :math:`L = v\\,\\tau`, :math:`\\tau = (r_h / 1\\ {\\rm au})^2 / \\beta_{1\\,\\rm au}`.
+
+    Examples
+    --------
+    At 2 au the lifetime is four times the 1 au one, so L = 0.8 km/s x 4 / (1.3e-5 /s):
+
+    >>> import astropy.units as u
+    >>> length = scale_length(0.8 * u.km / u.s, 1.3e-5 / u.s, 2.0 * u.au)
+    >>> print(f"{length:.4g}")
+    2.462e+05 km
+    >>> print(f"{0.8 * 2.0**2 / 1.3e-5:.4g}")
+    2.462e+05
     """
     v = _value(speed, u.km / u.s, "speed")
     beta = _value(rate_1au, 1 / u.s, "rate_1au")
@@ -399,6 +410,21 @@ def parent_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity,
     References
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
+
+    Examples
+    --------
+    The two limits: an aperture of 1e-4 scale lengths holds pi Q rho / (2 v) molecules, the whole
+    coma Q L / v (Q = 1e28 /s, v = 1 km/s, L = 1e6 km):
+
+    >>> import math
+    >>> import astropy.units as u
+    >>> q, v, length = 1e28 / u.s, 1.0 * u.km / u.s, 1e6 * u.km
+    >>> print(f"{parent_aperture_count(100 * u.km, q, v, length):.3g}")
+    1.57e+30
+    >>> print(f"{math.pi * 1e28 * 100 / (2 * 1.0):.3g}")
+    1.57e+30
+    >>> print(f"{parent_aperture_count(math.inf * u.km, q, v, length):.6g}")
+    1e+34
     """
     rr = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
     qq, v, length_km, _ = _common(q, speed, length, parent_name="length")

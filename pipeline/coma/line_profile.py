@@ -70,5 +70,16 @@ def channel_fractions(velocity: np.ndarray, v_out: float, sigma: float) -> np.nd
 
 
 def window_fraction(half_width: float, v_out: float, sigma: float) -> float:
-    """Fraction of the line flux inside [-half_width, +half_width] (km/s)."""
+    """Fraction of the line flux inside [-half_width, +half_width] (km/s).
+
+    Examples
+    --------
+    Without thermal broadening the arcsine law puts half the flux within v/sqrt(2) of the
+    centre (asin(1/sqrt(2)) = pi/4); without outflow the Gaussian puts 68.27 % within one sigma:
+
+    >>> print(f"{window_fraction(0.8 / 2**0.5, 0.8, 0.0):.6f}")
+    0.500000
+    >>> print(f"{window_fraction(0.1, 0.0, 0.1):.4f}")
+    0.6827
+    """
     return float(interval_probability(np.array(-half_width), np.array(half_width), v_out, sigma))

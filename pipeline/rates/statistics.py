@@ -157,6 +157,14 @@ def classical_upper_limit(
     This limit ignores the physical boundary: a strongly negative estimate gives
     a negative (empty) limit.  Use :func:`bayesian_upper_limit` or
     :func:`feldman_cousins_upper_limit` for a limit that is always positive.
+
+    Examples
+    --------
+    Q = (2.0 +- 0.5) x 1e26 /s gives the 3-sigma limit 2.0e26 + 3 x 0.5e26 = 3.5e26 /s:
+
+    >>> import astropy.units as u
+    >>> print(f"{classical_upper_limit(2.0e26 / u.s, 0.5e26 / u.s):.3g}")
+    3.5e+26 1 / s
     """
     if not np.isfinite(nsigma):
         msg = f"'nsigma' must be finite, found {nsigma!r}"
@@ -224,6 +232,17 @@ def bayesian_upper_limit(
        non-negative parameter with a flat prior).
     .. [2] Particle Data Group, Review of Particle Physics, "Statistics",
        section on Bayesian intervals with a physical boundary.
+
+    Examples
+    --------
+    An estimate of exactly zero: the posterior is a half-Gaussian, so the 95 % limit is
+    ``s Phi^-1(0.975)``, the familiar 1.96 s:
+
+    >>> from scipy.stats import norm
+    >>> print(f"{bayesian_upper_limit(0.0, 1.0, 0.95):.5f}")
+    1.95996
+    >>> print(f"{norm.ppf(0.975):.5f}")
+    1.95996
     """
     cl = _check_confidence(confidence)
     x, s, unit = _split(estimate, sigma)
