@@ -15,9 +15,11 @@ from astropy.io import fits
 from astropy.table import QTable, Table
 
 from pipeline.catalogue import Catalogue
-from pipeline.coma.excitation import OpacityWarning, line_optical_depth
+from pipeline.coma.excitation import line_optical_depth
 from pipeline.coma.haser import parent_aperture_count, scale_length
 from pipeline.coma.line_profile import thermal_dispersion
+from pipeline.errors import OpacityWarning
+from pipeline.io.cubes import linear_axis
 from pipeline.rates.line_fit import fit_line
 
 __all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns"]
@@ -43,8 +45,7 @@ def fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table,
     if len(members) == 0:
         return
     hdu = hdul[f"STACK_{group}"]
-    n = hdu.data.shape[-1]
-    vel = hdu.header["CRVAL1"] + (np.arange(n) + 1 - hdu.header["CRPIX1"]) * hdu.header["CDELT1"]
+    vel = linear_axis(hdu.header, 1, hdu.data.shape[-1])
     v_out = float(np.mean(members["outflow"]))
     window = float(np.max(members["window"]))
     responses = set(members["spectral_response"]) if "spectral_response" in members.colnames else {"hanning"}
