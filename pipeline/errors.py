@@ -16,6 +16,8 @@ __all__ = [
     "EphemerisError",
     "CatalogueError",
     "CoverageError",
+    "LimitError",
+    "BudgetError",
     "GasledgerWarning",
     "NoiseWarning",
     "OpacityWarning",
@@ -50,6 +52,14 @@ class CatalogueError(GasledgerError, ValueError):
 
 class CoverageError(GasledgerError, ValueError):
     """A line, window or aperture asked for is not covered by the data."""
+
+
+class LimitError(GasledgerError, ValueError):
+    """An argument of a limit or interval calculation is out of its domain."""
+
+
+class BudgetError(GasledgerError, ValueError):
+    """An argument of the mass or momentum budget is out of its physical domain."""
 
 
 class GasledgerWarning(UserWarning):

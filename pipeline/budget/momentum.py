@@ -23,10 +23,9 @@ import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
-from pipeline.errors import GasledgerError
+from pipeline.errors import BudgetError
 
 __all__ = [
-    "BudgetError",
     "LATENT_HEAT",
     "nucleus_mass",
     "diameter_from_absolute_magnitude",
@@ -59,10 +58,6 @@ LATENT_HEAT: dict[str, u.Quantity] = {
     # WebBook lists a similar enthalpy of sublimation, from memory); / 44.009 g/mol = 5.9e5 J/kg.
     "CO2": 5.9e5 * u.J / u.kg,
 }
-
-
-class BudgetError(GasledgerError, ValueError):
-    """An argument of the mass or momentum budget is out of its physical domain."""
 
 
 # --------------------------------------------------------------------------- #

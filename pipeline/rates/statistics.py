@@ -22,10 +22,9 @@ import astropy.units as u
 import numpy as np
 from scipy import optimize, special, stats
 
-from pipeline.errors import GasledgerError
+from pipeline.errors import LimitError
 
 __all__ = [
-    "LimitError",
     "nsigma_to_confidence",
     "classical_upper_limit",
     "bayesian_upper_limit",
@@ -41,10 +40,6 @@ ArrayOrQuantity = float | np.ndarray | u.Quantity
 # asymptotic form; below it the exact closed form keeps ~1e-9 relative accuracy.
 _BAYES_ASYMPTOTIC_Z = 1.0e4
 _XTOL = 1.0e-13
-
-
-class LimitError(GasledgerError, ValueError):
-    """An argument of a limit or interval calculation is out of its domain."""
 
 
 # --------------------------------------------------------------------------- #

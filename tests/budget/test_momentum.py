@@ -10,10 +10,9 @@ import pytest
 from astropy.tests.helper import assert_quantity_allclose
 from scipy import stats
 
-from pipeline.errors import GasledgerError
+from pipeline.errors import BudgetError, GasledgerError
 from pipeline.budget.momentum import (
     LATENT_HEAT,
-    BudgetError,
     diameter_from_absolute_magnitude,
     marsden_g,
     max_bulk_density,

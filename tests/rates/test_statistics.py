@@ -9,9 +9,8 @@ from astropy.tests.helper import assert_quantity_allclose
 from numpy.testing import assert_allclose
 from scipy import integrate, optimize, stats
 
-from pipeline.errors import GasledgerError
+from pipeline.errors import GasledgerError, LimitError
 from pipeline.rates.statistics import (
-    LimitError,
     bayesian_upper_limit,
     classical_upper_limit,
     detection_significance,
