@@ -23,7 +23,8 @@ import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
-from pipeline.errors import BudgetError
+from pipeline.errors import BudgetError, GasledgerTypeError
+from pipeline.quantities import checked_array
 
 __all__ = [
     "LATENT_HEAT",
@@ -65,14 +66,7 @@ LATENT_HEAT: dict[str, u.Quantity] = {
 # --------------------------------------------------------------------------- #
 def _values(name: str, quantity: u.Quantity, unit: u.UnitBase, *, allow_zero: bool = False) -> np.ndarray:
     """Value of ``quantity`` in ``unit``, checked finite and > 0 (or >= 0)."""
-    values = np.asarray(quantity.to_value(unit), dtype=float)
-    bad = ~np.isfinite(values) | ((values < 0) if allow_zero else (values <= 0))
-    if np.any(bad):
-        found = quantity if values.ndim == 0 else quantity[bad]
-        bound = ">= 0" if allow_zero else "> 0"
-        msg = f"{name!r} must be finite and {bound}, found {found!r}"
-        raise BudgetError(msg)
-    return values
+    return checked_array(quantity, unit, name, sign="non-negative" if allow_zero else "positive", error=BudgetError)
 
 
 def _fraction(name: str, value: float | np.ndarray | u.Quantity) -> np.ndarray:
@@ -541,7 +535,7 @@ def sublimation_area_required(
             raise BudgetError(msg) from exc
     if not isinstance(latent_heat, u.Quantity):
         msg = f"'latent_heat' must be a Quantity in J/kg or a species name, found {latent_heat!r}"
-        raise BudgetError(msg)
+        raise GasledgerTypeError(msg)
     mdot = _values("mass_loss_rate", mass_loss_rate, u.kg / u.s, allow_zero=True)
     heat = _values("latent_heat", latent_heat, u.J / u.kg)
     f = _fraction("absorbed_fraction", absorbed_fraction)

@@ -29,7 +29,8 @@ import numpy as np
 from astropy.constants import k_B
 from scipy.special import i1e
 
-from pipeline.errors import ConfigError, EphemerisError
+from pipeline.errors import EphemerisError
+from pipeline.quantities import checked_array as _checked
 
 __all__ = [
     "outflow_speed_law",
@@ -74,28 +75,6 @@ def _panel_nodes(n_uniform: int = 12, n_graded: int = 14, order: int = 10, order
 
 
 _S_NODES, _S_WEIGHTS = _panel_nodes()
-
-
-# ----------------------------------------------------------------------------- input checks
-def _value(x, unit, name: str, *, low: str = "positive", allow_inf: bool = False,
-           error=ConfigError) -> np.ndarray:
-    """Return ``x`` in ``unit`` as a float array, checking its sign; raise naming ``name``."""
-    if not isinstance(x, u.Quantity):
-        msg = f"'{name}' must be a Quantity in units of {unit}, found {x!r}"
-        raise error(msg)
-    try:
-        out = np.asarray(x.to_value(unit), dtype=float)
-    except u.UnitsError as exc:
-        msg = f"'{name}' must have units convertible to {unit}, found {x.unit}"
-        raise error(msg) from exc
-    bad = np.isnan(out) | ((out <= 0) if low == "positive" else (out < 0))
-    if not allow_inf:
-        bad |= np.isinf(out)
-    if np.any(bad):
-        want = ("> 0" if low == "positive" else ">= 0") + ("" if allow_inf else " and finite")
-        msg = f"'{name}' must be {want}, found {out[bad].ravel()[0] * u.Unit(unit)!r}"
-        raise error(msg)
-    return out
 
 
 # ----------------------------------------------------------------------------- kernels
@@ -230,7 +209,7 @@ def outflow_speed_law(r_h: u.Quantity) -> u.Quantity:
     .. [1] Biver, N. et al. 1997, Earth Moon Planets 78, 5; Biver, N. et al. 2006,
        A&A 449, 1255 (the empirical law, from memory).
     """
-    r = _value(r_h, u.au, "r_h", error=EphemerisError)
+    r = _checked(r_h, u.au, "r_h", error=EphemerisError)
     return u.Quantity(0.85 / np.sqrt(r), u.km / u.s)
 
 
@@ -246,8 +225,8 @@ def thermal_speed(temperature: u.Quantity, molecular_mass: u.Quantity) -> u.Quan
     -----
     :math:`\\bar v = \\sqrt{8 k T / (\\pi m)}`.
     """
-    t = _value(temperature, u.K, "temperature")
-    m = _value(molecular_mass, u.kg, "molecular_mass")
+    t = _checked(temperature, u.K, "temperature")
+    m = _checked(molecular_mass, u.kg, "molecular_mass")
     v = np.sqrt(8.0 * k_B.to_value(u.J / u.K) * t / (math.pi * m))
     return u.Quantity(v / 1e3, u.km / u.s)
 
@@ -275,19 +254,19 @@ def scale_length(speed: u.Quantity, rate_1au: u.Quantity, r_h: u.Quantity) -> u.
     >>> print(f"{0.8 * 2.0**2 / 1.3e-5:.4g}")
     2.462e+05
     """
-    v = _value(speed, u.km / u.s, "speed")
-    beta = _value(rate_1au, 1 / u.s, "rate_1au")
-    r = _value(r_h, u.au, "r_h", error=EphemerisError)
+    v = _checked(speed, u.km / u.s, "speed")
+    beta = _checked(rate_1au, 1 / u.s, "rate_1au")
+    r = _checked(r_h, u.au, "r_h", error=EphemerisError)
     return u.Quantity(v * r * r / beta, u.km)
 
 
 # ----------------------------------------------------------------------------- densities
 def _common(q, speed, length_parent, length_daughter=None, parent_name="length_parent"):
     """Checked q [1/s], speed [km/s] and scale lengths [km] (the daughter one may be None)."""
-    qq = _value(q, 1 / u.s, "q", low="non-negative")
-    v = _value(speed, u.km / u.s, "speed")
-    lp = _value(length_parent, u.km, parent_name)
-    ld = None if length_daughter is None else _value(length_daughter, u.km, "length_daughter")
+    qq = _checked(q, 1 / u.s, "q", sign="non-negative")
+    v = _checked(speed, u.km / u.s, "speed")
+    lp = _checked(length_parent, u.km, parent_name)
+    ld = None if length_daughter is None else _checked(length_daughter, u.km, "length_daughter")
     return qq, v, lp, ld
 
 
@@ -307,7 +286,7 @@ def parent_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length: u.Qu
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
-    rr = _value(r, u.km, "r")
+    rr = _checked(r, u.km, "r")
     qq, v, length_km, _ = _common(q, speed, length, parent_name="length")
     n = qq * np.exp(-rr / length_km) / (4.0 * math.pi * rr * rr * v)
     return u.Quantity(n * _KM3_TO_CM3, u.cm**-3)
@@ -331,7 +310,7 @@ def daughter_density(r: u.Quantity, q: u.Quantity, speed: u.Quantity, length_par
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
-    rr = _value(r, u.km, "r")
+    rr = _checked(r, u.km, "r")
     qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     a, b = 1.0 / lp, 1.0 / ld
     kernel = a * rr * np.exp(-np.minimum(a, b) * rr) * _phi(np.abs(a - b) * rr)
@@ -357,7 +336,7 @@ def parent_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity,
     .. [2] Abramowitz, M. & Stegun, I. A. 1964, Handbook of Mathematical Functions,
        section 11.2 (repeated integrals of K_0; from memory).
     """
-    rr = _value(rho, u.km, "rho")
+    rr = _checked(rho, u.km, "rho")
     qq, v, length_km, _ = _common(q, speed, length, parent_name="length")
     rr, length_km = np.broadcast_arrays(rr, length_km)
     col = qq * _ki1(_ratio(rr, length_km, clip=False)) / (2.0 * math.pi * v * rr)
@@ -381,7 +360,7 @@ def daughter_column_density(rho: u.Quantity, q: u.Quantity, speed: u.Quantity, l
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
-    rr = _value(rho, u.km, "rho")
+    rr = _checked(rho, u.km, "rho")
     qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     rr, lp, ld = np.broadcast_arrays(rr, lp, ld)
     ki = np.zeros(rr.shape)  # 0 (underflow) beyond 1e4 scale lengths
@@ -426,7 +405,7 @@ def parent_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity,
     >>> print(f"{parent_aperture_count(math.inf * u.km, q, v, length):.6g}")
     1e+34
     """
-    rr = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
+    rr = _checked(rho_ap, u.km, "rho_ap", sign="non-negative", allow_inf=True)
     qq, v, length_km, _ = _common(q, speed, length, parent_name="length")
     return u.Quantity(qq / v * _count_per_rate(rr, length_km), u.dimensionless_unscaled)
 
@@ -448,7 +427,7 @@ def daughter_aperture_count(rho_ap: u.Quantity, q: u.Quantity, speed: u.Quantity
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
-    rr = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
+    rr = _checked(rho_ap, u.km, "rho_ap", sign="non-negative", allow_inf=True)
     qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     return u.Quantity(qq / v * _count_per_rate(rr, lp, ld), u.dimensionless_unscaled)
 
@@ -478,7 +457,7 @@ def beam_count(fwhm: u.Quantity, q: u.Quantity, speed: u.Quantity, length_parent
     ----------
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     """
-    theta = _value(fwhm, u.km, "fwhm")
+    theta = _checked(fwhm, u.km, "fwhm")
     qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     arrays = np.broadcast_arrays(theta, lp, *(() if ld is None else (ld,)))
     theta, lp, ld = arrays[0], arrays[1], (arrays[2] if ld is not None else None)
@@ -523,8 +502,8 @@ def convolved_aperture_count(rho_ap: u.Quantity, beam_fwhm: u.Quantity, q: u.Qua
     .. [1] Haser, L. 1957, Bull. Soc. R. Sci. Liège 43, 740.
     .. [2] Marcum, J. I. 1960, IRE Trans. Inf. Theory 6, 59 (the Q function; from memory).
     """
-    radius = _value(rho_ap, u.km, "rho_ap", low="non-negative", allow_inf=True)
-    sigma = _value(beam_fwhm, u.km, "beam_fwhm", low="non-negative") * _FWHM_TO_SIGMA
+    radius = _checked(rho_ap, u.km, "rho_ap", sign="non-negative", allow_inf=True)
+    sigma = _checked(beam_fwhm, u.km, "beam_fwhm", sign="non-negative") * _FWHM_TO_SIGMA
     qq, v, lp, ld = _common(q, speed, length_parent, length_daughter)
     arrays = np.broadcast_arrays(radius, sigma, lp, *(() if ld is None else (ld,)))
     shape = arrays[0].shape

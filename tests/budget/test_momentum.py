@@ -10,7 +10,7 @@ import pytest
 from astropy.tests.helper import assert_quantity_allclose
 from scipy import stats
 
-from pipeline.errors import BudgetError, GasledgerError
+from pipeline.errors import BudgetError, GasledgerError, GasledgerTypeError
 from pipeline.budget.momentum import (
     LATENT_HEAT,
     diameter_from_absolute_magnitude,
@@ -262,9 +262,9 @@ def test_latent_heat_co_hess_lower_bound():
 # invalid input
 # --------------------------------------------------------------------------- #
 def test_negative_radius_raises():
-    with pytest.raises(BudgetError, match=r"'radius' must be finite and > 0, found <Quantity -1\.0? km>"):
+    with pytest.raises(BudgetError, match=r"'radius' must be > 0 and finite, found -1\.0 km"):
         nucleus_mass(-1 * u.km, 500 * u.kg / u.m**3)
-    with pytest.raises(BudgetError, match=r"'radius' must be finite and > 0, found <Quantity \[-2\.\] km>"):
+    with pytest.raises(BudgetError, match=r"'radius' must be > 0 and finite, found -2\.0 km"):
         max_bulk_density(1e12 * u.kg, [1.0, -2.0] * u.km)
 
 
@@ -282,7 +282,7 @@ def test_efficiency_outside_unit_interval_raises(eff):
 @pytest.mark.parametrize("speed", [0.0, -300.0])
 def test_non_positive_speed_raises(speed):
     v = speed * u.m / u.s
-    match = r"'ejection_speed' must be finite and > 0, found <Quantity"
+    match = rf"'ejection_speed' must be > 0 and finite, found {speed!r} m / s"
     with pytest.raises(BudgetError, match=match):
         required_mass_loss_rate(1e12 * u.kg, 1e-7 * ACC, v)
     with pytest.raises(BudgetError, match=match):
@@ -292,15 +292,18 @@ def test_non_positive_speed_raises(speed):
 
 
 def test_other_invalid_inputs():
-    with pytest.raises(BudgetError, match=r"'acceleration' must be finite and > 0"):
+    with pytest.raises(BudgetError, match=r"'acceleration' must be > 0 and finite"):
         max_nucleus_mass(1e27 / u.s, M_H2O, 0 * ACC, 300 * u.m / u.s)
-    with pytest.raises(BudgetError, match=r"'temperature' must be finite and > 0"):
+    with pytest.raises(BudgetError, match=r"'temperature' must be > 0 and finite"):
         thermal_ejection_speed(0 * u.K, M_H2O)
     with pytest.raises(BudgetError, match=r"unknown species 'N2', expected one of \['CO', 'CO2', 'H2O'\]"):
         sublimation_area_required(1 * u.kg / u.s, 1 * u.au, "N2")
+    with pytest.raises(GasledgerTypeError, match=r"'latent_heat' must be a Quantity in J/kg or a species name, "
+                                                 r"found 5\.0"):
+        sublimation_area_required(1 * u.kg / u.s, 1 * u.au, 5.0)
     with pytest.raises(BudgetError, match=r"'absorbed_fraction' must lie in \(0, 1\]"):
         sublimation_area_required(1 * u.kg / u.s, 1 * u.au, "H2O", absorbed_fraction=2.0)
-    with pytest.raises(BudgetError, match=r"'r_h' must be finite and > 0"):
+    with pytest.raises(BudgetError, match=r"'r_h' must be > 0 and finite"):
         marsden_g(0 * u.au)
     # wrong physical type is refused by astropy's quantity_input
     with pytest.raises(u.UnitsError):

@@ -20,7 +20,7 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy import integrate, ndimage, special, stats
 
 from pipeline.coma import haser
-from pipeline.errors import ConfigError, EphemerisError, GasledgerError
+from pipeline.errors import ConfigError, EphemerisError, GasledgerError, GasledgerTypeError
 
 Q = 1e28 / u.s
 V = 0.8 * u.km / u.s
@@ -383,7 +383,7 @@ def test_invalid_input():
         haser.parent_aperture_count(-1 * u.km, Q, V, L)
     with pytest.raises(ConfigError, match="'speed'.*units"):
         haser.parent_aperture_count(1e3 * u.km, Q, 1 * u.km, L)
-    with pytest.raises(ConfigError, match="'temperature'"):
+    with pytest.raises(GasledgerTypeError, match="'temperature'"):
         haser.thermal_speed(300, 18 * u.u)
     with pytest.raises(ConfigError, match="'beam_fwhm'"):
         haser.convolved_aperture_count(1e3 * u.km, -1 * u.km, Q, V, L)
