@@ -23,6 +23,7 @@ import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
+from pipeline.coma.thermal import mean_thermal_speed
 from pipeline.errors import BudgetError, GasledgerTypeError
 from pipeline.quantities import checked_array
 
@@ -464,14 +465,14 @@ def thermal_ejection_speed(temperature: u.Quantity, molecular_mass: u.Quantity) 
 
     Notes
     -----
-    The mean of the Maxwell speed distribution.  It is a lower estimate of the
-    terminal speed of gas that expands into vacuum, which gains speed from
-    its internal energy.
+    The mean of the Maxwell speed distribution
+    (:func:`pipeline.coma.thermal.mean_thermal_speed`, the home of the
+    thermal-speed formulas; ``temperature`` may be in any temperature unit).
+    It is a lower estimate of the terminal speed of gas that expands into
+    vacuum, which gains speed from its internal energy.
     """
-    t = _values("temperature", temperature.to(u.K, equivalencies=u.temperature()), u.K)
-    m = _values("molecular_mass", molecular_mass, u.kg)
-    k_b = const.k_B.to_value(u.J / u.K)
-    return (np.sqrt(8.0 * k_b * t / (math.pi * m)) * (u.m / u.s)).to(u.km / u.s)
+    return mean_thermal_speed(temperature.to(u.K, equivalencies=u.temperature()), molecular_mass,
+                              error=BudgetError)
 
 
 @u.quantity_input(r_h=u.au)

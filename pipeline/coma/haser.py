@@ -26,9 +26,9 @@ import math
 
 import astropy.units as u
 import numpy as np
-from astropy.constants import k_B
 from scipy.special import i1e
 
+from pipeline.coma.thermal import mean_thermal_speed
 from pipeline.errors import EphemerisError
 from pipeline.quantities import checked_array as _checked
 
@@ -223,12 +223,10 @@ def thermal_speed(temperature: u.Quantity, molecular_mass: u.Quantity) -> u.Quan
 
     Notes
     -----
-    :math:`\\bar v = \\sqrt{8 k T / (\\pi m)}`.
+    :math:`\\bar v = \\sqrt{8 k T / (\\pi m)}`, from :func:`pipeline.coma.thermal.mean_thermal_speed`
+    (the home of the thermal-speed formulas).
     """
-    t = _checked(temperature, u.K, "temperature")
-    m = _checked(molecular_mass, u.kg, "molecular_mass")
-    v = np.sqrt(8.0 * k_B.to_value(u.J / u.K) * t / (math.pi * m))
-    return u.Quantity(v / 1e3, u.km / u.s)
+    return mean_thermal_speed(temperature, molecular_mass)
 
 
 def scale_length(speed: u.Quantity, rate_1au: u.Quantity, r_h: u.Quantity) -> u.Quantity:

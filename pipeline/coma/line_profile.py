@@ -5,27 +5,22 @@ the scale length, the column is dominated by gas along the line of sight with
 density ∝ r^-2; the angle θ between the flow and the sky plane is then
 uniformly distributed, so the line-of-sight velocity u = v sin θ follows the
 arcsine distribution p(u) = 1 / (π sqrt(v² - u²)) on (-v, v). Thermal motion
-broadens it by a Gaussian of dispersion sqrt(kT/m). The instrument's spectral
-response (e.g. Hanning smoothing) is not included.
+broadens it by a Gaussian of dispersion sqrt(kT/m) (:func:`pipeline.coma.thermal.thermal_dispersion`,
+re-exported here). The instrument's spectral response (e.g. Hanning smoothing) is not included.
 """
 
 from __future__ import annotations
 
-import astropy.constants as const
-import astropy.units as u
 import numpy as np
 from scipy.special import ndtr
+
+from pipeline.coma.thermal import thermal_dispersion  # re-exported: the line width's thermal part
 
 __all__ = ["thermal_dispersion", "interval_probability", "channel_fractions", "window_fraction"]
 
 _NODES, _WEIGHTS = np.polynomial.legendre.leggauss(24)
 #: offsets (in sigma) of the panel edges around each channel edge; Phi(-8) ~ 6e-16
 _EDGE_OFFSETS = np.array([-8.0, 0.0, 8.0])
-
-
-def thermal_dispersion(t_kin: u.Quantity, mass: u.Quantity) -> u.Quantity:
-    """One-dimensional thermal velocity dispersion sqrt(kT/m)."""
-    return np.sqrt(const.k_B * u.Quantity(t_kin, u.K) / u.Quantity(mass)).to(u.km / u.s)
 
 
 def interval_probability(lo: np.ndarray, hi: np.ndarray, v_out: float, sigma: float) -> np.ndarray:

@@ -1,20 +1,16 @@
 """Tests of pipeline.coma.line_profile: the arcsine outflow profile broadened by thermal motion.
 
 Every check compares with something outside the module: scipy.stats' arcsine and
-normal distributions (the two limits), scipy.integrate.quad of the arcsine density
-convolved with a Gaussian (the general case), and astropy constants.
+normal distributions (the two limits) and scipy.integrate.quad of the arcsine density
+convolved with a Gaussian (the general case).  The thermal width is tested in test_thermal.py.
 """
 
-import astropy.constants as const
-import astropy.units as u
 import numpy as np
 import pytest
-from astropy.tests.helper import assert_quantity_allclose
 from numpy.testing import assert_allclose
 from scipy import integrate, stats
 
-from pipeline.coma.line_profile import (channel_fractions, interval_probability, thermal_dispersion,
-                                   window_fraction)
+from pipeline.coma.line_profile import channel_fractions, interval_probability, window_fraction
 
 
 # ----------------------------------------------------------------------------- independent references
@@ -135,20 +131,3 @@ def test_window_fraction():
     assert_allclose(window_fraction(50.0, 0.8, 0.077), 1.0, atol=1e-13)
     assert_allclose(window_fraction(0.6, 0.8, 0.077), convolved_probability_u(-0.6, 0.6, 0.8, 0.077), rtol=1e-9)
     assert isinstance(window_fraction(0.6, 0.8, 0.077), float)
-
-
-# ----------------------------------------------------------------------------- thermal width
-@pytest.mark.parametrize("t_k, mass_u", [(20.0, 28.010), (80.0, 32.042), (10.0, 18.015)])
-def test_thermal_dispersion_against_astropy_constants(t_k, mass_u):
-    # sigma = sqrt(k T / m), k_B and the atomic mass unit from astropy.constants (CODATA)
-    expected = np.sqrt(const.k_B.si.value * t_k / (mass_u * const.u.si.value)) / 1e3
-    got = thermal_dispersion(t_k * u.K, mass_u * u.u)
-    assert got.unit == u.km / u.s
-    assert_allclose(got.value, expected, rtol=1e-12)
-
-
-def test_thermal_dispersion_vectorised():
-    temps = [10.0, 40.0] * u.K
-    got = thermal_dispersion(temps, 28.010 * u.u)
-    # sigma scales as sqrt(T)
-    assert_quantity_allclose(got[1] / got[0], 2.0, rtol=1e-12)
