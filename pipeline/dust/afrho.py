@@ -27,6 +27,7 @@ import numpy as np
 from pipeline.errors import ConfigError, EphemerisError
 from pipeline.quantities import checked_array as _checked
 from pipeline.dust.solar import solar_flux_density
+from pipeline.rates.statistics import inverse_variance_mean
 
 __all__ = ["afrho", "reflectance", "spectral_slope", "slope_percent_per_100nm", "dust_production_rate",
            "dust_momentum_rate"]
@@ -200,9 +201,9 @@ def spectral_slope(wavelength: u.Quantity, afrho_values: u.Quantity, afrho_error
                f"points; found {lam.size}")
         raise ConfigError(msg)
     w = 1.0 / sig**2
-    lam_bar = np.sum(w * lam) / np.sum(w)
+    lam_bar, _ = inverse_variance_mean(lam, sig)
     d = lam - lam_bar
-    a = np.sum(w * y) / np.sum(w)
+    a, _ = inverse_variance_mean(y, sig)
     if not a > 0:
         msg = (f"'afrho_values' must have a weighted mean > 0 to normalise the slope, found {a!r} {unit}; "
                "expected a detected continuum")

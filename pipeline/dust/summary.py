@@ -12,6 +12,7 @@ import numpy as np
 from astropy.table import QTable, Table
 
 from pipeline.dust.afrho import dust_momentum_rate, dust_production_rate, slope_percent_per_100nm, spectral_slope
+from pipeline.rates.statistics import inverse_variance_mean
 
 __all__ = ["dust_summary"]
 
@@ -58,21 +59,18 @@ def dust_summary(afrho: Table, grain_radius: u.Quantity, grain_density: u.Quanti
                 slope, slope_err = slope_percent_per_100nm(sl), slope_percent_per_100nm(sl_err)
             ref = np.isclose(lam, lam_ref)
             if np.any(ref):
-                w = 1 / err[ref] ** 2
-                a_ref, a_ref_err = float(np.sum(w * val[ref]) / np.sum(w)), float(1 / np.sqrt(np.sum(w)))
+                a_ref, a_ref_err = (float(x) for x in inverse_variance_mean(val[ref], err[ref]))
             else:
                 a_ref = a_ref_err = np.nan
             per_epoch[(group, ap)] = (a_ref, a_ref_err, slope, slope_err)
     for ap in sorted({k[1] for k in per_epoch}):
         vals = [v for (g, a_), v in per_epoch.items() if a_ == ap and np.isfinite(v[0])]
         if vals:
-            w = np.array([1 / v[1] ** 2 for v in vals])
-            a_all = float(np.sum(w * np.array([v[0] for v in vals])) / np.sum(w))
+            a_all, a_all_err = inverse_variance_mean([v[0] for v in vals], [v[1] for v in vals])
             s_ok = [v for v in vals if np.isfinite(v[2])]
-            ws = np.array([1 / v[3] ** 2 for v in s_ok]) if s_ok else np.array([])
-            s_all = float(np.sum(ws * np.array([v[2] for v in s_ok])) / np.sum(ws)) if s_ok else np.nan
-            per_epoch[("all", ap)] = (a_all, float(1 / np.sqrt(np.sum(w))), s_all,
-                                      float(1 / np.sqrt(np.sum(ws))) if s_ok else np.nan)
+            s_all, s_all_err = (inverse_variance_mean([v[2] for v in s_ok], [v[3] for v in s_ok]) if s_ok
+                                else (np.nan, np.nan))
+            per_epoch[("all", ap)] = (float(a_all), float(a_all_err), float(s_all), float(s_all_err))
     for (group, ap), (a_ref, a_err, slope, slope_err) in sorted(per_epoch.items()):
         q = dust_production_rate(a_ref * u.cm, a, rho_d, v_d, albedo) if np.isfinite(a_ref) else np.nan * u.kg / u.s
         q_err = dust_production_rate(a_err * u.cm, a, rho_d, v_d, albedo) if np.isfinite(a_err) \

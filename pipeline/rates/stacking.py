@@ -20,6 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from pipeline.rates.statistics import inverse_variance_mean
+
 __all__ = ["StackInput", "rebin_density", "velocity_grid", "combine"]
 
 
@@ -94,11 +96,10 @@ def combine(inputs: list[StackInput], edges: np.ndarray) -> dict[str, np.ndarray
         estimates and its error (Σ w)^-1/2, w = 1/σ_i²,
         ``weights`` (n_inputs, n_T, n_ap): normalised weights.
     """
-    w = np.array([1.0 / i.sigma_q**2 for i in inputs])                # (n_in, n_T, n_ap)
-    q = np.array([i.q for i in inputs])
-    wsum = w.sum(axis=0)
-    q_mean = (w * q).sum(axis=0) / wsum
-    sigma = 1.0 / np.sqrt(wsum)
+    q = np.array([i.q for i in inputs])                                   # (n_in, n_T, n_ap)
+    sigma_q = np.array([i.sigma_q for i in inputs])
+    q_mean, sigma = inverse_variance_mean(q, sigma_q, axis=0)
+    w = 1.0 / sigma_q**2                                                  # the same weights, for the spectra
     blank = np.full(q.shape[1:] + (edges.size - 1,), np.nan)
     rebinned = np.array([blank if i.velocity is None else rebin_density(i.velocity, i.density, edges)
                          for i in inputs])                                  # (n_in, T, ap, g); bands all NaN
@@ -107,4 +108,4 @@ def combine(inputs: list[StackInput], edges: np.ndarray) -> dict[str, np.ndarray
     den = ww.sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         dens = np.where(den > 0, num / den, np.nan)
-    return {"density": dens, "q": q_mean, "sigma_q": sigma, "weights": w / wsum}
+    return {"density": dens, "q": q_mean, "sigma_q": sigma, "weights": w / w.sum(axis=0)}

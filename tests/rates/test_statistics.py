@@ -1,4 +1,4 @@
-"""Tests of pipeline.rates.statistics against closed forms, scipy and Feldman & Cousins (1998)."""
+"""Tests of pipeline.rates.statistics against closed forms, scipy, numpy.average and Feldman & Cousins (1998)."""
 
 import math
 
@@ -17,6 +17,7 @@ from pipeline.rates.statistics import (
     feldman_cousins_acceptance_interval,
     feldman_cousins_interval,
     feldman_cousins_upper_limit,
+    inverse_variance_mean,
     nsigma_to_confidence,
 )
 
@@ -290,3 +291,38 @@ def test_errors_are_gasledger_value_errors():
 def test_incompatible_units_raise():
     with pytest.raises(u.UnitConversionError):
         bayesian_upper_limit(1.0 * QUNIT, 1.0 * u.Jy, 0.9)
+
+
+# --------------------------------------------------------------------------- #
+# combining estimates
+# --------------------------------------------------------------------------- #
+def test_inverse_variance_mean_against_numpy_average():
+    # numpy.average with weights 1/sigma^2; the error (sum w)^-1/2 by hand for two equal errors: sigma / sqrt(2)
+    rng = np.random.default_rng(7)
+    x, s = rng.normal(size=(5, 3)), rng.uniform(0.5, 2.0, size=(5, 3))
+    mean, err = inverse_variance_mean(x, s, axis=0)
+    assert_allclose(mean, np.average(x, weights=1 / s**2, axis=0), rtol=1e-13)
+    assert_allclose(err, 1 / np.sqrt(np.sum(1 / s**2, axis=0)), rtol=1e-13)
+    mean, err = inverse_variance_mean([1.0, 3.0], [2.0, 2.0])
+    assert mean == 2.0 and err == pytest.approx(2.0 / math.sqrt(2.0), rel=1e-15)
+    mean, err = inverse_variance_mean(x, s, axis=None)
+    assert_allclose(mean, np.average(x, weights=1 / s**2), rtol=1e-13)
+
+
+def test_inverse_variance_mean_keeps_the_hand_written_bits():
+    # the order of operations of the sums it replaced: same bits, not merely close
+    rng = np.random.default_rng(3)
+    q, s = rng.normal(size=(4, 2, 3)) * 1e27, rng.uniform(0.5, 2.0, size=(4, 2, 3)) * 1e26
+    w = np.array([1.0 / si**2 for si in s])
+    mean, err = inverse_variance_mean(q, s, axis=0)
+    np.testing.assert_array_equal(mean, (w * q).sum(axis=0) / w.sum(axis=0))
+    np.testing.assert_array_equal(err, 1.0 / np.sqrt(w.sum(axis=0)))
+
+
+def test_inverse_variance_mean_quantities():
+    mean, err = inverse_variance_mean([1.0, 3.0] * QUNIT, [2.0, 2.0] * QUNIT)
+    assert_quantity_allclose(mean, 2.0 * QUNIT)
+    assert_quantity_allclose(err, math.sqrt(2.0) * QUNIT)
+    mean, err = inverse_variance_mean([1.0, 3.0] * u.km, [2000.0, 2000.0] * u.m)
+    assert mean.unit == u.km and err.unit == u.km
+    assert_quantity_allclose(err, math.sqrt(2.0) * u.km)
