@@ -20,7 +20,6 @@ from astropy.time import Time
 
 from pipeline.settings import Settings, load_config
 from pipeline.errors import GasledgerError
-from pipeline.geometry.observing import observer_location
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, ephemeris_from_elements, write_ephemeris
 
