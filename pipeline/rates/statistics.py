@@ -59,22 +59,24 @@ def _check_confidence(confidence: float) -> float:
     return cl
 
 
-def _split(
-    estimate: ArrayOrQuantity, sigma: ArrayOrQuantity, name: str = "estimate"
+def _in_one_unit(
+    estimate: ArrayOrQuantity, sigma: ArrayOrQuantity
 ) -> tuple[np.ndarray, np.ndarray, u.UnitBase | None]:
-    """Return estimate and sigma as float arrays in one unit, and that unit.
+    """Return estimate and sigma as float arrays in the unit of ``estimate``, and that unit.
 
     The unit is ``None`` when neither argument is a Quantity.
     """
     if isinstance(estimate, u.Quantity) or isinstance(sigma, u.Quantity):
         est_q = u.Quantity(estimate, dtype=float)
-        unit = est_q.unit
-        x = est_q.value
-        s = u.Quantity(sigma, dtype=float).to_value(unit)
-    else:
-        unit = None
-        x = np.asarray(estimate, dtype=float)
-        s = np.asarray(sigma, dtype=float)
+        return est_q.value, u.Quantity(sigma, dtype=float).to_value(est_q.unit), est_q.unit
+    return np.asarray(estimate, dtype=float), np.asarray(sigma, dtype=float), None
+
+
+def _split(
+    estimate: ArrayOrQuantity, sigma: ArrayOrQuantity, name: str = "estimate"
+) -> tuple[np.ndarray, np.ndarray, u.UnitBase | None]:
+    """Return estimate and sigma as checked float arrays in one unit (broadcast), and that unit."""
+    x, s, unit = _in_one_unit(estimate, sigma)
     bad = ~(np.isfinite(s) & (s > 0))
     if np.any(bad):
         found = sigma if np.ndim(s) == 0 else np.asarray(s)[bad]
@@ -477,13 +479,7 @@ def inverse_variance_mean(
     .. [1] Bevington, P. R. & Robinson, D. K. 2003, Data Reduction and Error Analysis
        for the Physical Sciences, 3rd ed., eqs. (4.17)-(4.19) (from memory).
     """
-    unit = None
-    if isinstance(values, u.Quantity) or isinstance(sigmas, u.Quantity):
-        x_q = u.Quantity(values, dtype=float)
-        unit = x_q.unit
-        x, s = x_q.value, u.Quantity(sigmas, dtype=float).to_value(unit)
-    else:
-        x, s = np.asarray(values, dtype=float), np.asarray(sigmas, dtype=float)
+    x, s, unit = _in_one_unit(values, sigmas)
     w = 1.0 / s**2
     wsum = np.sum(w, axis=axis)
     mean = np.sum(w * x, axis=axis) / wsum
