@@ -21,7 +21,7 @@ import yaml
 
 from pipeline.io.atomic import write_text
 from pipeline.catalogue.entries import load_catalogue
-from pipeline.settings import Settings, append_cubes, check_inputs_exist, load_config, validate_config, write_campaign
+from pipeline.settings import append_cubes, load_settings, validate_config, write_campaign
 from pipeline.io.cubes import observation_times, read_cube_info
 from pipeline.geometry.ephemeris import read_ephemeris
 from pipeline.errors import GasledgerError
@@ -98,13 +98,8 @@ def cmd_add(args) -> int:
 
 
 def cmd_check(args) -> int:
-    config = load_config(args.config)
-    problems = []
-    try:
-        check_inputs_exist(config, source=args.config)
-    except GasledgerError as exc:
-        problems.append(str(exc))
-    settings = Settings.from_config(config)
+    settings = load_settings(args.config)
+    problems = list(settings.missing_inputs(source=args.config))
     catalogue = settings.catalogue()
     species = list(settings.species)
     for name in species:

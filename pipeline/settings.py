@@ -52,6 +52,7 @@ __all__ = [
     "sections_record",
     "schema_keys",
     "write_campaign",
+    "load_settings",
     "append_cubes",
     "assumptions_from_config",
     "assumption_sets",
@@ -240,6 +241,11 @@ def append_cubes(path: str | Path, entries: list[dict[str, Any]]) -> None:
         known.add(entry["id"])
         raw["cubes"].append(entry)
     write_campaign(raw, path)
+
+
+def load_settings(path: str | Path) -> "Settings":
+    """The typed settings of a campaign file (loaded, validated, defaults filled in)."""
+    return Settings.from_config(load_config(path))
 
 
 @functools.lru_cache(maxsize=1)
@@ -441,6 +447,16 @@ class Settings(_Guarded):
     def catalogue(self) -> "Catalogue":
         """The user's catalogue named in the settings, or the built-in one (loaded once per process)."""
         return _load_catalogue(self.catalogue_files)
+
+    def missing_inputs(self, source: str = "config") -> list[str]:
+        """One sentence for every file the settings name that does not exist (the ephemeris, cubes, catalogue)."""
+        paths = [("target.ephemeris", self.target.ephemeris)]
+        paths += [(f"cubes[{i}].path", c.path) for i, c in enumerate(self.cubes)]
+        if self.catalogue_files is not None:
+            paths += [(f"catalogue.{k}", f) for k, f in zip(("species_file", "lines_file", "bands_file"),
+                                                             self.catalogue_files)]
+        return [f"{source}: {key} names the file {path!r}, which does not exist"
+                for key, path in paths if path is not None and not Path(path).is_file()]
 
     def aperture_radii_km(self, delta: u.Quantity) -> list[float]:
         """Every aperture radius as a length at the target [km] at distance ``delta``."""

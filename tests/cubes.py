@@ -9,10 +9,14 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import astropy.units as u
 import numpy as np
 from astropy.io import fits
+from astropy.wcs import WCS
 
-__all__ = ["SHAPE", "cube_header", "write_cube", "write_subcube"]
+from pipeline.io.products import ProductMeta, SubCube
+
+__all__ = ["SHAPE", "cube_header", "write_cube", "subcube", "write_subcube"]
 
 #: Axis lengths of the default cube (numpy order: channel, y, x).
 SHAPE = (16, 12, 10)
@@ -64,23 +68,26 @@ def write_cube(path: str | Path, shape: tuple[int, int, int] = SHAPE, seed: int 
     return path
 
 
-def write_subcube(path: str | Path, data: np.ndarray, bunit: str = "Jy/beam", pixel_arcsec: float = 0.3,
-                  beam_arcsec: float = 1.0, channel_km_s: float = 0.3, line_id: str = "HCN_265886",
-                  rest_hz: float = 265.886434e9, delta_au: float = 1.0, r_h_au: float = 1.0) -> Path:
-    """Write ``data`` as a comoving-stage sub-cube: VRAD axis centred on 0 km/s, SPECSYS SOURCE, GL cards."""
-    path = Path(path)
+def subcube(data: np.ndarray, bunit: str = "Jy/beam", pixel_arcsec: float = 0.3, beam_arcsec: float = 1.0,
+            channel_km_s: float = 0.3, line_id: str = "HCN_265886", rest_hz: float = 265.886434e9,
+            delta_au: float = 1.0, r_h_au: float = 1.0) -> SubCube:
+    """``data`` as a comoving-stage sub-cube (in memory): VRAD axis centred on 0 km/s, target at the centre."""
     nchan, ny, nx = data.shape
-    h = fits.Header()
-    h["CTYPE1"], h["CRVAL1"], h["CDELT1"], h["CRPIX1"], h["CUNIT1"] = "RA---SIN", 10.0, -pixel_arcsec / 3600, \
-        nx / 2 + 0.5, "deg"
-    h["CTYPE2"], h["CRVAL2"], h["CDELT2"], h["CRPIX2"], h["CUNIT2"] = "DEC--SIN", 5.0, pixel_arcsec / 3600, \
-        ny / 2 + 0.5, "deg"
-    h["CTYPE3"], h["CUNIT3"], h["CRVAL3"], h["CDELT3"], h["CRPIX3"] = "VRAD", "km/s", \
-        -channel_km_s * (nchan // 2), channel_km_s, 1.0
-    h["SPECSYS"], h["RESTFRQ"], h["BUNIT"] = "SOURCE", rest_hz, bunit
-    h["BMAJ"] = h["BMIN"] = beam_arcsec / 3600
-    h["BPA"] = 0.0
-    h["GLXPIX"], h["GLYPIX"], h["GLDELTA"], h["GLRH"] = (nx - 1) / 2, (ny - 1) / 2, delta_au, r_h_au
-    h["GLLINE"], h["GLCUBE"], h["GLEPOCH"], h["GLCOVER"], h["GLSPRESP"] = line_id, "c1", "e1", True, "hanning"
-    fits.PrimaryHDU(np.asarray(data, dtype=np.float32), header=h).writeto(path, overwrite=True)
+    wcs = WCS(naxis=2)
+    wcs.wcs.ctype = ["RA---SIN", "DEC--SIN"]
+    wcs.wcs.crval = [10.0, 5.0]
+    wcs.wcs.cdelt = [-pixel_arcsec / 3600, pixel_arcsec / 3600]
+    wcs.wcs.crpix = [nx / 2 + 0.5, ny / 2 + 0.5]
+    wcs.wcs.cunit = ["deg", "deg"]
+    velocity = -channel_km_s * (nchan // 2) + channel_km_s * np.arange(nchan)
+    meta = ProductMeta(cube_id="c1", epoch="e1", line_id=line_id, species=line_id.split("_")[0],
+                       target_x=(nx - 1) / 2, target_y=(ny - 1) / 2, delta_au=delta_au, r_h_au=r_h_au)
+    return SubCube.build(meta, np.asarray(data, dtype=np.float32), velocity, wcs, bunit, rest_hz * u.Hz,
+                         (beam_arcsec / 3600, beam_arcsec / 3600, 0.0), name="test sub-cube")
+
+
+def write_subcube(path: str | Path, data: np.ndarray, **kwargs) -> Path:
+    """Write :func:`subcube` of ``data`` as the comoving step does (arguments as for :func:`subcube`)."""
+    path = Path(path)
+    subcube(data, **kwargs).to_fits().writeto(path, overwrite=True)
     return path

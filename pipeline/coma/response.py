@@ -19,7 +19,7 @@ from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, scale_length
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 
-__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES"]
+__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES", "GridGeometry", "line_response_on_grid"]
 
 
 @dataclass(frozen=True)
@@ -85,6 +85,73 @@ def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quan
     count = convolved_aperture_count(radii, u.Quantity(beam_fwhm, u.km), 1.0 / u.s, v, length, daughter)  # (n_r,)
     return (per_molecule[:, None] * u.Quantity(count, u.dimensionless_unscaled)[None, :] * u.s).to(
         u.Jy * u.km / u.s * u.s)
+
+
+@dataclass(frozen=True)
+class GridGeometry:
+    """The data's own pixel grid around the target: what the extraction summed over.
+
+    ``shape`` = (n_y, n_x); (``x``, ``y``) the aperture centre (0-based pixels); ``radii_pix`` the aperture
+    radii; ``beam_pix`` = (FWHM major, minor [pixels], PA [deg]) of the beam or point-spread function, or None.
+    """
+
+    shape: tuple[int, int]
+    x: float
+    y: float
+    pixel_arcsec: float
+    radii_pix: list[float]
+    beam_pix: tuple[float, float, float] | None
+
+
+def line_response_on_grid(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,
+                          r_h: u.Quantity, delta: u.Quantity, grid: GridGeometry, model: ComaModel,
+                          shortest_baseline: u.Quantity | None = None,
+                          correct_filtering: bool = True) -> tuple[u.Quantity, np.ndarray]:
+    """Line flux per unit production rate in each aperture, counted on the data's own pixel grid.
+
+    R(T, ρ) = [∫S dv per molecule](T, Δ) × N_ap, with N_ap the molecules (for Q = 1/s) that each aperture
+    counts on the model coma image convolved with the beam and summed with the extraction's exact-overlap
+    weights (:func:`pipeline.coma.image.aperture_count_on_grid`); :func:`line_response` is its closed form
+    for a circular Gaussian beam on an infinite grid, the check of this one.
+
+    Parameters
+    ----------
+    line, species, parent : catalogue entries (``parent`` for a daughter species, else None)
+    t_kin : Quantity [temperature], shape (n_T,)
+    r_h, delta : Quantity [length]
+    grid : GridGeometry
+    model : ComaModel
+    shortest_baseline : Quantity [length], optional
+        An interferometer's shortest projected baseline: the fraction of the model flux that survives
+        spatial filtering (:func:`pipeline.coma.filtering.surviving_fraction`) is returned.
+    correct_filtering : bool
+        Scale the response by that fraction.
+
+    Returns
+    -------
+    response : Quantity, shape (n_T, n_apertures), in Jy km/s s
+    surviving : ndarray, shape (n_apertures,)
+        1 without an interferometer.
+    """
+    from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
+    from pipeline.coma.image import aperture_count_on_grid
+
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
+    v_out = outflow_speed(model, r_h)
+    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
+    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
+    count = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
+                                   length, daughter)
+    resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
+    surviving = np.ones(len(grid.radii_pix))
+    if shortest_baseline is not None:
+        q_min = min_spatial_frequency(shortest_baseline, line.freq)
+        surviving = surviving_fraction(grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix),
+                                       grid.beam_pix, v_out, length, q_min, delta, daughter)
+        if correct_filtering:
+            resp = resp * surviving[None, :]
+    return resp * (u.Jy * u.km / u.s * u.s), surviving
 
 
 SPECTRAL_RESPONSES = {"none": np.array([1.0]), "hanning": np.array([0.25, 0.5, 0.25])}

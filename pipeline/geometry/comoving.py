@@ -10,30 +10,19 @@ aperture and its off-source companions.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import replace
 
 import astropy.units as u
 import numpy as np
 from astropy.coordinates import EarthLocation
-from astropy.io import fits
 from astropy.time import Time
 
 from pipeline.catalogue.entries import Line
 from pipeline.io.cubes import CubeInfo, open_data
+from pipeline.io.products import ProductMeta, SubCube
 from pipeline.geometry.frames import linear_axis, radio_velocity, to_target_frame, to_topocentric
 
-__all__ = ["SubCube", "target_frame_frequencies", "target_frame_velocities", "cut_subcube", "crop_box"]
-
-
-@dataclass
-class SubCube:
-    """A line's sub-cube, or the reason there is none."""
-
-    data: np.ndarray | None           # (n_chan, n_y, n_x) float32, or None when not covered
-    header: fits.Header
-    covered: bool
-    reason: str
-    velocity: np.ndarray | None = None   # exact radio velocity of each channel [km/s]
+__all__ = ["target_frame_frequencies", "target_frame_velocities", "cut_subcube", "crop_box"]
 
 
 def target_frame_frequencies(info: CubeInfo, geometry, location: EarthLocation | None) -> u.Quantity:
@@ -70,7 +59,7 @@ def crop_box(shape: tuple[int, int], x: float, y: float, half_size: float) -> tu
 
 def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
                 window: u.Quantity, crop_half_size: float,
-                location: EarthLocation | None) -> SubCube:
+                location: EarthLocation | None, spectral_response: str = "hanning") -> SubCube:
     """Cut the sub-cube of ``line`` from the cube.
 
     Parameters
@@ -86,49 +75,39 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
         Half-size of the sky box in pixels.
     location : EarthLocation or None
         Observatory (None = geocentre).
+    spectral_response : str
+        The spectrometer's channel response ('hanning' or 'none'), carried to the extraction and the response.
+
+    Returns
+    -------
+    SubCube
+        Not covered (with the reason) when the integration window is not fully inside the band.
     """
+    cube_id, epoch = geometry["cube_id"], geometry["epoch"]
     vel = target_frame_velocities(info, geometry, line, location).to_value(u.km / u.s)
     hw, win = half_width.to_value(u.km / u.s), window.to_value(u.km / u.s)
     step = abs(vel[1] - vel[0])
-    header = fits.Header()
-    header["GLLINE"] = (line.line_id, "catalogue line id")
-    header["GLSPEC"] = (line.species, "species")
-    header["RESTFRQ"] = (line.freq.to_value(u.Hz), "[Hz] line rest frequency")
+    meta = ProductMeta(cube_id=str(cube_id), epoch=str(epoch), line_id=line.line_id, species=line.species,
+                       spectral_response=spectral_response)
     lo, hi = vel.min(), vel.max()
     if not (lo - 0.5 * step <= -win and hi + 0.5 * step >= win):
         reason = (f"the integration window +-{win:.2f} km/s of line {line.line_id} is not fully inside "
                   f"the band (which spans {lo:+.1f} to {hi:+.1f} km/s around the line)")
-        header["GLCOVER"] = (False, "integration window covered by the band")
-        header["GLREASON"] = reason
-        return SubCube(data=None, header=header, covered=False, reason=reason)
+        return SubCube(meta=replace(meta, covered=False, reason=reason))
     keep = np.flatnonzero(np.abs(vel) <= hw)
     c0, c1 = int(keep.min()), int(keep.max()) + 1
     ys, xs = crop_box(info.shape[1:], float(geometry["x_pix"]), float(geometry["y_pix"]), crop_half_size)
     with open_data(info.path) as data:
         sub = np.array(data[c0:c1, ys, xs], dtype=np.float32)
-    v0, dv, deviation = linear_axis(vel[c0:c1])
-    wcs2 = info.celestial_wcs[ys, xs]
-    header.update(wcs2.to_header())
-    header["WCSAXES"] = 3
-    header["CTYPE3"] = "VRAD"
-    header["CUNIT3"] = "km/s"
-    header["CRPIX3"] = 1.0
-    header["CRVAL3"] = v0
-    header["CDELT3"] = dv
-    header["SPECSYS"] = ("SOURCE", "velocity in the target's rest frame")
-    header["VELREF"] = 259  # radio convention, SOURCE frame (AIPS convention code)
-    header["BUNIT"] = info.header["BUNIT"]
-    for card in ("BMAJ", "BMIN", "BPA"):
-        if card in info.header:
-            header[card] = info.header[card]
-    header["GLCOVER"] = (True, "integration window covered by the band")
-    header["GLVLIN"] = (deviation < 1e-3, "linear WCS exact (else see the VELOCITY table)")
-    header["GLCHAN0"] = (c0, "first channel taken from the cube (0-based)")
-    header["GLXPIX"] = (float(geometry["x_pix"]) - xs.start, "target x pixel (0-based) in this sub-cube")
-    header["GLYPIX"] = (float(geometry["y_pix"]) - ys.start, "target y pixel (0-based) in this sub-cube")
-    header["GLDELTA"] = (u.Quantity(geometry["delta"]).to_value(u.au), "[au] observer-target distance")
-    header["GLRH"] = (u.Quantity(geometry["r_h"]).to_value(u.au), "[au] heliocentric distance")
-    header["GLDDOT"] = (u.Quantity(geometry["delta_dot"]).to_value(u.km / u.s), "[km/s] topocentric range rate")
-    header["GLFREQ0"] = (info.frequencies[c0].to_value(u.Hz), "[Hz] labelled frequency of the first channel")
-    header["GLDFREQ"] = ((info.frequencies[1] - info.frequencies[0]).to_value(u.Hz), "[Hz] labelled channel step")
-    return SubCube(data=sub, header=header, covered=True, reason="", velocity=vel[c0:c1])
+    _, _, deviation = linear_axis(vel[c0:c1])
+    meta = replace(meta, covered=True, linear=bool(deviation < 1e-3), first_channel=c0,
+                   target_x=float(geometry["x_pix"]) - xs.start, target_y=float(geometry["y_pix"]) - ys.start,
+                   delta_au=float(u.Quantity(geometry["delta"]).to_value(u.au)),
+                   r_h_au=float(u.Quantity(geometry["r_h"]).to_value(u.au)),
+                   delta_dot_km_s=float(u.Quantity(geometry["delta_dot"]).to_value(u.km / u.s)),
+                   freq0_hz=float(info.frequencies[c0].to_value(u.Hz)),
+                   dfreq_hz=float((info.frequencies[1] - info.frequencies[0]).to_value(u.Hz)))
+    h = info.header
+    beam = (float(h["BMAJ"]), float(h["BMIN"]), float(h.get("BPA", 0.0))) if "BMAJ" in h and "BMIN" in h else None
+    return SubCube.build(meta, sub, vel[c0:c1], info.celestial_wcs[ys, xs], info.header["BUNIT"], line.freq, beam,
+                         name=f"{info.path} ({line.line_id})")

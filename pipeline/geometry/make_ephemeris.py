@@ -18,7 +18,7 @@ import sys
 import astropy.units as u
 from astropy.time import Time
 
-from pipeline.settings import Settings, load_config
+from pipeline.settings import load_settings
 from pipeline.errors import GasledgerError
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, ephemeris_from_elements, write_ephemeris
@@ -41,7 +41,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         location = None
         if args.config:
-            settings = Settings.from_config(load_config(args.config))
+            settings = load_settings(args.config)
             if settings.target.elements is None:
                 print(f"gasledger: {args.config}: target has no 'elements'", file=sys.stderr)
                 return 2

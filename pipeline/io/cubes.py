@@ -33,6 +33,7 @@ from astropy.wcs.utils import proj_plane_pixel_scales
 from pipeline.errors import CubeError, GasledgerError
 
 __all__ = [
+    "cube_info_from_header",
     "CubeInfo",
     "read_cube_info",
     "open_data",
@@ -283,6 +284,18 @@ def read_cube_info(path: str | Path) -> CubeInfo:
             for card in _INHERITED:
                 if card in hdul[0].header and card not in header:
                     header[card] = hdul[0].header[card]
+    return cube_info_from_header(header, path, index, err_index)
+
+
+def cube_info_from_header(header: fits.Header, path: str | Path, hdu: int = 0,
+                          error_hdu: int | None = None) -> CubeInfo:
+    """Check a cube's header (as :func:`read_cube_info` does) and describe the cube; no file is read.
+
+    ``path`` names the cube in messages (a file, or a label for a cube held in memory); ``hdu`` and
+    ``error_hdu`` are where its data and ERR extension sit in that file.
+    """
+    path = Path(path)
+    index, err_index = hdu, error_hdu
     naxis = header.get("NAXIS", 0)
     dims = [header.get(f"NAXIS{i}", 1) for i in range(1, naxis + 1)]
     if naxis < 3 or sum(d > 1 for d in dims) < 3:

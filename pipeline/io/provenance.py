@@ -15,6 +15,8 @@ from typing import TYPE_CHECKING, Any, Iterable
 
 from astropy.io import fits
 
+from pipeline.io import cards
+
 if TYPE_CHECKING:
     from pipeline.settings import Settings
 
@@ -127,11 +129,11 @@ def provenance_record(settings: "Settings | None", inputs: Iterable[str | Path],
 
 def add_to_header(header: fits.Header, record: dict[str, Any]) -> None:
     """Store a provenance record in a FITS header (long-string card GLPROV)."""
-    header["GLVERS"] = (record["version"], "gasledger version")
-    header["GLSTAGE"] = (record["stage"], "gasledger stage that wrote this file")
-    header["GLPROV"] = json.dumps(record, sort_keys=True, separators=(",", ":"), default=str)
+    cards.put(header, "version", record["version"])
+    cards.put(header, "stage", record["stage"])
+    cards.put(header, "provenance", json.dumps(record, sort_keys=True, separators=(",", ":"), default=str))
 
 
 def from_header(header: fits.Header) -> dict[str, Any]:
     """Read back a provenance record written by :func:`add_to_header`."""
-    return json.loads(header["GLPROV"])
+    return json.loads(cards.get(header, "provenance", where="provenance"))

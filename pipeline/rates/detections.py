@@ -11,7 +11,6 @@ import warnings
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
 from astropy.table import QTable, Table
 
 from pipeline.catalogue import Catalogue
@@ -19,7 +18,7 @@ from pipeline.coma.excitation import line_optical_depth
 from pipeline.coma.haser import parent_aperture_count, scale_length
 from pipeline.coma.line_profile import thermal_dispersion
 from pipeline.errors import OpacityWarning
-from pipeline.io.cubes import linear_axis
+from pipeline.io.products import SpeciesStack
 from pipeline.rates.line_fit import fit_line
 
 __all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns"]
@@ -36,7 +35,7 @@ def add_fit_columns(table: QTable) -> None:
     table["v_offset_err"] = np.full(n, np.nan) * u.km / u.s
 
 
-def fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table, t_grid: np.ndarray,
+def fit_detections(table: QTable, group: str, stack: SpeciesStack, inputs: Table, t_grid: np.ndarray,
                     mass) -> None:
     """Fill q_fit, q_fit_err, v_offset, v_offset_err for the detected rows of one epoch group."""
     members = inputs[(inputs["epoch"] == group)] if group != "all" else inputs
@@ -44,8 +43,8 @@ def fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table,
         members = members[members["kind"] == "line"]
     if len(members) == 0:
         return
-    hdu = hdul[f"STACK_{group}"]
-    vel = linear_axis(hdu.header, 1, hdu.data.shape[-1])
+    spectrum = stack.spectra[group]
+    vel = spectrum.velocity
     v_out = float(np.mean(members["outflow"]))
     window = float(np.max(members["window"]))
     responses = set(members["spectral_response"]) if "spectral_response" in members.colnames else {"hanning"}
@@ -57,7 +56,7 @@ def fit_detections(table: QTable, group: str, hdul: fits.HDUList, inputs: Table,
         it = int(np.argmin(np.abs(t_grid - row["t_kin_K"])))
         ja = int(np.argmin(np.abs(aps - row["aperture_km"].to_value(u.km))))
         sig_th = thermal_dispersion(row["t_kin_K"] * u.K, mass).to_value(u.km / u.s)
-        fit = fit_line(vel, hdu.data[it, ja], v_out, sig_th, window, response, q_guess=row["q"].to_value(1 / u.s))
+        fit = fit_line(vel, spectrum.density[it, ja], v_out, sig_th, window, response, q_guess=row["q"].to_value(1 / u.s))
         table["q_fit"][k] = fit.q / u.s
         table["q_fit_err"][k] = fit.q_err / u.s
         table["v_offset"][k] = fit.v_offset * u.km / u.s

@@ -16,13 +16,12 @@ from dataclasses import dataclass
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
 
 from pipeline.spectra.apertures import flux_conversion, offsource_positions, radius_in_pixels
 from pipeline.catalogue.entries import Line, Species
 from pipeline.coma.image import model_line_cube
-from pipeline.io.cubes import open_data, read_cube_info
-from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra, subcube_velocities
+from pipeline.io.products import LineSpectra, SubCube
+from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from pipeline.coma.response import ComaModel
 
 __all__ = ["Placement", "placements", "inject_spectra"]
@@ -53,13 +52,12 @@ def _free_velocities(vel: np.ndarray, avoid: np.ndarray, window: float, n: int =
     return out
 
 
-def placements(subcube_path, settings: ExtractionSettings, n_ring: int = 4,
+def placements(sub: SubCube, settings: ExtractionSettings, n_ring: int = 4,
                n_velocity: int = 2) -> list[Placement]:
     """The injection placements of a sub-cube: nucleus plus up to ``n_ring`` ring positions, times velocities."""
-    info = read_cube_info(subcube_path)
-    h = info.header
-    x, y = float(h["GLXPIX"]), float(h["GLYPIX"])
-    delta = float(h["GLDELTA"]) * u.au
+    info = sub.info()
+    x, y = sub.meta.target_x, sub.meta.target_y
+    delta = sub.meta.delta
     r_max = max(radius_in_pixels(r, delta, info.pixel_scale) for r in settings.radii)
     beam_pix = float((np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose()) \
         if info.beam_major is not None else 1.0
@@ -67,19 +65,18 @@ def placements(subcube_path, settings: ExtractionSettings, n_ring: int = 4,
     ring = offsource_positions(info.shape[1:], x, y, r_max, 1.2 * r_max + beam_pix)
     step = max(1, len(ring) // n_ring) if ring else 1
     sky = [(x, y)] + ring[::step][:n_ring]
-    vel = subcube_velocities(h, subcube_path)
+    vel = sub.velocity
     avoid = np.concatenate([[0.0], settings.other_lines.to_value(u.km / u.s)])
     vels = _free_velocities(vel, avoid, settings.window.to_value(u.km / u.s), n_velocity)
     return [Placement(i, px, py, v) for i, (px, py) in enumerate(sky) for v in vels]
 
 
-def inject_spectra(subcube_path, settings: ExtractionSettings, line: Line, species: Species, q: float,
+def inject_spectra(sub: SubCube, settings: ExtractionSettings, line: Line, species: Species, q: float,
                    t_kin: u.Quantity, model: ComaModel, where: list[Placement],
-                   parent: Species | None = None) -> list[fits.HDUList]:
-    """Spectra files (as :func:`extract_spectra` makes them) of the sub-cube with a coma of ``q`` injected."""
-    info = read_cube_info(subcube_path)
-    h = info.header
-    vel = subcube_velocities(h, subcube_path)
+                   parent: Species | None = None) -> list[LineSpectra]:
+    """Aperture spectra (as :func:`extract_spectra` makes them) of the sub-cube with a coma of ``q`` injected."""
+    info = sub.info()
+    vel = sub.velocity
     pix = info.pixel_scale.to_value(u.arcsec)
     beam = (info.beam_major.to_value(u.arcsec), info.beam_minor.to_value(u.arcsec), info.beam_pa.to_value(u.deg))
     # the model is in Jy/beam: Jy per pixel = Jy/beam x pixel/beam area; the cube unit per pixel from flux_conversion
@@ -87,16 +84,13 @@ def inject_spectra(subcube_path, settings: ExtractionSettings, line: Line, speci
     per_pixel = (info.pixel_solid_angle() / beam_area).decompose().value
     to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(), beam_area, info.frequencies)
     out = []
-    with open_data(subcube_path) as data:
-        real = np.asarray(data, dtype=np.float64)
+    real = np.asarray(sub.data, dtype=np.float64)
     for p in where:
         cube = model_line_cube(info.shape[1:], p.x, p.y, pix, vel, line, species, q, t_kin,
-                               float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au, beam, model,
-                               v_centre=p.v_centre, spectral_response=h.get("GLSPRESP", "hanning"), parent=parent)
+                               sub.meta.r_h, sub.meta.delta, beam, model,
+                               v_centre=p.v_centre, spectral_response=sub.meta.spectral_response, parent=parent)
         cube = cube * to_cube_unit[:, None, None]
-        hdul = extract_spectra(subcube_path, settings, data=real + cube, centre=(p.x, p.y), v_centre=p.v_centre,
-                               offsource=False)
-        hdul[0].header["GLINJQ"] = (q, "[1/s] injected production rate")
-        hdul[0].header["GLINJI"] = (p.index, "injection sky position (0 = nucleus)")
-        out.append(hdul)
+        spectra = extract_spectra(sub, settings, data=real + cube, centre=(p.x, p.y), v_centre=p.v_centre,
+                                  offsource=False)
+        out.append(spectra.injected(q, p.index))
     return out

@@ -10,33 +10,28 @@ from __future__ import annotations
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
-from astropy.table import Table
 
 from pipeline.catalogue import Catalogue
-from pipeline.coma.excitation import flux_per_molecule
-from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
-from pipeline.coma.image import aperture_count_on_grid
-from pipeline.coma.response import ComaModel, line_response, outflow_speed, scale_lengths, window_capture
+from pipeline.coma.response import ComaModel, GridGeometry, line_response_on_grid, outflow_speed, window_capture
+from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.rates.stacking import StackInput
 
 __all__ = ["stack_input", "band_inputs"]
 
 
-def stack_input(spectra: fits.HDUList, catalogue: Catalogue, t_kin: u.Quantity, model: ComaModel,
+def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, model: ComaModel,
                 shortest_baseline: u.Quantity | None = None,
                 correct_filtering: bool = True) -> tuple[StackInput, list[dict]]:
     """Rescale one line's aperture spectra to Q units; also return its rows for the stack's INPUTS table.
 
-    Each spectrum is divided by the model response (flux per unit Q on the data's own pixel grid,
-    :func:`pipeline.coma.image.aperture_count_on_grid`, times the flux per molecule of
-    :func:`pipeline.coma.excitation.flux_per_molecule`) and by the fraction of the line that the
-    weighted window sum captures (:func:`pipeline.coma.response.window_capture`).
+    Each spectrum is divided by the model response, the line flux per unit Q in each aperture on the
+    data's own pixel grid (:func:`pipeline.coma.response.line_response_on_grid`), and by the fraction of
+    the line that the weighted window sum captures (:func:`pipeline.coma.response.window_capture`).
 
     Parameters
     ----------
-    spectra : HDUList
-        A spectra file of the extract step (primary = flux per aperture and channel, APERTURES, CHANNELS).
+    spectra : LineSpectra
+        A covered line's aperture spectra (the extract step's product).
     catalogue : Catalogue
     t_kin : Quantity [temperature], shape (n_T,)
         The kinetic temperatures of the sweep.
@@ -48,71 +43,56 @@ def stack_input(spectra: fits.HDUList, catalogue: Catalogue, t_kin: u.Quantity, 
     correct_filtering : bool
         Scale the response by that surviving fraction.
     """
-    h = spectra[0].header
-    line = catalogue.get_line(h["GLLINE"])
+    meta = spectra.meta
+    line = catalogue.get_line(meta.line_id)
     species = catalogue.get_species(line.species)
     parent = catalogue.get_species(species.parent) if species.parent else None
-    aps = Table.read(spectra["APERTURES"])
-    chans = Table.read(spectra["CHANNELS"])
-    vel = np.asarray(chans["velocity"], dtype=float)
+    aps = spectra.apertures
+    vel = spectra.velocity
     dv = float(np.abs(np.median(np.diff(vel))))
-    wts = np.asarray(chans["window_weight"], dtype=float)
-    r_h, delta = float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au
-    beam = (np.sqrt(h["BMAJ"] * h["BMIN"]) * u.deg).to_value(u.rad) * delta.to(u.km) if "BMAJ" in h else 0 * u.km
+    wts = np.asarray(spectra.channels["window_weight"], dtype=float)
+    r_h, delta = meta.r_h, meta.delta
     t_kin = u.Quantity(t_kin, u.K)
     v_out = outflow_speed(model, r_h)
     radii = np.asarray(aps["radius_km"], dtype=float) * u.km
-    surviving = np.ones(len(aps))
-    if "GLPIXSC" in h:  # the model coma summed on the data's own pixel grid with the extraction's weights
-        pix_km = (h["GLPIXSC"] * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
-        beam_pix = ((h["BMAJ"] * 3600 / h["GLPIXSC"], h["BMIN"] * 3600 / h["GLPIXSC"], h.get("BPA", 0.0))
-                    if "BMAJ" in h else None)
-        length, daughter = scale_lengths(species, parent, model, r_h, v_out)
-        count = aperture_count_on_grid((h["GLNY"], h["GLNX"]), h["GLAPX"], h["GLAPY"],
-                                       list(np.asarray(aps["radius_pix"], dtype=float)), pix_km, beam_pix, v_out,
-                                       length, daughter)
-        resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
-        method = "grid"
-        if shortest_baseline is not None:
-            q_min = min_spatial_frequency(shortest_baseline, line.freq)
-            surviving = surviving_fraction((h["GLNY"], h["GLNX"]), h["GLAPX"], h["GLAPY"], h["GLPIXSC"],
-                                           list(np.asarray(aps["radius_pix"], dtype=float)), beam_pix, v_out,
-                                           length, q_min, delta, daughter)
-            if correct_filtering:
-                resp = resp * surviving[None, :]
-    else:
-        resp = line_response(line, species, t_kin, radii, r_h, delta, beam, model, parent).to_value(u.Jy * u.km)
-        method = "analytic"
-    frac = window_capture(species, t_kin, vel - float(h.get("GLVCEN", 0.0)), wts, v_out,
-                          h.get("GLSPRESP", "hanning"))                                         # (T,)
+    pixel = spectra.pixel_scale_arcsec
+    beam_pix = ((spectra.beam_deg[0] * 3600 / pixel, spectra.beam_deg[1] * 3600 / pixel, spectra.beam_deg[2])
+                if spectra.beam_deg is not None else None)
+    grid = GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1], pixel_arcsec=pixel,
+                        radii_pix=list(np.asarray(aps["radius_pix"], dtype=float)), beam_pix=beam_pix)
+    resp, surviving = line_response_on_grid(line, species, parent, t_kin, r_h, delta, grid, model,
+                                            shortest_baseline, correct_filtering)
+    resp = resp.to_value(u.Jy * u.km / u.s * u.s)
+    frac = window_capture(species, t_kin, vel - float(spectra.v_centre), wts, v_out,
+                          meta.spectral_response)                                               # (T,)
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
-    flux = np.asarray(spectra[0].data, dtype=float)                                                # (ap, chan)
+    flux = np.asarray(spectra.flux, dtype=float)                                                  # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
     # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
     window_sum = np.sum(np.where(wts[None, :] > 0, flux, 0.0) * wts[None, :], axis=1) * dv          # (ap,)
     q = window_sum[None, :] / scale
     sigma = np.asarray(aps["sigma_window"], dtype=float)[None, :] / scale
-    inp = StackInput(epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=line.line_id, velocity=vel,
+    inp = StackInput(epoch=meta.epoch, cube_id=meta.cube_id, line_id=line.line_id, velocity=vel,
                      density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km))
     rows = []
     for i, t in enumerate(t_kin.to_value(u.K)):
         for j, r in enumerate(radii.to_value(u.km)):
             rows.append({"epoch": inp.epoch, "cube_id": inp.cube_id, "line_id": inp.line_id, "t_kin": t,
                          "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
-                         "window": float(h["GLWIN"]), "q": q[i, j], "sigma_q": sigma[i, j],
+                         "window": float(spectra.window), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
-                         "spectral_response": h.get("GLSPRESP", "hanning"), "response_model": method,
+                         "spectral_response": meta.spectral_response, "response_model": "grid",
                          "surviving_fraction": float(surviving[j]), "kind": "line"})
     return inp, rows
 
 
-def band_inputs(bands: fits.HDUList, species: str, t_kin: u.Quantity) -> tuple[list[StackInput], list[dict], list[str]]:
+def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tuple[list[StackInput], list[dict], list[str]]:
     """The covered bands of ``species`` in one bands file as stack inputs (Q the same at every T_kin).
 
     Returns the inputs, their rows for the INPUTS table and the bands left out (not covered) as 'cube:band'.
     """
-    h = bands[0].header
-    table = Table.read(bands["BANDS"])
+    table = bands.bands
+    cube_id, epoch = bands.cube_id, bands.epoch
     t_kin = u.Quantity(t_kin, u.K).to_value(u.K)
     inputs, rows, skipped = [], [], []
     if "species" not in table.colnames:
@@ -122,16 +102,16 @@ def band_inputs(bands: fits.HDUList, species: str, t_kin: u.Quantity) -> tuple[l
         sel = table[table["band_id"] == band_id]
         sel = sel[np.argsort(np.asarray(sel["aperture_index"]))]
         if not all(bool(c) for c in sel["covered"]):
-            skipped.append(f"{h['GLCUBE']}:{band_id}")
+            skipped.append(f"{cube_id}:{band_id}")
             continue
         q = np.tile(np.asarray(sel["q"], dtype=float), (t_kin.size, 1))
         sq = np.tile(np.asarray(sel["sigma_q"], dtype=float), (t_kin.size, 1))
         radii = np.asarray(sel["aperture_km"], dtype=float)
-        inputs.append(StackInput(epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=band_id, velocity=None,
+        inputs.append(StackInput(epoch=epoch, cube_id=cube_id, line_id=band_id, velocity=None,
                                  density=None, q=q, sigma_q=sq, radius_km=radii))
         for t in t_kin:
             for r in sel:
-                rows.append({"epoch": h["GLEPOCH"], "cube_id": h["GLCUBE"], "line_id": band_id, "t_kin": t,
+                rows.append({"epoch": epoch, "cube_id": cube_id, "line_id": band_id, "t_kin": t,
                              "aperture_km": float(r["aperture_km"]), "response": float(r["response"]),
                              "window_fraction": float(r["capture"]), "window": np.nan, "q": float(r["q"]),
                              "sigma_q": float(r["sigma_q"]), "r_h": float(r["r_h"]), "delta": float(r["delta"]),

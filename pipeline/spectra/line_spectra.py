@@ -20,11 +20,12 @@ from astropy.table import Table
 
 from pipeline.spectra.apertures import (aperture_spectra, aperture_weights, flux_conversion, offsource_positions,
                         radius_in_pixels)
-from pipeline.io.cubes import CubeInfo, open_data, read_cube_info
+from pipeline.io.cubes import CubeInfo
+from pipeline.io.products import LineSpectra, SubCube
 from pipeline.errors import CoverageError
 from pipeline.spectra.noise import channel_sigma, fit_baseline, line_free_mask, window_sum_noise, window_weights
 
-__all__ = ["ExtractionSettings", "extraction_settings", "other_line_velocities", "subcube_velocities", "extract_spectra"]
+__all__ = ["ExtractionSettings", "extraction_settings", "other_line_velocities", "extract_spectra"]
 
 log = logging.getLogger(__name__)
 
@@ -38,18 +39,6 @@ class ExtractionSettings:
     other_lines: u.Quantity          # velocities of other catalogue lines on this axis (speed)
     baseline_order: int = 1
     exclude_margin_channels: int = 3
-
-
-def subcube_velocities(header: fits.Header, path=None) -> np.ndarray:
-    """Velocity [km/s] of each channel of a sub-cube: its VELOCITY table when the file has one, else the
-    linear VRAD axis of ``header``."""
-    if path is not None:
-        with fits.open(path) as hdul:
-            if "VELOCITY" in hdul:
-                return np.asarray(Table.read(hdul["VELOCITY"])["velocity"].to(u.km / u.s).value, dtype=float)
-    n = header["NAXIS3"]
-    v = header["CRVAL3"] + (np.arange(n) + 1 - header["CRPIX3"]) * header["CDELT3"]
-    return (v * u.Unit(header.get("CUNIT3", "km/s"))).to_value(u.km / u.s)
 
 
 def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor) -> tuple[float, int]:
@@ -94,20 +83,30 @@ def extraction_settings(line, catalogue, radii: list[u.Quantity], window: u.Quan
                               other_lines=other_line_velocities(catalogue, line, half_width + 5 * u.km / u.s))
 
 
-def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray | None = None,
+def extract_spectra(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None = None,
                     centre: tuple[float, float] | None = None, v_centre: float = 0.0,
-                    offsource: bool = True) -> fits.HDUList:
-    """Aperture spectra and noise of one sub-cube, as a FITS HDU list.
+                    offsource: bool = True) -> LineSpectra:
+    """Aperture spectra and noise of one (covered) sub-cube.
 
-    By default the apertures sit on the target (GLXPIX, GLYPIX) and the window
-    on the line (0 km/s). Injection-recovery passes the sub-cube with a model
-    added (``data``), another sky position (``centre``, 0-based pixels) and a
-    window centre ``v_centre`` [km/s]; the real line's channels then stay out
-    of the noise estimate too.
+    By default the apertures sit on the target (the sub-cube's target pixel) and
+    the window on the line (0 km/s). Injection-recovery passes the sub-cube's
+    data with a model added (``data``), another sky position (``centre``, 0-based
+    pixels) and a window centre ``v_centre`` [km/s]; the real line's channels
+    then stay out of the noise estimate too.
 
-    HDUs: primary (n_apertures, n_chan) flux density [Jy] with a VRAD axis;
-    ``BLANK`` (blank pixels per aperture and channel); ``APERTURES`` (radii
-    and noise figures); ``CHANNELS`` (velocity, line-free flag, window weight).
+    Parameters
+    ----------
+    sub : SubCube
+        Its data, exact velocities, celestial WCS, BUNIT and beam; nothing is read from a file here.
+    settings : ExtractionSettings
+        Apertures, window and the other lines' positions.
+
+    Returns
+    -------
+    LineSpectra
+        Flux density [Jy] per aperture and channel with a baseline removed, blank-pixel counts, the noise
+        figures of each aperture (channel sigma, empirical window-sum sigma and its naive sqrt(N) form,
+        off-source sigma) and the channels' line-free flags and window weights.
 
     Raises
     ------
@@ -115,12 +114,19 @@ def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray
         When an aperture does not fit in the sub-cube, or too few line-free
         channels remain for the noise.
     """
-    info = read_cube_info(subcube_path)
-    header = info.header
-    vel = subcube_velocities(header, subcube_path)
+    with sub.in_use():
+        return _extract(sub, settings, data, centre, v_centre, offsource)
+
+
+def _extract(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None,
+             centre: tuple[float, float] | None, v_centre: float, offsource: bool) -> LineSpectra:
+    info = sub.info()
+    meta = sub.meta
+    where = sub.name
+    vel = np.asarray(sub.velocity, dtype=float)
     dv = float(np.abs(np.median(np.diff(vel))))
-    x, y = (float(header["GLXPIX"]), float(header["GLYPIX"])) if centre is None else centre
-    delta = float(header["GLDELTA"]) * u.au
+    x, y = (meta.target_x, meta.target_y) if centre is None else centre
+    delta = meta.delta
     win = settings.window.to_value(u.km / u.s)
     wweights = window_weights(vel, win, centre=v_centre)
     exclude = win + settings.exclude_margin_channels * dv
@@ -129,61 +135,43 @@ def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray
                              info.beam_solid_angle() if info.beam_major is not None else None,
                              info.frequencies)
     radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in settings.radii]
-    aps = [aperture_weights(info.shape[1:], x, y, rp, what=f"{subcube_path}: aperture {r}")
+    aps = [aperture_weights(info.shape[1:], x, y, rp, what=f"{where}: aperture {r}")
            for r, rp in zip(settings.radii, radii_pix)]
     beam_pix = (np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose().value \
         if info.beam_major is not None else 1.0
     rows = []
-    with open_data(subcube_path) as stored:
-        if data is None:
-            data = stored
-        sums, n_blank = aperture_spectra(data, aps)
-        flux = sums * factor
-        valid_all = np.all(n_blank == 0, axis=0)
-        free = line_free_mask(vel, np.concatenate([[0.0, v_centre], others]), exclude, valid=valid_all)
-        if free.sum() < 10:
-            msg = (f"{subcube_path}: only {int(free.sum())} line-free channels remain outside +-{exclude:.2f} "
-                   "km/s of the catalogue lines; expected at least 10 (widen comoving.half_width_km_s)")
-            raise CoverageError(msg)
-        for i, (r, rp) in enumerate(zip(settings.radii, radii_pix)):
-            base = fit_baseline(vel, flux[i], free, settings.baseline_order)
-            flux[i] = flux[i] - base
-            sig = channel_sigma(flux[i], free)
-            wn = window_sum_noise(flux[i], free, wweights)
-            s_off, n_off = (_noise_offsource(data, info, x, y, rp, beam_pix, free, factor) if offsource
-                            else (float("nan"), 0))
-            rk = u.Quantity(r)
-            rows.append({
-                "radius_km": (rk if rk.unit.physical_type == "length"
-                              else (rk.to_value(u.rad) * delta)).to_value(u.km),
-                "radius_arcsec": (rp * info.pixel_scale).to_value(u.arcsec),
-                "radius_pix": rp, "area_pix": aps[i].area,
-                "sigma_chan": sig, "sigma_window": wn.sigma * dv, "sigma_window_naive": wn.sigma_naive * dv,
-                "n_windows": wn.n_windows, "n_independent": wn.n_independent,
-                "sigma_chan_offsource": s_off, "n_offsource": n_off,
-                "n_blank_chan": int(np.sum(n_blank[i] > 0)),
-            })
-            log.info("aperture %.0f km: sigma_chan %.3g Jy, window sigma %.3g Jy km/s (naive %.3g), "
-                     "%d independent windows, off-source sigma %.3g Jy (%d apertures), %d blank channels",
-                     rows[-1]["radius_km"], sig, wn.sigma * dv, wn.sigma_naive * dv, wn.n_independent,
-                     s_off, n_off, rows[-1]["n_blank_chan"])
-    prim = fits.PrimaryHDU(flux.astype(np.float64))
-    h = prim.header
-    h["CTYPE1"], h["CUNIT1"], h["CRPIX1"] = "VRAD", "km/s", 1.0
-    h["CRVAL1"], h["CDELT1"] = float(vel[0]), float(vel[1] - vel[0])
-    h["CTYPE2"], h["CRPIX2"], h["CRVAL2"], h["CDELT2"] = "APERTURE", 1.0, 0.0, 1.0
-    h["SPECSYS"], h["BUNIT"] = "SOURCE", "Jy"
-    for key in ("RESTFRQ", "BMAJ", "BMIN", "BPA"):
-        if key in header:
-            h[key] = header[key]
-    for key, val in header.items():
-        if key.startswith("GL"):
-            h[key] = val
-    h["GLWIN"] = (win, "[km/s] integration window half-width")
-    h["GLVCEN"] = (v_centre, "[km/s] integration window centre")
-    h["GLAPX"], h["GLAPY"] = (x, "aperture centre x (0-based pixel)"), (y, "aperture centre y (0-based pixel)")
-    h["GLPIXSC"] = (info.pixel_scale.to_value(u.arcsec), "[arcsec] pixel scale of the sub-cube")
-    h["GLNX"], h["GLNY"] = (info.shape[2], "sub-cube width [pixels]"), (info.shape[1], "sub-cube height [pixels]")
+    if data is None:
+        data = sub.data
+    sums, n_blank = aperture_spectra(data, aps)
+    flux = sums * factor
+    valid_all = np.all(n_blank == 0, axis=0)
+    free = line_free_mask(vel, np.concatenate([[0.0, v_centre], others]), exclude, valid=valid_all)
+    if free.sum() < 10:
+        msg = (f"{where}: only {int(free.sum())} line-free channels remain outside +-{exclude:.2f} "
+               "km/s of the catalogue lines; expected at least 10 (widen comoving.half_width_km_s)")
+        raise CoverageError(msg)
+    for i, (r, rp) in enumerate(zip(settings.radii, radii_pix)):
+        base = fit_baseline(vel, flux[i], free, settings.baseline_order)
+        flux[i] = flux[i] - base
+        sig = channel_sigma(flux[i], free)
+        wn = window_sum_noise(flux[i], free, wweights)
+        s_off, n_off = (_noise_offsource(data, info, x, y, rp, beam_pix, free, factor) if offsource
+                        else (float("nan"), 0))
+        rk = u.Quantity(r)
+        rows.append({
+            "radius_km": (rk if rk.unit.physical_type == "length"
+                          else (rk.to_value(u.rad) * delta)).to_value(u.km),
+            "radius_arcsec": (rp * info.pixel_scale).to_value(u.arcsec),
+            "radius_pix": rp, "area_pix": aps[i].area,
+            "sigma_chan": sig, "sigma_window": wn.sigma * dv, "sigma_window_naive": wn.sigma_naive * dv,
+            "n_windows": wn.n_windows, "n_independent": wn.n_independent,
+            "sigma_chan_offsource": s_off, "n_offsource": n_off,
+            "n_blank_chan": int(np.sum(n_blank[i] > 0)),
+        })
+        log.info("aperture %.0f km: sigma_chan %.3g Jy, window sigma %.3g Jy km/s (naive %.3g), "
+                 "%d independent windows, off-source sigma %.3g Jy (%d apertures), %d blank channels",
+                 rows[-1]["radius_km"], sig, wn.sigma * dv, wn.sigma_naive * dv, wn.n_independent,
+                 s_off, n_off, rows[-1]["n_blank_chan"])
     units = {"radius_km": "km", "radius_arcsec": "arcsec", "radius_pix": "pix", "area_pix": "pix",
              "sigma_chan": "Jy", "sigma_window": "Jy km / s", "sigma_window_naive": "Jy km / s",
              "sigma_chan_offsource": "Jy"}
@@ -191,8 +179,10 @@ def extract_spectra(subcube_path, settings: ExtractionSettings, data: np.ndarray
     for name, unit in units.items():
         table[name].unit = unit
     chans = Table({"velocity": vel * u.km / u.s, "line_free": free, "window_weight": wweights})
-    ap_hdu = fits.table_to_hdu(table)
-    ap_hdu.name = "APERTURES"
-    ch_hdu = fits.table_to_hdu(chans)
-    ch_hdu.name = "CHANNELS"
-    return fits.HDUList([prim, fits.ImageHDU(n_blank.astype(np.int32), name="BLANK"), ap_hdu, ch_hdu])
+    beam = ((info.beam_major.to_value(u.deg), info.beam_minor.to_value(u.deg), info.beam_pa.to_value(u.deg))
+            if info.beam_major is not None else None)
+    return LineSpectra(meta=meta, flux=flux.astype(np.float64), blank=n_blank.astype(np.int32), apertures=table,
+                       channels=chans, window=win, v_centre=v_centre, centre=(x, y),
+                       pixel_scale_arcsec=float(info.pixel_scale.to_value(u.arcsec)),
+                       grid_shape=(info.shape[1], info.shape[2]), beam_deg=beam,
+                       rest_frequency_hz=float(sub.header.get("RESTFRQ", np.nan)))

@@ -36,6 +36,7 @@ from pipeline.io.cubes import CubeInfo, read_cube_info
 from pipeline.dust.afrho import afrho, slope_percent_per_100nm, spectral_slope
 from pipeline.errors import CoverageError, CubeError
 from pipeline.spectra.ir_spectra import F_LAMBDA, IRSpectra, extract_ir_spectra
+from pipeline.io.products import BandMeasurements
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.coma.response import ComaModel, outflow_speed, scale_lengths
 from pipeline.dust.solar import solar_flux_density
@@ -187,38 +188,22 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
         continua.append(models)
     dust_rows, colour_rows = _dust_rows(spectra, sigma, obs, free_all, settings.dust, geo, radii_km, windows)
 
-    prim = fits.PrimaryHDU()
-    h = prim.header
-    for key, value, comment in (
-            ("GLREGIME", "infrared", "cube regime"), ("GLCUBE", str(geo["cube_id"]), "cube id"),
-            ("GLEPOCH", str(geo["epoch"]), "epoch label"), ("GLRH", float(geo["r_h"].to_value(u.au)), "[au]"),
-            ("GLDELTA", float(delta.to_value(u.au)), "[au]"), ("GLRPOW", rpow, "resolving power used"),
-            ("GLRPSRC", rsource[:60], "where the resolving power came from"),
-            ("GLDOPP", factor, "observed / rest wavelength of the target"),
-            ("GLAPX", x, "target x (0-based pixel)"), ("GLAPY", y, "target y (0-based pixel)"),
-            ("GLPIXSC", float(info.pixel_scale.to_value(u.arcsec)), "[arcsec] pixel scale"),
-            ("GLSIGSRC", sigma_source[:60], "per-channel sigma from")):
-        h[key] = (value, comment)
-    h["GLBANDS"] = (",".join(band_ids), "bands measured")
-    add_to_header(h, provenance_record(settings, [cube_path, geometry_path], "bands"))
-    flux_hdu = fits.ImageHDU(spectra.flux.to_value(F_LAMBDA), name="SPECTRA")
-    flux_hdu.header["BUNIT"] = "W m-2 um-1"
-    err_hdu = fits.ImageHDU(sigma.to_value(F_LAMBDA), name="SIGMA")
-    err_hdu.header["BUNIT"] = "W m-2 um-1"
-    cont_hdu = fits.ImageHDU(np.array(continua) if continua else np.zeros((0, len(radii), obs.size)), name="CONTINUUM")
-    cont_hdu.header["BUNIT"] = "W m-2 um-1"
-    wave = fits.table_to_hdu(Table({"observed": obs.to(u.um), "rest": (obs / factor).to(u.um)}))
-    wave.name = "WAVE"
-    aps = fits.table_to_hdu(Table({"radius_km": np.array(radii_km) * u.km, "radius_pix": spectra.radius_pix,
-                                   "area_pix": spectra.area_pix}))
-    aps.name = "APERTURES"
-    hdus = [prim, flux_hdu, err_hdu, cont_hdu, wave, aps]
-    for name, rows in (("BANDS", band_rows), ("DUST", dust_rows), ("COLOUR", colour_rows)):
-        table = Table(rows=_uniform(rows)) if rows else Table(names=["cube_id"], dtype=[str])
-        hdu = fits.table_to_hdu(table)
-        hdu.name = name
-        hdus.append(hdu)
-    write_fits(fits.HDUList(hdus), out_path)
+    def table(rows: list[dict]) -> Table:
+        return Table(rows=_uniform(rows)) if rows else Table(names=["cube_id"], dtype=[str])
+
+    product = BandMeasurements(
+        cube_id=str(geo["cube_id"]), epoch=str(geo["epoch"]), r_h_au=float(geo["r_h"].to_value(u.au)),
+        delta_au=float(delta.to_value(u.au)), resolving_power=rpow, resolving_power_source=rsource, doppler=factor,
+        centre=(x, y), pixel_scale_arcsec=float(info.pixel_scale.to_value(u.arcsec)), sigma_source=sigma_source,
+        band_ids=tuple(band_ids), spectra=spectra.flux.to_value(F_LAMBDA), sigma=sigma.to_value(F_LAMBDA),
+        continuum=np.array(continua) if continua else np.zeros((0, len(radii), obs.size)),
+        wave=Table({"observed": obs.to(u.um), "rest": (obs / factor).to(u.um)}),
+        apertures=Table({"radius_km": np.array(radii_km) * u.km, "radius_pix": spectra.radius_pix,
+                         "area_pix": spectra.area_pix}),
+        bands=table(band_rows), dust=table(dust_rows), colour=table(colour_rows))
+    hdul = product.to_fits()
+    add_to_header(hdul[0].header, provenance_record(settings, [cube_path, geometry_path], "bands"))
+    write_fits(hdul, out_path)
 
 
 def _uniform(rows: list[dict]) -> list[dict]:

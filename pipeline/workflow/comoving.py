@@ -6,8 +6,7 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
-from astropy.table import QTable, Table
+from astropy.table import QTable
 
 from pipeline.spectra.apertures import radius_in_pixels
 from pipeline.io.atomic import write_fits
@@ -42,19 +41,11 @@ def run(geometry_path: str, line_id: str, settings: Settings, out_path: str) -> 
     beam_pix = float((np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose()) \
         if info.beam_major is not None else 1.0
     sub = cut_subcube(info, geo, line, settings.half_width, window, crop_half_size(radii_pix, beam_pix),
-                      settings.location)
-    header = sub.header
-    header["GLCUBE"] = (str(geo["cube_id"]), "cube id")
-    header["GLEPOCH"] = (str(geo["epoch"]), "epoch label")
-    header["GLSPRESP"] = (spectral_response, "channel response of the spectrometer")
-    add_to_header(header, provenance_record(settings, [cube_path, geometry_path], "comoving"))
-    if sub.covered:
+                      settings.location, spectral_response)
+    if sub.meta.covered:
         log.info("line %s in cube %s: %d channels, %d x %d pixels", line_id, geo["cube_id"], *sub.data.shape)
-        hdu = fits.PrimaryHDU(sub.data, header=header)
-        velocity = fits.BinTableHDU(Table({"velocity": sub.velocity * u.km / u.s}), name="VELOCITY")
-        write_fits(fits.HDUList([hdu, velocity]), out_path)
-        return
     else:
-        log.warning("line %s in cube %s is not used: %s", line_id, geo["cube_id"], sub.reason)
-        hdu = fits.PrimaryHDU(header=header)
-    write_fits(fits.HDUList([hdu]), out_path)
+        log.warning("line %s in cube %s is not used: %s", line_id, geo["cube_id"], sub.meta.reason)
+    hdul = sub.to_fits()
+    add_to_header(hdul[0].header, provenance_record(settings, [cube_path, geometry_path], "comoving"))
+    write_fits(hdul, out_path)

@@ -15,11 +15,11 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
 from astropy.table import QTable, Table, vstack
 
 from pipeline.io.atomic import write_table
 from pipeline.dust.summary import dust_summary
+from pipeline.io.products import BandMeasurements
 from pipeline.io.provenance import provenance_record
 from pipeline.settings import Settings
 from pipeline.dust.solar import SOLAR_MODEL
@@ -33,8 +33,7 @@ def run(bands_paths: list[str], settings: Settings, out_afrho: str, out_dust: st
     """Collect the Afrho measurements of every infrared cube and write afrho.ecsv and dust.ecsv."""
     tables = []
     for path in bands_paths:
-        with fits.open(path) as hdul:
-            t = Table.read(hdul["DUST"])
+        t = BandMeasurements.from_fits(path).dust
         if "afrho" in t.colnames and len(t):
             tables.append(t)
     afrho = vstack(tables) if tables else Table(names=["cube_id", "epoch", "aperture_km", "wavelength", "afrho",

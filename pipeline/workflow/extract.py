@@ -4,10 +4,8 @@ from __future__ import annotations
 
 import logging
 
-import astropy.units as u
-from astropy.io import fits
-
 from pipeline.io.atomic import write_fits
+from pipeline.io.products import LineSpectra, SubCube
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.coma.response import outflow_speed
 from pipeline.settings import Settings
@@ -20,22 +18,18 @@ log = logging.getLogger(__name__)
 
 def run(subcube_path: str, settings: Settings, out_path: str) -> None:
     """Extract and write the aperture spectra of one sub-cube."""
-    header = fits.getheader(subcube_path)
+    sub = SubCube.from_fits(subcube_path)
     record = provenance_record(settings, [subcube_path], "extract")
-    if not header.get("GLCOVER", False):
-        log.info("%s: no data (%s); writing an empty spectra file", subcube_path, header.get("GLREASON"))
-        out = fits.PrimaryHDU()
-        for key, val in header.items():
-            if key.startswith("GL") and key != "GLPROV":
-                out.header[key] = val
-        add_to_header(out.header, record)
-        write_fits(fits.HDUList([out]), out_path)
-        return
-    catalogue = settings.catalogue()
-    line = catalogue.get_line(header["GLLINE"])
-    v_out = outflow_speed(settings.coma, float(header["GLRH"]) * u.au)
-    what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
-                               settings.half_width)
-    hdul = extract_spectra(subcube_path, what)
+    if not sub.meta.covered:
+        log.info("%s: no data (%s); writing an empty spectra file", subcube_path, sub.meta.reason)
+        spectra = LineSpectra(meta=sub.meta)
+    else:
+        catalogue = settings.catalogue()
+        line = catalogue.get_line(sub.meta.line_id)
+        v_out = outflow_speed(settings.coma, sub.meta.r_h)
+        what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
+                                   settings.half_width)
+        spectra = extract_spectra(sub, what)
+    hdul = spectra.to_fits()
     add_to_header(hdul[0].header, record)
     write_fits(hdul, out_path)

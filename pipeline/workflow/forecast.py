@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import tempfile
-from pathlib import Path
 
 import astropy.units as u
 import numpy as np
@@ -13,7 +11,7 @@ from astropy.time import Time
 
 from pipeline.io.atomic import write_table
 from pipeline.geometry.ephemeris import read_ephemeris
-from pipeline.rates.forecast import forecast_sigma, noise_subcube_header
+from pipeline.rates.forecast import forecast_sigma
 from pipeline.geometry.observing import target_geometry
 from pipeline.coma.response import outflow_speed
 from pipeline.io.provenance import provenance_record
@@ -38,39 +36,37 @@ def run(budget_path: str, settings: Settings, out_path: str) -> None:
     ephem = read_ephemeris(ephemeris_path) if ephemeris_path is not None else None
     elements = target.elements
     rows = []
-    with tempfile.TemporaryDirectory() as tmp:
-        for plan in settings.planned:
-            t = Time(plan.time, scale="utc")
-            geo = target_geometry(Time([t, t]), what=f"planned epoch {plan.label}", ephemeris=ephem,
-                                  elements=elements, location=settings.location)
-            geo = {k: v[0] for k, v in geo.items()}
-            per_species: dict[str, list[np.ndarray]] = {}
-            radii = None
-            for line_id in plan.lines:
-                line = catalogue.get_line(line_id)
-                header, _ = noise_subcube_header(plan, line, geo)
-                v_out = outflow_speed(settings.coma, float(header["GLRH"]) * u.au)
-                what = extraction_settings(line, catalogue, settings.apertures,
-                                           settings.limits.window_factor * v_out, settings.half_width)
-                sig = forecast_sigma(plan, line, geo, what, catalogue, settings.t_kin, settings.coma, Path(tmp),
-                                     filtering.shortest_baseline if filtering else None,
-                                     filtering.correct if filtering else True)
-                per_species.setdefault(line.species, []).append(sig)
-                radii = [r.to_value(u.km) if r.unit.physical_type == "length"
-                         else (r.to_value(u.rad) * geo["delta"].to_value(u.km)) for r in what.radii]
-            for species, sigmas in per_species.items():
-                sigma = 1 / np.sqrt(np.sum([1 / s**2 for s in sigmas], axis=0))          # inverse-variance lines
-                bsel = base[base["species"] == species] if len(base) else base
-                q_req = float(bsel["q_required_min"][0].to_value(1 / u.s)) if len(bsel) else np.nan
-                for i, tk in enumerate(t_all):
-                    for j, r in enumerate(radii):
-                        rows.append({"epoch": plan.label, "time": plan.time, "species": species,
-                                     "aperture_km": float(r), "t_kin_K": float(tk), "sigma_q": sigma[i, j],
-                                     "q_upper_forecast": float(bayesian_upper_limit(0.0, sigma[i, j], cl)),
-                                     "q_required_min": q_req, "significance_required": q_req / sigma[i, j],
-                                     "r_h": float(geo["r_h"].to_value(u.au)),
-                                     "delta": float(geo["delta"].to_value(u.au)),
-                                     "n_lines": len(sigmas)})
+    for plan in settings.planned:
+        t = Time(plan.time, scale="utc")
+        geo = target_geometry(Time([t, t]), what=f"planned epoch {plan.label}", ephemeris=ephem,
+                              elements=elements, location=settings.location)
+        geo = {k: v[0] for k, v in geo.items()}
+        per_species: dict[str, list[np.ndarray]] = {}
+        radii = None
+        for line_id in plan.lines:
+            line = catalogue.get_line(line_id)
+            v_out = outflow_speed(settings.coma, float(geo["r_h"].to_value(u.au)) * u.au)
+            what = extraction_settings(line, catalogue, settings.apertures,
+                                       settings.limits.window_factor * v_out, settings.half_width)
+            sig = forecast_sigma(plan, line, geo, what, catalogue, settings.t_kin, settings.coma,
+                                 filtering.shortest_baseline if filtering else None,
+                                 filtering.correct if filtering else True)
+            per_species.setdefault(line.species, []).append(sig)
+            radii = [r.to_value(u.km) if r.unit.physical_type == "length"
+                     else (r.to_value(u.rad) * geo["delta"].to_value(u.km)) for r in what.radii]
+        for species, sigmas in per_species.items():
+            sigma = 1 / np.sqrt(np.sum([1 / s**2 for s in sigmas], axis=0))          # inverse-variance lines
+            bsel = base[base["species"] == species] if len(base) else base
+            q_req = float(bsel["q_required_min"][0].to_value(1 / u.s)) if len(bsel) else np.nan
+            for i, tk in enumerate(t_all):
+                for j, r in enumerate(radii):
+                    rows.append({"epoch": plan.label, "time": plan.time, "species": species,
+                                 "aperture_km": float(r), "t_kin_K": float(tk), "sigma_q": sigma[i, j],
+                                 "q_upper_forecast": float(bayesian_upper_limit(0.0, sigma[i, j], cl)),
+                                 "q_required_min": q_req, "significance_required": q_req / sigma[i, j],
+                                 "r_h": float(geo["r_h"].to_value(u.au)),
+                                 "delta": float(geo["delta"].to_value(u.au)),
+                                 "n_lines": len(sigmas)})
     table = QTable(rows=rows) if rows else QTable(names=["epoch", "species", "sigma_q"], dtype=[str, str, float])
     for name in ("sigma_q", "q_upper_forecast", "q_required_min"):
         if name in table.colnames:

@@ -15,6 +15,7 @@ from pipeline.io.cubes import read_cube_info
 from pipeline.rates.line_injection import inject_spectra, placements
 from pipeline.rates.stacking import StackInput
 from pipeline.spectra.band_windows import band_setup, band_windows
+from pipeline.io.products import BandMeasurements, SubCube
 from pipeline.io.provenance import provenance_record
 from pipeline.spectra.ir_spectra import F_LAMBDA
 from pipeline.coma.response import outflow_speed
@@ -55,29 +56,26 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
     paths = {c.cube_id: c.path for c in settings.cubes}
     groups: dict[tuple[int, int], list[StackInput]] = {}
     for path in bands_paths:
-        with fits.open(path) as hdul:
-            h = hdul[0].header
-            bands = Table.read(hdul["BANDS"])
-            aps = Table.read(hdul["APERTURES"])
-            sigma = np.asarray(hdul["SIGMA"].data, dtype=float)
+        measured = BandMeasurements.from_fits(path)
+        bands = measured.bands
         if "species" not in bands.colnames:
             continue
-        info = read_cube_info(paths[h["GLCUBE"]])
+        info = read_cube_info(paths[measured.cube_id])
         obs = info.wavelengths
-        radii_pix = list(np.asarray(aps["radius_pix"], dtype=float))
-        radii_km = np.asarray(aps["radius_km"], dtype=float)
+        radii_pix = list(np.asarray(measured.apertures["radius_pix"], dtype=float))
+        radii_km = np.asarray(measured.apertures["radius_km"], dtype=float)
         ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
-        windows = band_windows(obs, catalogue, ids, float(h["GLDOPP"]), float(h["GLRPOW"]), ir.margin_fwhm)
-        where = ring_positions(info.shape[1:], float(h["GLAPX"]), float(h["GLAPY"]), max(radii_pix))
+        windows = band_windows(obs, catalogue, ids, measured.doppler, measured.resolving_power, ir.margin_fwhm)
+        where = ring_positions(info.shape[1:], measured.centre[0], measured.centre[1], max(radii_pix))
         for band_id in ids:
             free, shape = band_setup(band_id, windows, obs, ir.continuum_factor, ir.continuum_shape)
             results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,
-                                  float(h["GLRH"]) * u.au, float(h["GLDELTA"]) * u.au, float(h["GLDOPP"]),
-                                  float(h["GLRPOW"]), windows[band_id][2:], free, sigma * F_LAMBDA, model,
-                                  ir.continuum_order, shape)
+                                  measured.r_h_au * u.au, measured.delta_au * u.au, measured.doppler,
+                                  measured.resolving_power, windows[band_id][2:], free, measured.sigma * F_LAMBDA,
+                                  model, ir.continuum_order, shape)
             for res in results:
                 groups.setdefault((res.index, 0), []).append(StackInput(
-                    epoch=h["GLEPOCH"], cube_id=h["GLCUBE"], line_id=band_id, velocity=None, density=None,
+                    epoch=measured.epoch, cube_id=measured.cube_id, line_id=band_id, velocity=None, density=None,
                     q=np.tile(res.q_recovered, (n_t, 1)), sigma_q=np.tile(res.q_err, (n_t, 1)), radius_km=radii_km))
     return groups
 
@@ -100,23 +98,19 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     model = settings.coma
     filtering = settings.interferometer
     rows = []
-    covered = []
-    for path in subcube_paths:
-        if fits.getheader(path).get("GLCOVER", False):
-            covered.append(path)
+    covered = [sub for sub in map(SubCube.from_fits, subcube_paths) if sub.meta.covered]
     for level, q in levels:
         groups: dict[tuple[int, int], list] = {}
-        for path in covered:
-            header = fits.getheader(path)
-            line = catalogue.get_line(header["GLLINE"])
-            v_out = outflow_speed(model, float(header["GLRH"]) * u.au)
+        for sub in covered:
+            line = catalogue.get_line(sub.meta.line_id)
+            v_out = outflow_speed(model, sub.meta.r_h)
             what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
                                        settings.half_width)
-            where = placements(path, what)
+            where = placements(sub, what)
             parent = catalogue.get_species(sp.parent) if sp.parent else None
-            for k, hdul in enumerate(inject_spectra(path, what, line, sp, q, t_kin * u.K, model, where,
-                                                    parent)):
-                inp, _ = stack_input(hdul, catalogue, settings.t_kin, model,
+            for k, spectra in enumerate(inject_spectra(sub, what, line, sp, q, t_kin * u.K, model, where,
+                                                       parent)):
+                inp, _ = stack_input(spectra, catalogue, settings.t_kin, model,
                                      filtering.shortest_baseline if filtering else None,
                                      filtering.correct if filtering else True)
                 vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)

@@ -10,6 +10,7 @@ from astropy.io import fits
 from astropy.table import QTable, Table
 
 from pipeline.io.atomic import write_json, write_table
+from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
 from pipeline.io.tables import table_as_json
 from pipeline.rates.activity import activity_table
@@ -25,12 +26,8 @@ log = logging.getLogger(__name__)
 def run_species(stack_path: str, settings: Settings, out_path: str) -> None:
     """Limits of one species from its stack file; detections also get a line-profile fit."""
     catalogue = settings.catalogue()
-    with fits.open(stack_path) as hdul:
-        species = hdul[0].header["GLSPEC"]
-        summary = Table.read(hdul["SUMMARY"])
-        inputs = Table.read(hdul["INPUTS"])
-        hdul.readall()
-        stack_hdul = fits.HDUList([h.copy() for h in hdul])
+    stack = SpeciesStack.from_fits(stack_path)
+    species, summary, inputs = stack.species, stack.summary, stack.inputs
     nsigma = float(settings.limits.nsigma)
     tables = []
     if "q" in summary.colnames:
@@ -49,7 +46,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str) -> None:
             rows = limit_rows(species, str(group), t * u.K, ap * u.km, q / u.s, s / u.s, nsigma,
                               str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
             add_fit_columns(rows)
-            fit_detections(rows, str(group), stack_hdul, inputs, t, catalogue.get_species(species).mass)
+            fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass)
             opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
             filtering_columns(rows, inputs)
             tables.append(rows)

@@ -18,6 +18,7 @@ from pipeline.report.figures import BandPanel, SpectrumPanel, plot_band_spectra,
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 from pipeline.report.html import figure_html, page, table_html
 from pipeline.coma.response import SPECTRAL_RESPONSES, outflow_speed
+from pipeline.io.products import BandMeasurements, SpeciesStack
 from pipeline.settings import Settings
 
 __all__ = ["run"]
@@ -41,17 +42,13 @@ def _spectrum_panels(stack_paths: list[str], limits: QTable, settings: Settings)
     catalogue = settings.catalogue()
     panels = []
     for path in stack_paths:
-        with fits.open(path) as hdul:
-            species = hdul[0].header["GLSPEC"]
-            if "STACK_all" not in hdul:
-                continue
-            h = hdul["STACK_all"].header
-            data = hdul["STACK_all"].data
-            n = data.shape[-1]
-            vel = h["CRVAL1"] + (np.arange(n) + 1 - h["CRPIX1"]) * h["CDELT1"]
-            from astropy.table import Table
-
-            inputs = Table.read(hdul["INPUTS"])
+        stack = SpeciesStack.from_fits(path)
+        species = stack.species
+        if "all" not in stack.spectra:
+            continue
+        data = stack.spectra["all"].density
+        vel = stack.spectra["all"].velocity
+        inputs = stack.inputs
         if "kind" in inputs.colnames:
             inputs = inputs[inputs["kind"] == "line"]
         if not len(inputs):
@@ -79,22 +76,20 @@ def _spectrum_panels(stack_paths: list[str], limits: QTable, settings: Settings)
 def _band_panels(bands_paths: list[str]) -> list[BandPanel]:
     panels = []
     for path in bands_paths:
-        with fits.open(path) as hdul:
-            h = hdul[0].header
-            wave = Table.read(hdul["WAVE"])
-            flux = np.asarray(hdul["SPECTRA"].data[0], dtype=float)
-            sigma = np.asarray(hdul["SIGMA"].data[0], dtype=float)
-            continua = [np.asarray(c[0], dtype=float) for c in hdul["CONTINUUM"].data] \
-                if hdul["CONTINUUM"].data is not None else []
-            bands = Table.read(hdul["BANDS"])
-        rest = np.asarray(wave["rest"], dtype=float)
-        dopp = float(h["GLDOPP"])
+        measured = BandMeasurements.from_fits(path)
+        flux = np.asarray(measured.spectra[0], dtype=float)
+        sigma = np.asarray(measured.sigma[0], dtype=float)
+        continua = [np.asarray(c[0], dtype=float) for c in measured.continuum]
+        bands = measured.bands
+        rest = np.asarray(measured.wave["rest"], dtype=float)
+        dopp = measured.doppler
         windows = []
         if "window_lo" in bands.colnames:
             for b in dict.fromkeys(str(x) for x in bands["band_id"]):
                 r = bands[bands["band_id"] == b][0]
                 windows.append((b, float(r["window_lo"]) / dopp, float(r["window_hi"]) / dopp))
-        panels.append(BandPanel(f"{h['GLCUBE']} (epoch {h['GLEPOCH']}, R = {h['GLRPOW']:.0f})", rest, flux, sigma,
+        panels.append(BandPanel(f"{measured.cube_id} (epoch {measured.epoch}, R = {measured.resolving_power:.0f})",
+                                rest, flux, sigma,
                                 continua, windows))
     return panels
 
@@ -103,8 +98,7 @@ def _afrho_points(bands_paths: list[str]) -> tuple[dict, str]:
     """Afrho against wavelength per epoch at the largest aperture, from the bands files' DUST tables."""
     rows = []
     for path in bands_paths:
-        with fits.open(path) as hdul:
-            t = Table.read(hdul["DUST"])
+        t = BandMeasurements.from_fits(path).dust
         if "afrho" in t.colnames:
             rows.extend(list(t))
     if not rows:
@@ -123,8 +117,7 @@ def _infrared_section(bands_paths: list[str], dust_path: str, fig: bytes) -> str
         return "<p>No infrared cube in this campaign.</p>"
     rows = []
     for path in bands_paths:
-        with fits.open(path) as hdul:
-            t = Table.read(hdul["BANDS"])
+        t = BandMeasurements.from_fits(path).bands
         if "covered" not in t.colnames:
             continue
         for r in t:

@@ -10,6 +10,7 @@ from astropy.io import fits
 from astropy.table import Table
 
 from pipeline.io.atomic import write_fits
+from pipeline.io.products import BandMeasurements, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.rates.q_units import band_inputs, stack_input
 from pipeline.rates.stacking import combine, velocity_grid
@@ -32,16 +33,18 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
     inputs, rows, skipped = [], [], []
     for path in spectra_paths:
         with fits.open(path) as spectra:
-            if spectra[0].header.get("GLREGIME") == "infrared":
-                band_in, band_rows, band_skipped = band_inputs(spectra, species, settings.t_kin)
+            if BandMeasurements.is_bands_file(spectra[0].header):
+                band_in, band_rows, band_skipped = band_inputs(BandMeasurements.from_fits(spectra), species,
+                                                               settings.t_kin)
                 inputs.extend(band_in)
                 rows.extend(band_rows)
                 skipped.extend(band_skipped)
                 continue
-            if not spectra[0].header.get("GLCOVER", False) or spectra[0].data is None:
-                skipped.append(f"{spectra[0].header.get('GLCUBE')}:{spectra[0].header.get('GLLINE')}")
+            line_spectra = LineSpectra.from_fits(spectra)
+            if not line_spectra.meta.covered or line_spectra.flux is None:
+                skipped.append(f"{line_spectra.meta.cube_id}:{line_spectra.meta.line_id}")
                 continue
-            inp, r = stack_input(spectra, catalogue, settings.t_kin, settings.coma,
+            inp, r = stack_input(line_spectra, catalogue, settings.t_kin, settings.coma,
                                   filtering.shortest_baseline if filtering else None,
                                   filtering.correct if filtering else True)
         if not np.all(np.isfinite(inp.q)):
@@ -53,27 +56,18 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
         rows.extend(r)
     if skipped:
         log.warning("%s: %d line(s) not covered and left out: %s", species, len(skipped), ", ".join(skipped))
-    prim = fits.PrimaryHDU()
-    prim.header["GLSPEC"] = species
-    prim.header["GLNIN"] = (len(inputs), "number of spectra stacked")
-    add_to_header(prim.header, provenance_record(settings, spectra_paths, "stack"))
-    hdus = [prim]
     t_kin = settings.t_kin.to_value(u.K)
     groups = sorted({i.epoch for i in inputs})
     half = float(settings.half_width.to_value(u.km / u.s))
     summary = []
+    spectra = {}
     for group in groups + ([ALL] if inputs else []):
         members = [i for i in inputs if group in (ALL, i.epoch)]
         edges = velocity_grid(members, half)
         res = combine(members, edges)
-        hdu = fits.ImageHDU(res["density"], name=f"STACK_{group}")
         centres = 0.5 * (edges[:-1] + edges[1:])
-        hdu.header["CTYPE1"], hdu.header["CUNIT1"], hdu.header["CRPIX1"] = "VRAD", "km/s", 1.0
-        hdu.header["CRVAL1"], hdu.header["CDELT1"] = float(centres[0]), float(edges[1] - edges[0])
-        hdu.header["CTYPE2"], hdu.header["CTYPE3"] = "APERTURE", "TKIN"
-        hdu.header["SPECSYS"], hdu.header["BUNIT"] = "SOURCE", "s-1 / (km s-1)"
-        hdu.header["GLGROUP"] = group
-        hdus.append(hdu)
+        spectra[group] = StackedSpectrum(group=group, density=res["density"], v_start=float(centres[0]),
+                                         v_step=float(edges[1] - edges[0]))
         lines = sorted({m.line_id for m in members})
         cubes = sorted({m.cube_id for m in members})
         for i, t in enumerate(t_kin):
@@ -85,8 +79,9 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
                                 "cubes": ",".join(cubes)})
         log.info("%s %s: %d spectra (%s) -> Q(T=%g K, first aperture) = %.3g +- %.3g /s", species, group,
                  len(members), ", ".join(lines), t_kin[0], res["q"][0, 0], res["sigma_q"][0, 0])
-    in_hdu = fits.table_to_hdu(Table(rows=rows) if rows else Table(names=["epoch"], dtype=[str]))
-    in_hdu.name = "INPUTS"
-    sum_hdu = fits.table_to_hdu(Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]))
-    sum_hdu.name = "SUMMARY"
-    write_fits(fits.HDUList(hdus + [in_hdu, sum_hdu]), out_path)
+    stack = SpeciesStack(species=species, n_inputs=len(inputs), spectra=spectra,
+                         inputs=Table(rows=rows) if rows else Table(names=["epoch"], dtype=[str]),
+                         summary=Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]))
+    hdul = stack.to_fits()
+    add_to_header(hdul[0].header, provenance_record(settings, spectra_paths, "stack"))
+    write_fits(hdul, out_path)

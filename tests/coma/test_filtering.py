@@ -5,6 +5,7 @@ import numpy as np
 import pytest
 from scipy import integrate, special
 
+from pipeline.io.products import LineSpectra, SubCube
 from pipeline.coma.filtering import inverse_radius_fraction, min_spatial_frequency, surviving_fraction
 
 
@@ -72,11 +73,11 @@ def test_stack_input_corrects_for_the_surviving_fraction(tmp_path):
     rng = np.random.default_rng(3)
     path = write_subcube(tmp_path / "s.fits", rng.standard_normal((200, 32, 32)) * 0.01)
     settings = ExtractionSettings(radii=[1000 * u.km], window=1.2 * u.km / u.s, other_lines=[] * u.km / u.s)
-    hdul = extract_spectra(path, settings, offsource=False)
+    hdul = extract_spectra(SubCube.from_fits(path), settings, offsource=False).to_fits()
     cat = load_catalogue()
     t_kin, model = [40.0] * u.K, ComaModel(outflow="law", solar_activity="quiet")
-    plain, _ = stack_input(hdul, cat, t_kin, model)
-    filt, rows = stack_input(hdul, cat, t_kin, model, shortest_baseline=15.0 * u.m, correct_filtering=True)
+    plain, _ = stack_input(LineSpectra.from_fits(hdul), cat, t_kin, model)
+    filt, rows = stack_input(LineSpectra.from_fits(hdul), cat, t_kin, model, shortest_baseline=15.0 * u.m, correct_filtering=True)
     frac = rows[0]["surviving_fraction"]
     assert 0 < frac < 1
     assert filt.q[0, 0] == pytest.approx(plain.q[0, 0] / frac, rel=1e-12)

@@ -69,7 +69,7 @@ def test_line_and_position_recovered(tmp_path):
     geo = cube_geometry(info, "c1", "e1", ephemeris=read_ephemeris(eph))[0]
     assert geo["x_pix"] == pytest.approx(x0, abs=0.01) and geo["y_pix"] == pytest.approx(y0, abs=0.01)
     sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 10.0, None)
-    assert sub.covered
+    assert sub.meta.covered
     h = sub.header
     vel = h["CRVAL3"] + (np.arange(sub.data.shape[0]) + 1 - h["CRPIX3"]) * h["CDELT3"]
     spec = sub.data.sum(axis=(1, 2))
@@ -78,7 +78,7 @@ def test_line_and_position_recovered(tmp_path):
     img = sub.data.sum(axis=0)
     yy, xx = np.mgrid[0:img.shape[0], 0:img.shape[1]]
     cx, cy = np.sum(xx * img) / img.sum(), np.sum(yy * img) / img.sum()
-    assert cx == pytest.approx(h["GLXPIX"], abs=0.01) and cy == pytest.approx(h["GLYPIX"], abs=0.01)  # 1 % of a pixel
+    assert cx == pytest.approx(sub.meta.target_x, abs=0.01) and cy == pytest.approx(sub.meta.target_y, abs=0.01)  # 1 % of a pixel
     assert h["SPECSYS"] == "SOURCE" and h["CTYPE3"] == "VRAD"
     assert h["RESTFRQ"] == pytest.approx(line.freq.to_value(u.Hz))
 
@@ -88,8 +88,8 @@ def test_window_outside_band_is_reported_not_cut(tmp_path):
     info = read_cube_info(path)
     geo = cube_geometry(info, "c1", "e1", ephemeris=read_ephemeris(eph))[0]
     sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 10.0, None)
-    assert not sub.covered and sub.data is None
-    assert "not fully inside the band" in sub.reason and sub.header["GLCOVER"] is False
+    assert not sub.meta.covered and sub.data is None
+    assert "not fully inside the band" in sub.meta.reason and sub.meta.covered is False
 
 
 def test_target_outside_field(tmp_path):

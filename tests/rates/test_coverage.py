@@ -15,6 +15,7 @@ from cubes import write_subcube
 from scipy import stats
 from scipy.signal import fftconvolve
 
+from pipeline.io.products import LineSpectra, SubCube
 from pipeline.catalogue.entries import load_catalogue
 from pipeline.coma.image import apply_spectral_response, beam_kernel, model_line_cube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
@@ -42,8 +43,8 @@ def _realisations(tmp_path, q_true, seed):
     for _ in range(N_REAL):
         noise = fftconvolve(rng.standard_normal(SHAPE), kernel[None], mode="same", axes=(1, 2))
         cube = apply_spectral_response(signal + 0.01 * noise / np.sqrt(0.375), "hanning")
-        hdul = extract_spectra(path, settings, data=cube, offsource=False)
-        inp, _ = stack_input(hdul, CAT, [40.0] * u.K, ComaModel("law", "quiet"))
+        hdul = extract_spectra(SubCube.from_fits(path), settings, data=cube, offsource=False).to_fits()
+        inp, _ = stack_input(LineSpectra.from_fits(hdul), CAT, [40.0] * u.K, ComaModel("law", "quiet"))
         aps = hdul["APERTURES"].data
         chans = hdul["CHANNELS"].data
         weights = np.asarray(chans["window_weight"], dtype=float)

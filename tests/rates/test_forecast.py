@@ -7,9 +7,10 @@ import numpy as np
 from astropy.io import fits
 from astropy.time import Time
 
+from pipeline.io.products import LineSpectra, SubCube
 from pipeline.settings import load_config
 from pipeline.geometry.ephemeris import read_ephemeris
-from pipeline.rates.forecast import PlannedEpoch, forecast_sigma, noise_subcube_header
+from pipeline.rates.forecast import PlannedEpoch, forecast_sigma
 from pipeline.workflow import comoving, extract, geometry
 from pipeline.coma.response import outflow_speed
 from pipeline.rates.q_units import stack_input
@@ -33,7 +34,7 @@ def test_forecast_agrees_with_measurements_within_the_scatter(tmp_path):
         comoving.run(str(root / "g.ecsv"), "HCN_265886", cube, str(root / "sub.fits"))
         extract.run(str(root / "sub.fits"), settings, str(root / "spec.fits"))
         with fits.open(root / "spec.fits") as hdul:
-            inp, _ = stack_input(hdul, settings.catalogue(), settings.t_kin, settings.coma)
+            inp, _ = stack_input(LineSpectra.from_fits(hdul), settings.catalogue(), settings.t_kin, settings.coma)
         measured.append(inp.sigma_q)
     measured = np.array(measured)                                     # (seed, T, ap)
     catalogue = settings.catalogue()
@@ -43,11 +44,10 @@ def test_forecast_agrees_with_measurements_within_the_scatter(tmp_path):
     plan = PlannedEpoch(label="p", time=sc.epochs[0][1], lines=("HCN_265886",), noise_jy_beam=sc.noise_jy_beam,
                         channel_khz=sc.windows[0].channel_khz, beam_arcsec=sc.beam_arcsec,
                         pixel_arcsec=sc.pixel_arcsec, npix=sc.npix, half_width_km_s=sc.half_width_km_s)
-    header, _ = noise_subcube_header(plan, line, geo)
-    v_out = outflow_speed(settings.coma, float(header["GLRH"]) * u.au)
+    v_out = outflow_speed(settings.coma, float(geo["r_h"].to_value(u.au)) * u.au)
     what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
                                settings.half_width)
-    fc = forecast_sigma(plan, line, geo, what, catalogue, settings.t_kin, settings.coma, tmp_path, n_realisations=4,
+    fc = forecast_sigma(plan, line, geo, what, catalogue, settings.t_kin, settings.coma, n_realisations=4,
                         seed=99)
     mean, spread = measured.mean(axis=0), measured.std(axis=0, ddof=1)
     tolerance = 3 * np.sqrt(spread**2 / len(measured) + spread**2 / 4)

@@ -6,7 +6,8 @@ import pytest
 from astropy.io import fits
 from astropy.table import Table
 
-from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra, subcube_velocities
+from pipeline.io.products import LineSpectra, SubCube
+from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from synthetic_cubes.generate import hanning
 
 
@@ -33,7 +34,7 @@ def test_flux_of_uniform_surface_brightness(tmp_path):
     path = _subcube(tmp_path, data)
     settings = ExtractionSettings(radii=[2.0 * u.arcsec], window=1.0 * u.km / u.s, other_lines=[] * u.km / u.s,
                                   baseline_order=0)
-    hdul = extract_spectra(path, settings)
+    hdul = extract_spectra(SubCube.from_fits(path), settings).to_fits()
     raw = np.pi * 2.0**2 / (np.pi / (4 * np.log(2)) * 1.0**2)
     # the baseline (order 0) takes the constant out; the APERTURES table keeps the geometry
     assert abs(np.mean(hdul[0].data)) < 1e-3 * raw
@@ -52,8 +53,8 @@ def test_line_flux_and_correlated_noise(tmp_path):
     data = noise + line[:, None, None] * img[None]
     path = _subcube(tmp_path, data, bunit="Jy/pixel")
     settings = ExtractionSettings(radii=[2.0 * u.arcsec], window=1.0 * u.km / u.s, other_lines=[] * u.km / u.s)
-    hdul = extract_spectra(path, settings)
-    v = subcube_velocities(fits.getheader(path))
+    hdul = extract_spectra(SubCube.from_fits(path), settings).to_fits()
+    v = SubCube.from_fits(path).velocity
     ch = Table.read(hdul["CHANNELS"])
     flux = np.sum(hdul[0].data[0] * ch["window_weight"]) * 0.3
     aps = Table.read(hdul["APERTURES"])
