@@ -33,7 +33,8 @@ test: $(STAMP)
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
-	$(BIN)/snakemake --lint --configfile config/config.yaml
+	$(BIN)/ruff check .
+	$(BIN)/python -m pytest -q tests/test_lint.py
 
 clean-demo:
 	rm -rf results/demo $(DEMO_DATA)

@@ -11,15 +11,12 @@ Run the campaign with ``snakemake --cores N --configfile campaign.yaml``.
 from __future__ import annotations
 
 import argparse
-import copy
 import sys
 from pathlib import Path
 
 import astropy.units as u
 import numpy as np
-import yaml
 
-from pipeline.io.atomic import write_text
 from pipeline.catalogue.entries import load_catalogue
 from pipeline.settings import append_cubes, load_settings, validate_config, write_campaign
 from pipeline.io.cubes import observation_times, read_cube_info

@@ -54,7 +54,7 @@ def hanning(cube: np.ndarray) -> np.ndarray:
 
 
 
-def _window_frequencies(sc: Scenario, window, catalogue, delta_dot: u.Quantity) -> np.ndarray:
+def _window_frequencies(window, catalogue, delta_dot: u.Quantity) -> np.ndarray:
     """Topocentric channel frequencies [Hz] of a window tuned on its lines at ``delta_dot``."""
     freqs = u.Quantity([catalogue.get_line(l).freq for l in window.lines])
     beta = (delta_dot / const.c).decompose().value
@@ -71,10 +71,9 @@ def _write_cube(path: Path, sc: Scenario, window, epoch: str, mid: Time, geo, ca
     """Build and write one cube; return a summary."""
     ra, dec = geo["ra"], geo["dec"]
     delta, r_h, ddot = geo["delta"], geo["r_h"], geo["delta_dot"]
-    f_topo = _window_frequencies(sc, window, catalogue, ddot) * u.Hz
+    f_topo = _window_frequencies(window, catalogue, ddot) * u.Hz
     n, nchan = sc.npix, f_topo.size
     pix = sc.pixel_arcsec * u.arcsec
-    pix_km = (pix.to_value(u.rad) * delta).to_value(u.km)
     # target position: phase centre is offset from the target
     header = sky_header(ra, dec, sc.pointing_offset_arcsec, pix, n, "SIN")
     specsys = sc.specsys[epoch]
@@ -166,7 +165,7 @@ def write_scenario(sc: Scenario, outdir: str | Path, config_path: str | Path | N
                 continue
             path = outdir / f"{label}_{setup.name}.fits"
             with future_time_tolerated():
-                info = write_ir_cube(path, sc, setup, label, mids[k], g, catalogue, rng)
+                info = write_ir_cube(path, sc, setup, mids[k], g, catalogue, rng)
             progress(f"wrote {path} ({info['nchan']} channels, bands {', '.join(info['bands']) or 'none'})")
             cubes.append({"path": str(path), "id": f"{label}_{setup.name}", "epoch": label,
                           "resolving_power": setup.resolving_power})

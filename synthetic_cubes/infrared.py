@@ -63,7 +63,7 @@ def afrho_model(wavelength: u.Quantity, afrho_ref: u.Quantity, lam_ref: u.Quanti
     return afrho_ref * (1 + (s * (wavelength - lam_ref)).decompose().value)
 
 
-def write_ir_cube(path: Path, sc, setup: InfraredSetup, epoch: str, mid: Time, geo, catalogue,
+def write_ir_cube(path: Path, sc, setup: InfraredSetup, mid: Time, geo, catalogue,
                   rng: np.random.Generator) -> dict:
     """Build and write one infrared cube (SCI + ERR extensions); return a summary."""
     ra, dec = geo["ra"], geo["dec"]

@@ -16,9 +16,10 @@ import numpy as np
 from astropy.table import QTable
 
 from pipeline.catalogue.entries import Catalogue
+from pipeline.errors import ConfigError
 from pipeline.coma.haser import outflow_speed_law
-from pipeline.budget.momentum import (LATENT_HEAT, diameter_from_absolute_magnitude, max_bulk_density, max_nucleus_mass,
-                          nongrav_acceleration, nucleus_mass, required_mass_loss_rate, required_production_rate,
+from pipeline.budget.momentum import (LATENT_HEAT, max_bulk_density, max_nucleus_mass,
+                          nongrav_acceleration, required_mass_loss_rate, required_production_rate,
                           rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
 
 __all__ = ["BudgetAssumptions", "epoch_distances", "dust_forces", "joint_exclusion", "acceleration_at", "ejection_speed_at",
@@ -63,8 +64,9 @@ def acceleration_at(assume: BudgetAssumptions, r_h: u.Quantity) -> tuple[u.Quant
         return assume.acceleration[0] * u.m / u.s**2, assume.acceleration[1] * u.m / u.s**2
     ng = assume.nongrav
     if ng is None:
-        msg = "budget: give acceleration_m_s2 or nongrav"
-        raise ValueError(msg)
+        msg = ("budget: neither acceleration_m_s2 nor nongrav is given; expected the measured non-gravitational "
+               "acceleration (budget.acceleration_m_s2: [value, sigma] in m/s^2, or budget.nongrav: {A1, A2, A3})")
+        raise ConfigError(msg)
     unit = u.au / u.day**2
     law = {}
     if assume.g_params:
@@ -81,8 +83,9 @@ def ejection_speed_at(assume: BudgetAssumptions, r_h: u.Quantity,
         return outflow_speed_law(u.Quantity(r_h, u.au)).to(u.km / u.s)
     if isinstance(assume.ejection, dict):
         if molecular_mass is None:
-            msg = "budget: a thermal ejection speed needs the molecular mass of the species"
-            raise ValueError(msg)
+            msg = ("budget.ejection_speed_km_s = {'thermal_K': ...} needs the molecular mass of the species, found "
+                   "none; expected a species from the catalogue")
+            raise ConfigError(msg)
         return thermal_ejection_speed(assume.ejection["thermal_K"] * u.K, molecular_mass).to(u.km / u.s)
     return float(assume.ejection) * u.km / u.s
 

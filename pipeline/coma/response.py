@@ -13,13 +13,13 @@ from dataclasses import dataclass
 import astropy.units as u
 import numpy as np
 
-from pipeline.catalogue.entries import Line, Species
+from pipeline.catalogue.entries import Band, Line, Species
 from pipeline.errors import CatalogueError, ConfigError
 from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, scale_length
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 
-__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES", "GridGeometry", "line_response_on_grid"]
+__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES", "GridGeometry", "line_response_on_grid", "band_response_on_grid"]
 
 
 @dataclass(frozen=True)
@@ -152,6 +152,31 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
         if correct_filtering:
             resp = resp * surviving[None, :]
     return resp * (u.Jy * u.km / u.s * u.s), surviving
+
+
+def band_response_on_grid(band: Band, species: Species, parent: Species | None, r_h: u.Quantity, delta: u.Quantity,
+                          grid: GridGeometry, model: ComaModel) -> u.Quantity:
+    """Band flux per unit production rate in each aperture, counted on the data's own pixel grid.
+
+    R(ρ) = g(r_h) hc/λ / (4πΔ²) × N_ap: the optically thin, solar-pumped fluorescence of one molecule
+    (:func:`pipeline.coma.conversion.band_flux_from_molecules`) times the molecules each aperture counts on the
+    model coma convolved with the point-spread function (:func:`pipeline.coma.image.aperture_count_on_grid`).
+
+    Returns
+    -------
+    Quantity, shape (n_apertures,), in W m-2 s (band flux per molecule/s)
+    """
+    from pipeline.coma.conversion import band_flux_from_molecules
+    from pipeline.coma.image import aperture_count_on_grid
+
+    r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
+    v_out = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
+    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
+    count = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
+                                   length, daughter)
+    per_molecule = band_flux_from_molecules(1.0 * u.one, band.wavelength, band.g_1au, r_h, delta)
+    return u.Quantity([(per_molecule * c).to_value(u.W / u.m**2) for c in count], u.W / u.m**2 * u.s)
 
 
 SPECTRAL_RESPONSES = {"none": np.array([1.0]), "hanning": np.array([0.25, 0.5, 0.25])}

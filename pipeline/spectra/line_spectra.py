@@ -15,7 +15,6 @@ from dataclasses import dataclass
 import astropy.constants as const
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
 from astropy.table import Table
 
 from pipeline.spectra.apertures import (aperture_spectra, aperture_weights, flux_conversion, offsource_positions,

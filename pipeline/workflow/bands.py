@@ -22,24 +22,19 @@ from typing import Any
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
 from astropy.table import QTable, Table
 
 from pipeline.spectra.apertures import radius_in_pixels
 from pipeline.io.atomic import write_fits
-from pipeline.spectra.band_measure import band_capture, continuum_level, continuum_mask, integration_window, measure_band
+from pipeline.spectra.band_measure import band_capture, continuum_level, measure_band
 from pipeline.catalogue.entries import Band, Catalogue
-from pipeline.coma.image import aperture_count_on_grid
-from pipeline.geometry.comoving import target_frame_frequencies
-from pipeline.coma.conversion import band_flux_from_molecules
 from pipeline.io.cubes import CubeInfo, read_cube_info
 from pipeline.dust.afrho import afrho, slope_percent_per_100nm, spectral_slope
 from pipeline.errors import CoverageError, CubeError
 from pipeline.spectra.ir_spectra import F_LAMBDA, IRSpectra, extract_ir_spectra
 from pipeline.io.products import BandMeasurements
 from pipeline.io.provenance import add_to_header, provenance_record
-from pipeline.coma.response import ComaModel, outflow_speed, scale_lengths
-from pipeline.dust.solar import solar_flux_density
+from pipeline.coma.response import ComaModel, GridGeometry, band_response_on_grid, outflow_speed
 from pipeline.settings import DustSettings, InfraredSettings, Settings
 from pipeline.spectra.band_windows import band_setup, band_windows, doppler_factor, resolving_power_of, scatter_sigma
 
@@ -51,7 +46,7 @@ _RESPONSE = u.W / u.m**2 * u.s
 
 def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Band, windows, catalogue: Catalogue,
                ir: InfraredSettings, model: ComaModel, geo, info: CubeInfo, radii_km: list[float], x: float, y: float,
-               resolving_power: float, free_all: np.ndarray) -> tuple[list[dict], np.ndarray]:
+               resolving_power: float) -> tuple[list[dict], np.ndarray]:
     """Rows of the BANDS table for one band (one per aperture) and its continuum models (n_ap, n_chan)."""
     lo, hi, wlo, whi = windows[band.band_id]
     n_ap, n_chan = spectra.flux.shape
@@ -70,13 +65,11 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
     parent = catalogue.get_species(species.parent) if species.parent else None
     r_h, delta = u.Quantity(geo["r_h"]), u.Quantity(geo["delta"])
     v_out = outflow_speed(model, r_h)
-    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
-    pix_km = info.pixel_scale.to_value(u.rad) * delta.to_value(u.km)
     psf = ((info.beam_major / info.pixel_scale).decompose().value, (info.beam_minor / info.pixel_scale).decompose().value,
            info.beam_pa.to_value(u.deg)) if info.beam_major is not None else None
-    count = aperture_count_on_grid(info.shape[1:], x, y, list(spectra.radius_pix), pix_km, psf, v_out, length,
-                                   daughter)
-    per_molecule = band_flux_from_molecules(1.0 * u.one, band.wavelength, band.g_1au, r_h, delta)
+    grid = GridGeometry(shape=info.shape[1:], x=x, y=y, pixel_arcsec=float(info.pixel_scale.to_value(u.arcsec)),
+                        radii_pix=list(spectra.radius_pix), beam_pix=psf)
+    responses = band_response_on_grid(band, species, parent, r_h, delta, grid, model).to_value(u.W / u.m**2 * u.s)
     rows = []
     for j, radius in enumerate(radii_km):
         try:
@@ -88,7 +81,7 @@ def _band_rows(spectra: IRSpectra, sigma: u.Quantity, obs: u.Quantity, band: Ban
         span = obs[free | ((obs >= wlo) & (obs <= whi))]
         inside = (obs >= span.min()) & (obs <= span.max())          # the model only where it was fitted and used
         models[j] = np.where(inside, np.asarray(u.Quantity(m.continuum_model).to_value(F_LAMBDA)), np.nan)
-        response = (per_molecule * count[j]).to_value(u.W / u.m**2)        # band flux per unit Q (s)
+        response = float(responses[j])                                     # band flux per unit Q [W m-2 s]
         flux = m.flux.to_value(u.W / u.m**2)
         rows.append(dict(base, covered=True, reason="", aperture_km=radius, aperture_index=j,
                          radius_pix=float(spectra.radius_pix[j]), flux=flux,
@@ -183,7 +176,7 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
     for band_id in band_ids:
         band = catalogue.get_band(band_id)
         rows, models = _band_rows(spectra, sigma, obs, band, windows, catalogue, settings.infrared, settings.coma, geo,
-                                  info, radii_km, x, y, rpow, free_all)
+                                  info, radii_km, x, y, rpow)
         band_rows.extend(rows)
         continua.append(models)
     dust_rows, colour_rows = _dust_rows(spectra, sigma, obs, free_all, settings.dust, geo, radii_km, windows)

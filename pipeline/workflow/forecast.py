@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
 from astropy.table import QTable
 from astropy.time import Time
 

@@ -6,14 +6,14 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
-from astropy.table import QTable, Table
+from astropy.table import QTable
 
 from pipeline.io.atomic import write_table
 from pipeline.rates.band_injection import inject_band, ring_positions
 from pipeline.io.cubes import read_cube_info
 from pipeline.rates.line_injection import inject_spectra, placements
 from pipeline.rates.stacking import StackInput
+from pipeline.rates.statistics import inverse_variance_mean
 from pipeline.spectra.band_windows import band_setup, band_windows
 from pipeline.io.products import BandMeasurements, SubCube
 from pipeline.io.provenance import provenance_record
@@ -118,10 +118,8 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
         for key, members in band_groups(list(bands_paths or []), species, q, settings, t_all.size).items():
             groups.setdefault(key, []).extend(members)
         for (index, vrank), members in sorted(groups.items()):
-            w = np.array([1 / m.sigma_q[it] ** 2 for m in members])             # (n, n_ap)
-            qs = np.array([m.q[it] for m in members])
-            q_rec = (w * qs).sum(axis=0) / w.sum(axis=0)
-            sig = 1 / np.sqrt(w.sum(axis=0))
+            q_rec, sig = inverse_variance_mean(np.array([m.q[it] for m in members]),          # (n, n_ap)
+                                               np.array([m.sigma_q[it] for m in members]), axis=0)
             for j, radius in enumerate(members[0].radius_km):
                 rows.append({"level": level, "q_injected": q, "t_kin_K": float(t_all[it]), "placement": index,
                              "velocity_slot": vrank, "aperture_km": float(radius), "q_recovered": q_rec[j],

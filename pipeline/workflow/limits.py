@@ -6,8 +6,7 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.io import fits
-from astropy.table import QTable, Table
+from astropy.table import QTable
 
 from pipeline.io.atomic import write_json, write_table
 from pipeline.io.products import SpeciesStack

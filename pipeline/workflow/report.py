@@ -8,8 +8,7 @@ import json
 import astropy.units as u
 import numpy as np
 import yaml
-from astropy.io import fits
-from astropy.table import QTable, Table
+from astropy.table import QTable
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
@@ -17,7 +16,7 @@ from pipeline.budget.table import acceleration_at, ejection_speed_at
 from pipeline.report.figures import BandPanel, SpectrumPanel, plot_band_spectra, plot_mass_budget, plot_stacked_spectra, plot_temperature_sweep, to_png
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 from pipeline.report.html import figure_html, page, table_html
-from pipeline.coma.response import SPECTRAL_RESPONSES, outflow_speed
+from pipeline.coma.response import SPECTRAL_RESPONSES
 from pipeline.io.products import BandMeasurements, SpeciesStack
 from pipeline.settings import Settings
 

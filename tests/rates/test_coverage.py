@@ -10,7 +10,6 @@ the empirically measured window noise, it does not (correlated channels make sig
 import astropy.units as u
 import numpy as np
 import pytest
-from astropy.io import fits
 from cubes import write_subcube
 from scipy import stats
 from scipy.signal import fftconvolve
@@ -19,7 +18,6 @@ from pipeline.io.products import LineSpectra, SubCube
 from pipeline.catalogue.entries import load_catalogue
 from pipeline.coma.image import apply_spectral_response, beam_kernel, model_line_cube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
-from pipeline.coma.response import ComaModel
 from pipeline.coma.response import ComaModel
 from pipeline.rates.q_units import stack_input
 from pipeline.rates.statistics import bayesian_upper_limit, nsigma_to_confidence

@@ -7,7 +7,7 @@ import numpy as np
 from astropy.io import fits
 from astropy.time import Time
 
-from pipeline.io.products import LineSpectra, SubCube
+from pipeline.io.products import LineSpectra
 from pipeline.settings import load_config
 from pipeline.geometry.ephemeris import read_ephemeris
 from pipeline.rates.forecast import PlannedEpoch, forecast_sigma

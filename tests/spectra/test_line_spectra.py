@@ -6,7 +6,7 @@ import pytest
 from astropy.io import fits
 from astropy.table import Table
 
-from pipeline.io.products import LineSpectra, SubCube
+from pipeline.io.products import SubCube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from synthetic_cubes.generate import hanning
 

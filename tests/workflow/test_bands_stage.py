@@ -48,7 +48,7 @@ def ir_run(tmp_path_factory):
                   InfraredSetup("long", ("e1",), 4.00, 5.00, 0.0050, 480.0, 0.4, 48, 0.35, 3.0e-7, "W/m2/um/sr")):
         path = tmp / f"{setup.name}.fits"
         with future_time_tolerated():
-            write_ir_cube(path, sc, setup, "e1", mid, geo, CAT, np.random.default_rng(sc.seed))
+            write_ir_cube(path, sc, setup, mid, geo, CAT, np.random.default_rng(sc.seed))
         config = {"target": {"elements": sc.elements}, "cubes": [{"path": str(path)}], "species": ["H2O", "CO2", "CO"],
                   "observatory": {k: sc.site[k] for k in ("lon_deg", "lat_deg", "height_m")},
                   "apertures_km": [1000.0, 3000.0], "dust": {"wavelengths_um": [2.5, 2.9, 4.1, 4.45, 4.9]}}

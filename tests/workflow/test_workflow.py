@@ -101,7 +101,11 @@ def test_outputs_contract_and_provenance(campaign):
     prov = table.meta["provenance"]
     assert prov["software"] == "gasledger" and prov["inputs"]
     assert all(v.startswith("sha256:") for v in prov["inputs"].values())
-    assert prov["config"]["species"] == ["CH3OH", "CO", "CO2", "H2O", "HCN"]
+    # the record holds the config keys the limits rule declares (rules/limits.smk), nothing else, and the code digest
+    assert set(prov["config"]) == {"outdir", "limits", "coma"}
+    assert set(prov["config"]["limits"]) == {"nsigma", "activity_slope"}
+    assert prov["config"]["limits"]["nsigma"] == yaml.safe_load(config.read_text()).get("limits", {}).get("nsigma", 3)
+    assert len(prov["code"]) == 16
     budget = json.loads((root / "results" / "budget.json").read_text())
     verdicts = {d["species"]: d["verdict"] for d in budget["drivers"]}
     assert all(verdicts[s] != "not observed" for s in ("H2O", "CO2", "CO"))    # the infrared cubes cover them
