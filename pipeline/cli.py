@@ -19,7 +19,8 @@ import numpy as np
 
 from pipeline.catalogue.entries import load_catalogue
 from pipeline.settings import append_cubes, load_settings, validate_config, write_campaign
-from pipeline.io.cubes import observation_times, read_cube_info
+from pipeline.io.cubes import read_cube_info
+from pipeline.io.times import observation_times
 from pipeline.geometry.ephemeris import read_ephemeris
 from pipeline.errors import GasledgerError
 from pipeline.offline import future_time_tolerated
@@ -30,13 +31,13 @@ __all__ = ["main", "covered_lines"]
 
 
 def covered_lines(path: str, ephemeris, catalogue, species: list[str], location, time_override=None,
-                  margin_km_s: float = 5.0) -> list[str]:
+                  margin_km_s: float = 5.0, duration=None) -> list[str]:
     """Line ids whose rest frequency, at the target's actual Doppler shift, falls inside the cube's band.
 
     For an infrared cube: the ids of the bands whose whole extent falls inside its rest-frame wavelength range.
     """
     info = read_cube_info(path)
-    _, mid, _ = observation_times(info, time_override)
+    _, mid, _ = observation_times(info.header, info.path, time_override, duration)
     geo = ephemeris.at(mid, what=str(path))
     if info.specsys == "SOURCE":
         rest = info.frequencies
@@ -71,8 +72,12 @@ def cmd_new(args) -> int:
     ephem = read_ephemeris(args.ephemeris)
     location = observer_location(observatory)
     for path in cubes:
-        lines = covered_lines(str(path), ephem, catalogue, list(args.species), location)
         campaign["cubes"].append({"path": str(path), "id": path.name.split(".")[0]})
+        try:
+            lines = covered_lines(str(path), ephem, catalogue, list(args.species), location)
+        except GasledgerError as exc:     # listed, not fatal: the user completes the entry (e.g. its time)
+            print(f"{path.name}: needs attention: {exc}")
+            continue
         print(f"{path.name}: {', '.join(lines) if lines else 'no catalogue line of these species'}")
     write_campaign(campaign, Path(args.output), "# Written by 'gasledger new'.\n")
     print(f"wrote {args.output} with {len(cubes)} cube(s); run: snakemake --cores 2 --configfile {args.output}")
@@ -114,15 +119,18 @@ def cmd_check(args) -> int:
     for entry in settings.cubes:
         try:
             info = read_cube_info(entry.path)
-            _, mid, _ = observation_times(info, entry.time)
-            lines = covered_lines(entry.path, ephem, catalogue, species, location, entry.time) \
-                if ephem is not None else []
+            duration = entry.duration_s * u.s if entry.duration_s is not None else None
+            times = observation_times(info.header, info.path, entry.time, duration)
+            mid = times.mid
+            lines = covered_lines(entry.path, ephem, catalogue, species, location, entry.time,
+                                  duration=duration) if ephem is not None else []
             ir = info.regime == "infrared"
             for ln in lines:
                 covered[(catalogue.get_band(ln) if ir else catalogue.get_line(ln)).species] += 1
             f = info.wavelengths.to_value(u.um) if ir else info.frequencies.to_value(u.GHz)
             print(f"  {entry.cube_id:18s} epoch {entry.epoch:8s} {mid.isot[:19]}  {np.min(f):.3f}-{np.max(f):.3f} "
-                  f"{'um ' if ir else 'GHz'} {info.specsys:8s} {'bands' if ir else 'lines'}: {', '.join(lines) or 'none'}")
+                  f"{'um ' if ir else 'GHz'} {info.specsys:8s} {'bands' if ir else 'lines'}: {', '.join(lines) or 'none'}; "
+                  f"mid-time from {times.source}")
         except GasledgerError as exc:
             problems.append(str(exc))
     for name, n in covered.items():

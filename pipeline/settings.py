@@ -79,6 +79,7 @@ class CubeEntry:
     position: str = "auto"
     offset: tuple[float, float] = (0.0, 0.0)
     resolving_power: float | None = None     # infrared cubes: lambda / FWHM of the line-spread function
+    duration_s: float | None = None          # wall-clock length of the exposure, for a header giving only its start
 
 
 def _load_schema() -> dict:
@@ -199,7 +200,7 @@ def _cube_entry(item: dict[str, Any], i: int, source: str) -> CubeEntry:
     return CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id), path=item["path"], time=item.get("time"),
                      spectral_response=item["spectral_response"], tracked=bool(item["tracked"]),
                      position=item["position"], offset=tuple(item["offset_arcsec"]),
-                     resolving_power=item.get("resolving_power"))
+                     resolving_power=item.get("resolving_power"), duration_s=item.get("duration_s"))
 
 
 def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:

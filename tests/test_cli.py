@@ -32,7 +32,9 @@ def test_new_finds_the_lines_each_cube_covers(cubes, tmp_path, capsys):
     assert "e1_ir_long.fits: CO_v1-0" in text                               # an infrared cube lists its bands
     assert len(config["cubes"]) == 8 and config["species"] == ["HCN", "CO", "CH3OH"]
     assert main(["check", str(out)]) == 0
-    assert "no problems found" in capsys.readouterr().out
+    text = capsys.readouterr().out
+    assert "no problems found" in text
+    assert text.count("mid-time from DATE-OBS/DATE-END") == 8                  # each cube says where its time came from
 
 
 def test_add_appends_and_refuses_duplicates(cubes, tmp_path, capsys):

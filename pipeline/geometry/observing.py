@@ -17,7 +17,8 @@ from astropy.coordinates import EarthLocation, SkyCoord
 from astropy.table import QTable
 from astropy.time import Time
 
-from pipeline.io.cubes import CubeInfo, observation_times
+from pipeline.io.cubes import CubeInfo
+from pipeline.io.times import observation_times
 from pipeline.geometry.ephemeris import Ephemeris
 from pipeline.errors import ConfigError, CoverageError, MotionWarning
 from pipeline.offline import future_time_tolerated
@@ -59,10 +60,12 @@ def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
 def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str | None = None,
                   ephemeris: Ephemeris | None = None, elements: OrbitalElements | None = None,
                   location: EarthLocation | None = None, tracked: bool = True, position: str = "auto",
-                  offset: tuple[float, float] = (0.0, 0.0)) -> QTable:
+                  offset: tuple[float, float] = (0.0, 0.0), duration: u.Quantity | None = None) -> QTable:
     """One-row table with the geometry of the target for one cube.
 
-    Columns: cube_id, epoch, time_start/time_mid/time_end (UTC), ra, dec, r_h,
+    Columns: cube_id, epoch, time_start/time_mid/time_end (UTC), time_source (the header cards or config keys
+    the times came from, :func:`pipeline.io.times.observation_times`; ``duration`` completes a header that
+    gives only a start), ra, dec, r_h,
     delta, delta_dot, phase, motion (sky motion during the exposure),
     delta_dot_change (change of the radial velocity during the exposure),
     x_pix, y_pix (0-based pixel position of the target at mid-time), specsys,
@@ -86,7 +89,8 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     CoverageError
         When the target lies outside the cube's field.
     """
-    start, mid, end = observation_times(info, time_override)
+    exposure = observation_times(info.header, info.path, time_override, duration)
+    start, mid, end = exposure
     times = Time([start, mid, end])
     geo = target_geometry(times, what=f"cube {cube_id} ({info.path})", ephemeris=ephemeris,
                           elements=elements, location=location)
@@ -124,7 +128,7 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     row = {
         "cube_id": [cube_id], "epoch": [epoch],
         "time_start": Time([start.isot], scale="utc"), "time_mid": Time([mid.isot], scale="utc"),
-        "time_end": Time([end.isot], scale="utc"),
+        "time_end": Time([end.isot], scale="utc"), "time_source": [exposure.source],
         "ra": [geo["ra"][1].to_value(u.deg)] * u.deg, "dec": [geo["dec"][1].to_value(u.deg)] * u.deg,
         "r_h": [geo["r_h"][1].to_value(u.au)] * u.au, "delta": [geo["delta"][1].to_value(u.au)] * u.au,
         "delta_dot": [geo["delta_dot"][1].to_value(u.km / u.s)] * (u.km / u.s),

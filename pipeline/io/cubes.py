@@ -1,4 +1,4 @@
-"""Reading spectral cubes: header checks, spectral axis, beam, time, and data access.
+"""Reading spectral cubes: header checks, spectral axis, beam and data access (times: :mod:`pipeline.io.times`).
 
 Cubes are FITS images with two celestial axes and one spectral axis (a
 degenerate Stokes axis of length one is accepted and ignored). The data are
@@ -26,7 +26,6 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 from astropy.io import fits
-from astropy.time import Time
 from astropy.wcs import WCS, FITSFixedWarning
 from astropy.wcs.utils import proj_plane_pixel_scales
 
@@ -37,7 +36,6 @@ __all__ = [
     "CubeInfo",
     "read_cube_info",
     "open_data",
-    "observation_times",
     "SPECSYS_VALUES",
     "BRIGHTNESS_KINDS",
     "brightness_unit",
@@ -439,49 +437,3 @@ class _DataContext:
             except TypeError:  # an error class with another signature: leave it as it is
                 return
             raise named from exc
-
-
-def _iso_card(h: fits.Header, card: str, path, example: str) -> Time:
-    """A header card holding an ISO UTC time, or one sentence naming the card."""
-    try:
-        return Time(str(h[card]), scale="utc")
-    except ValueError as exc:
-        msg = f"{path}: header card {card} = {h[card]!r} is not an ISO time; expected e.g. '{example}' (UTC)"
-        raise CubeError(msg) from exc
-
-
-def observation_times(info: CubeInfo, override: str | None = None) -> tuple[Time, Time, Time]:
-    """Start, mid and end time of the exposure (UTC).
-
-    From ``override`` (a mid-time, taken as instantaneous) when given; else
-    DATE-OBS (or MJD-OBS) plus DATE-END, or plus EXPTIME / XPOSURE seconds.
-    """
-    path, h = info.path, info.header
-    if override is not None:
-        try:
-            t = Time(override, scale="utc")
-        except ValueError as exc:
-            msg = f"{path}: config 'time' = {override!r} is not a valid ISO time"
-            raise CubeError(msg) from exc
-        return t, t, t
-    if "DATE-OBS" in h:
-        start = _iso_card(h, "DATE-OBS", path, "2030-06-01T02:00:00")
-    elif "MJD-OBS" in h:
-        try:
-            start = Time(float(h["MJD-OBS"]), format="mjd", scale="utc")
-        except (TypeError, ValueError) as exc:
-            msg = f"{path}: header card MJD-OBS = {h['MJD-OBS']!r} is not a number; expected a Modified Julian Date"
-            raise CubeError(msg) from exc
-    else:
-        msg = (f"{path}: header cards DATE-OBS and MJD-OBS are both missing; expected the observation time "
-               "(or the cube's 'time' key in the config)")
-        raise CubeError(msg)
-    if "DATE-END" in h:
-        end = _iso_card(h, "DATE-END", path, "2030-06-01T03:00:00")
-    else:
-        exptime = h.get("EXPTIME", h.get("XPOSURE", 0.0))
-        end = start + float(exptime) * u.s
-    if end < start:
-        msg = f"{path}: DATE-END ({end.isot}) precedes DATE-OBS ({start.isot})"
-        raise CubeError(msg)
-    return start, start + (end - start) / 2, end

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import astropy.units as u
+
 from pipeline.geometry.ephemeris import check_spacing, read_ephemeris
 from pipeline.geometry.observing import cube_geometry
 from pipeline.io.atomic import write_table
@@ -27,6 +29,7 @@ def run(settings: Settings, out_path: str) -> None:
         check_spacing(ephem)
     table = cube_geometry(info, cube.cube_id, cube.epoch, cube.time, ephemeris=ephem, elements=target.elements,
                           location=settings.location, tracked=cube.tracked, position=cube.position,
-                          offset=tuple(cube.offset))
+                          offset=tuple(cube.offset),
+                          duration=cube.duration_s * u.s if cube.duration_s is not None else None)
     table.meta["provenance"] = provenance_record(settings, inputs, "geometry")
     write_table(table, Path(out_path))

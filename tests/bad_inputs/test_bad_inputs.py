@@ -210,7 +210,13 @@ CASES = [
          (SUB, r"hold the same value \(0\)", r"expected noisy data")),
     # the exposure time
     Case("DATE-OBS missing", _cube(**{"DATE-OBS": None}), "geometry",
-         (r"c1\.fits: header cards DATE-OBS and MJD-OBS are both missing", r"expected the observation time")),
+         (r"c1\.fits: no observation time in the header", r"expected one, or the cube's 'time' key")),
+    Case("start-only DATE-OBS", _cube(**{"DATE-END": None}), "geometry",
+         (r"c1\.fits: the header gives only DATE-OBS, not the exposure's end or middle",
+          r"set the cube's 'time' \(mid-time\) or 'duration_s'")),
+    Case("date-only DATE-OBS", _cube(**{"DATE-OBS": "2031-03-12"}), "geometry",
+         (r"c1\.fits: header card DATE-OBS = '2031-03-12' holds a date without a time of day",
+          r"expected DATE-OBS with a time, or TIME-OBS")),
     Case("DATE-OBS unparsable", _cube(**{"DATE-OBS": "yesterday evening"}), "geometry",
          (r"c1\.fits: header card DATE-OBS = 'yesterday evening' is not an ISO time", r"expected e\.g\. '2030")),
     # the ephemeris table

@@ -11,7 +11,7 @@ from astropy.time import Time
 from cubes import write_cube
 
 from pipeline.io.cubes import read_cube_info
-from pipeline.errors import ConfigError, MotionWarning, SpacingWarning
+from pipeline.errors import CubeError, ConfigError, MotionWarning, SpacingWarning
 from pipeline.geometry.ephemeris import check_spacing, interpolation_error, read_ephemeris
 from pipeline.geometry.observing import cube_geometry
 from pipeline.geometry.make_ephemeris import main as make_ephemeris
@@ -88,6 +88,26 @@ def test_untracked_motion_warns(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("error", MotionWarning)
         cube_geometry(cube, "c", "e", ephemeris=ephem, tracked=True)
+
+
+def test_a_start_only_cube_is_placed_with_the_configured_duration(tmp_path):
+    # the same moving target as above: DATE-OBS alone is refused; with duration_s = 1800 s the mid-time is
+    # DATE-OBS + 900 s and the target position follows (10 arcsec/h along RA: ra_mid as computed above)
+    times = Time("2024-03-01T00:00:00") + np.arange(0, 25, 0.5) * u.h
+    ra = 150.0 + (np.arange(len(times)) * 3) * 10 / 3600 / 6
+    eph = QTable({"time": times, "ra": ra * u.deg, "dec": np.full(len(times), -20.0) * u.deg,
+                  "r_h": np.full(len(times), 1.5) * u.au, "delta": np.full(len(times), 1.0) * u.au,
+                  "delta_dot": np.full(len(times), 5.0) * u.km / u.s})
+    write_ephemeris(eph, tmp_path / "e.ecsv")
+    ephem = read_ephemeris(tmp_path / "e.ecsv")
+    cube = read_cube_info(write_cube(tmp_path / "s.fits", EXPTIME=None, CRVAL1=150.0 + 10.25 * 10 / 3600))
+    with pytest.raises(CubeError, match=r"s\.fits: the header gives only DATE-OBS"):
+        cube_geometry(cube, "c", "e", ephemeris=ephem)
+    geo = cube_geometry(cube, "c", "e", ephemeris=ephem, duration=1800 * u.s)[0]
+    assert abs((geo["time_mid"] - Time("2024-03-01T10:15:00", scale="utc")).to_value(u.s)) < 1e-3
+    assert geo["time_source"] == "DATE-OBS + config 'duration_s'"
+    # linear interpolation of this linear track is exact: RA at 10:15 = 150 deg + 10.25 h x 10"/h
+    assert geo["ra"].to_value(u.deg) == pytest.approx(150.0 + 10.25 * 10 / 3600, abs=1e-9)
 
 
 def test_spacing_warning_for_coarse_table(tmp_path):
