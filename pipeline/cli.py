@@ -31,12 +31,12 @@ __all__ = ["main", "covered_lines"]
 
 
 def covered_lines(path: str, ephemeris, catalogue, species: list[str], location, time_override=None,
-                  margin_km_s: float = 5.0, duration=None) -> list[str]:
+                  margin_km_s: float = 5.0, duration=None, beam_arcsec=None) -> list[str]:
     """Line ids whose rest frequency, at the target's actual Doppler shift, falls inside the cube's band.
 
     For an infrared cube: the ids of the bands whose whole extent falls inside its rest-frame wavelength range.
     """
-    info = read_cube_info(path)
+    info = read_cube_info(path, beam_arcsec)
     _, mid, _ = observation_times(info.header, info.path, time_override, duration)
     geo = ephemeris.at(mid, what=str(path))
     if info.specsys == "SOURCE":
@@ -118,12 +118,12 @@ def cmd_check(args) -> int:
     covered = {s: 0 for s in species}
     for entry in settings.cubes:
         try:
-            info = read_cube_info(entry.path)
+            info = read_cube_info(entry.path, entry.beam_arcsec)
             duration = entry.duration_s * u.s if entry.duration_s is not None else None
             times = observation_times(info.header, info.path, entry.time, duration)
             mid = times.mid
             lines = covered_lines(entry.path, ephem, catalogue, species, location, entry.time,
-                                  duration=duration) if ephem is not None else []
+                                  duration=duration, beam_arcsec=entry.beam_arcsec) if ephem is not None else []
             ir = info.regime == "infrared"
             for ln in lines:
                 covered[(catalogue.get_band(ln) if ir else catalogue.get_line(ln)).species] += 1

@@ -80,6 +80,7 @@ class CubeEntry:
     offset: tuple[float, float] = (0.0, 0.0)
     resolving_power: float | None = None     # infrared cubes: lambda / FWHM of the line-spread function
     duration_s: float | None = None          # wall-clock length of the exposure, for a header giving only its start
+    beam_arcsec: tuple[float, float, float] | None = None   # (major, minor, PA) for a cube whose header has no beam
 
 
 def _load_schema() -> dict:
@@ -200,7 +201,8 @@ def _cube_entry(item: dict[str, Any], i: int, source: str) -> CubeEntry:
     return CubeEntry(cube_id=cube_id, epoch=item.get("epoch", cube_id), path=item["path"], time=item.get("time"),
                      spectral_response=item["spectral_response"], tracked=bool(item["tracked"]),
                      position=item["position"], offset=tuple(item["offset_arcsec"]),
-                     resolving_power=item.get("resolving_power"), duration_s=item.get("duration_s"))
+                     resolving_power=item.get("resolving_power"), duration_s=item.get("duration_s"),
+                     beam_arcsec=tuple(item["beam_arcsec"]) if "beam_arcsec" in item else None)
 
 
 def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:

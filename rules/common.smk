@@ -17,9 +17,11 @@ try:
         CATALOGUE.get_species(_name)
     CUBES = {c.cube_id: c for c in SETTINGS.cubes}
     CUBE_ITEMS = {c.cube_id: item for c, item in zip(SETTINGS.cubes, config["cubes"])}
-    LINES = {cid: lines_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
-    IR_CUBES = {cid: read_cube_info(c.path).regime == "infrared" for cid, c in CUBES.items()}
-    BANDS = {cid: bands_for_cube(c.path, CATALOGUE, config["species"]) for cid, c in CUBES.items()}
+    # each cube's header read once (with the config's beam for a cube whose header has none)
+    INFOS = {cid: read_cube_info(c.path, c.beam_arcsec) for cid, c in CUBES.items()}
+    LINES = {cid: lines_for_cube(INFOS[cid], CATALOGUE, config["species"]) for cid in CUBES}
+    IR_CUBES = {cid: INFOS[cid].regime == "infrared" for cid in CUBES}
+    BANDS = {cid: bands_for_cube(INFOS[cid], CATALOGUE, config["species"]) for cid in CUBES}
 except GasledgerError as exc:
     sys.exit(f"gasledger: {exc}")
 

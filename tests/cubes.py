@@ -48,8 +48,12 @@ def cube_header(shape: tuple[int, int, int] = SHAPE, **cards) -> fits.Header:
 
 
 def write_cube(path: str | Path, shape: tuple[int, int, int] = SHAPE, seed: int = 0, stokes: bool = False,
-               **cards) -> Path:
-    """Write seeded N(0, 1) data with :func:`cube_header` (plus ``cards``) to ``path``; return the path."""
+               beams_arcsec: np.ndarray | None = None, **cards) -> Path:
+    """Write seeded N(0, 1) data with :func:`cube_header` (plus ``cards``) to ``path``; return the path.
+
+    ``beams_arcsec`` (n_chan, 3: major, minor [arcsec], PA [deg]) adds a per-channel BEAMS table in the layout
+    interferometer pipelines write (CASAMBM = T, no BMAJ/BMIN cards).
+    """
     path = Path(path)
     rng = np.random.default_rng(seed)
     data = rng.normal(size=shape).astype(np.float32)
@@ -64,7 +68,19 @@ def write_cube(path: str | Path, shape: tuple[int, int, int] = SHAPE, seed: int 
     for key, value in header.items():
         if key not in ("NAXIS", "NAXIS1", "NAXIS2", "NAXIS3", "NAXIS4"):
             hdu.header[key] = value
-    hdu.writeto(path, overwrite=True)
+    hdus = [hdu]
+    if beams_arcsec is not None:
+        for key in ("BMAJ", "BMIN", "BPA"):
+            hdu.header.remove(key, ignore_missing=True)
+        hdu.header["CASAMBM"] = True
+        beams = np.asarray(beams_arcsec, dtype=float)
+        cols = [fits.Column(name="BMAJ", format="E", unit="arcsec", array=beams[:, 0]),
+                fits.Column(name="BMIN", format="E", unit="arcsec", array=beams[:, 1]),
+                fits.Column(name="BPA", format="E", unit="deg", array=beams[:, 2]),
+                fits.Column(name="CHAN", format="J", array=np.arange(len(beams))),
+                fits.Column(name="POL", format="J", array=np.zeros(len(beams), dtype=int))]
+        hdus.append(fits.BinTableHDU.from_columns(cols, name="BEAMS"))
+    fits.HDUList(hdus).writeto(path, overwrite=True)
     return path
 
 

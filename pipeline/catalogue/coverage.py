@@ -14,15 +14,14 @@ import astropy.constants as const
 import astropy.units as u
 
 from pipeline.catalogue.entries import Catalogue
-from pipeline.io.cubes import read_cube_info
+from pipeline.io.cubes import CubeInfo, read_cube_info  # noqa: F401  (read_cube_info: named in docstrings)
 
 __all__ = ["lines_for_cube", "bands_for_cube"]
 
 
-def lines_for_cube(path: str, catalogue: Catalogue, species: list[str],
+def lines_for_cube(info: CubeInfo, catalogue: Catalogue, species: list[str],
                    margin: u.Quantity = 100 * u.km / u.s) -> list[str]:
-    """Line ids of ``species`` that may fall in the band of the cube at ``path``."""
-    info = read_cube_info(path)
+    """Line ids of ``species`` that may fall in the band of the cube ``info`` (:func:`read_cube_info`)."""
     if info.regime == "infrared":
         return []
     fmin, fmax = info.frequencies.min(), info.frequencies.max()
@@ -35,10 +34,9 @@ def lines_for_cube(path: str, catalogue: Catalogue, species: list[str],
     return out
 
 
-def bands_for_cube(path: str, catalogue: Catalogue, species: list[str],
+def bands_for_cube(info: CubeInfo, catalogue: Catalogue, species: list[str],
                    margin: u.Quantity = 100 * u.km / u.s) -> list[str]:
-    """Band ids of ``species`` whose extent may overlap the wavelength range of the infrared cube at ``path``."""
-    info = read_cube_info(path)
+    """Band ids of ``species`` whose extent may overlap the wavelength range of the infrared cube ``info``."""
     if info.regime != "infrared":
         return []
     lam = info.wavelengths

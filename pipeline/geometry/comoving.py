@@ -108,6 +108,15 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
                    freq0_hz=float(info.frequencies[c0].to_value(u.Hz)),
                    dfreq_hz=float((info.frequencies[1] - info.frequencies[0]).to_value(u.Hz)))
     h = info.header
-    beam = (float(h["BMAJ"]), float(h["BMIN"]), float(h.get("BPA", 0.0))) if "BMAJ" in h and "BMIN" in h else None
+    beams = None
+    if info.channel_beams is not None:                 # the channels' own beams; the median one for the model coma
+        beams = tuple(b[c0:c1] for b in info.channel_beams)
+        beam = tuple(float(np.median(b).to_value(u.deg)) for b in beams)
+    elif "BMAJ" in h and "BMIN" in h:
+        beam = (float(h["BMAJ"]), float(h["BMIN"]), float(h.get("BPA", 0.0)))
+    elif info.beam_major is not None:                  # the config's beam_arcsec
+        beam = (info.beam_major.to_value(u.deg), info.beam_minor.to_value(u.deg), info.beam_pa.to_value(u.deg))
+    else:
+        beam = None
     return SubCube.build(meta, sub, vel[c0:c1], info.celestial_wcs[ys, xs], info.header["BUNIT"], line.freq, beam,
-                         name=f"{info.path} ({line.line_id})")
+                         name=f"{info.path} ({line.line_id})", beams=beams)

@@ -33,6 +33,7 @@ from pipeline.errors import CubeError, GasledgerError
 
 __all__ = [
     "cube_info_from_header",
+    "read_beam_table",
     "CubeInfo",
     "read_cube_info",
     "open_data",
@@ -88,6 +89,8 @@ class CubeInfo:
     pixel_scale: u.Quantity              # geometric mean pixel side (angle)
     hdu: int = 0                         # index of the HDU holding the cube
     error_hdu: int | None = None         # index of the ERR extension, when there is one
+    channel_beams: tuple[u.Quantity, u.Quantity, u.Quantity] | None = None   # per channel (major, minor, PA)
+    beam_source: str = "BMAJ/BMIN cards"  # where the beam came from
 
     @property
     def regime(self) -> str:
@@ -106,11 +109,18 @@ class CubeInfo:
         return np.abs(self.frequencies[1] - self.frequencies[0])
 
     def beam_solid_angle(self) -> u.Quantity:
-        """Solid angle of the Gaussian beam, pi/(4 ln 2) * BMAJ * BMIN."""
+        """Solid angle of the Gaussian beam, pi/(4 ln 2) * BMAJ * BMIN (the cube's one, or median, beam)."""
         if self.beam_major is None:
             msg = f"{self.path}: no beam (BMAJ/BMIN cards) in the header"
             raise CubeError(msg)
         return (np.pi / (4 * np.log(2)) * self.beam_major * self.beam_minor).to(u.sr)
+
+    def channel_beam_solid_angles(self) -> u.Quantity:
+        """Beam solid angle of each channel (shape (n_chan,)) from a per-channel beam table; else the one beam's."""
+        if self.channel_beams is None:
+            return self.beam_solid_angle()
+        major, minor, _ = self.channel_beams
+        return (np.pi / (4 * np.log(2)) * major * minor).to(u.sr)
 
     def pixel_solid_angle(self) -> u.Quantity:
         """Solid angle of one pixel (from the WCS pixel scales)."""
@@ -264,7 +274,7 @@ def _cube_hdus(hdul: fits.HDUList, path: Path) -> tuple[int, int | None]:
     return index, err
 
 
-def read_cube_info(path: str | Path) -> CubeInfo:
+def read_cube_info(path: str | Path, beam_arcsec: tuple[float, float, float] | None = None) -> CubeInfo:
     """Read and check a cube's header.
 
     Raises
@@ -282,15 +292,54 @@ def read_cube_info(path: str | Path) -> CubeInfo:
             for card in _INHERITED:
                 if card in hdul[0].header and card not in header:
                     header[card] = hdul[0].header[card]
-    return cube_info_from_header(header, path, index, err_index)
+        beams = read_beam_table(hdul, path) if "BEAMS" in hdul else None
+    return cube_info_from_header(header, path, index, err_index, beams=beams, beam_arcsec=beam_arcsec)
+
+
+def read_beam_table(hdul: fits.HDUList, path: str | Path) -> tuple[u.Quantity, u.Quantity, u.Quantity]:
+    """Per-channel beams (major, minor FWHM, position angle) from a ``BEAMS`` binary table.
+
+    The layout radio-interferometer pipelines write (columns BMAJ, BMIN, BPA in arcsec and deg unless TUNITn
+    says otherwise, CHAN, POL; header card CASAMBM = T), as radio-beam's ``Beams`` reads it. The rows of the
+    first polarisation, ordered by CHAN, give one beam per channel.
+    """
+    table = hdul["BEAMS"].data
+    names = [n.upper() for n in table.columns.names]
+    missing = [c for c in ("BMAJ", "BMIN", "BPA", "CHAN") if c not in names]
+    if missing:
+        msg = (f"{path}: the BEAMS table lacks the column(s) {', '.join(missing)}; expected BMAJ, BMIN, BPA, CHAN "
+               "(and POL) with one row per channel")
+        raise CubeError(msg)
+    cols = hdul["BEAMS"].columns
+    units = {c.name.upper(): (c.unit or "") for c in cols}
+    chan = np.asarray(table["CHAN"], dtype=int)
+    keep = np.ones(chan.size, dtype=bool)
+    if "POL" in names:
+        pol = np.asarray(table["POL"], dtype=int)
+        keep = pol == pol.min()
+    order = np.argsort(chan[keep], kind="stable")
+
+    def column(name: str, default: u.UnitBase) -> u.Quantity:
+        unit = u.Unit(units[name]) if units[name] else default
+        return u.Quantity(np.asarray(table[name], dtype=float)[keep][order], unit)
+
+    major, minor, pa = column("BMAJ", u.arcsec), column("BMIN", u.arcsec), column("BPA", u.deg)
+    if np.any(~np.isfinite(major)) or np.any(major <= 0) or np.any(minor <= 0):
+        msg = f"{path}: the BEAMS table has non-positive or blank BMAJ/BMIN; expected positive beam sizes"
+        raise CubeError(msg)
+    return major.to(u.deg), minor.to(u.deg), pa.to(u.deg)
 
 
 def cube_info_from_header(header: fits.Header, path: str | Path, hdu: int = 0,
-                          error_hdu: int | None = None) -> CubeInfo:
+                          error_hdu: int | None = None,
+                          beams: tuple[u.Quantity, u.Quantity, u.Quantity] | None = None,
+                          beam_arcsec: tuple[float, float, float] | None = None) -> CubeInfo:
     """Check a cube's header (as :func:`read_cube_info` does) and describe the cube; no file is read.
 
     ``path`` names the cube in messages (a file, or a label for a cube held in memory); ``hdu`` and
-    ``error_hdu`` are where its data and ERR extension sit in that file.
+    ``error_hdu`` are where its data and ERR extension sit in that file. ``beams`` are per-channel beams
+    (:func:`read_beam_table`); ``beam_arcsec`` (major, minor FWHM [arcsec], PA [deg]) is the config's beam for
+    a cube whose header carries none.
     """
     path = Path(path)
     index, err_index = hdu, error_hdu
@@ -368,20 +417,42 @@ def cube_info_from_header(header: fits.Header, path: str | Path, hdu: int = 0,
         raise CubeError(msg)
 
     bmaj = bmin = bpa = None
-    if "BMAJ" in header and "BMIN" in header:
+    source = "BMAJ/BMIN cards"
+    if beams is not None:
+        if len(beams[0]) != dims[2]:
+            msg = (f"{path}: the BEAMS table has {len(beams[0])} rows for one polarisation; expected one per "
+                   f"channel ({dims[2]})")
+            raise CubeError(msg)
+        if beam_arcsec is not None:
+            msg = (f"{path}: the cube carries a per-channel BEAMS table and the config gives beam_arcsec; expected "
+                   "only one of them (remove beam_arcsec for this cube)")
+            raise CubeError(msg)
+        bmaj, bmin, bpa = (np.median(b) for b in beams)
+        source = "BEAMS table (per channel)"
+    elif "BMAJ" in header and "BMIN" in header:
+        if beam_arcsec is not None:
+            msg = (f"{path}: header cards BMAJ/BMIN give the beam and the config gives beam_arcsec too; expected "
+                   "only one of them (beam_arcsec is for a cube whose header has no beam)")
+            raise CubeError(msg)
         bmaj = float(header["BMAJ"]) * u.deg
         bmin = float(header["BMIN"]) * u.deg
         bpa = float(header.get("BPA", 0.0)) * u.deg
         if not (bmaj > 0 and bmin > 0):
             msg = f"{path}: header cards BMAJ/BMIN = {header['BMAJ']}/{header['BMIN']}; expected positive sizes"
             raise CubeError(msg)
+    elif beam_arcsec is not None:
+        bmaj, bmin, bpa = (float(beam_arcsec[0]) * u.arcsec).to(u.deg), (float(beam_arcsec[1]) * u.arcsec).to(
+            u.deg), float(beam_arcsec[2]) * u.deg
+        source = "config beam_arcsec"
     elif bunit.is_equivalent(u.Jy / u.beam) or bunit.is_equivalent(u.K):
-        msg = (f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing; expected "
-               "BMAJ and BMIN (the beam's FWHM axes, deg)")
+        msg = (f"{path}: BUNIT = {bunit_text!r} needs a beam but header cards BMAJ/BMIN are missing and there is no "
+               "BEAMS table; expected BMAJ and BMIN (the beam's FWHM axes, deg), or set the cube's beam_arcsec "
+               "[major, minor, pa] in the config")
         raise CubeError(msg)
     return CubeInfo(path=path, header=header, shape=(dims[2], dims[1], dims[0]), celestial_wcs=celestial,
                     frequencies=freqs, specsys=specsys, bunit=bunit, beam_major=bmaj, beam_minor=bmin,
-                    beam_pa=bpa, pixel_scale=pixel_scale.to(u.arcsec), hdu=index, error_hdu=err_index)
+                    beam_pa=bpa, pixel_scale=pixel_scale.to(u.arcsec), hdu=index, error_hdu=err_index,
+                    channel_beams=beams, beam_source=source)
 
 
 def open_data(path: str | Path):

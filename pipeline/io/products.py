@@ -24,7 +24,7 @@ from astropy.wcs import WCS
 
 from pipeline.errors import GasledgerError
 from pipeline.io import cards
-from pipeline.io.cubes import CubeInfo, cube_info_from_header, linear_axis
+from pipeline.io.cubes import CubeInfo, cube_info_from_header, linear_axis, read_beam_table
 
 __all__ = ["ProductMeta", "SubCube", "LineSpectra", "BandMeasurements", "BAND_COLUMN_UNITS", "StackedSpectrum", "SpeciesStack",
            "STACK_COLUMN_UNITS"]
@@ -131,15 +131,19 @@ class SubCube:
     data: np.ndarray | None = None
     velocity: np.ndarray | None = None
     name: str = "sub-cube"
+    beams: tuple[u.Quantity, u.Quantity, u.Quantity] | None = None   # per channel (major, minor, PA), or None
 
     @classmethod
     def build(cls, meta: ProductMeta, data: np.ndarray, velocity: np.ndarray, celestial_wcs: WCS, bunit: str,
               rest_frequency: u.Quantity, beam: tuple[float, float, float] | None = None,
-              name: str = "sub-cube") -> "SubCube":
+              name: str = "sub-cube",
+              beams: tuple[u.Quantity, u.Quantity, u.Quantity] | None = None) -> "SubCube":
         """A covered sub-cube from its data, exact velocities [km/s] and celestial WCS.
 
-        ``beam`` is (BMAJ, BMIN [deg], BPA [deg]) as in FITS. The spectral axis written is the linear fit of
-        ``velocity`` (:func:`pipeline.geometry.frames.linear_axis`); the exact values travel with the product.
+        ``beam`` is (BMAJ, BMIN [deg], BPA [deg]) as in FITS: the one beam, or the median of the per-channel
+        ``beams`` (major, minor, PA Quantities, one per channel) when the cube has a beam table. The spectral
+        axis written is the linear fit of ``velocity`` (:func:`pipeline.geometry.frames.linear_axis`); the
+        exact values travel with the product.
         """
         from pipeline.geometry.frames import linear_axis as fit_linear_axis
 
@@ -158,7 +162,8 @@ class SubCube:
         header["BUNIT"] = bunit
         if beam is not None:
             header["BMAJ"], header["BMIN"], header["BPA"] = (float(b) for b in beam)
-        return cls(meta=meta, header=header, data=data, velocity=np.asarray(velocity, dtype=float), name=name)
+        return cls(meta=meta, header=header, data=data, velocity=np.asarray(velocity, dtype=float), name=name,
+                   beams=beams)
 
     @contextlib.contextmanager
     def in_use(self):
@@ -180,7 +185,7 @@ class SubCube:
         header["NAXIS"] = 3
         for i, n in enumerate(self.data.shape[::-1], start=1):
             header[f"NAXIS{i}"] = n
-        return cube_info_from_header(header, self.name)
+        return cube_info_from_header(header, self.name, beams=self.beams)
 
     def to_fits(self) -> fits.HDUList:
         """The sub-cube file: primary HDU (data, standard and private cards), VELOCITY table when covered."""
@@ -194,6 +199,14 @@ class SubCube:
         if self.data is not None:
             velocity = fits.BinTableHDU(Table({"velocity": self.velocity * u.km / u.s}), name="VELOCITY")
             hdus.append(velocity)
+        if self.beams is not None:
+            major, minor, pa = self.beams
+            n = len(major)
+            table = Table({"BMAJ": major.to(u.arcsec), "BMIN": minor.to(u.arcsec), "BPA": pa.to(u.deg),
+                           "CHAN": np.arange(n, dtype=np.int32), "POL": np.zeros(n, dtype=np.int32)})
+            beams = fits.BinTableHDU(table, name="BEAMS")
+            prim.header["CASAMBM"] = (True, "per-channel beams in the BEAMS table")
+            hdus.append(beams)
         return fits.HDUList(hdus)
 
     @classmethod
@@ -204,15 +217,16 @@ class SubCube:
             meta = ProductMeta.read(header, str(path))
             data = None if hdul[0].data is None else np.array(hdul[0].data)
             velocity = None
+            beams = read_beam_table(hdul, path) if "BEAMS" in hdul else None
             if "VELOCITY" in hdul:
                 velocity = np.asarray(Table.read(hdul["VELOCITY"])["velocity"].to(u.km / u.s).value, dtype=float)
             elif data is not None:
                 velocity = (linear_axis(header, 3, data.shape[0], path)
                             * u.Unit(header.get("CUNIT3", "km/s"))).to_value(u.km / u.s)
         for name in [k for k in header if k.startswith("GL") or k in ("NAXIS", "NAXIS1", "NAXIS2", "NAXIS3",
-                                                                        "SIMPLE", "BITPIX", "EXTEND")]:
+                                                                        "SIMPLE", "BITPIX", "EXTEND", "CASAMBM")]:
             del header[name]
-        return cls(meta=meta, header=header, data=data, velocity=velocity, name=str(path))
+        return cls(meta=meta, header=header, data=data, velocity=velocity, name=str(path), beams=beams)
 
 
 @dataclass

@@ -80,9 +80,10 @@ def inject_spectra(sub: SubCube, settings: ExtractionSettings, line: Line, speci
     pix = info.pixel_scale.to_value(u.arcsec)
     beam = (info.beam_major.to_value(u.arcsec), info.beam_minor.to_value(u.arcsec), info.beam_pa.to_value(u.deg))
     # the model is in Jy/beam: Jy per pixel = Jy/beam x pixel/beam area; the cube unit per pixel from flux_conversion
-    beam_area = info.beam_solid_angle()
-    per_pixel = (info.pixel_solid_angle() / beam_area).decompose().value
-    to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(), beam_area, info.frequencies)
+    # (the model is convolved with the cube's one, or median, beam; the cube's unit may refer to each channel's beam)
+    per_pixel = (info.pixel_solid_angle() / info.beam_solid_angle()).decompose().value
+    to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(),
+                                               info.channel_beam_solid_angles(), info.frequencies)
     out = []
     real = np.asarray(sub.data, dtype=np.float64)
     for p in where:

@@ -130,8 +130,8 @@ def _extract(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None
     wweights = window_weights(vel, win, centre=v_centre)
     exclude = win + settings.exclude_margin_channels * dv
     others = settings.other_lines.to_value(u.km / u.s)
-    factor = flux_conversion(info.bunit, info.pixel_solid_angle(),
-                             info.beam_solid_angle() if info.beam_major is not None else None,
+    factor = flux_conversion(info.bunit, info.pixel_solid_angle(),     # per channel with a per-channel beam table
+                             info.channel_beam_solid_angles() if info.beam_major is not None else None,
                              info.frequencies)
     radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in settings.radii]
     aps = [aperture_weights(info.shape[1:], x, y, rp, what=f"{where}: aperture {r}")

@@ -140,7 +140,7 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
     """Measure the bands ``band_ids`` and the dust continuum of the settings' (infrared) cube; write the bands file."""
     cube_path = settings.cube.path
     resolving_power = settings.cube.resolving_power
-    info = read_cube_info(cube_path)
+    info = read_cube_info(cube_path, settings.cube.beam_arcsec)
     if info.regime != "infrared":
         msg = (f"{cube_path}: the spectral axis reaches {info.wavelengths.max():.1f}; expected an infrared cube "
                "(every channel short of 30 um) for band measurement")

@@ -31,7 +31,7 @@ def run(geometry_path: str, line_id: str, settings: Settings, out_path: str) -> 
     """Cut and write the sub-cube of ``line_id`` from the settings' cube."""
     cube_path = settings.cube.path
     spectral_response = settings.cube.spectral_response
-    info = read_cube_info(cube_path)
+    info = read_cube_info(cube_path, settings.cube.beam_arcsec)
     geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
     line = settings.catalogue().get_line(line_id)
     v_out = outflow_speed(settings.coma, geo["r_h"])

@@ -19,7 +19,7 @@ __all__ = ["run"]
 def run(settings: Settings, out_path: str) -> None:
     """Compute and write the geometry table of the settings' cube."""
     cube = settings.cube
-    info = read_cube_info(cube.path)
+    info = read_cube_info(cube.path, cube.beam_arcsec)
     target = settings.target
     inputs = [cube.path]
     ephem = None

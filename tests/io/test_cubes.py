@@ -285,3 +285,67 @@ def test_linear_axis_is_the_hand_written_formula():
 def test_linear_axis_errors_name_the_card(cards, match):
     with pytest.raises(CubeError, match=match):
         linear_axis(fits.Header(cards), 2, path="x.fits")
+
+
+# ---- beams as products carry them
+
+
+def _channel_beams(n: int) -> np.ndarray:
+    """Beams growing across the band, as a wide-band cube's do (FWHM proportional to wavelength)."""
+    major = np.linspace(2.0, 2.4, n)
+    return np.column_stack([major, 0.75 * major, np.full(n, 30.0)])
+
+
+def test_a_per_channel_beam_table_is_read(tmp_path):
+    beams = _channel_beams(SHAPE[0])
+    info = read_cube_info(write_cube(tmp_path / "b.fits", beams_arcsec=beams))
+    assert info.beam_source == "BEAMS table (per channel)" and info.channel_beams is not None
+    assert_allclose(info.channel_beams[0].to_value(u.arcsec), beams[:, 0], rtol=1e-6)    # float32 table column
+    # the Gaussian beam solid angle pi/(4 ln 2) B_maj B_min per channel (closed form)
+    expected = np.pi / (4 * np.log(2)) * (beams[:, 0] * beams[:, 1]) * (u.arcsec**2).to(u.sr)
+    assert_allclose(info.channel_beam_solid_angles().to_value(u.sr), expected, rtol=1e-6)
+    assert info.beam_major.to_value(u.arcsec) == pytest.approx(np.median(beams[:, 0]), rel=1e-6)
+
+
+def test_a_cube_without_a_beam_takes_the_configured_one(tmp_path):
+    path = write_cube(tmp_path / "nb.fits", BMAJ=None, BMIN=None, BPA=None)
+    with pytest.raises(CubeError, match=r"needs a beam .* or set the cube's beam_arcsec"):
+        read_cube_info(path)
+    info = read_cube_info(path, beam_arcsec=(1.2, 0.9, 65.0))
+    assert info.beam_source == "config beam_arcsec"
+    assert info.beam_major.to_value(u.arcsec) == pytest.approx(1.2) and info.beam_pa.to_value(u.deg) == 65.0
+    # a header that has a beam does not take a second one from the config
+    with pytest.raises(CubeError, match="only one of them"):
+        read_cube_info(write_cube(tmp_path / "wb.fits"), beam_arcsec=(1.2, 0.9, 65.0))
+
+
+def test_flux_conversion_per_channel_beam():
+    # Jy/beam -> Jy per pixel is pixel area / beam area, channel by channel (closed form)
+    from pipeline.spectra.apertures import flux_conversion
+    areas = np.array([1e-10, 2e-10, 4e-10]) * u.sr
+    factor = flux_conversion(u.Jy / u.beam, 1e-12 * u.sr, areas, np.array([230e9, 230.1e9, 230.2e9]) * u.Hz)
+    assert_allclose(factor, [1e-2, 5e-3, 2.5e-3], rtol=1e-12)
+
+
+def test_the_comoving_cut_keeps_each_channels_beam(tmp_path):
+    # a sub-cube keeps the beams of the channels it holds, and its file carries them to the extraction
+    from astropy.table import QTable
+    from pipeline.catalogue import load_catalogue
+    from pipeline.geometry.comoving import cut_subcube
+    from pipeline.io.products import SubCube
+
+    shape = (120, 24, 24)
+    beams = _channel_beams(shape[0])
+    info = read_cube_info(write_cube(tmp_path / "c.fits", shape=shape, beams_arcsec=beams, SPECSYS="SOURCE",
+                                     CRVAL3=230.538e9, CRPIX3=60.0, CDELT3=-244.0e3))
+    geo = QTable({"x_pix": [11.5], "y_pix": [11.5], "delta": [1.0] * u.au, "r_h": [1.2] * u.au,
+                  "delta_dot": [0.0] * u.km / u.s, "cube_id": ["c"], "epoch": ["e"]})[0]
+    line = load_catalogue().get_line("CO_230538")
+    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 8.0, None)
+    assert sub.meta.covered and sub.beams is not None
+    c0 = sub.meta.first_channel
+    assert_allclose(sub.beams[0].to_value(u.arcsec), beams[c0:c0 + sub.data.shape[0], 0], rtol=1e-6)
+    sub.to_fits().writeto(tmp_path / "sub.fits")
+    back = SubCube.from_fits(tmp_path / "sub.fits")
+    assert_allclose(back.info().channel_beam_solid_angles().to_value(u.sr),
+                    sub.info().channel_beam_solid_angles().to_value(u.sr), rtol=1e-6)
