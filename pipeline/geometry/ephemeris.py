@@ -4,6 +4,12 @@ A table has one row per time with the columns ``time`` (UTC), ``ra``, ``dec``
 [deg], ``r_h``, ``delta`` [au], ``delta_dot`` [km/s] and optionally ``phase``
 [deg]. Columns without units get these defaults. A table is taken as seen from
 the campaign's observatory (topocentric), or from the geocentre.
+
+:func:`read_ephemeris` also reads, unchanged, a table written by a common
+ephemeris-service client and the service's plain-text export (CSV option);
+:mod:`pipeline.geometry._service_tables` maps their columns and time scales
+onto these.  :func:`check_spacing` says how far the interpolation of a table
+may err, for short tables too.
 """
 
 from __future__ import annotations
@@ -13,11 +19,12 @@ from pathlib import Path
 
 import astropy.units as u
 import numpy as np
-from astropy.table import QTable
 from astropy.time import Time
 from scipy.interpolate import CubicSpline
 
 from pipeline.errors import EphemerisError, SpacingWarning
+from pipeline.geometry._service_tables import (EXPECTED_LAYOUTS, from_client, is_service_export, layout_of,
+                                               read_qtable, read_service_export, refuse_masked)
 
 __all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing", "GAP_FACTOR"]
 
@@ -99,31 +106,54 @@ class Ephemeris:
 
 
 def read_ephemeris(path: str | Path) -> Ephemeris:
-    """Read and check an ephemeris table (ECSV, or CSV with a header line).
+    """Read and check an ephemeris table in any of the layouts users have.
+
+    Three layouts are read unchanged: the project's own (ECSV, or CSV with a
+    header line; the columns of the module docstring), a table written by a
+    common ephemeris-service client (astroquery's JPL Horizons layout:
+    ``datetime_jd``, ``RA``, ``DEC``, ``r``, ``delta``, ``delta_rate``,
+    ``alpha``, ...; ECSV with units, or CSV without, when the service's
+    documented units apply) and the service's plain-text export made with its
+    CSV option (a ``.txt`` file, or any file with a ``$$SOE`` line).  The
+    mapping of the other layouts' columns and time scales onto the project's
+    is tabulated in :mod:`pipeline.geometry._service_tables`.
 
     Raises
     ------
     EphemerisError
-        The file is missing or unreadable, a column is missing or has a unit
-        of the wrong kind, times are unparsable, not increasing or repeated.
+        The file is missing or unreadable, mixes the project's and the
+        client's column names, lacks a column or quantity, has a unit of the
+        wrong kind, times are unparsable, not increasing or repeated.
+
+    References
+    ----------
+    .. [1] astroquery documentation, "JPL Horizons Queries
+       (astroquery.jplhorizons)": ``ephemerides()`` column names and units.
+    .. [2] JPL Horizons System manual, "Definition of Observer Table
+       Quantities" (CSV export, $$SOE / $$EOE markers).
     """
     path = Path(path)
     if not path.is_file():
         msg = f"ephemeris file {str(path)!r} does not exist"
         raise EphemerisError(msg)
-    fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
-    try:
-        table = QTable.read(path, format=fmt)
-    except Exception as exc:  # astropy raises several types for malformed tables
-        msg = f"ephemeris file {str(path)!r} is not a readable {fmt} table: {exc}"
-        raise EphemerisError(msg) from exc
+    if is_service_export(path):
+        table = read_service_export(path)
+    else:
+        fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
+        try:
+            table = read_qtable(path, fmt)
+        except Exception as exc:  # astropy raises several types for malformed tables
+            msg = f"ephemeris file {str(path)!r} is not a readable {fmt} table: {exc}"
+            raise EphemerisError(msg) from exc
+        if layout_of(table, str(path)) == "client":
+            table = from_client(table, str(path))
     for alias, fmt_t in (("jd", "jd"), ("mjd", "mjd")):
         if "time" not in table.colnames and alias in table.colnames:
             table["time"] = Time(np.asarray(table[alias], dtype=float), format=fmt_t, scale="utc")
     missing = [c for c in ("time", *EPHEMERIS_COLUMNS) if c not in table.colnames]
     if missing:
-        msg = (f"ephemeris file {str(path)!r} lacks the column(s) {', '.join(missing)}; expected "
-               f"time (or jd / mjd), {', '.join(EPHEMERIS_COLUMNS)} (phase, ra_rate, dec_rate optional)")
+        msg = (f"ephemeris file {str(path)!r} lacks the column(s) {', '.join(missing)} (found "
+               f"{', '.join(table.colnames) or 'none'}); expected {EXPECTED_LAYOUTS}")
         raise EphemerisError(msg)
     try:
         col = table["time"]
@@ -151,6 +181,7 @@ def read_ephemeris(path: str | Path) -> Ephemeris:
         if name not in table.colnames:
             continue
         col = table[name]
+        refuse_masked(col, name, str(path))
         if isinstance(col, u.Quantity):
             if not col.unit.is_equivalent(unit):
                 msg = (f"ephemeris file {str(path)!r}: column {name!r} has unit {col.unit}, "
