@@ -201,23 +201,130 @@ def read_ephemeris(path: str | Path) -> Ephemeris:
     return Ephemeris(source=str(path), jd=jd, columns=columns)
 
 
+#: How the spacing estimate is made, by number of rows (for the warning's sentence).
+_BASIS = {2: "from the rates at both rows", 3: "from the rows' second difference",
+          4: "an upper estimate from the rows' third difference", 5: "from the rows' fourth differences",
+          9: "from a spline through every other row"}
+
+
+def _basis(n: int) -> str:
+    return _BASIS[max(k for k in _BASIS if k <= n)]
+
+
+def _interpolant(x: np.ndarray, values: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """What :meth:`Ephemeris.at` does on these rows: a cubic spline from 4 rows, else linear."""
+    return CubicSpline(x, values)(t) if x.size >= 4 else np.interp(t, x, values)
+
+
+def _dense(x: np.ndarray, per_step: int = 64) -> np.ndarray:
+    """``per_step`` points in every step of ``x`` and its last point."""
+    return np.concatenate([np.linspace(a, b, per_step, endpoint=False) for a, b in zip(x[:-1], x[1:])] + [x[-1:]])
+
+
+def _divided(x: np.ndarray, values: np.ndarray, order: int) -> np.ndarray:
+    """Divided differences f[x_k, ..., x_k+order] of every run of ``order + 1`` rows."""
+    d = np.asarray(values, dtype=float)
+    for k in range(1, order + 1):
+        d = (d[1:] - d[:-1]) / (x[k:] - x[:-k])
+    return d
+
+
+def _leading_term(x: np.ndarray, values: np.ndarray) -> float:
+    """Leading error term of the interpolant of 3 or 5-8 rows (see :func:`interpolation_error`)."""
+    p = 2 if x.size < 4 else 4
+    t, centre = _dense(x), 0.5 * (x[0] + x[-1])
+    kernel = np.max(np.abs(_interpolant(x, (x - centre) ** p, t) - (t - centre) ** p))
+    return float(np.max(np.abs(_divided(x, values, p))) * kernel)
+
+
+def _quadratic_term(x: np.ndarray, values: np.ndarray) -> float:
+    """Upper estimate for 4 rows: the cubic against the nearer quadratic through three adjacent rows."""
+    t = _dense(x)
+    products = [np.abs(np.prod(t[:, None] - x[None, j:j + 3], axis=1)) for j in (0, 1)]
+    return float(abs(_divided(x, values, 3)[0]) * np.max(np.minimum(*products)))
+
+
+def _two_row_errors(ephem: Ephemeris) -> tuple[float, float]:
+    """Linear-interpolation errors [arcsec, km/s] of a two-row table (NaN where the rows cannot tell)."""
+    h = float(ephem.jd[1] - ephem.jd[0]) * 86400.0                       # s
+    cols = ephem.columns
+    position = np.nan
+    if "ra_rate" in cols and "dec_rate" in cols:
+        # f'' ~ (f'(t1) - f'(t0)) / h, error h^2/8 |f''| on each sky axis (the rates are on the sky already)
+        dra, ddec = (abs(float(np.diff(cols[k].to_value(u.arcsec / u.s))[0])) for k in ("ra_rate", "dec_rate"))
+        position = h / 8.0 * float(np.hypot(dra, ddec))
+    d0, d1 = cols["delta"].to_value(u.km)
+    v0, v1 = cols["delta_dot"].to_value(u.km / u.s)
+    third = 6.0 * (2.0 * (d0 - d1) + h * (v0 + v1)) / h ** 3             # delta''' = delta_dot'' of the Hermite cubic
+    return position, h * h / 8.0 * abs(third)
+
+
 def interpolation_error(ephem: Ephemeris) -> dict[str, u.Quantity]:
     """Estimated worst interpolation error of the sky position and the range rate.
 
+    The estimate fits what :meth:`Ephemeris.at` does with the rows there are
+    (linear interpolation below 4 rows, a not-a-knot cubic spline from 4 rows
+    on) and uses only what the rows hold.
+
     Notes
     -----
-    A cubic spline's error falls as h^4 with the spacing h. A spline through
-    every other row, evaluated at the rows it skipped, errs by about 16 times
-    the full table's error, so the full table's error is estimated as the
-    largest of those misses divided by 16 (Richardson's argument).
-    """
-    if ephem.jd.size < 9:
-        return {"position": np.nan * u.arcsec, "delta_dot": np.nan * u.km / u.s}
-    x = ephem.jd - ephem.jd[0]
-    even, odd = slice(0, None, 2), slice(1, -1, 2)
+    With ``h`` the step and ``f`` a column (RA, Dec, range rate):
 
-    def miss(values):
-        return np.max(np.abs(CubicSpline(x[even], values[even])(x[odd]) - values[odd])) / 16.0
+    * 9 rows or more: a cubic spline's error falls as h^4.  A spline through
+      every other row, evaluated at the rows it skipped, errs by about 16
+      times the full table's error, so the full table's error is estimated as
+      the largest of those misses divided by 16 (Richardson's argument).
+    * 5 to 8 rows: the leading term.  An interpolant ``I`` exact for
+      polynomials of degree below ``p`` errs on ``f`` by about
+      ``f[x_k..x_k+p] * (I[q] - q)`` with ``q = (t - c)^p``, exactly so when
+      ``f`` is a polynomial of degree ``p``.  Here ``p = 4`` for the spline,
+      the largest fourth divided difference of the rows stands for
+      ``f''''/4!`` and ``max |I[q] - q|`` is computed on the rows' own times,
+      so the spline's larger error near the table's ends is included.
+    * 4 rows: the fourth derivative is out of reach.  The estimate is the
+      difference between the cubic and the nearer quadratic through three
+      adjacent rows, ``|f[x_0..x_3] (t - x_j)(t - x_j+1)(t - x_j+2)|`` (the
+      leading error of the quadratic): usually above the cubic's error (for
+      a track varying as ``sin(omega t)`` by a median ``1.5 / (omega h)``
+      over phases, measured), but, like the estimates below, low where the
+      derivative it uses (here the third) changes sign inside the table.
+    * 3 rows: the leading term with ``p = 2``, which for linear interpolation
+      is the textbook ``h^2/8 |f''|`` with ``f''`` from the second divided
+      difference (exact for a quadratic track).
+    * 2 rows: ``h^2/8 |f''|`` with ``f''`` from the rates at both rows: the
+      ``ra_rate`` and ``dec_rate`` columns for the position (without them the
+      position error is NaN: two positions cannot tell a curvature), and for
+      the range rate the cubic Hermite through ``delta`` and its derivative
+      ``delta_dot`` at both rows, whose constant third derivative is
+      ``delta_dot''``.
+
+    The leading-term estimates assume the derivative they use varies little
+    across the table; where it changes sign inside the table (e.g. an
+    inflection of the track for 3 rows) they can be low by several times:
+    a few rows cannot tell.  The position error combines RA (times the
+    cosine of the largest |Dec|) and Dec in quadrature.
+
+    References
+    ----------
+    .. [1] de Boor, C. 1978, *A Practical Guide to Splines* (Springer):
+       the error of polynomial and cubic-spline interpolation and the
+       not-a-knot end condition (from memory).
+    .. [2] Press, W. H. et al. 2007, *Numerical Recipes*, 3rd ed.: cubic
+       splines (section 3.3) and Richardson extrapolation (from memory).
+    """
+    n = ephem.jd.size
+    if n == 2:
+        pos, ddot = _two_row_errors(ephem)
+        return {"position": pos * u.arcsec, "delta_dot": ddot * u.km / u.s}
+    x = ephem.jd - ephem.jd[0]
+    if n >= 9:
+        even, odd = slice(0, None, 2), slice(1, -1, 2)
+
+        def miss(values):
+            return np.max(np.abs(CubicSpline(x[even], values[even])(x[odd]) - values[odd])) / 16.0
+    else:
+        def miss(values):
+            return _quadratic_term(x, values) if n == 4 else _leading_term(x, values)
 
     ra = np.unwrap(ephem.columns["ra"].to_value(u.deg), period=360.0)
     dec = ephem.columns["dec"].to_value(u.deg)
@@ -226,15 +333,39 @@ def interpolation_error(ephem: Ephemeris) -> dict[str, u.Quantity]:
     return {"position": pos * u.arcsec, "delta_dot": miss(ephem.columns["delta_dot"].to_value(u.km / u.s)) * u.km / u.s}
 
 
+def _duration(seconds: float) -> str:
+    seconds = round(seconds, 3)     # float Julian dates resolve ~40 microseconds
+    for unit, size, limit in (("s", 1.0, 60.0), ("min", 60.0, 3600.0), ("h", 3600.0, 172800.0)):
+        if seconds < limit:
+            return f"{seconds / size:.3g} {unit}"
+    return f"{seconds / 86400.0:.3g} d"
+
+
 def check_spacing(ephem: Ephemeris, position: u.Quantity = 0.05 * u.arcsec,
                   delta_dot: u.Quantity = 0.01 * u.km / u.s) -> dict[str, u.Quantity]:
-    """Warn (:class:`SpacingWarning`) when the table is too coarse for the accuracy asked for."""
+    """Warn (:class:`SpacingWarning`) when the table is too coarse for the accuracy asked for.
+
+    A table of 2 or 3 rows is interpolated linearly and always warned about,
+    with the error :func:`interpolation_error` gives it; a longer one when
+    that error exceeds ``position`` or ``delta_dot``.  Returns the estimate.
+    """
     import warnings
 
     err = interpolation_error(ephem)
-    if err["position"] > position or err["delta_dot"] > delta_dot:
-        warnings.warn(f"ephemeris {ephem.source}: its spacing gives interpolation errors of about "
-                      f"{err['position'].to_value(u.arcsec):.3g} arcsec and "
-                      f"{err['delta_dot'].to(u.m / u.s).value:.3g} m/s, more than the {position} and "
-                      f"{delta_dot.to(u.m / u.s)} asked for; use a finer table", SpacingWarning, stacklevel=2)
+    n = ephem.jd.size
+    steps = np.diff(ephem.jd) * 86400.0
+    lo, hi = float(np.min(steps)), float(np.max(steps))
+    step = f"a step of {_duration(lo)}" if hi <= 1.01 * lo else f"steps of {_duration(lo)} to {_duration(hi)}"
+    pos = err["position"].to_value(u.arcsec)
+    pos_text = (f"about {pos:.3g} arcsec on the sky" if np.isfinite(pos)
+                else "an amount two rows cannot tell on the sky (no ra_rate and dec_rate columns)")
+    errors = f"{pos_text} and about {err['delta_dot'].to_value(u.m / u.s):.3g} m/s in range rate ({_basis(n)})"
+    asked = f"the {position.to_value(u.arcsec):g} arcsec and {delta_dot.to_value(u.m / u.s):g} m/s asked for"
+    if n < 4:
+        warnings.warn(f"ephemeris {ephem.source}: its {n} rows at {step} are interpolated linearly, which may err "
+                      f"by {errors} against {asked}; use a finer table of at least 4 rows",
+                      SpacingWarning, stacklevel=2)
+    elif err["position"] > position or err["delta_dot"] > delta_dot:
+        warnings.warn(f"ephemeris {ephem.source}: its {n} rows at {step} give interpolation errors of {errors}, "
+                      f"more than {asked}; use a finer table", SpacingWarning, stacklevel=2)
     return err

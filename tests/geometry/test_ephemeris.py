@@ -1,5 +1,9 @@
-"""Tests of pipeline.geometry.ephemeris: round trip against direct two-body geometry (pipeline.geometry.orbit.observe)
-and closed-form tables."""
+"""Tests of pipeline.geometry.ephemeris: round trip against direct two-body geometry (pipeline.geometry.orbit.observe),
+closed-form tables, and the spacing check of short tables against closed-form tracks and textbook error formulas
+(the other layouts it reads: tests/geometry/test_service_tables.py)."""
+
+import re
+import warnings
 
 import astropy.units as u
 import numpy as np
@@ -9,9 +13,10 @@ from astropy.table import QTable
 from astropy.tests.helper import assert_quantity_allclose
 from astropy.time import Time
 from numpy.testing import assert_allclose
+from scipy.interpolate import CubicSpline
 
-from pipeline.geometry.ephemeris import EPHEMERIS_COLUMNS, read_ephemeris
-from pipeline.errors import EphemerisError
+from pipeline.geometry.ephemeris import EPHEMERIS_COLUMNS, check_spacing, interpolation_error, read_ephemeris
+from pipeline.errors import EphemerisError, SpacingWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, ephemeris_from_elements, observe, write_ephemeris
 
@@ -143,3 +148,213 @@ def test_units_are_converted(tmp_path):
     eph = read_ephemeris(_write(tmp_path / "km.ecsv", t))
     assert_quantity_allclose(eph.columns["delta"], 1.0 * u.au, rtol=1e-14)
     assert_quantity_allclose(eph.columns["delta_dot"], 1.5 * u.km / u.s, rtol=1e-14)
+
+
+# --- spacing of short tables -------------------------------------------------------------------------------------
+# Invented tracks with closed forms: the interpolation's true error is measured against them on a dense grid, the
+# warning's stated error must lie within a small factor of it, and the textbook error formulas are checked where
+# they are exact.
+
+SPACING_START = Time("2024-03-07T00:00:00", scale="utc")
+DEC = 30.0                                        # deg, constant: the on-sky RA error is cos(30 deg) times the RA error
+COSD = np.cos(np.deg2rad(DEC))
+
+
+def _track_table(path, hours, ra, delta_dot, delta_km=None, rates=None):
+    t = QTable()
+    t["time"] = SPACING_START + np.asarray(hours) * u.h
+    t["ra"] = ra * u.deg
+    t["dec"] = np.full(len(hours), DEC) * u.deg
+    t["r_h"] = np.full(len(hours), 1.3) * u.au
+    t["delta"] = (delta_km * u.km).to(u.au) if delta_km is not None else np.full(len(hours), 0.7) * u.au
+    t["delta_dot"] = delta_dot * u.km / u.s
+    if rates is not None:
+        t["ra_rate"], t["dec_rate"] = rates[0] * u.arcsec / u.h, rates[1] * u.arcsec / u.h
+    t.write(path, format="ascii.ecsv")
+    return read_ephemeris(path)
+
+
+def _true_errors(eph, ra_of, delta_dot_of, per_step=401):
+    """Largest on-sky [arcsec] and range-rate [m/s] error of eph.at against the closed-form track (hours).
+
+    An odd number of points per step puts one at every mid-step, where linear interpolation errs most."""
+    x = (eph.jd - eph.jd[0]) * 24
+    grid = np.unique(np.concatenate([np.linspace(a, b, per_step) for a, b in zip(x[:-1], x[1:])]))
+    got = eph.at(Time(eph.jd[0] + grid / 24, format="jd", scale="utc"))
+    hours = (Time(eph.jd[0] + grid / 24, format="jd", scale="utc").jd - eph.jd[0]) * 24   # the times 'at' saw
+    sky = np.max(np.abs(got["ra"].to_value(u.deg) - ra_of(hours))) * COSD * 3600
+    rate = np.max(np.abs(got["delta_dot"].to_value(u.km / u.s) - delta_dot_of(hours))) * 1000
+    return sky, rate
+
+
+def _stated(record):
+    """The file, rows, step and the two errors a SpacingWarning states."""
+    assert len(record) == 1
+    text = str(record[0].message)
+    m = re.search(r"^ephemeris (\S+): its (\d+) rows at (?:a step of|steps of) (.+?) (?:are|give) .*? (?:about (\S+) "
+                  r"arcsec on the sky|an amount two rows cannot tell on the sky \(no ra_rate and dec_rate columns\)) "
+                  r"and about (\S+) m/s in range rate \((.+?)\),? (?:against|more than) the 0\.05 arcsec and 10 m/s "
+                  r"asked for; use a finer table", text)
+    assert m is not None, text
+    sky = float(m.group(4)) if m.group(4) is not None else np.nan
+    return {"file": m.group(1), "rows": int(m.group(2)), "step": m.group(3), "sky": sky,
+            "rate": float(m.group(5)), "basis": m.group(6), "text": text}
+
+
+def test_three_rows_are_linear_with_the_textbook_error(tmp_path):
+    # quadratic tracks: RA = 150 + 0.5 t + 0.002 t^2 deg, range rate = 5 + 0.01 t + 0.0005 t^2 km/s (t in h)
+    def ra(t):
+        return 150 + 0.5 * t + 0.002 * t ** 2
+
+    def vr(t):
+        return 5 + 0.01 * t + 0.0005 * t ** 2
+
+    hours = np.array([0.0, 2.0, 4.0])
+    eph = _track_table(tmp_path / "three.ecsv", hours, ra(hours), vr(hours))
+    # textbook: linear interpolation errs by h^2/8 max|f''| at most, exactly so (at mid-step) for a quadratic
+    h = 2.0
+    sky_closed = h ** 2 / 8 * 0.004 * COSD * 3600                     # 6.235 arcsec
+    rate_closed = h ** 2 / 8 * 0.001 * 1000                            # 0.5 m/s
+    sky, rate = _true_errors(eph, ra, vr)
+    assert sky == pytest.approx(sky_closed, rel=1e-6) and rate == pytest.approx(rate_closed, rel=1e-6)
+    with pytest.warns(SpacingWarning) as record:
+        err = check_spacing(eph)
+    # exact for a quadratic track, up to the float Julian dates' 40-microsecond resolution (a few 1e-7 of the
+    # curvature from the 2-h steps)
+    assert err["position"].to_value(u.arcsec) == pytest.approx(sky_closed, rel=1e-6)
+    assert err["delta_dot"].to_value(u.m / u.s) == pytest.approx(rate_closed, rel=1e-6)
+    said = _stated(record)
+    assert said["file"].endswith("three.ecsv") and said["rows"] == 3 and said["step"] == "2 h"
+    assert "interpolated linearly" in said["text"] and said["basis"] == "from the rows' second difference"
+    # exact for a quadratic track, to the 3 digits printed
+    assert said["sky"] == pytest.approx(sky_closed, rel=5e-3) and said["rate"] == pytest.approx(rate_closed, rel=5e-3)
+
+
+def test_two_rows_take_the_curvature_from_the_rates(tmp_path):
+    # RA as above with its on-sky rate cos(dec) dRA/dt in arcsec/h; the range delta(tau) a cubic in tau [s]
+    # whose derivative is the range rate: delta_dot = 5 + 1e-5 tau + 1e-9 tau^2 km/s (delta_dot'' = 2e-9 km/s^3)
+    def ra(t):
+        return 150 + 0.5 * t + 0.002 * t ** 2
+
+    def vr(t):
+        tau = t * 3600
+        return 5 + 1e-5 * tau + 1e-9 * tau ** 2
+
+    def delta_km(t):
+        tau = t * 3600
+        return 1.1e8 + 5 * tau + 0.5e-5 * tau ** 2 + 1e-9 / 3 * tau ** 3
+
+    hours = np.array([0.0, 2.0])
+    ra_rate = (0.5 + 0.004 * hours) * 3600 * COSD
+    eph = _track_table(tmp_path / "two.ecsv", hours, ra(hours), vr(hours), delta_km(hours), (ra_rate, [0.0, 0.0]))
+    # textbook h^2/8 |f''|, exact for these quadratic RA and range-rate tracks
+    sky_closed = 2.0 ** 2 / 8 * 0.004 * COSD * 3600                    # 6.235 arcsec
+    rate_closed = 7200.0 ** 2 / 8 * 2e-9 * 1000                        # 12.96 m/s
+    sky, rate = _true_errors(eph, ra, vr)
+    assert sky == pytest.approx(sky_closed, rel=1e-6) and rate == pytest.approx(rate_closed, rel=1e-6)
+    with pytest.warns(SpacingWarning) as record:
+        err = check_spacing(eph)
+    assert err["position"].to_value(u.arcsec) == pytest.approx(sky_closed, rel=1e-6)
+    # the Hermite third derivative is a small difference of large terms (2 (delta0 - delta1) + h (v0 + v1)): the
+    # float Julian dates' 40-microsecond resolution in h enters at a few 1e-6
+    assert err["delta_dot"].to_value(u.m / u.s) == pytest.approx(rate_closed, rel=1e-5)
+    said = _stated(record)
+    assert said["rows"] == 2 and said["basis"] == "from the rates at both rows"
+    assert said["sky"] == pytest.approx(sky_closed, rel=5e-3) and said["rate"] == pytest.approx(rate_closed, rel=5e-3)
+    # without the rate columns two positions cannot tell a curvature: the warning says so (range rate still given)
+    eph = _track_table(tmp_path / "two_bare.ecsv", hours, ra(hours), vr(hours), delta_km(hours))
+    with pytest.warns(SpacingWarning) as record:
+        err = check_spacing(eph)
+    said = _stated(record)
+    assert np.isnan(said["sky"]) and np.isnan(err["position"])
+    assert said["rate"] == pytest.approx(rate_closed, rel=5e-3)
+
+
+def _sine(amplitude, omega, phase, offset):
+    def f(t):
+        return offset + amplitude * np.sin(omega * t + phase)
+    return f
+
+
+# a track curving on a 7-h time scale: RA = 150 + 0.2 sin(0.15 t + 0.8) deg, range rate 5 + 0.3 sin(...) km/s; with
+# 2-h steps omega h = 0.3, and the phase keeps every derivative of the sine away from zero across the tables
+RA_SINE, RATE_SINE = _sine(0.2, 0.15, 0.8, 150.0), _sine(0.3, 0.15, 0.8, 5.0)
+
+
+def _sine_table(tmp_path, hours):
+    return _track_table(tmp_path / f"sine{len(hours)}.ecsv", hours, RA_SINE(hours), RATE_SINE(hours))
+
+
+@pytest.mark.parametrize("hours", [np.arange(5) * 2.0, np.arange(6) * 2.0, np.arange(7) * 2.0, np.arange(8) * 2.0,
+                                   np.array([0.0, 1.0, 2.0, 4.0, 6.0, 8.0])],
+                         ids=["5 rows", "6 rows", "7 rows", "8 rows", "6 uneven rows"])
+def test_five_to_eight_rows_spline_error(tmp_path, hours):
+    eph = _sine_table(tmp_path, hours)
+    sky, rate = _true_errors(eph, RA_SINE, RATE_SINE)
+    with pytest.warns(SpacingWarning) as record:          # ~0.13 arcsec, more than the 0.05 arcsec asked for
+        check_spacing(eph)
+    said = _stated(record)
+    assert said["rows"] == len(hours) and said["basis"] == "from the rows' fourth differences"
+    assert said["step"] == ("2 h" if np.ptp(np.diff(hours)) == 0 else "1 h to 2 h")
+    assert 0.5 < said["sky"] / sky < 2 and 0.5 < said["rate"] / rate < 2
+    # the textbook h^4/384 max|f''''| (from memory) is the error scale of the complete (clamped) spline and of cubic
+    # Hermite interpolation; scipy's not-a-knot spline errs ~10 times more in the end steps (measured here), which
+    # is why the estimate is built on the spline's own error kernel, not on that formula
+    h = np.max(np.diff(hours))
+    fourth = 0.2 * 0.15 ** 4 * COSD * 3600                            # max|RA''''| on the sky, arcsec/h^4
+    assert sky > 5 * h ** 4 / 384 * fourth
+
+
+def test_the_spline_estimate_is_exact_for_a_quartic_track(tmp_path):
+    # RA = 150 + 1e-4 (t - 3)^4 deg: the estimate is the leading error term, exact for a polynomial of degree 4
+    def ra(t):
+        return 150 + 1e-4 * (t - 3) ** 4
+
+    def vr(t):
+        return 5 + 1e-5 * t ** 4
+
+    hours = np.arange(6) * 1.5
+    eph = _track_table(tmp_path / "quartic.ecsv", hours, ra(hours), vr(hours))
+    sky, rate = _true_errors(eph, ra, vr, per_step=2000)
+    err = interpolation_error(eph)
+    assert err["position"].to_value(u.arcsec) == pytest.approx(sky, rel=1e-3)
+    assert err["delta_dot"].to_value(u.m / u.s) == pytest.approx(rate, rel=1e-3)
+
+
+def test_four_rows_upper_estimate(tmp_path):
+    hours = np.arange(4) * 2.0
+    eph = _sine_table(tmp_path, hours)
+    sky, rate = _true_errors(eph, RA_SINE, RATE_SINE)
+    # the spline through 4 rows is the cubic through them; Lagrange's remainder bounds its error by
+    # max|f''''| / 4! max|(t - x0)...(t - x3)| = h^4/24 max|f''''| (closed form; the product peaks at h^4)
+    fourth = 0.2 * 0.15 ** 4 * COSD * 3600
+    assert sky <= 2.0 ** 4 / 24 * fourth
+    with pytest.warns(SpacingWarning) as record:
+        check_spacing(eph)
+    said = _stated(record)
+    assert said["rows"] == 4 and said["basis"] == "an upper estimate from the rows' third difference"
+    # above the true error: over the sine's phases by a median of about 1.5 / (omega h) = 5 (measured), for this
+    # phase by 1.7
+    assert 1.0 <= said["sky"] / sky < 3 and 1.0 <= said["rate"] / rate < 3
+
+
+def test_long_tables_keep_the_every_other_row_estimate(tmp_path):
+    hours = np.arange(11) * 2.0
+    eph = _sine_table(tmp_path, hours)
+    sky, _ = _true_errors(eph, RA_SINE, RATE_SINE)
+    with pytest.warns(SpacingWarning) as record:
+        check_spacing(eph)
+    said = _stated(record)
+    assert said["rows"] == 11 and said["basis"] == "from a spline through every other row"
+    assert 0.5 < said["sky"] / sky < 2
+    # Richardson's estimate as before: the miss of a spline through every other row at the rows it skipped, / 16
+    x = eph.jd - eph.jd[0]
+    ra = eph.columns["ra"].to_value(u.deg)
+    miss = np.max(np.abs(CubicSpline(x[::2], ra[::2])(x[1:-1:2]) - ra[1:-1:2])) / 16 * COSD * 3600
+    assert interpolation_error(eph)["position"].to_value(u.arcsec) == pytest.approx(miss, rel=1e-12)
+    # 10-min steps: no warning (true error of order (omega h)^4 smaller)
+    fine = _sine_table(tmp_path, np.arange(40) / 6)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", SpacingWarning)
+        err = check_spacing(fine)
+    assert err["position"] < 0.05 * u.arcsec
