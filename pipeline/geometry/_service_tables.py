@@ -348,7 +348,7 @@ def _angles(values, sexagesimal_unit, name: str, source: str) -> u.Quantity:
         return Angle(values, unit=sexagesimal_unit).to(u.deg)
     except ValueError as exc:
         msg = (f"ephemeris file {source!r}: column {name!r} holds a value that is not a sexagesimal angle ({exc}); "
-               "expected e.g. '06 46 56.02' for RA and '-23 02 45.6' for Dec")
+               "expected e.g. '03 17 42.15' for RA and '-08 21 07.4' for Dec")
         raise EphemerisError(msg) from exc
 
 

@@ -165,15 +165,15 @@ def test_export_in_tt_is_converted_to_utc(tmp_path):
 
 def test_export_sexagesimal_positions(tmp_path):
     rows = _rows()
-    # hand conversions (closed form): 14 05 00.0000 h = 211.25 deg; 06 46 56.0200 h = 101.7334166667 deg;
+    # hand conversions (closed form): 14 05 00.0000 h = 211.25 deg; 03 17 42.1500 h = 49.425625 deg;
     # -00 30 00.000 deg = -0.5 deg (the sign of a zero-degree declination must survive)
-    ra_hms = ["14 05 00.0000", "06 46 56.0200"] + ["14 05 00.0000"] * (N - 2)
-    dec_dms = ["-00 30 00.000", "+26 47 07.900"] + ["-00 30 00.000"] * (N - 2)
+    ra_hms = ["14 05 00.0000", "03 17 42.1500"] + ["14 05 00.0000"] * (N - 2)
+    dec_dms = ["-00 30 00.000", "+41 08 19.700"] + ["-00 30 00.000"] * (N - 2)
     rows["ra_hms"], rows["dec_dms"] = ra_hms, dec_dms
     (tmp_path / "hms.txt").write_text(_export_text(rows, sexagesimal=True))
     eph = read_ephemeris(tmp_path / "hms.txt")
-    assert_allclose(eph.columns["ra"][:2].to_value(u.deg), [211.25, (6 + 46 / 60 + 56.02 / 3600) * 15], atol=1e-10)
-    assert_allclose(eph.columns["dec"][:2].to_value(u.deg), [-0.5, 26 + 47 / 60 + 7.9 / 3600], atol=1e-10)
+    assert_allclose(eph.columns["ra"][:2].to_value(u.deg), [211.25, 49.425625], atol=1e-10)
+    assert_allclose(eph.columns["dec"][:2].to_value(u.deg), [-0.5, 41 + 8 / 60 + 19.7 / 3600], atol=1e-10)
 
 
 def test_layout_errors(tmp_path):
