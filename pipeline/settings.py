@@ -48,6 +48,7 @@ __all__ = [
     "InfraredSettings",
     "DustSettings",
     "InterferometerSettings",
+    "QualitySettings",
     "BudgetSettings",
     "sections_record",
     "schema_keys",
@@ -352,6 +353,14 @@ class DustSettings(_Guarded):
 
 
 @dataclass(frozen=True)
+class QualitySettings(_Guarded):
+    """Which data-quality flags make a voxel unusable, and how much of an aperture's coma may be made up for."""
+
+    dq_bad_bits: int
+    max_masked_share: float
+
+
+@dataclass(frozen=True)
 class InterferometerSettings:
     """Spatial filtering: the shortest projected baseline and whether the response is corrected."""
 
@@ -376,7 +385,7 @@ _FIELDS = {   # Settings field -> the top-level config keys it is built from
     "campaign": ("campaign",), "outdir": ("outdir",), "catalogue_files": ("catalogue",), "target": ("target",),
     "location": ("observatory",), "observatory_name": ("observatory",), "cubes": ("cubes",),
     "planned": ("planned", "comoving"), "species": ("species",), "apertures": ("apertures_km", "apertures_arcsec"),
-    "half_width": ("comoving",), "interferometer": ("interferometer",), "infrared": ("infrared",),
+    "half_width": ("comoving",), "interferometer": ("interferometer",), "quality": ("quality",), "infrared": ("infrared",),
     "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "coma": ("coma",), "budget": ("budget",),
 }
 
@@ -405,6 +414,7 @@ class Settings(_Guarded):
     apertures: tuple[u.Quantity, ...]
     half_width: u.Quantity
     interferometer: InterferometerSettings | None
+    quality: QualitySettings
     infrared: InfraredSettings
     dust: DustSettings
     limits: LimitsSettings
@@ -548,6 +558,12 @@ def _interferometer(config: dict[str, Any]) -> InterferometerSettings | None:
                                   correct=bool(section["correct"]))
 
 
+def _quality(config: dict[str, Any]) -> QualitySettings:
+    q = config["quality"]
+    return QualitySettings(dq_bad_bits=_sub(q, "dq_bad_bits", "quality", int),
+                           max_masked_share=_sub(q, "max_masked_share", "quality", float))
+
+
 def _infrared(config: dict[str, Any]) -> InfraredSettings:
     ir = config["infrared"]
     return InfraredSettings(margin_fwhm=_sub(ir, "margin_fwhm", "infrared", float),
@@ -590,6 +606,7 @@ _BUILDERS = {
     "observatory_name": _observatory_name, "cubes": lambda c: tuple(cube_entries(c)), "planned": _planned,
     "species": lambda c: tuple(c["species"]), "apertures": _apertures,
     "half_width": lambda c: c["comoving"]["half_width_km_s"] * u.km / u.s, "interferometer": _interferometer,
+    "quality": _quality,
     "infrared": _infrared, "dust": _dust, "limits": _limits,
     "t_kin": lambda c: u.Quantity(c["excitation"]["t_kin_K"], u.K), "coma": _coma, "budget": _budget,
 }

@@ -7,7 +7,7 @@ rule forecast:
     output:
         f"{OUT}/forecast.ecsv",
     params:
-        settings=settings_of("catalogue", "planned", "comoving", "limits.nsigma", "limits.window_factor", "excitation", "coma", "target", "observatory", "apertures_km", "apertures_arcsec", "interferometer"),
+        settings=settings_of("catalogue", "planned", "comoving", "limits.nsigma", "limits.window_factor", "excitation", "coma", "target", "observatory", "apertures_km", "apertures_arcsec", "interferometer", "quality.max_masked_share"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/forecast.log",

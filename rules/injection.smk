@@ -10,7 +10,7 @@ rule injection:
     output:
         f"{OUT}/injection/{{species}}.ecsv",
     params:
-        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes"),
+        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/injection/{{species}}.log",

@@ -18,7 +18,7 @@ from astropy.coordinates import EarthLocation
 from astropy.time import Time
 
 from pipeline.catalogue.entries import Line
-from pipeline.io.cubes import CubeInfo, open_data
+from pipeline.io.cubes import CubeInfo, flagged, open_data, open_quality
 from pipeline.io.products import ProductMeta, SubCube
 from pipeline.geometry.frames import linear_axis, radio_velocity, to_target_frame, to_topocentric
 
@@ -59,7 +59,8 @@ def crop_box(shape: tuple[int, int], x: float, y: float, half_size: float) -> tu
 
 def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
                 window: u.Quantity, crop_half_size: float,
-                location: EarthLocation | None, spectral_response: str = "hanning") -> SubCube:
+                location: EarthLocation | None, spectral_response: str = "hanning",
+                dq_bad_bits: int = 0) -> SubCube:
     """Cut the sub-cube of ``line`` from the cube.
 
     Parameters
@@ -77,6 +78,8 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
         Observatory (None = geocentre).
     spectral_response : str
         The spectrometer's channel response ('hanning' or 'none'), carried to the extraction and the response.
+    dq_bad_bits : int
+        Voxels whose DQ flags (extension DQ) hold any of these bits are blanked (NaN) in the sub-cube.
 
     Returns
     -------
@@ -99,8 +102,15 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
     ys, xs = crop_box(info.shape[1:], float(geometry["x_pix"]), float(geometry["y_pix"]), crop_half_size)
     with open_data(info.path) as data:
         sub = np.array(data[c0:c1, ys, xs], dtype=np.float32)
+    n_flagged = 0
+    if dq_bad_bits:
+        with open_quality(info.path) as quality:
+            if quality is not None:                    # flagged voxels become blank, as the extraction expects
+                bad = flagged(quality[c0:c1, ys, xs], dq_bad_bits)
+                n_flagged = int(bad.sum())
+                sub[bad] = np.nan
     _, _, deviation = linear_axis(vel[c0:c1])
-    meta = replace(meta, covered=True, linear=bool(deviation < 1e-3), first_channel=c0,
+    meta = replace(meta, covered=True, linear=bool(deviation < 1e-3), first_channel=c0, n_flagged=n_flagged,
                    target_x=float(geometry["x_pix"]) - xs.start, target_y=float(geometry["y_pix"]) - ys.start,
                    delta_au=float(u.Quantity(geometry["delta"]).to_value(u.au)),
                    r_h_au=float(u.Quantity(geometry["r_h"]).to_value(u.au)),

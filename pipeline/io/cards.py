@@ -37,6 +37,7 @@ CARDS: dict[str, tuple[str, str]] = {
     "first_channel": ("GLCHAN0", "first channel taken from the cube (0-based)"),
     "freq0": ("GLFREQ0", "[Hz] labelled frequency of the first channel"),
     "dfreq": ("GLDFREQ", "[Hz] labelled channel step"),
+    "n_flagged": ("GLNFLAG", "voxels blanked by their data-quality flags"),
     # how the spectra were extracted
     "window": ("GLWIN", "[km/s] integration window half-width"),
     "v_centre": ("GLVCEN", "[km/s] integration window centre"),

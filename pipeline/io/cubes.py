@@ -34,6 +34,8 @@ from pipeline.errors import CubeError, GasledgerError
 __all__ = [
     "cube_info_from_header",
     "read_beam_table",
+    "open_quality",
+    "flagged",
     "CubeInfo",
     "read_cube_info",
     "open_data",
@@ -474,10 +476,22 @@ def open_error(path: str | Path):
     return _DataContext(Path(path), error=True)
 
 
+def open_quality(path: str | Path):
+    """Open a cube's DQ extension (integer data-quality flags per voxel, same shape as the data), like
+    :func:`open_data`. Yields None when the file has no DQ extension."""
+    return _DataContext(Path(path), quality=True)
+
+
+def flagged(quality: np.ndarray, bad_bits: int) -> np.ndarray:
+    """Voxels whose data-quality flags hold any of ``bad_bits`` (a bit mask)."""
+    return (np.asarray(quality).astype(np.int64) & int(bad_bits)) != 0
+
+
 class _DataContext:
-    def __init__(self, path: Path, error: bool = False):
+    def __init__(self, path: Path, error: bool = False, quality: bool = False):
         self.path = path
         self.error = error
+        self.quality = quality
         self.hdul = None
 
     def __enter__(self) -> np.ndarray | None:
@@ -487,6 +501,20 @@ class _DataContext:
         except CubeError:
             self.hdul.close()
             raise
+        if self.quality:
+            dq = [i for i, h in enumerate(self.hdul) if i and h.name == "DQ" and h.data is not None]
+            if not dq:
+                return None
+            data = self.hdul[dq[0]].data
+            data = data[0] if data.ndim == 4 else data
+            cube = self.hdul[index].data
+            cube_shape = cube.shape[1:] if cube.ndim == 4 else cube.shape
+            if data.shape != cube_shape:
+                self.hdul.close()
+                msg = (f"{self.path}: the DQ extension has shape {data.shape} but the cube {cube_shape}; expected "
+                       "one data-quality flag per voxel")
+                raise CubeError(msg)
+            return data
         if self.error and err is None:
             return None
         hdu = self.hdul[err if self.error else index]

@@ -56,6 +56,7 @@ class ProductMeta:
     freq0_hz: float | None = None
     dfreq_hz: float | None = None
     linear: bool = True
+    n_flagged: int = 0                    # voxels blanked by their data-quality flags
 
     @property
     def r_h(self) -> u.Quantity:
@@ -77,6 +78,7 @@ class ProductMeta:
             return
         cards.put(header, "linear", self.linear)
         cards.put(header, "first_channel", self.first_channel)
+        cards.put(header, "n_flagged", int(self.n_flagged))
         for key, value in (("target_x", self.target_x), ("target_y", self.target_y), ("delta", self.delta_au),
                            ("r_h", self.r_h_au), ("delta_dot", self.delta_dot_km_s), ("freq0", self.freq0_hz),
                            ("dfreq", self.dfreq_hz)):
@@ -105,7 +107,8 @@ class ProductMeta:
                    first_channel=int(cards.get(header, "first_channel", -1, where)),
                    freq0_hz=number("freq0"),
                    dfreq_hz=number("dfreq"),
-                   linear=bool(cards.get(header, "linear", True, where)))
+                   linear=bool(cards.get(header, "linear", True, where)),
+                   n_flagged=int(cards.get(header, "n_flagged", 0, where)))
 
 
 @dataclass

@@ -27,6 +27,7 @@ __all__ = [
     "radius_in_pixels",
     "offsource_positions",
     "flux_conversion",
+    "corrected_aperture_spectra",
 ]
 
 
@@ -100,26 +101,63 @@ def aperture_spectra(data: np.ndarray, apertures: list[ApertureWeights],
     n_blank : ndarray (n_apertures, n_chan) of int
         Number of blank pixels inside each aperture per channel.
     """
+    sums, n_blank, _ = _reduce(data, apertures, chunk)
+    return sums, n_blank
+
+
+def corrected_aperture_spectra(data: np.ndarray, apertures: list[ApertureWeights], model: np.ndarray,
+                               max_share: float, quality: np.ndarray | None = None, bad_bits: int = 1,
+                               chunk: int = 256) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Aperture sums in which blank (NaN) or flagged pixels are made up for with the model's share of them.
+
+    For a channel where some pixels inside an aperture are blank, or flagged in ``quality`` with any of
+    ``bad_bits``, the sum over the valid pixels is divided by 1 - s, s being the share of the aperture's
+    model-weighted sum, Σ w m, that falls on the lost pixels: the sum the aperture would hold if the lost
+    pixels followed the ``model`` image (n_y, n_x). Where s exceeds ``max_share`` the channel is left NaN.
+    Channels with no lost pixel are summed exactly as :func:`aperture_spectra` sums them.
+
+    Returns
+    -------
+    sums, n_blank : as :func:`aperture_spectra` (n_blank counts the blank and flagged pixels)
+    share : ndarray (n_apertures, n_chan)
+        The model share s made up for (0 where nothing was lost).
+    """
+    return _reduce(data, apertures, chunk, model=model, max_share=max_share, quality=quality, bad_bits=bad_bits)
+
+
+def _reduce(data, apertures, chunk, model=None, max_share=0.0, quality=None, bad_bits=1):
     nchan = data.shape[0]
     ys, xs, matrix = _union_weights(apertures)
     work = np.float64 if np.dtype(data.dtype).itemsize > 4 else np.float32
     wmat = matrix.astype(work)
     inside = matrix > 0
+    if model is not None:
+        wm = matrix * np.asarray(model, dtype=np.float64)[ys, xs].reshape(-1)[:, None]
+        total = wm.sum(axis=0)
     sums = np.empty((len(apertures), nchan))
     n_blank = np.zeros((len(apertures), nchan), dtype=np.int64)
+    share = np.zeros((len(apertures), nchan))
     for c0 in range(0, nchan, chunk):
         c1 = min(nchan, c0 + chunk)
         box = np.ascontiguousarray(data[c0:c1, ys, xs], dtype=work).reshape(c1 - c0, -1)
+        if quality is not None:
+            bad_flags = ((np.asarray(quality[c0:c1, ys, xs]).astype(np.int64) & int(bad_bits)) != 0)
+            box[bad_flags.reshape(c1 - c0, -1)] = np.nan
         part = box @ wmat                                   # (n, n_ap)
         bad = np.flatnonzero(~np.all(np.isfinite(part), axis=1))
         for k in bad:  # rare path: blank pixels somewhere in the box for this channel
-            blank = np.isnan(box[k])
+            blank = ~np.isfinite(box[k])
             nb = (blank[:, None] & inside).sum(axis=0)
             part[k] = np.where(blank, 0.0, box[k]).astype(np.float64) @ matrix
-            part[k, nb > 0] = np.nan
+            if model is not None:
+                s = (blank.astype(np.float64) @ wm) / total
+                share[:, c0 + k] = s
+                part[k] = np.divide(part[k], 1.0 - s, out=np.full(s.shape, np.nan), where=s <= max_share)
+            else:
+                part[k, nb > 0] = np.nan
             n_blank[:, c0 + k] = nb
         sums[:, c0:c1] = part.T
-    return sums, n_blank
+    return sums, n_blank, share
 
 
 def radius_in_pixels(radius: u.Quantity, delta: u.Quantity, pixel_scale: u.Quantity) -> float:

@@ -22,8 +22,10 @@ import numpy as np
 from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_area
 
-from pipeline.spectra.apertures import ApertureWeights, aperture_spectra, aperture_weights
-from pipeline.io.cubes import CubeInfo, open_data, open_error
+from pipeline.coma.image import projected_coma_image
+from pipeline.io.cubes import CubeInfo, flagged, open_data, open_error, open_quality
+from pipeline.spectra.apertures import (ApertureWeights, aperture_spectra, aperture_weights,
+                                        corrected_aperture_spectra)
 from pipeline.errors import CubeError
 
 __all__ = ["F_LAMBDA", "SURFACE_BRIGHTNESS_KINDS", "pixel_solid_angle", "flux_density_factor", "IRSpectra",
@@ -85,24 +87,45 @@ class IRSpectra:
     radius_pix: np.ndarray        # (n_apertures,)
     area_pix: np.ndarray          # (n_apertures,) sum of the exact overlap weights
     factor: u.Quantity            # (n_chan,) F_lambda per unit aperture sum of BUNIT values
+    masked_share: np.ndarray | None = None   # (n_apertures, n_chan) coma share made up for blank pixels
 
 
 def _square_weights(ap: ApertureWeights) -> ApertureWeights:
     return ApertureWeights(ys=ap.ys, xs=ap.xs, weights=ap.weights**2, radius_pix=ap.radius_pix)
 
 
-def extract_ir_spectra(info: CubeInfo, x: float, y: float, radii_pix: list[float]) -> IRSpectra:
+def extract_ir_spectra(info: CubeInfo, x: float, y: float, radii_pix: list[float], dq_bad_bits: int = 0,
+                       max_masked_share: float | None = None) -> IRSpectra:
     """Sum the cube over circular apertures centred on (x, y) (0-based pixels), channel by channel.
 
     The sums use exact pixel-overlap weights (photutils, as in the millimetre path); the error
-    spectra propagate the ERR extension through the same weights, sqrt(sum w^2 ERR^2).
+    spectra propagate the ERR extension through the same weights, sqrt(sum w^2 ERR^2). Voxels whose DQ
+    flags hold any of ``dq_bad_bits`` are blank; with ``max_masked_share`` blank pixels inside an aperture
+    are made up for with a projected coma's share of them
+    (:func:`pipeline.spectra.apertures.corrected_aperture_spectra`; the error of the valid pixels is scaled
+    the same way), and a channel where that share exceeds ``max_masked_share`` is left blank.
     """
     shape = info.shape[1:]
     aps = [aperture_weights(shape, x, y, r, what=f"{info.path}: aperture of {r:.1f} px") for r in radii_pix]
     factor = flux_density_factor(info.bunit, pixel_solid_angle(info.celestial_wcs), info.wavelengths,
                                  str(info.path))
-    with open_data(info.path) as data:
-        sums, n_blank = aperture_spectra(data, aps)
+    with open_data(info.path) as data, open_quality(info.path) as quality:
+        use_quality = quality if (quality is not None and dq_bad_bits) else None
+        if max_masked_share is not None:
+            psf = ((info.beam_major / info.pixel_scale).decompose().value,
+                   (info.beam_minor / info.pixel_scale).decompose().value,
+                   info.beam_pa.to_value(u.deg)) if info.beam_major is not None else None
+            model = projected_coma_image(shape, x, y, psf)
+            sums, n_blank, share = corrected_aperture_spectra(data, aps, model, max_masked_share, use_quality,
+                                                              dq_bad_bits)
+        else:
+            sums, n_blank = aperture_spectra(data, aps)
+            share = np.zeros_like(sums)
+        lost = None
+        if use_quality is not None or np.any(n_blank):
+            lost = ~np.isfinite(np.asarray(data, dtype=np.float64))
+            if use_quality is not None:
+                lost |= flagged(use_quality, dq_bad_bits)
     sigma = None
     if info.error_hdu is not None:
         with open_error(info.path) as err:
@@ -111,8 +134,13 @@ def extract_ir_spectra(info: CubeInfo, x: float, y: float, radii_pix: list[float
                 msg = (f"{info.path}: the ERR extension holds negative values (down to {np.nanmin(err):.3g}); "
                        "expected 1-sigma errors >= 0")
                 raise CubeError(msg)
+            if lost is not None:                       # the valid pixels' errors, scaled as their sum was
+                err = np.where(lost, 0.0, err)
             var, _ = aperture_spectra(np.square(err), [_square_weights(a) for a in aps])
+            if lost is not None:
+                var = var / np.square(1.0 - share)
+                var[~np.isfinite(sums)] = np.nan
         sigma = np.sqrt(var) * factor.value[None, :] * F_LAMBDA
     return IRSpectra(flux=sums * factor.value[None, :] * F_LAMBDA, sigma=sigma, n_blank=n_blank,
                      radius_pix=np.array(radii_pix, dtype=float), area_pix=np.array([a.area for a in aps]),
-                     factor=factor)
+                     factor=factor, masked_share=share)

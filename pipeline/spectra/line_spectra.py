@@ -17,7 +17,9 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from pipeline.spectra.apertures import (aperture_spectra, aperture_weights, flux_conversion, offsource_positions,
+from pipeline.coma.image import projected_coma_image
+from pipeline.spectra.apertures import (aperture_spectra, aperture_weights, corrected_aperture_spectra,
+                                        flux_conversion, offsource_positions,
                         radius_in_pixels)
 from pipeline.io.cubes import CubeInfo
 from pipeline.io.products import LineSpectra, SubCube
@@ -38,6 +40,7 @@ class ExtractionSettings:
     other_lines: u.Quantity          # velocities of other catalogue lines on this axis (speed)
     baseline_order: int = 1
     exclude_margin_channels: int = 3
+    max_masked_share: float | None = None   # make up for blank pixels up to this share of the coma (None: NaN)
 
 
 def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor) -> tuple[float, int]:
@@ -62,7 +65,7 @@ def other_line_velocities(catalogue, line, half_width: u.Quantity) -> u.Quantity
 
 
 def extraction_settings(line, catalogue, radii: list[u.Quantity], window: u.Quantity,
-                        half_width: u.Quantity) -> ExtractionSettings:
+                        half_width: u.Quantity, max_masked_share: float | None = None) -> ExtractionSettings:
     """What to extract for ``line``: the apertures, the integration window and the other lines' positions.
 
     Parameters
@@ -77,9 +80,14 @@ def extraction_settings(line, catalogue, radii: list[u.Quantity], window: u.Quan
         Half-width of the integration window (the window factor times the outflow speed).
     half_width : Quantity [speed]
         Half-width of the sub-cube's velocity axis.
+    max_masked_share : float, optional
+        Blank or flagged pixels inside an aperture are made up for with a projected coma's share of them up to
+        this share (:func:`pipeline.spectra.apertures.corrected_aperture_spectra`); None leaves such channels
+        blank.
     """
     return ExtractionSettings(radii=list(radii), window=window,
-                              other_lines=other_line_velocities(catalogue, line, half_width + 5 * u.km / u.s))
+                              other_lines=other_line_velocities(catalogue, line, half_width + 5 * u.km / u.s),
+                              max_masked_share=max_masked_share)
 
 
 def extract_spectra(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None = None,
@@ -141,9 +149,14 @@ def _extract(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None
     rows = []
     if data is None:
         data = sub.data
-    sums, n_blank = aperture_spectra(data, aps)
+    if settings.max_masked_share is not None:    # blank pixels made up for with a projected coma's share of them
+        model = projected_coma_image(info.shape[1:], x, y, (beam_pix, beam_pix, 0.0))
+        sums, n_blank, share = corrected_aperture_spectra(data, aps, model, settings.max_masked_share)
+    else:
+        sums, n_blank = aperture_spectra(data, aps)
+        share = np.zeros_like(sums)
     flux = sums * factor
-    valid_all = np.all(n_blank == 0, axis=0)
+    valid_all = np.all(np.isfinite(sums), axis=0)
     free = line_free_mask(vel, np.concatenate([[0.0, v_centre], others]), exclude, valid=valid_all)
     if free.sum() < 10:
         msg = (f"{where}: only {int(free.sum())} line-free channels remain outside +-{exclude:.2f} "
@@ -166,6 +179,7 @@ def _extract(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None
             "n_windows": wn.n_windows, "n_independent": wn.n_independent,
             "sigma_chan_offsource": s_off, "n_offsource": n_off,
             "n_blank_chan": int(np.sum(n_blank[i] > 0)),
+            "max_masked_share": float(np.max(share[i])) if share.shape[1] else 0.0,
         })
         log.info("aperture %.0f km: sigma_chan %.3g Jy, window sigma %.3g Jy km/s (naive %.3g), "
                  "%d independent windows, off-source sigma %.3g Jy (%d apertures), %d blank channels",

@@ -159,7 +159,8 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
     x, y = float(geo["x_pix"]), float(geo["y_pix"])
     log.info("cube %s: infrared, %d channels %.4f-%.4f um, R = %.0f (%s), %d apertures", geo["cube_id"],
              info.shape[0], obs.min().to_value(u.um), obs.max().to_value(u.um), rpow, rsource, len(radii))
-    spectra = extract_ir_spectra(info, x, y, radii_pix)
+    spectra = extract_ir_spectra(info, x, y, radii_pix, settings.quality.dq_bad_bits,
+                                 settings.quality.max_masked_share)
     # every catalogue band in range is kept out of the continuum, configured species or not
     windows = band_windows(obs, catalogue, band_ids, factor, rpow, settings.infrared.margin_fwhm)
     free_all = np.ones(obs.shape, dtype=bool)

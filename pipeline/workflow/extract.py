@@ -28,7 +28,7 @@ def run(subcube_path: str, settings: Settings, out_path: str) -> None:
         line = catalogue.get_line(sub.meta.line_id)
         v_out = outflow_speed(settings.coma, sub.meta.r_h)
         what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
-                                   settings.half_width)
+                                   settings.half_width, settings.quality.max_masked_share)
         spectra = extract_spectra(sub, what)
     hdul = spectra.to_fits()
     add_to_header(hdul[0].header, record)

@@ -46,7 +46,8 @@ def run(budget_path: str, settings: Settings, out_path: str) -> None:
             line = catalogue.get_line(line_id)
             v_out = outflow_speed(settings.coma, float(geo["r_h"].to_value(u.au)) * u.au)
             what = extraction_settings(line, catalogue, settings.apertures,
-                                       settings.limits.window_factor * v_out, settings.half_width)
+                                       settings.limits.window_factor * v_out, settings.half_width,
+                                       settings.quality.max_masked_share)
             sig = forecast_sigma(plan, line, geo, what, catalogue, settings.t_kin, settings.coma,
                                  filtering.shortest_baseline if filtering else None,
                                  filtering.correct if filtering else True)

@@ -105,7 +105,7 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
             line = catalogue.get_line(sub.meta.line_id)
             v_out = outflow_speed(model, sub.meta.r_h)
             what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
-                                       settings.half_width)
+                                       settings.half_width, settings.quality.max_masked_share)
             where = placements(sub, what)
             parent = catalogue.get_species(sp.parent) if sp.parent else None
             for k, spectra in enumerate(inject_spectra(sub, what, line, sp, q, t_kin * u.K, model, where,

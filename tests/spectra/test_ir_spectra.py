@@ -179,3 +179,33 @@ def test_negative_errors_are_refused(tmp_path):
     path = write_ir(tmp_path / "negerr.fits", np.ones(SHAPE), err)
     with pytest.raises(CubeError, match=r"negerr\.fits: the ERR extension holds negative values"):
         extract_ir_spectra(read_cube_info(path), 10.0, 10.0, [3.0])
+
+
+def test_dq_flagged_voxels_are_made_up_for_not_summed(tmp_path):
+    # an IFU product with SCI/ERR/DQ: a few interior voxels hold garbage and are flagged DO_NOT_USE (bit 0).
+    # Reference: the same cube without the garbage, summed plainly (numpy sums through pipeline's weights).
+    from pipeline.coma.image import projected_coma_image
+    from pipeline.spectra.ir_spectra import extract_ir_spectra
+
+    coma = projected_coma_image(SHAPE[1:], 10.0, 10.0)
+    clean = np.broadcast_to(coma, SHAPE).astype(float)
+    dirty = clean.copy()
+    dirty[5:9, 9, 11] = 1e6                                  # hot voxels in 4 channels, inside the aperture
+    path = write_ir(tmp_path / "dq.fits", dirty, np.full(SHAPE, 0.01))
+    dq = np.zeros(SHAPE, dtype=np.int32)
+    dq[5:9, 9, 11] = 1
+    with fits.open(path, mode="append") as hdul:
+        hdul.append(fits.ImageHDU(dq, name="DQ"))
+    ref = extract_ir_spectra(read_cube_info(write_ir(tmp_path / "clean.fits", clean, np.full(SHAPE, 0.01))),
+                             10.0, 10.0, [4.0])
+    info = read_cube_info(path)
+    flagged_sum = extract_ir_spectra(info, 10.0, 10.0, [4.0], dq_bad_bits=1, max_masked_share=0.25)
+    # the flagged voxels followed the coma: made up to the clean sum (float32 storage: 1e-6)
+    assert_allclose(flagged_sum.flux.value, ref.flux.value, rtol=1e-6)
+    assert flagged_sum.n_blank[0, 5] == 1 and flagged_sum.masked_share[0, 5] > 0
+    assert np.all(np.isfinite(flagged_sum.sigma.value))
+    # the error of a channel with a lost voxel grows with 1 / (1 - share) (fewer valid pixels, scaled up)
+    assert flagged_sum.sigma.value[0, 5] > ref.sigma.value[0, 5] * 0.99
+    # without the DQ bits the garbage enters the sum
+    raw = extract_ir_spectra(info, 10.0, 10.0, [4.0])
+    assert raw.flux.value[0, 5] > 100 * ref.flux.value[0, 5]
