@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from pathlib import Path
 
 import astropy.units as u
@@ -21,8 +22,8 @@ from pipeline.catalogue.entries import load_catalogue
 from pipeline.settings import append_cubes, load_settings, validate_config, write_campaign
 from pipeline.io.cubes import read_cube_info
 from pipeline.io.times import observation_times
-from pipeline.geometry.ephemeris import read_ephemeris
-from pipeline.errors import GasledgerError
+from pipeline.geometry.ephemeris import check_spacing, read_ephemeris
+from pipeline.errors import GasledgerError, SpacingWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.frames import radio_velocity, to_target_frame, to_topocentric
 from pipeline.geometry.observing import observer_location
@@ -111,6 +112,11 @@ def cmd_check(args) -> int:
             problems.append(str(exc))
     print(f"campaign: {settings.campaign}  ({len(settings.cubes)} cubes, species {', '.join(species)})")
     ephem = read_ephemeris(settings.target.ephemeris) if settings.target.ephemeris is not None else None
+    if ephem is not None:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", SpacingWarning)
+            check_spacing(ephem)
+        problems += [str(w.message) for w in caught if issubclass(w.category, SpacingWarning)]
     if ephem is not None:
         lo, hi = ephem.span
         print(f"ephemeris: {settings.target.ephemeris} spans {lo.isot} to {hi.isot}")

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import astropy.units as u
 import numpy as np
 
-from pipeline.spectra.apertures import aperture_weights
+from pipeline.spectra.apertures import within_footprint, aperture_weights
 from pipeline.spectra.band_measure import band_capture, binned_band_template, channel_widths, measure_band
 from pipeline.catalogue.entries import Band, Species
 from pipeline.coma.image import aperture_count_on_grid
@@ -45,11 +45,14 @@ class BandInjection:
     q_err: np.ndarray          # 1/s
 
 
-def ring_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float, n: int = 4) -> list[tuple[float, float]]:
+def ring_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float, n: int = 4,
+                   footprint: np.ndarray | None = None) -> list[tuple[float, float]]:
     """The nucleus and up to ``n`` positions around it whose apertures of ``radius_pix`` fit in the field.
 
     Each lies along a diagonal, as far out as 2.5 aperture radii allows inside the field (at least a quarter
-    radius out); the injections are differenced, so overlapping the real coma or each other does no harm.
+    radius out) and, with ``footprint`` (2-D, True where the cube holds data in every channel), inside the
+    data: a NaN border is no place for an injection. The injections are differenced, so overlapping the real
+    coma or each other does no harm.
     """
     out = [(x, y)]
     for k in range(n):
@@ -59,6 +62,8 @@ def ring_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float
             try:
                 aperture_weights(shape, px, py, radius_pix)
             except CoverageError:
+                continue
+            if not within_footprint(footprint, px, py, radius_pix):
                 continue
             out.append((float(px), float(py)))
             break

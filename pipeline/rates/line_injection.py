@@ -62,7 +62,9 @@ def placements(sub: SubCube, settings: ExtractionSettings, n_ring: int = 4,
     beam_pix = float((np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose()) \
         if info.beam_major is not None else 1.0
     # ring close enough to fit small fields: the velocity offset, not distance, keeps the real coma out
-    ring = offsource_positions(info.shape[1:], x, y, r_max, 1.2 * r_max + beam_pix)
+    # only where the data are (a blank border or a mask is no place for an injection)
+    footprint = np.all(np.isfinite(sub.data), axis=0) if not np.all(np.isfinite(sub.data)) else None
+    ring = offsource_positions(info.shape[1:], x, y, r_max, 1.2 * r_max + beam_pix, footprint)
     step = max(1, len(ring) // n_ring) if ring else 1
     sky = [(x, y)] + ring[::step][:n_ring]
     vel = sub.velocity

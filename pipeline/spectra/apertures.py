@@ -28,6 +28,7 @@ __all__ = [
     "offsource_positions",
     "flux_conversion",
     "corrected_aperture_spectra",
+    "within_footprint",
 ]
 
 
@@ -173,11 +174,26 @@ def radius_in_pixels(radius: u.Quantity, delta: u.Quantity, pixel_scale: u.Quant
     return float((angle / pixel_scale).decompose())
 
 
+def within_footprint(footprint: np.ndarray | None, x: float, y: float, radius_pix: float) -> bool:
+    """Whether every pixel an aperture of ``radius_pix`` at (x, y) touches holds data (``footprint`` True).
+
+    ``footprint`` is a 2-D boolean image (e.g. finite in every channel); None means the whole image.
+    """
+    if footprint is None:
+        return True
+    try:
+        ap = aperture_weights(footprint.shape, x, y, radius_pix)
+    except CoverageError:
+        return False
+    return bool(np.all(footprint[ap.ys, ap.xs][ap.weights > 0]))
+
+
 def offsource_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float,
-                        distance_pix: float) -> list[tuple[float, float]]:
+                        distance_pix: float, footprint: np.ndarray | None = None) -> list[tuple[float, float]]:
     """Centres of non-overlapping apertures on a circle of ``distance_pix`` around (x, y).
 
-    Only positions whose aperture fits inside the image are returned.
+    Only positions whose aperture fits inside the image (and inside ``footprint``, the pixels holding data,
+    when given: :func:`within_footprint`) are returned.
     """
     ny, nx = shape
     n_max = int(np.floor(np.pi / np.arcsin(min(1.0, radius_pix / distance_pix)))) if distance_pix > radius_pix else 0
@@ -186,7 +202,7 @@ def offsource_positions(shape: tuple[int, int], x: float, y: float, radius_pix: 
         ang = 2 * np.pi * k / n_max
         px, py = x + distance_pix * np.cos(ang), y + distance_pix * np.sin(ang)
         if (px - radius_pix >= -0.5 and py - radius_pix >= -0.5 and px + radius_pix <= nx - 0.5
-                and py + radius_pix <= ny - 0.5):
+                and py + radius_pix <= ny - 0.5) and within_footprint(footprint, px, py, radius_pix):
             out.append((px, py))
     return out
 

@@ -45,7 +45,8 @@ class ExtractionSettings:
 
 def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor) -> tuple[float, int]:
     dist = max(2.5 * r_pix, r_pix + 2.0 * beam_pix)
-    positions = offsource_positions(info.shape[1:], x, y, r_pix, dist)
+    footprint = np.all(np.isfinite(data), axis=0) if not np.all(np.isfinite(data)) else None
+    positions = offsource_positions(info.shape[1:], x, y, r_pix, dist, footprint)
     if len(positions) < 3:
         return float("nan"), len(positions)
     aps = [aperture_weights(info.shape[1:], px, py, r_pix) for px, py in positions]

@@ -10,7 +10,7 @@ from astropy.table import QTable
 
 from pipeline.io.atomic import write_table
 from pipeline.rates.band_injection import inject_band, ring_positions
-from pipeline.io.cubes import read_cube_info
+from pipeline.io.cubes import open_data, read_cube_info
 from pipeline.rates.line_injection import inject_spectra, placements
 from pipeline.rates.stacking import StackInput
 from pipeline.rates.statistics import inverse_variance_mean
@@ -66,7 +66,10 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
         radii_km = np.asarray(measured.apertures["radius_km"], dtype=float)
         ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
         windows = band_windows(obs, catalogue, ids, measured.doppler, measured.resolving_power, ir.margin_fwhm)
-        where = ring_positions(info.shape[1:], measured.centre[0], measured.centre[1], max(radii_pix))
+        with open_data(info.path) as data:               # where the cube holds data in every channel
+            footprint = np.all(np.isfinite(data), axis=0)
+        where = ring_positions(info.shape[1:], measured.centre[0], measured.centre[1], max(radii_pix),
+                               footprint=footprint)
         for band_id in ids:
             free, shape = band_setup(band_id, windows, obs, ir.continuum_factor, ir.continuum_shape)
             results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,

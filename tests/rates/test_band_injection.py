@@ -20,3 +20,25 @@ def test_positions_fit_and_spread_around_the_nucleus():
 
 def test_no_room_leaves_only_the_nucleus():
     assert ring_positions((24, 24), 12.0, 12.0, 11.4) == [(12.0, 12.0)]
+
+
+def test_placements_stay_where_the_cube_holds_data():
+    # an IFU field with a NaN border 10 pixels wide: every placement's aperture lies on finite pixels
+    # (reference: the footprint itself, checked pixel by pixel with the aperture's own overlap weights)
+    import numpy as np
+
+    from pipeline.rates.band_injection import ring_positions
+    from pipeline.spectra.apertures import aperture_weights
+
+    shape = (40, 40)
+    footprint = np.zeros(shape, dtype=bool)
+    footprint[10:30, 10:30] = True
+    free = ring_positions(shape, 20.0, 20.0, 4.0)
+    kept = ring_positions(shape, 20.0, 20.0, 4.0, footprint=footprint)
+    assert len(kept) == 5 and kept[0] == (20.0, 20.0)
+    for x, y in kept:
+        ap = aperture_weights(shape, x, y, 4.0)
+        assert np.all(footprint[ap.ys, ap.xs][ap.weights > 0])
+    # without the footprint the diagonal placements reach into the border
+    assert any(not np.all(footprint[a.ys, a.xs][a.weights > 0])
+               for a in (aperture_weights(shape, x, y, 4.0) for x, y in free))
