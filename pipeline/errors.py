@@ -9,6 +9,7 @@ of a :class:`GasledgerWarning` subclass.
 """
 
 __all__ = [
+    "DriftWarning",
     "GasledgerError",
     "GasledgerTypeError",
     "ConfigError",
@@ -80,3 +81,7 @@ class SpacingWarning(GasledgerWarning):
 
 class MotionWarning(GasledgerWarning):
     """The target moved by a sizeable fraction of the beam during the exposure."""
+
+
+class DriftWarning(GasledgerWarning):
+    """A cube's time lies so far from the osculating elements' epoch that two-body drift may matter."""

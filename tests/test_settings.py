@@ -115,7 +115,10 @@ def test_id_from_a_hidden_file_name_is_refused():
 
 def test_elements_target_is_accepted():
     config = validate_config(_base(target={"elements": ELEMENTS}))
-    assert config["target"]["elements"] == ELEMENTS
+    assert config["target"]["elements"] == {**ELEMENTS, "time_scale": "utc"}     # the schema's default filled in
+    # a Julian date in TDB, as element services give them, is accepted too
+    config = validate_config(_base(target={"elements": {**ELEMENTS, "tp": 2462996.5, "time_scale": "tdb"}}))
+    assert config["target"]["elements"]["tp"] == 2462996.5
 
 
 def test_check_inputs_exist(tmp_path):

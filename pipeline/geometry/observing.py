@@ -20,9 +20,9 @@ from astropy.time import Time
 from pipeline.io.cubes import CubeInfo
 from pipeline.io.times import observation_times
 from pipeline.geometry.ephemeris import Ephemeris
-from pipeline.errors import ConfigError, CoverageError, MotionWarning
+from pipeline.errors import DriftWarning, ConfigError, CoverageError, MotionWarning
 from pipeline.offline import future_time_tolerated
-from pipeline.geometry.orbit import OrbitalElements, observe
+from pipeline.geometry.orbit import two_body_drift, OrbitalElements, observe
 
 __all__ = ["observer_location", "target_geometry", "cube_geometry"]
 
@@ -55,6 +55,19 @@ def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
         table = observe(elements, Time(times).reshape(-1), location)
     cols = ("ra", "dec", "r_h", "delta", "delta_dot", "phase")
     return {c: (table[c] if np.ndim(times) else table[c][0]) for c in cols}
+
+
+def _warn_drift(elements: OrbitalElements, mid: Time, info: CubeInfo, cube_id: str) -> None:
+    """A DriftWarning when the rough two-body drift from the elements' epoch exceeds a tenth of the beam."""
+    dt = (mid - elements.epoch).to(u.day)
+    drift = two_body_drift(dt)
+    size = info.beam_minor if info.beam_minor is not None else 2 * info.pixel_scale
+    if drift > 0.1 * size:
+        warnings.warn(f"cube {cube_id}: its mid-time is {abs(dt.to_value(u.day)):.0f} days from the orbital elements' "
+                      f"epoch ({elements.epoch.isot}); two-body propagation may then be off by about "
+                      f"{drift.to_value(u.arcsec):.2g} arcsec (rule of thumb), more than a tenth of the "
+                      f"{size.to_value(u.arcsec):.2g} arcsec beam; expected elements osculating near the "
+                      "observations (or an ephemeris table)", DriftWarning, stacklevel=3)
 
 
 def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str | None = None,
@@ -96,6 +109,8 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
                           elements=elements, location=location)
     sky = SkyCoord(geo["ra"], geo["dec"], frame="icrs")
     motion = sky[0].separation(sky[2]).to(u.arcsec)
+    if elements is not None and elements.epoch is not None:
+        _warn_drift(elements, mid, info, cube_id)
     mode = position
     if mode == "auto":
         mode = "phase_centre" if info.specsys == "SOURCE" else "ephemeris"

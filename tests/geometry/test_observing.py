@@ -158,3 +158,14 @@ def test_make_ephemeris_command(tmp_path, capsys):
     assert table.at(Time("2031-03-10T05:00:00"))["delta"].to_value(u.au) == pytest.approx(
         direct["delta"][0].to_value(u.au), rel=1e-9)
     assert make_ephemeris(["--start", "x", "--stop", "y", "--out", str(out)]) == 2
+
+
+def test_elements_far_from_their_epoch_warn_of_drift(tmp_path):
+    # 4 years from the osculating epoch the rule of thumb (0.2" at 30 d, 600" at 2.4 yr) far exceeds a tenth
+    # of the 1.5" beam: a DriftWarning names the cube, the days and the size
+    from pipeline.errors import CoverageError, DriftWarning
+    el = OrbitalElements.from_mapping({**ELEMENTS, "epoch": "2020-03-01T00:00:00"})
+    cube = read_cube_info(write_cube(tmp_path / "d.fits"))
+    with future_time_tolerated(), pytest.raises(CoverageError), \
+            pytest.warns(DriftWarning, match=r"cube c: its mid-time is 1461 days from the orbital elements' epoch"):
+        cube_geometry(cube, "c", "e", elements=el)         # (the test cube's field is not where the target is)

@@ -530,3 +530,31 @@ def test_ephemeris_grid_and_ecsv_round_trip(tmp_path):
         assert back[name].unit == tab[name].unit
         assert_quantity_allclose(back[name], tab[name], rtol=1e-14)
     assert back.meta["observer"] == "geocentre"
+
+
+# ---- element times as element services give them, and the drift from their epoch
+
+
+def test_element_times_as_jd_and_in_tdb():
+    # the same instant given as ISO UTC, as a JD in TDB and as an ISO time in TDB (astropy's TDB -> UTC is the
+    # reference; TDB - UTC = 69.18 s in 2031, 32.184 s + 37 leap seconds plus < 2 ms periodic terms, from memory)
+    base = {"q_au": 1.2, "e": 3.1, "i_deg": 40.0, "node_deg": 120.0, "peri_deg": 60.0}
+    utc = OrbitalElements.from_mapping({**base, "tp": "2031-05-10T00:00:00"})
+    tdb_iso = OrbitalElements.from_mapping({**base, "tp": "2031-05-10T00:01:09.184", "time_scale": "tdb"})
+    jd = Time("2031-05-10T00:01:09.184", scale="tdb").jd
+    tdb_jd = OrbitalElements.from_mapping({**base, "tp": jd, "time_scale": "tdb"})
+    tdb_text = OrbitalElements.from_mapping({**base, "tp": f"JD{float(jd)!r}", "time_scale": "tdb"})
+    for el in (tdb_iso, tdb_jd, tdb_text):
+        assert abs((el.tp - utc.tp).to_value(u.s)) < 0.01            # 2 ms periodic terms, JD rounding
+    with pytest.raises(EphemerisError, match="'time_scale' must be one of utc, tt, tdb"):
+        OrbitalElements.from_mapping({**base, "tp": "2031-05-10T00:00:00", "time_scale": "local"})
+    with pytest.raises(EphemerisError, match="'tp' = 62207.5 is not a Julian date"):
+        OrbitalElements.from_mapping({**base, "tp": 62207.5})
+
+
+def test_two_body_drift_rule_of_thumb_passes_its_anchors():
+    from pipeline.geometry.orbit import DRIFT_REFERENCE, two_body_drift
+    t1, d1, t2, d2 = DRIFT_REFERENCE
+    assert two_body_drift(t1).to_value(u.arcsec) == pytest.approx(d1.to_value(u.arcsec), rel=1e-12)
+    assert two_body_drift(-t2).to_value(u.arcsec) == pytest.approx(d2.to_value(u.arcsec), rel=1e-12)
+    assert two_body_drift(1 * u.day) < two_body_drift(10 * u.day) < two_body_drift(100 * u.day)
