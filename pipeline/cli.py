@@ -22,7 +22,7 @@ from pipeline.catalogue.entries import load_catalogue
 from pipeline.settings import append_cubes, load_settings, validate_config, write_campaign
 from pipeline.io.cubes import read_cube_info
 from pipeline.io.times import observation_times
-from pipeline.geometry.ephemeris import check_spacing, read_ephemeris
+from pipeline.geometry.ephemeris import check_observer, check_spacing, read_ephemeris
 from pipeline.errors import GasledgerError, SpacingWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.frames import radio_velocity, to_target_frame, to_topocentric
@@ -117,6 +117,10 @@ def cmd_check(args) -> int:
             warnings.simplefilter("always", SpacingWarning)
             check_spacing(ephem)
         problems += [str(w.message) for w in caught if issubclass(w.category, SpacingWarning)]
+        try:
+            check_observer(ephem, settings.location)
+        except GasledgerError as exc:
+            problems.append(str(exc))
     if ephem is not None:
         lo, hi = ephem.span
         print(f"ephemeris: {settings.target.ephemeris} spans {lo.isot} to {hi.isot}")

@@ -15,10 +15,12 @@ may err, for short tables too.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 from pathlib import Path
 
 import astropy.units as u
 import numpy as np
+from astropy.coordinates import EarthLocation
 from astropy.time import Time
 from scipy.interpolate import CubicSpline
 
@@ -26,7 +28,7 @@ from pipeline.errors import EphemerisError, SpacingWarning
 from pipeline.geometry._service_tables import (EXPECTED_LAYOUTS, from_client, is_service_export, layout_of,
                                                read_qtable, read_service_export, refuse_masked)
 
-__all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing", "GAP_FACTOR"]
+__all__ = ["EPHEMERIS_COLUMNS", "Ephemeris", "read_ephemeris", "interpolation_error", "check_spacing", "GAP_FACTOR", "check_observer"]
 
 
 #: A table step longer than this many times the median step of the rows nearby is a gap.
@@ -46,6 +48,7 @@ class Ephemeris:
     source: str
     jd: np.ndarray                       # UTC Julian dates, strictly increasing
     columns: dict[str, u.Quantity]
+    observer: Any = None                 # the table's stated observer (metadata 'observer'), None if unstated
 
     @property
     def span(self) -> tuple[Time, Time]:
@@ -198,7 +201,48 @@ def read_ephemeris(path: str | Path) -> Ephemeris:
         if np.any(columns[name] <= 0):
             msg = f"ephemeris file {str(path)!r}: column {name!r} must be positive"
             raise EphemerisError(msg)
-    return Ephemeris(source=str(path), jd=jd, columns=columns)
+    return Ephemeris(source=str(path), jd=jd, columns=columns, observer=table.meta.get("observer"))
+
+
+def check_observer(ephem: Ephemeris, location: EarthLocation | None, tolerance: u.Quantity = 1 * u.km) -> None:
+    """Refuse a table whose stated observer (its metadata ``observer``) is not the observatory it is used for.
+
+    ``observer`` is ``'geocentre'`` or a mapping with ``lon_deg``, ``lat_deg``, ``height_m`` (as
+    :func:`pipeline.geometry.orbit.ephemeris_from_elements` writes it); a table that states none is taken as seen
+    from ``location`` (None = the geocentre), as the config reference says. A geocentric table used for a site
+    is off by the diurnal parallax (up to ~6 arcsec and 0.4 km/s at 1.4 au), so it is never accepted silently.
+
+    Raises
+    ------
+    EphemerisError
+        When the table's observer and ``location`` differ (by more than ``tolerance`` between two sites).
+    """
+    stated = ephem.observer
+    if stated is None:
+        return
+    here = "the geocentre" if location is None else (
+        f"the site at lon {location.lon.to_value(u.deg):.4f} deg, lat {location.lat.to_value(u.deg):.4f} deg")
+    if isinstance(stated, str) and stated.strip().lower() in ("geocentre", "geocenter", "geocentric", "500"):
+        if location is None:
+            return
+        msg = (f"ephemeris file {ephem.source!r} states it is seen from the geocentre (metadata 'observer') but the "
+               f"cube is observed from {here}; expected a table seen from that observatory (topocentric), or the "
+               "observatory 'geocentre'")
+        raise EphemerisError(msg)
+    if isinstance(stated, dict) and {"lon_deg", "lat_deg", "height_m"} <= set(stated):
+        site = EarthLocation.from_geodetic(float(stated["lon_deg"]) * u.deg, float(stated["lat_deg"]) * u.deg,
+                                           float(stated["height_m"]) * u.m)
+        if location is not None:
+            gap = np.linalg.norm((u.Quantity(site.geocentric) - u.Quantity(location.geocentric)).to_value(u.km))
+            if gap * u.km <= tolerance:
+                return
+        msg = (f"ephemeris file {ephem.source!r} states it is seen from the site at lon {stated['lon_deg']} deg, lat "
+               f"{stated['lat_deg']} deg (metadata 'observer') but the cube is observed from {here}; expected a table "
+               "seen from that observatory")
+        raise EphemerisError(msg)
+    msg = (f"ephemeris file {ephem.source!r}: metadata 'observer' = {stated!r} is not understood; expected "
+           "'geocentre' or a mapping of lon_deg, lat_deg, height_m")
+    raise EphemerisError(msg)
 
 
 #: How the spacing estimate is made, by number of rows (for the warning's sentence).

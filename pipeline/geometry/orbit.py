@@ -660,4 +660,8 @@ def ephemeris_from_elements(
     table = observe(elements, times, location)
     if location is not None:  # both range rates: topocentric (delta_dot) and geocentric
         table["delta_dot_geocentric"] = observe(elements, times, None)["delta_dot"]
+    # the table says whom it is seen from (pipeline.geometry.ephemeris.check_observer reads it)
+    table.meta["observer"] = "geocentre" if location is None else {
+        "lon_deg": float(location.lon.to_value(u.deg)), "lat_deg": float(location.lat.to_value(u.deg)),
+        "height_m": float(location.height.to_value(u.m))}
     return table

@@ -9,7 +9,7 @@ from astropy.table import QTable
 from astropy.time import Time
 
 from pipeline.io.atomic import write_table
-from pipeline.geometry.ephemeris import check_spacing, read_ephemeris
+from pipeline.geometry.ephemeris import check_observer, check_spacing, read_ephemeris
 from pipeline.rates.forecast import forecast_sigma
 from pipeline.geometry.observing import target_geometry
 from pipeline.coma.response import outflow_speed
@@ -35,6 +35,7 @@ def run(budget_path: str, settings: Settings, out_path: str) -> None:
     ephem = read_ephemeris(ephemeris_path) if ephemeris_path is not None else None
     if ephem is not None:
         check_spacing(ephem)                            # warns (in the log) when the table is too coarse
+        check_observer(ephem, settings.location)
     elements = target.elements
     rows = []
     for plan in settings.planned:

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import astropy.units as u
 
-from pipeline.geometry.ephemeris import check_spacing, read_ephemeris
+from pipeline.geometry.ephemeris import check_observer, check_spacing, read_ephemeris
 from pipeline.geometry.observing import cube_geometry
 from pipeline.io.atomic import write_table
 from pipeline.io.cubes import read_cube_info
@@ -27,6 +27,7 @@ def run(settings: Settings, out_path: str) -> None:
         ephem = read_ephemeris(target.ephemeris)
         inputs.append(target.ephemeris)
         check_spacing(ephem)
+        check_observer(ephem, settings.location)
     table = cube_geometry(info, cube.cube_id, cube.epoch, cube.time, ephemeris=ephem, elements=target.elements,
                           location=settings.location, tracked=cube.tracked, position=cube.position,
                           offset=tuple(cube.offset),

@@ -358,3 +358,36 @@ def test_long_tables_keep_the_every_other_row_estimate(tmp_path):
         warnings.simplefilter("error", SpacingWarning)
         err = check_spacing(fine)
     assert err["position"] < 0.05 * u.arcsec
+
+
+# ---- a table's stated observer
+
+
+def test_a_table_states_its_observer_and_a_contradiction_is_refused(tmp_path):
+    from pipeline.geometry.ephemeris import check_observer
+
+    el = OrbitalElements.from_mapping({"q_au": 1.12, "e": 2.7, "i_deg": 122.0, "node_deg": 211.0,
+                                       "peri_deg": 37.0, "tp": "2031-02-20T06:00:00"})
+    site = EarthLocation.from_geodetic(-67.75 * u.deg, -23.0 * u.deg, 5000 * u.m)     # an invented site
+    start, stop = Time("2031-03-10T00:00:00", scale="utc"), Time("2031-03-10T06:00:00", scale="utc")
+    with future_time_tolerated():
+        write_ephemeris(ephemeris_from_elements(el, start, stop, 30 * u.min), tmp_path / "geo.ecsv")
+        write_ephemeris(ephemeris_from_elements(el, start, stop, 30 * u.min, site), tmp_path / "topo.ecsv")
+        geo, topo = read_ephemeris(tmp_path / "geo.ecsv"), read_ephemeris(tmp_path / "topo.ecsv")
+        # why it matters: the diurnal parallax between the two tables, at most R_earth / delta (closed form)
+        g, t = geo.at(Time(["2031-03-10T03:00:00"], scale="utc")), topo.at(Time(["2031-03-10T03:00:00"], scale="utc"))
+    from astropy.coordinates import SkyCoord
+    sep = SkyCoord(g["ra"], g["dec"]).separation(SkyCoord(t["ra"], t["dec"]))[0].to(u.arcsec)
+    bound = (6378.137 * u.km / g["delta"][0].to(u.km)).decompose().value * u.rad
+    assert 0.1 * u.arcsec < sep <= bound.to(u.arcsec) * 1.001
+    assert geo.observer == "geocentre" and topo.observer["lat_deg"] == pytest.approx(-23.0)
+    check_observer(geo, None)
+    check_observer(topo, site)
+    with pytest.raises(EphemerisError, match=r"geo\.ecsv' states it is seen from the geocentre .* but the cube is "
+                                             r"observed from the site"):
+        check_observer(geo, site)
+    with pytest.raises(EphemerisError, match=r"states it is seen from the site .* observed from the geocentre"):
+        check_observer(topo, None)
+    elsewhere = EarthLocation.from_geodetic(-67.85 * u.deg, -23.0 * u.deg, 5000 * u.m)   # ~10 km west
+    with pytest.raises(EphemerisError, match="expected a table seen from that observatory"):
+        check_observer(topo, elsewhere)
