@@ -32,6 +32,13 @@ __all__ = ["ProductMeta", "SubCube", "LineSpectra", "BandMeasurements", "BAND_CO
 _STANDARD = ("RESTFRQ", "BMAJ", "BMIN", "BPA")
 
 
+def _read_file(cls, path: str | Path):
+    """``cls.from_fits`` of the file at ``path``, read whole and closed again."""
+    with fits.open(path) as hdul:
+        hdul.readall()
+        return cls.from_fits(hdul)
+
+
 @dataclass(frozen=True)
 class ProductMeta:
     """Which line of which cube a product holds, and where the target is (shared by sub-cube and spectra).
@@ -326,9 +333,7 @@ class LineSpectra:
     def from_fits(cls, source: str | Path | fits.HDUList) -> "LineSpectra":
         """Read a spectra file (a path or an open HDU list) written by :meth:`to_fits`."""
         if not isinstance(source, fits.HDUList):
-            with fits.open(source) as hdul:
-                hdul.readall()
-                return cls.from_fits(hdul)
+            return _read_file(cls, source)
         where = source.filename() or "spectra"
         h = source[0].header
         meta = ProductMeta.read(h, where)
@@ -446,9 +451,7 @@ class BandMeasurements:
     def from_fits(cls, source: str | Path | fits.HDUList) -> "BandMeasurements":
         """Read a bands file (a path or an open HDU list) written by :meth:`to_fits`."""
         if not isinstance(source, fits.HDUList):
-            with fits.open(source) as hdul:
-                hdul.readall()
-                return cls.from_fits(hdul)
+            return _read_file(cls, source)
         where = source.filename() or "bands file"
         h = source[0].header
         tables = {}

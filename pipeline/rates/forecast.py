@@ -42,14 +42,19 @@ class PlannedEpoch:
     half_width_km_s: float = 40.0
 
 
+def _velocity_channels(plan: PlannedEpoch, line) -> tuple[float, int]:
+    """The planned channel width in km/s at ``line`` and the number of channels over the plan's half-width."""
+    dv = plan.channel_khz * 1e3 / line.freq.to_value(u.Hz) * const.c.to_value(u.km / u.s)
+    return dv, 2 * int(plan.half_width_km_s / dv) + 1
+
+
 def noise_subcube(plan: PlannedEpoch, line, geo: dict, data: np.ndarray | None = None) -> SubCube:
     """A sub-cube of ``line`` at the planned epoch, the target at the centre, holding ``data`` (zeros if None).
 
     Its velocity axis spans the plan's half-width in channels of the planned width; its beam, pixel size and
     image size are the plan's, its unit Jy/beam.
     """
-    dv = plan.channel_khz * 1e3 / line.freq.to_value(u.Hz) * const.c.to_value(u.km / u.s)
-    nchan = 2 * int(plan.half_width_km_s / dv) + 1
+    dv, nchan = _velocity_channels(plan, line)
     n = plan.npix
     wcs = WCS(naxis=2)
     wcs.wcs.ctype = ["RA---SIN", "DEC--SIN"]
@@ -89,7 +94,7 @@ def forecast_sigma(plan: PlannedEpoch, line, geo: dict, extraction: ExtractionSe
     (and the interferometer's ``shortest_baseline``, when given), exactly as measured cubes are.
     """
     sig2 = []
-    nchan = noise_subcube(plan, line, geo).velocity.size
+    _, nchan = _velocity_channels(plan, line)
     for k in range(n_realisations):
         sub = noise_subcube(plan, line, geo, noise_realisation(plan, nchan, np.random.default_rng(seed + k)))
         spectra = extract_spectra(sub, extraction, offsource=False)

@@ -43,9 +43,9 @@ class ExtractionSettings:
     max_masked_share: float | None = None   # make up for blank pixels up to this share of the coma (None: NaN)
 
 
-def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor) -> tuple[float, int]:
+def _noise_offsource(data, info: CubeInfo, x, y, r_pix, beam_pix, free, factor,
+                     footprint: np.ndarray | None) -> tuple[float, int]:
     dist = max(2.5 * r_pix, r_pix + 2.0 * beam_pix)
-    footprint = np.all(np.isfinite(data), axis=0) if not np.all(np.isfinite(data)) else None
     positions = offsource_positions(info.shape[1:], x, y, r_pix, dist, footprint)
     if len(positions) < 3:
         return float("nan"), len(positions)
@@ -163,12 +163,14 @@ def _extract(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None
         msg = (f"{where}: only {int(free.sum())} line-free channels remain outside +-{exclude:.2f} "
                "km/s of the catalogue lines; expected at least 10 (widen comoving.half_width_km_s)")
         raise CoverageError(msg)
+    finite = np.isfinite(data).all(axis=0) if offsource else None       # off-source apertures only on data
+    footprint = None if finite is None or finite.all() else finite
     for i, (r, rp) in enumerate(zip(settings.radii, radii_pix)):
         base = fit_baseline(vel, flux[i], free, settings.baseline_order)
         flux[i] = flux[i] - base
         sig = channel_sigma(flux[i], free)
         wn = window_sum_noise(flux[i], free, wweights)
-        s_off, n_off = (_noise_offsource(data, info, x, y, rp, beam_pix, free, factor) if offsource
+        s_off, n_off = (_noise_offsource(data, info, x, y, rp, beam_pix, free, factor, footprint) if offsource
                         else (float("nan"), 0))
         rk = u.Quantity(r)
         rows.append({
