@@ -3,7 +3,9 @@
 A table has one row per time with the columns ``time`` (UTC), ``ra``, ``dec``
 [deg], ``r_h``, ``delta`` [au], ``delta_dot`` [km/s] and optionally ``phase``
 [deg]. Columns without units get these defaults. A table is taken as seen from
-the campaign's observatory (topocentric), or from the geocentre.
+the cube's observer (a site, the geocentre or a spacecraft,
+:mod:`pipeline.geometry.observers`); a table may state its observer in its
+metadata, checked by :func:`check_observer`.
 
 :func:`read_ephemeris` also reads, unchanged, a table written by a common
 ephemeris-service client and the service's plain-text export (CSV option);
@@ -25,6 +27,7 @@ from astropy.time import Time
 from scipy.interpolate import CubicSpline
 
 from pipeline.errors import EphemerisError, SpacingWarning
+from pipeline.geometry.observers import Observer
 from pipeline.geometry._service_tables import (EXPECTED_LAYOUTS, from_client, is_service_export, layout_of,
                                                read_qtable, read_service_export, refuse_masked)
 
@@ -204,44 +207,55 @@ def read_ephemeris(path: str | Path) -> Ephemeris:
     return Ephemeris(source=str(path), jd=jd, columns=columns, observer=table.meta.get("observer"))
 
 
-def check_observer(ephem: Ephemeris, location: EarthLocation | None, tolerance: u.Quantity = 1 * u.km) -> None:
-    """Refuse a table whose stated observer (its metadata ``observer``) is not the observatory it is used for.
+def check_observer(ephem: Ephemeris, location: "Observer | EarthLocation | None",
+                   tolerance: u.Quantity = 1 * u.km) -> None:
+    """Refuse a table whose stated observer (its metadata ``observer``) is not the observer it is used for.
 
-    ``observer`` is ``'geocentre'`` or a mapping with ``lon_deg``, ``lat_deg``, ``height_m`` (as
-    :func:`pipeline.geometry.orbit.ephemeris_from_elements` writes it); a table that states none is taken as seen
-    from ``location`` (None = the geocentre), as the config reference says. A geocentric table used for a site
-    is off by the diurnal parallax (up to ~6 arcsec and 0.4 km/s at 1.4 au), so it is never accepted silently.
+    ``observer`` is ``'geocentre'``, a mapping with ``lon_deg``, ``lat_deg``, ``height_m`` (a site, as
+    :func:`pipeline.geometry.orbit.ephemeris_from_elements` writes it) or ``{spacecraft: NAME}``; a table that
+    states none is taken as seen from the cube's observer, as the config reference says. ``location`` is the
+    cube's observer (an :class:`~pipeline.geometry.observers.Observer`, an EarthLocation, or None for the
+    geocentre). A geocentric table used for a site is off by the diurnal parallax (up to ~6 arcsec and
+    0.4 km/s at 1.4 au), and one used for a spacecraft 1.5 million km out by ~1000 arcsec, so neither is ever
+    accepted silently.
 
     Raises
     ------
     EphemerisError
-        When the table's observer and ``location`` differ (by more than ``tolerance`` between two sites).
+        When the table's observer and the cube's differ (by more than ``tolerance`` between two sites).
     """
     stated = ephem.observer
     if stated is None:
         return
-    here = "the geocentre" if location is None else (
-        f"the site at lon {location.lon.to_value(u.deg):.4f} deg, lat {location.lat.to_value(u.deg):.4f} deg")
+    observer = location if isinstance(location, Observer) else Observer(name="site", location=location)
+    here = observer.describe()
     if isinstance(stated, str) and stated.strip().lower() in ("geocentre", "geocenter", "geocentric", "500"):
-        if location is None:
+        if observer.kind == "geocentre":
             return
         msg = (f"ephemeris file {ephem.source!r} states it is seen from the geocentre (metadata 'observer') but the "
-               f"cube is observed from {here}; expected a table seen from that observatory (topocentric), or the "
-               "observatory 'geocentre'")
+               f"cube is observed from {here}; expected a table seen from that observer (the cube's 'ephemeris' "
+               "key), or the observatory 'geocentre'")
         raise EphemerisError(msg)
     if isinstance(stated, dict) and {"lon_deg", "lat_deg", "height_m"} <= set(stated):
         site = EarthLocation.from_geodetic(float(stated["lon_deg"]) * u.deg, float(stated["lat_deg"]) * u.deg,
                                            float(stated["height_m"]) * u.m)
-        if location is not None:
-            gap = np.linalg.norm((u.Quantity(site.geocentric) - u.Quantity(location.geocentric)).to_value(u.km))
+        if observer.kind == "site":
+            gap = np.linalg.norm((u.Quantity(site.geocentric) - u.Quantity(observer.location.geocentric)).to_value(u.km))
             if gap * u.km <= tolerance:
                 return
         msg = (f"ephemeris file {ephem.source!r} states it is seen from the site at lon {stated['lon_deg']} deg, lat "
                f"{stated['lat_deg']} deg (metadata 'observer') but the cube is observed from {here}; expected a table "
-               "seen from that observatory")
+               "seen from that observer (the cube's 'ephemeris' key)")
+        raise EphemerisError(msg)
+    if isinstance(stated, dict) and set(stated) == {"spacecraft"}:
+        if observer.kind == "spacecraft" and str(stated["spacecraft"]).strip().lower() == observer.name.strip().lower():
+            return
+        msg = (f"ephemeris file {ephem.source!r} states it is seen from the spacecraft {stated['spacecraft']!r} "
+               f"(metadata 'observer') but the cube is observed from {here}; expected a table seen from that "
+               "observer (the cube's 'ephemeris' key) or the spacecraft's name in 'observatory.name'")
         raise EphemerisError(msg)
     msg = (f"ephemeris file {ephem.source!r}: metadata 'observer' = {stated!r} is not understood; expected "
-           "'geocentre' or a mapping of lon_deg, lat_deg, height_m")
+           "'geocentre', a mapping of lon_deg, lat_deg, height_m, or {spacecraft: NAME}")
     raise EphemerisError(msg)
 
 

@@ -11,11 +11,11 @@ from __future__ import annotations
 
 import astropy.units as u
 import numpy as np
-from astropy.coordinates import (CartesianDifferential, EarthLocation, ITRS, SkyCoord,
-                                 SpectralCoord)
+from astropy.coordinates import EarthLocation, SkyCoord, SpectralCoord
 from astropy.time import Time
 
 from pipeline.errors import CubeError
+from pipeline.geometry.observers import Observer
 from pipeline.offline import future_time_tolerated
 
 __all__ = [
@@ -30,20 +30,20 @@ _FRAME_OF_SPECSYS = {"GEOCENTR": "gcrs", "BARYCENT": "icrs", "LSRK": "lsrk"}
 _FAR = 1e9 * u.au  # a target this far away has the same direction from every observer
 
 
-def _observer(location: EarthLocation | None, time: Time) -> ITRS:
-    loc = location if location is not None else EarthLocation.from_geocentric(0, 0, 0, unit=u.m)
-    itrs = loc.get_itrs(obstime=time)
-    return ITRS(itrs.cartesian.with_differentials(CartesianDifferential([0, 0, 0] * u.km / u.s)),
-                obstime=time)
+def _observer(location: "Observer | EarthLocation | None", time: Time):
+    if isinstance(location, Observer):
+        return location.frame(time)
+    return Observer(location=location).frame(time)
 
 
-def observer_frame_factor(specsys: str, time: Time, location: EarthLocation | None,
+def observer_frame_factor(specsys: str, time: Time, location: "Observer | EarthLocation | None",
                           ra: u.Quantity, dec: u.Quantity) -> float:
-    """Doppler factor D with f(SPECSYS frame) = D * f(topocentric) towards (ra, dec).
+    """Doppler factor D with f(SPECSYS frame) = D * f(observer's frame) towards (ra, dec).
 
     Computed with astropy's SpectralCoord.with_observer_stationary_relative_to
-    for an Earth-fixed observer at ``location`` (the geocentre when None).
-    TOPOCENT gives exactly 1.
+    for the observer ``location``: an Earth-fixed site (EarthLocation), the
+    geocentre (None) or any :class:`~pipeline.geometry.observers.Observer`, a
+    spacecraft included. TOPOCENT (the observer's own frame) gives exactly 1.
     """
     if specsys == "TOPOCENT":
         return 1.0
@@ -60,9 +60,9 @@ def observer_frame_factor(specsys: str, time: Time, location: EarthLocation | No
     return float((shifted / sc).decompose())
 
 
-def to_topocentric(freqs: u.Quantity, specsys: str, time: Time, location: EarthLocation | None,
+def to_topocentric(freqs: u.Quantity, specsys: str, time: Time, location: "Observer | EarthLocation | None",
                    ra: u.Quantity, dec: u.Quantity) -> u.Quantity:
-    """Frequencies an Earth-fixed observer measured, from frequencies labelled in ``specsys``.
+    """Frequencies the observer measured (in its own frame), from frequencies labelled in ``specsys``.
 
     A change of observer velocity multiplies every frequency by the same
     relativistic Doppler factor, so f_topo = f_specsys / D.

@@ -17,11 +17,12 @@ from dataclasses import dataclass
 import astropy.units as u
 import numpy as np
 from astropy.constants import GM_sun, c
-from astropy.coordinates import EarthLocation, get_body_barycentric_posvel, solar_system_ephemeris
+from astropy.coordinates import EarthLocation
 from astropy.table import QTable
 from astropy.time import Time, TimeDelta
 
 from pipeline.errors import EphemerisError, GasledgerTypeError
+from pipeline.geometry.observers import OBLIQUITY_J2000, Observer, body_barycentric
 from pipeline.offline import future_time_tolerated
 from pipeline.quantities import checked_array
 
@@ -42,8 +43,6 @@ __all__ = [
 
 #: Heliocentric gravitational constant (IAU 2015 nominal value, via astropy).
 GM_SUN = GM_sun.to(u.km**3 / u.s**2)
-#: Mean obliquity of the ecliptic at J2000.0 (IAU 1976 and IAU 2006 value).
-OBLIQUITY_J2000 = (84381.448 * u.arcsec).to(u.deg)
 
 _C_KM_S = c.to_value(u.km / u.s)
 _SERIES_LIMIT = 0.5  # |z| below which the Stumpff functions use their Taylor series
@@ -483,25 +482,30 @@ def heliocentric_state(elements: OrbitalElements, times: Time) -> tuple[u.Quanti
     return r.to(u.au), v
 
 
-def _barycentric(body: str, times: Time) -> tuple[np.ndarray, np.ndarray]:
-    """Barycentric position [km] and velocity [km/s] of a body, shape (3, N)."""
-    with solar_system_ephemeris.set("builtin"), future_time_tolerated():
-        pos, vel = get_body_barycentric_posvel(body, times)
-    return pos.xyz.to_value(u.km), vel.xyz.to_value(u.km / u.s)
+def _as_observer(observer: "Observer | EarthLocation | None") -> Observer:
+    if observer is None:
+        return Observer()
+    if isinstance(observer, EarthLocation):
+        return Observer(name="site", location=observer)
+    if isinstance(observer, Observer):
+        return observer
+    msg = f"'observer' must be an Observer, an EarthLocation or None, found {type(observer).__name__}"
+    raise GasledgerTypeError(msg)
 
 
 def observe(
-    elements: OrbitalElements, times: Time, location: EarthLocation | None = None
+    elements: OrbitalElements, times: Time, location: "Observer | EarthLocation | None" = None
 ) -> QTable:
-    r"""Astrometric geometry of a two-body orbit seen from Earth.
+    r"""Astrometric geometry of a two-body orbit seen from an observer (the geocentre, a site or a spacecraft).
 
     Parameters
     ----------
     elements : OrbitalElements
     times : `~astropy.time.Time`
         Observation (reception) times, scalar or 1-D.
-    location : `~astropy.coordinates.EarthLocation` or None
-        Observatory; None for the geocentre.
+    location : `~pipeline.geometry.observers.Observer`, `~astropy.coordinates.EarthLocation` or None
+        The observer: a site, a spacecraft (:class:`~pipeline.geometry.observers.Observer`), or None for the
+        geocentre.
 
     Returns
     -------
@@ -515,7 +519,8 @@ def observe(
     Notes
     -----
     The observer is the Earth (astropy built-in ephemeris) plus, for a site, its
-    GCRS position and velocity.  The light time :math:`\tau` solves
+    GCRS position and velocity; a spacecraft's comes from its state table
+    (:meth:`pipeline.geometry.observers.Observer.barycentric`).  The light time :math:`\tau` solves
     :math:`c\tau = |\mathbf r_T(t-\tau) - \mathbf r_O(t)|` by fixed-point
     iteration to 1e-9 s (each pass gains a factor ~v/c); the target's barycentric
     state is the Sun's at :math:`t-\tau` plus the heliocentric two-body one.
@@ -535,24 +540,19 @@ def observe(
     ----------
     Explanatory Supplement to the Astronomical Almanac (3rd ed.), ch. 7.
     """
-    if not isinstance(times, Time) or not (location is None or isinstance(location, EarthLocation)):
-        found = f"{type(times).__name__}, {type(location).__name__}"
-        msg = f"'times', 'location' must be Time and EarthLocation or None, found {found}"
+    if not isinstance(times, Time):
+        msg = f"'times' must be Time, found {type(times).__name__}"
         raise GasledgerTypeError(msg)
+    observer = _as_observer(location)
     times = times.reshape(-1)
     with future_time_tolerated():
         t_tdb, t_utc = times.tdb, times.utc
-    r_obs, v_obs = _barycentric("earth", t_tdb)
-    if location is not None:
-        with future_time_tolerated():
-            gpos, gvel = location.get_gcrs_posvel(t_utc)
-        r_obs = r_obs + gpos.xyz.to_value(u.km)
-        v_obs = v_obs + gvel.xyz.to_value(u.km / u.s)
+    r_obs, v_obs = observer.barycentric(times)
     tau = np.zeros(len(times))
     for _ in range(20):
         t_ret = t_tdb - TimeDelta(tau, format="sec")
         r_hel, v_hel = heliocentric_state(elements, t_ret)
-        r_sun, v_sun = _barycentric("sun", t_ret)
+        r_sun, v_sun = body_barycentric("sun", t_ret)
         rho = r_sun + r_hel.to_value(u.km) - r_obs
         tau_new = np.linalg.norm(rho, axis=0) / _C_KM_S
         change, tau = np.max(np.abs(tau_new - tau)), tau_new
@@ -580,14 +580,7 @@ def observe(
     table["ra_rate"] = (ra_rate * rate).to(u.arcsec / u.h)
     dec_rate = (rho_dot[2] * dist - rho[2] * delta_dot) / (dist * rxy)
     table["dec_rate"] = (dec_rate * rate).to(u.arcsec / u.h)
-    if location is None:
-        table.meta["observer"] = "geocentre"
-    else:
-        lon, lat, height = location.to_geodetic()
-        table.meta["observer"] = (
-            f"topocentric lon={lon.to_value(u.deg):.6f} deg lat={lat.to_value(u.deg):.6f} deg "
-            f"height={height.to_value(u.m):.1f} m"
-        )
+    table.meta["observer"] = observer.metadata()
     table.meta["frame"] = "ICRS astrometric (light-time corrected, no aberration)"
     table.meta["ephemeris"] = "two-body orbit; Earth and Sun from the astropy built-in ephemeris"
     return table
@@ -631,7 +624,7 @@ def ephemeris_from_elements(
     start: Time,
     stop: Time,
     step: u.Quantity,
-    location: EarthLocation | None = None,
+    location: "Observer | EarthLocation | None" = None,
 ) -> QTable:
     """:func:`observe` on the grid ``start + k * step <= stop`` (``stop`` included on the grid).
 
@@ -658,10 +651,7 @@ def ephemeris_from_elements(
     with future_time_tolerated():
         times = start + TimeDelta(np.arange(n) * step_s, format="sec")
     table = observe(elements, times, location)
-    if location is not None:  # both range rates: topocentric (delta_dot) and geocentric
+    if _as_observer(location).kind == "site":  # both range rates: topocentric (delta_dot) and geocentric
         table["delta_dot_geocentric"] = observe(elements, times, None)["delta_dot"]
-    # the table says whom it is seen from (pipeline.geometry.ephemeris.check_observer reads it)
-    table.meta["observer"] = "geocentre" if location is None else {
-        "lon_deg": float(location.lon.to_value(u.deg)), "lat_deg": float(location.lat.to_value(u.deg)),
-        "height_m": float(location.height.to_value(u.m))}
+    # the table says whom it is seen from (metadata 'observer', read by pipeline.geometry.ephemeris.check_observer)
     return table

@@ -389,5 +389,5 @@ def test_a_table_states_its_observer_and_a_contradiction_is_refused(tmp_path):
     with pytest.raises(EphemerisError, match=r"states it is seen from the site .* observed from the geocentre"):
         check_observer(topo, None)
     elsewhere = EarthLocation.from_geodetic(-67.85 * u.deg, -23.0 * u.deg, 5000 * u.m)   # ~10 km west
-    with pytest.raises(EphemerisError, match="expected a table seen from that observatory"):
+    with pytest.raises(EphemerisError, match="expected a table seen from that observer"):
         check_observer(topo, elsewhere)
