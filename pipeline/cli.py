@@ -26,14 +26,16 @@ from pipeline.geometry.ephemeris import check_observer, check_spacing, read_ephe
 from pipeline.errors import GasledgerError, SpacingWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.frames import radio_velocity, to_target_frame, to_topocentric
-from pipeline.geometry.observing import observer_location
+from pipeline.geometry.observers import observer_from_config
 
 __all__ = ["main", "covered_lines"]
 
 
-def covered_lines(path: str, ephemeris, catalogue, species: list[str], location, time_override=None,
+def covered_lines(path: str, ephemeris, catalogue, species: list[str], observer, time_override=None,
                   margin_km_s: float = 5.0, duration=None, beam_arcsec=None) -> list[str]:
     """Line ids whose rest frequency, at the target's actual Doppler shift, falls inside the cube's band.
+
+    ``ephemeris`` is the target's table seen from ``observer`` (an Observer, an EarthLocation or None).
 
     For an infrared cube: the ids of the bands whose whole extent falls inside its rest-frame wavelength range.
     """
@@ -43,7 +45,7 @@ def covered_lines(path: str, ephemeris, catalogue, species: list[str], location,
     if info.specsys == "SOURCE":
         rest = info.frequencies
     else:
-        topo = to_topocentric(info.frequencies, info.specsys, mid, location, geo["ra"], geo["dec"])
+        topo = to_topocentric(info.frequencies, info.specsys, mid, observer, geo["ra"], geo["dec"])
         rest = to_target_frame(topo, geo["delta_dot"])
     out = []
     if info.regime == "infrared":
@@ -71,7 +73,7 @@ def cmd_new(args) -> int:
     validate_config(dict(campaign, cubes=[{"path": str(cubes[0])}]), source="(new campaign)")
     catalogue = load_catalogue()
     ephem = read_ephemeris(args.ephemeris)
-    location = observer_location(observatory)
+    location = observer_from_config(observatory)
     for path in cubes:
         campaign["cubes"].append({"path": str(path), "id": path.name.split(".")[0]})
         try:
@@ -111,28 +113,33 @@ def cmd_check(args) -> int:
         except GasledgerError as exc:
             problems.append(str(exc))
     print(f"campaign: {settings.campaign}  ({len(settings.cubes)} cubes, species {', '.join(species)})")
-    ephem = read_ephemeris(settings.target.ephemeris) if settings.target.ephemeris is not None else None
-    if ephem is not None:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", SpacingWarning)
-            check_spacing(ephem)
-        problems += [str(w.message) for w in caught if issubclass(w.category, SpacingWarning)]
-        try:
-            check_observer(ephem, settings.location)
-        except GasledgerError as exc:
-            problems.append(str(exc))
-    if ephem is not None:
-        lo, hi = ephem.span
-        print(f"ephemeris: {settings.target.ephemeris} spans {lo.isot} to {hi.isot}")
-    location = settings.location
+    tables: dict[str, object] = {}
+
+    def table(path: str):
+        """Each ephemeris table read and its spacing checked once."""
+        if path not in tables:
+            tables[path] = read_ephemeris(path)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", SpacingWarning)
+                check_spacing(tables[path])
+            problems.extend(str(w.message) for w in caught if issubclass(w.category, SpacingWarning))
+            lo, hi = tables[path].span
+            print(f"ephemeris: {path} spans {lo.isot} to {hi.isot}")
+        return tables[path]
+
     covered = {s: 0 for s in species}
     for entry in settings.cubes:
         try:
+            observer = settings.observer_of(entry)
+            path = settings.ephemeris_of(entry)
+            ephem = table(path) if path is not None else None
+            if ephem is not None:
+                check_observer(ephem, observer)
             info = read_cube_info(entry.path, entry.beam_arcsec)
             duration = entry.duration_s * u.s if entry.duration_s is not None else None
             times = observation_times(info.header, info.path, entry.time, duration)
             mid = times.mid
-            lines = covered_lines(entry.path, ephem, catalogue, species, location, entry.time,
+            lines = covered_lines(entry.path, ephem, catalogue, species, observer, entry.time,
                                   duration=duration, beam_arcsec=entry.beam_arcsec) if ephem is not None else []
             ir = info.regime == "infrared"
             for ln in lines:
@@ -140,7 +147,7 @@ def cmd_check(args) -> int:
             f = info.wavelengths.to_value(u.um) if ir else info.frequencies.to_value(u.GHz)
             print(f"  {entry.cube_id:18s} epoch {entry.epoch:8s} {mid.isot[:19]}  {np.min(f):.3f}-{np.max(f):.3f} "
                   f"{'um ' if ir else 'GHz'} {info.specsys:8s} {'bands' if ir else 'lines'}: {', '.join(lines) or 'none'}; "
-                  f"mid-time from {times.source}")
+                  f"mid-time from {times.source}; observer {observer.describe()}")
         except GasledgerError as exc:
             problems.append(str(exc))
     for name, n in covered.items():
@@ -148,7 +155,7 @@ def cmd_check(args) -> int:
             problems.append(f"species {name!r} has no line or band in any cube (it will be reported as not observed)")
     if problems:
         print("problems:")
-        for p in problems:
+        for p in dict.fromkeys(problems):
             print(f"  - {p}")
         return 1
     print("no problems found")

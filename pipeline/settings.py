@@ -32,11 +32,10 @@ import yaml
 from pipeline.errors import ConfigError
 
 if TYPE_CHECKING:
-    from astropy.coordinates import EarthLocation
-
     from pipeline.budget.table import BudgetAssumptions
     from pipeline.catalogue import Catalogue
     from pipeline.coma.response import ComaModel
+    from pipeline.geometry.observers import Observer
     from pipeline.geometry.orbit import OrbitalElements
     from pipeline.rates.forecast import PlannedEpoch
 
@@ -82,6 +81,9 @@ class CubeEntry:
     resolving_power: float | None = None     # infrared cubes: lambda / FWHM of the line-spread function
     duration_s: float | None = None          # wall-clock length of the exposure, for a header giving only its start
     beam_arcsec: tuple[float, float, float] | None = None   # (major, minor, PA) for a cube whose header has no beam
+    observatory: "Observer | None" = None    # this cube's own observer (None: the campaign's)
+    ephemeris: str | None = None             # this cube's own ephemeris table (None: the campaign's target)
+    apertures: tuple[u.Quantity, ...] | None = None   # this cube's own aperture radii (None: the campaign's)
 
 
 def _load_schema() -> dict:
@@ -118,8 +120,8 @@ def _describe(error: jsonschema.ValidationError, source: str) -> str:
                 f"(misspelt?); allowed keys there: {', '.join(allowed)}")
     if error.validator == "required":
         return f"{source}: {where} is missing the required key {error.message.split(' ')[0]}"
-    if error.validator == "oneOf" and where.endswith("target"):
-        return f"{source}: target must give exactly one of 'ephemeris' or 'elements'"
+    if error.validator == "not" and where.endswith("target"):
+        return f"{source}: target gives both 'ephemeris' and 'elements'; expected exactly one of them"
     if error.validator == "pattern" and where.endswith(("id", "epoch")):
         return (f"{source}: key {where} = {error.instance!r} is not valid: it is used in file names; expected "
                 "letters, digits and . _ - only, starting with a letter or digit (no '/' or '..')")
@@ -164,12 +166,27 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
         # report the innermost cause of a oneOf failure when it is a misspelt key, else an
         # error below the key (e.g. a bad value inside the object alternative)
         if error.context:
-            inner = [e for e in error.context if e.validator == "additionalProperties"]
-            inner = inner or [e for e in error.context if len(e.absolute_path) > len(error.absolute_path)]
-            if inner:
-                error = inner[0]
+            # the alternative that came closest: not a plain type/enum mismatch, fewest errors, deepest first
+            by_alt: dict[Any, list] = {}
+            for e in error.context:
+                by_alt.setdefault(e.relative_schema_path[0], []).append(e)
+            near = [errs for errs in by_alt.values()
+                    if not all(e.validator in ("type", "enum") and len(e.absolute_path) == len(error.absolute_path)
+                               for e in errs)]
+            if near:
+                errs = min(near, key=len)
+                deep = [e for e in errs if len(e.absolute_path) > len(error.absolute_path)]
+                extra = [e for e in errs if e.validator == "additionalProperties"]
+                error = (deep or extra or errs)[0]
         raise ConfigError(_describe(error, source))
     entries = cube_entries(config, source)
+    if not {"ephemeris", "elements"} & set(config["target"]):
+        bare = [f"cubes[{i}] ({e.cube_id})" for i, e in enumerate(entries) if e.ephemeris is None]
+        if bare or config.get("planned"):
+            what = f"{bare[0]} has no 'ephemeris' of its own" if bare else "'planned' epochs need the target's geometry"
+            msg = (f"{source}: target gives neither 'ephemeris' nor 'elements' and {what}; expected "
+                   "target.ephemeris or target.elements (or an 'ephemeris' key on every cube and no 'planned')")
+            raise ConfigError(msg)
     seen: dict[str, str] = {}
     for entry in entries:
         if entry.cube_id in seen:
@@ -203,13 +220,29 @@ def _cube_entry(item: dict[str, Any], i: int, source: str) -> CubeEntry:
                      spectral_response=item["spectral_response"], tracked=bool(item["tracked"]),
                      position=item["position"], offset=tuple(item["offset_arcsec"]),
                      resolving_power=item.get("resolving_power"), duration_s=item.get("duration_s"),
-                     beam_arcsec=tuple(item["beam_arcsec"]) if "beam_arcsec" in item else None)
+                     beam_arcsec=tuple(item["beam_arcsec"]) if "beam_arcsec" in item else None,
+                     observatory=_observer(item["observatory"]) if "observatory" in item else None,
+                     ephemeris=item.get("ephemeris"),
+                     apertures=_apertures(item) if {"apertures_km", "apertures_arcsec"} & set(item) else None)
+
+
+def _input_paths(config: dict[str, Any]) -> list[tuple[str, str | None]]:
+    """(config key, path) of every input file the config names."""
+    paths = [("target.ephemeris", config["target"].get("ephemeris"))]
+    observatory = config.get("observatory")
+    if isinstance(observatory, dict):
+        paths.append(("observatory.states", observatory.get("states")))
+    for i, c in enumerate(config["cubes"]):
+        paths.append((f"cubes[{i}].path", c["path"]))
+        paths.append((f"cubes[{i}].ephemeris", c.get("ephemeris")))
+        if isinstance(c.get("observatory"), dict):
+            paths.append((f"cubes[{i}].observatory.states", c["observatory"].get("states")))
+    return paths
 
 
 def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:
     """Every file the config names exists and is a file."""
-    paths = [("target.ephemeris", config["target"].get("ephemeris"))]
-    paths += [(f"cubes[{i}].path", c["path"]) for i, c in enumerate(config["cubes"])]
+    paths = _input_paths(config)
     if "catalogue" in config:
         paths += [(f"catalogue.{k}", config["catalogue"][k]) for k in ("species_file", "lines_file", "bands_file")
                   if k in config["catalogue"]]
@@ -383,7 +416,7 @@ class BudgetSettings:
 
 _FIELDS = {   # Settings field -> the top-level config keys it is built from
     "campaign": ("campaign",), "outdir": ("outdir",), "catalogue_files": ("catalogue",), "target": ("target",),
-    "location": ("observatory",), "observatory_name": ("observatory",), "cubes": ("cubes",),
+    "observatory": ("observatory",), "cubes": ("cubes",),
     "planned": ("planned", "comoving"), "species": ("species",), "apertures": ("apertures_km", "apertures_arcsec"),
     "half_width": ("comoving",), "interferometer": ("interferometer",), "quality": ("quality",), "infrared": ("infrared",),
     "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "coma": ("coma",), "budget": ("budget",),
@@ -405,8 +438,7 @@ class Settings(_Guarded):
     outdir: str
     catalogue_files: tuple[str, str, str | None] | None
     target: TargetSettings
-    location: "EarthLocation | None"
-    observatory_name: str
+    observatory: "Observer"
     cubes: tuple["CubeEntry", ...]
     cube: "CubeEntry | None"
     planned: tuple["PlannedEpoch", ...]
@@ -461,20 +493,49 @@ class Settings(_Guarded):
         """The user's catalogue named in the settings, or the built-in one (loaded once per process)."""
         return _load_catalogue(self.catalogue_files)
 
+    def observer_of(self, cube: "CubeEntry | None" = None) -> "Observer":
+        """The observer of ``cube`` (default: the step's cube): its own 'observatory', else the campaign's."""
+        cube = cube if cube is not None else self.cube
+        if cube is not None and cube.observatory is not None:
+            return cube.observatory
+        return self.observatory
+
+    def ephemeris_of(self, cube: "CubeEntry | None" = None) -> str | None:
+        """The ephemeris table of ``cube`` (default: the step's cube): its own, else the target's (None: elements)."""
+        cube = cube if cube is not None else self.cube
+        if cube is not None and cube.ephemeris is not None:
+            return cube.ephemeris
+        return self.target.ephemeris
+
+    def elements_of(self, cube: "CubeEntry | None" = None) -> "OrbitalElements | None":
+        """The target's elements for ``cube``: None when the cube has its own ephemeris table."""
+        cube = cube if cube is not None else self.cube
+        if cube is not None and cube.ephemeris is not None:
+            return None
+        return self.target.elements
+
+    def apertures_of(self, cube: "CubeEntry | None" = None) -> tuple[u.Quantity, ...]:
+        """The aperture radii of ``cube`` (default: the step's cube): its own, else the campaign's."""
+        cube = cube if cube is not None else self.cube
+        if cube is not None and cube.apertures is not None:
+            return cube.apertures
+        return self.apertures
+
     def missing_inputs(self, source: str = "config") -> list[str]:
-        """One sentence for every file the settings name that does not exist (the ephemeris, cubes, catalogue)."""
+        """One sentence for every file the settings name that does not exist (ephemerides, states, cubes, catalogue)."""
         paths = [("target.ephemeris", self.target.ephemeris)]
-        paths += [(f"cubes[{i}].path", c.path) for i, c in enumerate(self.cubes)]
+        if self.observatory.states is not None:
+            paths.append(("observatory.states", self.observatory.states))
+        for i, c in enumerate(self.cubes):
+            paths += [(f"cubes[{i}].path", c.path), (f"cubes[{i}].ephemeris", c.ephemeris)]
+            if c.observatory is not None and c.observatory.states is not None:
+                paths.append((f"cubes[{i}].observatory.states", c.observatory.states))
         if self.catalogue_files is not None:
             paths += [(f"catalogue.{k}", f) for k, f in zip(("species_file", "lines_file", "bands_file"),
                                                              self.catalogue_files)]
         return [f"{source}: {key} names the file {path!r}, which does not exist"
                 for key, path in paths if path is not None and not Path(path).is_file()]
 
-    def aperture_radii_km(self, delta: u.Quantity) -> list[float]:
-        """Every aperture radius as a length at the target [km] at distance ``delta``."""
-        return [float((r if r.unit.physical_type == "length" else (r.to_value(u.rad) * delta)).to_value(u.km))
-                for r in self.apertures]
 
 
 def sections_record(config: dict[str, Any], keys: Iterable[str]) -> dict[str, Any]:
@@ -520,15 +581,10 @@ def _target(config: dict[str, Any]) -> TargetSettings:
     return TargetSettings(name=target.get("name", "target"), ephemeris=target.get("ephemeris"), elements=elements)
 
 
-def _location(config: dict[str, Any]):
-    from pipeline.geometry.observing import observer_location
+def _observer(entry: Any) -> "Observer":
+    from pipeline.geometry.observers import observer_from_config
 
-    return observer_location(config["observatory"])
-
-
-def _observatory_name(config: dict[str, Any]) -> str:
-    obs = config["observatory"]
-    return "geocentre" if obs == "geocentre" else str(obs.get("name", "observatory"))
+    return observer_from_config(entry)
 
 
 def _planned(config: dict[str, Any]):
@@ -602,8 +658,8 @@ def _budget(config: dict[str, Any]) -> BudgetSettings:
 
 _BUILDERS = {
     "campaign": lambda c: str(c["campaign"]), "outdir": lambda c: str(c["outdir"]),
-    "catalogue_files": _catalogue_files, "target": _target, "location": _location,
-    "observatory_name": _observatory_name, "cubes": lambda c: tuple(cube_entries(c)), "planned": _planned,
+    "catalogue_files": _catalogue_files, "target": _target, "observatory": lambda c: _observer(c["observatory"]),
+    "cubes": lambda c: tuple(cube_entries(c)), "planned": _planned,
     "species": lambda c: tuple(c["species"]), "apertures": _apertures,
     "half_width": lambda c: c["comoving"]["half_width_km_s"] * u.km / u.s, "interferometer": _interferometer,
     "quality": _quality,

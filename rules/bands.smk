@@ -8,7 +8,7 @@ rule bands:
         f"{OUT}/bands/{{cube}}.fits",
     params:
         bands=lambda w: BANDS[w.cube],
-        settings=settings_of("catalogue", "observatory", "apertures_km", "apertures_arcsec", "infrared", "dust.wavelengths_um", "dust.half_width_um", "coma", "quality", cube=True),
+        settings=settings_of("catalogue", "apertures_km", "apertures_arcsec", "infrared", "dust.wavelengths_um", "dust.half_width_um", "coma", "quality", cube=True),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/bands/{{cube}}.log",

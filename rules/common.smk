@@ -66,7 +66,16 @@ def cube_path(wildcards):
 
 
 def ephemeris_input(wildcards):
-    return [config["target"]["ephemeris"]] if "ephemeris" in config["target"] else []
+    """The cube's ephemeris table (its own, else the target's) and its observer's state table, when there are."""
+    cube = CUBES[wildcards.cube]
+    table = SETTINGS.ephemeris_of(cube)
+    states = SETTINGS.observer_of(cube).states
+    return [p for p in (table, states) if p is not None]
+
+
+def campaign_geometry_inputs():
+    """The target's ephemeris table and the campaign observer's state table, when there are (planned epochs)."""
+    return [p for p in (SETTINGS.target.ephemeris, SETTINGS.observatory.states) if p is not None]
 
 
 def per_line_files(folder):

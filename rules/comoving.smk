@@ -7,7 +7,7 @@ rule comoving:
     output:
         f"{OUT}/comoving/{{cube}}/{{line}}.fits",
     params:
-        settings=settings_of("catalogue", "coma", "limits.window_factor", "apertures_km", "apertures_arcsec", "comoving", "observatory", "quality.dq_bad_bits", cube=True),
+        settings=settings_of("catalogue", "coma", "limits.window_factor", "apertures_km", "apertures_arcsec", "comoving", "quality.dq_bad_bits", cube=True),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/comoving/{{cube}}/{{line}}.log",

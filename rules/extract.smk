@@ -6,7 +6,7 @@ rule extract:
     output:
         f"{OUT}/spectra/{{cube}}/{{line}}.fits",
     params:
-        settings=settings_of("catalogue", "coma", "limits.window_factor", "apertures_km", "apertures_arcsec", "comoving", "quality.max_masked_share"),
+        settings=settings_of("catalogue", "coma", "limits.window_factor", "apertures_km", "apertures_arcsec", "comoving", "quality.max_masked_share", cube=True),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/extract/{{cube}}/{{line}}.log",

@@ -2,7 +2,7 @@ rule forecast:
     """Predicted limits and significance of the needed gas for the planned epochs of the config."""
     input:
         budget=f"{OUT}/budget.ecsv",
-        ephemeris=ephemeris_input,
+        ephemeris=campaign_geometry_inputs(),
         catalogue=catalogue_files(),
     output:
         f"{OUT}/forecast.ecsv",

@@ -76,8 +76,14 @@ def test_cube_entries_ids_and_epochs():
      r"key observatory\.lat_deg = 200\.0 is not valid: .*maximum of 90"),
     (_base(coma={"outflow_km_s": "fast"}), r"key coma\.outflow_km_s = 'fast' is not valid: .*not one of \['law'\]"),
     (_base(target={"ephemeris": "e.ecsv", "elements": ELEMENTS}),
-     r"target must give exactly one of 'ephemeris' or 'elements'"),
-    (_base(target={"name": "x"}), r"target must give exactly one of 'ephemeris' or 'elements'"),
+     r"target gives both 'ephemeris' and 'elements'; expected exactly one of them"),
+    (_base(target={"name": "x"}), r"target gives neither 'ephemeris' nor 'elements' and cubes\[0\] \(c1\) has no "
+                                  r"'ephemeris' of its own; expected target.ephemeris or target.elements"),
+    (_base(observatory={"name": "craft", "states": "s.ecsv", "centre": "moon"}),
+     r"key observatory.centre = 'moon' is not valid: .*is not one of \['barycentre', 'geocentre', 'sun'\]"),
+    (_base(cubes=[{"path": "a.fits", "observatory": {"name": "craft"}}]),
+     r"cubes\[0\].observatory is missing the required key 'states'"),
+    (_base(cubes=[{"path": "a.fits", "apertures_km": [-1]}]), r"key cubes\[0\].apertures_km\[0\] = -1"),
     (_base(target={"elements": {**ELEMENTS, "e": -0.5}}), r"key target\.elements\.e = -0\.5 is not valid"),
     (_base(target={"elements": {k: v for k, v in ELEMENTS.items() if k != "tp"}}),
      r"target\.elements is missing the required key 'tp'"),
@@ -206,9 +212,36 @@ def test_settings_are_typed_quantities_from_the_validated_config():
     # the site: astropy's geodetic -> geocentric conversion of the same numbers (the reference)
     from astropy.coordinates import EarthLocation
     ref = EarthLocation.from_geodetic(-70.0 * u.deg, -24.0 * u.deg, 5000.0 * u.m)
-    assert_quantity_allclose(u.Quantity(s.location.geocentric), u.Quantity(ref.geocentric))
+    assert_quantity_allclose(u.Quantity(s.observatory.location.geocentric), u.Quantity(ref.geocentric))
     assert [c.cube_id for c in s.cubes] == ["c1", "second"] and s.cube is None
     assert s.with_cube("second").cube.epoch == "e2"
+    assert s.observer_of(s.cubes[0]) is s.observatory and s.apertures_of(s.cubes[0]) == s.apertures
+
+
+def test_a_cube_may_have_its_own_observer_ephemeris_and_apertures():
+    import astropy.units as u
+
+    from pipeline.settings import Settings
+
+    craft = {"name": "Probe", "states": "probe.ecsv", "centre": "geocentre", "axes": "ecliptic"}
+    config = validate_config(_base(cubes=[{"path": "data/c1.fits"},
+                                          {"path": "data/ir.fits", "observatory": craft, "ephemeris": "probe_eph.ecsv",
+                                           "apertures_km": [800], "apertures_arcsec": [0.5]}]))
+    s = Settings.from_config(config)
+    ground, ir = s.cubes
+    assert s.observer_of(ground).kind == "geocentre" and s.ephemeris_of(ground) == "eph.ecsv"
+    own = s.observer_of(ir)
+    assert (own.kind, own.name, own.states, own.centre, own.axes) == ("spacecraft", "Probe", "probe.ecsv",
+                                                                      "geocentre", "ecliptic")
+    assert s.ephemeris_of(ir) == "probe_eph.ecsv" and s.elements_of(ir) is None
+    assert s.with_cube("ir").apertures_of() == (800 * u.km, 0.5 * u.arcsec)
+    assert s.with_cube("c1").apertures_of() == tuple(s.apertures)
+    missing = s.missing_inputs("camp.yaml")
+    assert "camp.yaml: cubes[1].observatory.states names the file 'probe.ecsv', which does not exist" in missing
+    assert "camp.yaml: cubes[1].ephemeris names the file 'probe_eph.ecsv', which does not exist" in missing
+    # every cube with its own table: the target may give neither ephemeris nor elements (nothing planned)
+    config = validate_config(_base(target={"name": "x"}, cubes=[{"path": "a.fits", "ephemeris": "a.ecsv"}]))
+    assert Settings.from_config(config).ephemeris_of(Settings.from_config(config).cubes[0]) == "a.ecsv"
     assert s.interferometer is None and s.catalogue_files is None
     # the nucleus mass range from the schema's default radius and density: M = 4/3 pi R^3 rho (closed form)
     m = s.budget.baseline.mass_kg

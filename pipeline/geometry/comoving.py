@@ -14,39 +14,36 @@ from dataclasses import replace
 
 import astropy.units as u
 import numpy as np
-from astropy.coordinates import EarthLocation
-from astropy.time import Time
 
 from pipeline.catalogue.entries import Line
 from pipeline.io.cubes import CubeInfo, flagged, open_data, open_quality
 from pipeline.io.products import ProductMeta, SubCube
-from pipeline.geometry.frames import linear_axis, radio_velocity, to_target_frame, to_topocentric
+from pipeline.geometry.frames import linear_axis, radio_velocity, to_target_frame
 
 __all__ = ["target_frame_frequencies", "target_frame_velocities", "cut_subcube", "crop_box"]
 
 
-def target_frame_frequencies(info: CubeInfo, geometry, location: EarthLocation | None) -> u.Quantity:
+def target_frame_frequencies(info: CubeInfo, geometry) -> u.Quantity:
     """Frequency of every channel of ``info`` in the target's rest frame.
 
-    ``geometry`` is the cube's one-row geometry table (or a row of it). A SPECSYS = SOURCE axis is
-    already in that frame; any other is brought to the observatory's frame, then the target's
-    topocentric radial velocity is removed (relativistic Doppler).
+    ``geometry`` is the cube's one-row geometry table (or a row of it,
+    :func:`pipeline.geometry.observing.cube_geometry`). A SPECSYS = SOURCE axis
+    is already in that frame; any other is brought to the observer's frame with
+    the table's ``frame_factor``, then the target's radial velocity seen by that
+    observer is removed (relativistic Doppler).
     """
     if info.specsys == "SOURCE":
         return info.frequencies
-    time = Time(geometry["time_mid"])
-    topo = to_topocentric(info.frequencies, info.specsys, time, location,
-                          u.Quantity(geometry["ra"]), u.Quantity(geometry["dec"]))
-    return to_target_frame(topo, u.Quantity(geometry["delta_dot"]))
+    observed = (u.Quantity(info.frequencies, u.Hz) / float(geometry["frame_factor"])).to(u.Hz)
+    return to_target_frame(observed, u.Quantity(geometry["delta_dot"]))
 
 
-def target_frame_velocities(info: CubeInfo, geometry, line: Line,
-                            location: EarthLocation | None) -> u.Quantity:
+def target_frame_velocities(info: CubeInfo, geometry, line: Line) -> u.Quantity:
     """Radio velocity of every channel of ``info`` relative to ``line`` in the target's frame.
 
     ``geometry`` is the cube's one-row geometry table (or a row of it).
     """
-    return radio_velocity(target_frame_frequencies(info, geometry, location), line.freq)
+    return radio_velocity(target_frame_frequencies(info, geometry), line.freq)
 
 
 def crop_box(shape: tuple[int, int], x: float, y: float, half_size: float) -> tuple[slice, slice]:
@@ -59,7 +56,7 @@ def crop_box(shape: tuple[int, int], x: float, y: float, half_size: float) -> tu
 
 def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
                 window: u.Quantity, crop_half_size: float,
-                location: EarthLocation | None, spectral_response: str = "hanning",
+                spectral_response: str = "hanning",
                 dq_bad_bits: int = 0) -> SubCube:
     """Cut the sub-cube of ``line`` from the cube.
 
@@ -74,8 +71,6 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
         Half-width of the integration window that must be fully covered.
     crop_half_size : float
         Half-size of the sky box in pixels.
-    location : EarthLocation or None
-        Observatory (None = geocentre).
     spectral_response : str
         The spectrometer's channel response ('hanning' or 'none'), carried to the extraction and the response.
     dq_bad_bits : int
@@ -87,7 +82,7 @@ def cut_subcube(info: CubeInfo, geometry, line: Line, half_width: u.Quantity,
         Not covered (with the reason) when the integration window is not fully inside the band.
     """
     cube_id, epoch = geometry["cube_id"], geometry["epoch"]
-    vel = target_frame_velocities(info, geometry, line, location).to_value(u.km / u.s)
+    vel = target_frame_velocities(info, geometry, line).to_value(u.km / u.s)
     hw, win = half_width.to_value(u.km / u.s), window.to_value(u.km / u.s)
     step = abs(vel[1] - vel[0])
     meta = ProductMeta(cube_id=str(cube_id), epoch=str(epoch), line_id=line.line_id, species=line.species,

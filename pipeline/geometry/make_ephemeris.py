@@ -47,7 +47,7 @@ def main(argv: list[str] | None = None) -> int:
                 return 2
             elements = settings.target.elements
             if not args.geocentre:
-                location = settings.location
+                location = settings.observer_of()
         elif args.elements:
             elements = OrbitalElements.from_mapping(json.loads(args.elements))
         else:
@@ -60,7 +60,8 @@ def main(argv: list[str] | None = None) -> int:
     except (GasledgerError, ValueError) as exc:
         print(f"gasledger: {exc}", file=sys.stderr)
         return 2
-    print(f"wrote {args.out} ({len(table)} rows, {'topocentric' if location else 'geocentric'})")
+    seen_from = location.describe() if location is not None else "the geocentre"
+    print(f"wrote {args.out} ({len(table)} rows, seen from {seen_from})")
     return 0
 
 

@@ -1,46 +1,41 @@
 """Per-cube observing geometry: where the target was and how it moved during the exposure.
 
-Either an ephemeris table (already seen from the observatory) is interpolated,
-or osculating elements are propagated (:mod:`pipeline.geometry.orbit`). The result is a
-one-row table per cube, the input of every later stage.
+Either an ephemeris table (already seen from the cube's observer) is interpolated,
+or osculating elements are propagated for that observer (:mod:`pipeline.geometry.orbit`,
+:mod:`pipeline.geometry.observers`). The result is a one-row table per cube, the input
+of every later stage; it also carries the Doppler factor between the cube's spectral
+frame and the observer's, so no later stage needs the observer.
 """
 
 from __future__ import annotations
 
 import logging
 import warnings
-from typing import Any
 
 import astropy.units as u
 import numpy as np
-from astropy.coordinates import EarthLocation, SkyCoord
+from astropy.coordinates import SkyCoord
 from astropy.table import QTable
 from astropy.time import Time
 
 from pipeline.io.cubes import CubeInfo
 from pipeline.io.times import observation_times
 from pipeline.geometry.ephemeris import Ephemeris
+from pipeline.geometry.frames import observer_frame_factor
+from pipeline.geometry.observers import Observer
 from pipeline.errors import DriftWarning, ConfigError, CoverageError, MotionWarning
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import two_body_drift, OrbitalElements, observe
 
-__all__ = ["observer_location", "target_geometry", "cube_geometry"]
+__all__ = ["target_geometry", "cube_geometry"]
 
 log = logging.getLogger(__name__)
 
 
-def observer_location(observatory: Any) -> EarthLocation | None:
-    """EarthLocation of a config ``observatory`` entry; None for ``'geocentre'``."""
-    if observatory in (None, "geocentre"):
-        return None
-    return EarthLocation.from_geodetic(lon=observatory["lon_deg"] * u.deg, lat=observatory["lat_deg"] * u.deg,
-                                       height=observatory["height_m"] * u.m)
-
-
 def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
                     elements: OrbitalElements | None = None,
-                    location: EarthLocation | None = None) -> dict[str, u.Quantity]:
-    """Geometry at ``times`` from a table or from elements (exactly one must be given).
+                    observer: Observer | None = None) -> dict[str, u.Quantity]:
+    """Geometry at ``times`` from a table or from elements (exactly one must be given), seen from ``observer``.
 
     Returns a dict of Quantities: ra, dec, r_h, delta, delta_dot, phase (when known).
     """
@@ -52,7 +47,7 @@ def target_geometry(times: Time, what: str, ephemeris: Ephemeris | None = None,
     if ephemeris is not None:
         return ephemeris.at(times, what=what)
     with future_time_tolerated():
-        table = observe(elements, Time(times).reshape(-1), location)
+        table = observe(elements, Time(times).reshape(-1), observer)
     cols = ("ra", "dec", "r_h", "delta", "delta_dot", "phase")
     return {c: (table[c] if np.ndim(times) else table[c][0]) for c in cols}
 
@@ -72,7 +67,7 @@ def _warn_drift(elements: OrbitalElements, mid: Time, info: CubeInfo, cube_id: s
 
 def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str | None = None,
                   ephemeris: Ephemeris | None = None, elements: OrbitalElements | None = None,
-                  location: EarthLocation | None = None, tracked: bool = True, position: str = "auto",
+                  observer: Observer | None = None, tracked: bool = True, position: str = "auto",
                   offset: tuple[float, float] = (0.0, 0.0), duration: u.Quantity | None = None) -> QTable:
     """One-row table with the geometry of the target for one cube.
 
@@ -82,7 +77,12 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     delta, delta_dot, phase, motion (sky motion during the exposure),
     delta_dot_change (change of the radial velocity during the exposure),
     x_pix, y_pix (0-based pixel position of the target at mid-time), specsys,
+    frame_factor (D with f in the SPECSYS frame = D * f in the observer's frame, towards the target at
+    mid-time; 1 for TOPOCENT and SOURCE), observer (who observed: geocentre, site or spacecraft, and its name),
     beam_major, beam_minor, freq_min, freq_max.
+
+    ``observer`` is the cube's observer (:class:`~pipeline.geometry.observers.Observer`; None for the
+    geocentre); an ephemeris table must already be seen from it.
 
     ``tracked`` says the cube was made tracking the target's ephemeris (the
     usual way for moving targets), so its motion does not smear the coma;
@@ -106,7 +106,7 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     start, mid, end = exposure
     times = Time([start, mid, end])
     geo = target_geometry(times, what=f"cube {cube_id} ({info.path})", ephemeris=ephemeris,
-                          elements=elements, location=location)
+                          elements=elements, observer=observer)
     sky = SkyCoord(geo["ra"], geo["dec"], frame="icrs")
     motion = sky[0].separation(sky[2]).to(u.arcsec)
     if elements is not None and elements.epoch is not None:
@@ -140,6 +140,9 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
     log.info("cube %s: mid-time %s, r_h %.4f au, delta %.4f au, delta_dot %+.4f km/s, moved %.3f arcsec",
              cube_id, mid.isot, geo["r_h"][1].to_value(u.au), geo["delta"][1].to_value(u.au),
              geo["delta_dot"][1].to_value(u.km / u.s), motion.to_value(u.arcsec))
+    observer = observer if observer is not None else Observer()
+    factor = 1.0 if info.specsys == "SOURCE" else observer_frame_factor(info.specsys, mid, observer, geo["ra"][1],
+                                                                          geo["dec"][1])
     row = {
         "cube_id": [cube_id], "epoch": [epoch],
         "time_start": Time([start.isot], scale="utc"), "time_mid": Time([mid.isot], scale="utc"),
@@ -150,7 +153,8 @@ def cube_geometry(info: CubeInfo, cube_id: str, epoch: str, time_override: str |
         "phase": [geo["phase"][1].to_value(u.deg) if "phase" in geo else np.nan] * u.deg,
         "motion": [motion.to_value(u.arcsec)] * u.arcsec,
         "delta_dot_change": [(geo["delta_dot"][2] - geo["delta_dot"][0]).to_value(u.km / u.s)] * (u.km / u.s),
-        "x_pix": [float(x)], "y_pix": [float(y)], "specsys": [info.specsys], "tracked": [tracked],
+        "x_pix": [float(x)], "y_pix": [float(y)], "specsys": [info.specsys], "frame_factor": [float(factor)],
+        "observer": [f"{observer.kind}: {observer.name}"], "tracked": [tracked],
         "position": [mode], "offset_east": [float(offset[0])] * u.arcsec, "offset_north": [float(offset[1])] * u.arcsec,
         "ra_target": [target.ra.deg] * u.deg, "dec_target": [target.dec.deg] * u.deg,
         "beam_major": [info.beam_major.to_value(u.arcsec) if info.beam_major is not None else np.nan] * u.arcsec,

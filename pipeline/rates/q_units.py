@@ -15,6 +15,7 @@ from pipeline.catalogue import Catalogue
 from pipeline.coma.response import ComaModel, GridGeometry, line_response_on_grid, outflow_speed, window_capture
 from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.rates.stacking import StackInput
+from pipeline.spectra.apertures import aperture_labels
 
 __all__ = ["stack_input", "band_inputs"]
 
@@ -72,13 +73,14 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     window_sum = np.sum(np.where(wts[None, :] > 0, flux, 0.0) * wts[None, :], axis=1) * dv          # (ap,)
     q = window_sum[None, :] / scale
     sigma = np.asarray(aps["sigma_window"], dtype=float)[None, :] / scale
+    labels = aperture_labels(aps)
     inp = StackInput(epoch=meta.epoch, cube_id=meta.cube_id, line_id=line.line_id, velocity=vel,
-                     density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km))
+                     density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km), apertures=labels)
     rows = []
     for i, t in enumerate(t_kin.to_value(u.K)):
         for j, r in enumerate(radii.to_value(u.km)):
             rows.append({"epoch": inp.epoch, "cube_id": inp.cube_id, "line_id": inp.line_id, "t_kin": t,
-                         "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
+                         "aperture": labels[j], "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
                          "window": float(spectra.window), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
                          "spectral_response": meta.spectral_response, "response_model": "grid",
@@ -98,6 +100,7 @@ def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tup
     if "species" not in table.colnames:
         return inputs, rows, skipped
     table = table[table["species"] == species]
+    names = aperture_labels(bands.apertures)
     for band_id in dict.fromkeys(str(b) for b in table["band_id"]):
         sel = table[table["band_id"] == band_id]
         sel = sel[np.argsort(np.asarray(sel["aperture_index"]))]
@@ -107,12 +110,13 @@ def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tup
         q = np.tile(np.asarray(sel["q"], dtype=float), (t_kin.size, 1))
         sq = np.tile(np.asarray(sel["sigma_q"], dtype=float), (t_kin.size, 1))
         radii = np.asarray(sel["aperture_km"], dtype=float)
+        labels = tuple(names[int(k)] for k in sel["aperture_index"])
         inputs.append(StackInput(epoch=epoch, cube_id=cube_id, line_id=band_id, velocity=None,
-                                 density=None, q=q, sigma_q=sq, radius_km=radii))
+                                 density=None, q=q, sigma_q=sq, radius_km=radii, apertures=labels))
         for t in t_kin:
-            for r in sel:
+            for r, label in zip(sel, labels):
                 rows.append({"epoch": epoch, "cube_id": cube_id, "line_id": band_id, "t_kin": t,
-                             "aperture_km": float(r["aperture_km"]), "response": float(r["response"]),
+                             "aperture": label, "aperture_km": float(r["aperture_km"]), "response": float(r["response"]),
                              "window_fraction": float(r["capture"]), "window": np.nan, "q": float(r["q"]),
                              "sigma_q": float(r["sigma_q"]), "r_h": float(r["r_h"]), "delta": float(r["delta"]),
                              "outflow": float(r["outflow"]), "spectral_response": "band",

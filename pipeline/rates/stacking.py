@@ -16,13 +16,14 @@ in the inverse-variance mean of Q but not in the stacked spectrum.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
+from pipeline.errors import CoverageError
 from pipeline.rates.statistics import inverse_variance_mean
 
-__all__ = ["StackInput", "rebin_density", "velocity_grid", "combine"]
+__all__ = ["StackInput", "rebin_density", "velocity_grid", "combine", "shared_apertures"]
 
 
 @dataclass(frozen=True)
@@ -42,6 +43,48 @@ class StackInput:
     q: np.ndarray
     sigma_q: np.ndarray
     radius_km: np.ndarray       # (n_ap,) aperture radii at the target
+    apertures: tuple[str, ...] = ()   # (n_ap,) the apertures as configured ('1000 km', '2 arcsec'); () = by radius
+
+    @property
+    def labels(self) -> tuple[str, ...]:
+        """The apertures' names (from the radii in km when none were given)."""
+        return self.apertures or tuple(f"{float(r):g} km" for r in self.radius_km)
+
+
+def shared_apertures(inputs: list[StackInput], what: str = "stack") -> tuple[list[StackInput], list[str]]:
+    """The inputs cut to the apertures every one of them has, and one note per cube for the apertures left out.
+
+    Cubes may have their own apertures (a small infrared field, a large millimetre one); a combination is only
+    meaningful over apertures they share, named as configured (``'1000 km'``, ``'2 arcsec'``). The shared
+    apertures keep the order of the first input.
+
+    Raises
+    ------
+    CoverageError
+        When the inputs share no aperture.
+    """
+    if not inputs:
+        return [], []
+    common = [a for a in inputs[0].labels if all(a in i.labels for i in inputs[1:])]
+    if not common:
+        have = "; ".join(dict.fromkeys(f"{i.cube_id}: {', '.join(i.labels)}" for i in inputs))
+        msg = (f"{what}: the cubes share no aperture ({have}); expected at least one aperture common to every cube "
+               "combined (set the cubes' apertures_km / apertures_arcsec)")
+        raise CoverageError(msg)
+    notes: dict[str, list[str]] = {}
+    out = []
+    for inp in inputs:
+        idx = [inp.labels.index(a) for a in common]
+        for a in inp.labels:
+            if a not in common and a not in notes.setdefault(inp.cube_id, []):
+                notes[inp.cube_id].append(a)
+        if len(idx) == len(inp.labels):
+            out.append(inp)
+            continue
+        out.append(replace(inp, q=inp.q[:, idx], sigma_q=inp.sigma_q[:, idx], radius_km=inp.radius_km[idx],
+                           density=None if inp.density is None else inp.density[:, idx, :],
+                           apertures=tuple(common)))
+    return out, [f"{', '.join(a)} of {cube}" for cube, a in notes.items() if a]
 
 
 def velocity_grid(inputs: list[StackInput], half_width: float) -> np.ndarray:

@@ -29,6 +29,8 @@ __all__ = [
     "flux_conversion",
     "corrected_aperture_spectra",
     "within_footprint",
+    "aperture_label",
+    "aperture_labels",
 ]
 
 
@@ -159,6 +161,28 @@ def _reduce(data, apertures, chunk, model=None, max_share=0.0, quality=None, bad
             n_blank[:, c0 + k] = nb
         sums[:, c0:c1] = part.T
     return sums, n_blank, share
+
+
+def aperture_label(radius: u.Quantity) -> str:
+    """The name of an aperture as configured: ``'1000 km'`` or ``'2.5 arcsec'`` (what cubes share when combined).
+
+    >>> aperture_label(1000 * u.km), aperture_label(2.5 * u.arcsec)
+    ('1000 km', '2.5 arcsec')
+    """
+    radius = u.Quantity(radius)
+    if radius.unit.physical_type == "length":
+        return f"{radius.to_value(u.km):g} km"
+    if radius.unit.physical_type == "angle":
+        return f"{radius.to_value(u.arcsec):g} arcsec"
+    msg = f"aperture radius {radius} is neither a length nor an angle"
+    raise CoverageError(msg)
+
+
+def aperture_labels(table) -> tuple[str, ...]:
+    """The aperture names of a product's apertures table (its ``aperture`` column; else from ``radius_km``)."""
+    if "aperture" in table.colnames:
+        return tuple(str(a) for a in table["aperture"])
+    return tuple(f"{float(r):g} km" for r in np.asarray(table["radius_km"], dtype=float))
 
 
 def radius_in_pixels(radius: u.Quantity, delta: u.Quantity, pixel_scale: u.Quantity) -> float:

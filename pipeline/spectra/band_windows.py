@@ -27,9 +27,9 @@ def resolving_power_of(info: CubeInfo, given: float | None) -> tuple[float, str]
     return float(np.median(lam[1:] / (2 * np.abs(np.diff(lam))))), "Nyquist sampling, lambda / (2 dlambda)"
 
 
-def doppler_factor(info: CubeInfo, geometry, location) -> float:
-    """Observed over rest wavelength of the target (one factor for all channels)."""
-    rest = target_frame_frequencies(info, geometry, location)
+def doppler_factor(info: CubeInfo, geometry) -> float:
+    """Observed over rest wavelength of the target (one factor for all channels); ``geometry`` is the cube's row."""
+    rest = target_frame_frequencies(info, geometry)
     return float(np.median((rest / info.frequencies).decompose().value))
 
 

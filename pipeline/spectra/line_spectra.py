@@ -18,7 +18,7 @@ import numpy as np
 from astropy.table import Table
 
 from pipeline.coma.image import projected_coma_image
-from pipeline.spectra.apertures import (aperture_spectra, aperture_weights, corrected_aperture_spectra,
+from pipeline.spectra.apertures import (aperture_label, aperture_spectra, aperture_weights, corrected_aperture_spectra,
                                         flux_conversion, offsource_positions,
                         radius_in_pixels)
 from pipeline.io.cubes import CubeInfo
@@ -174,6 +174,7 @@ def _extract(sub: SubCube, settings: ExtractionSettings, data: np.ndarray | None
                         else (float("nan"), 0))
         rk = u.Quantity(r)
         rows.append({
+            "aperture": aperture_label(rk),
             "radius_km": (rk if rk.unit.physical_type == "length"
                           else (rk.to_value(u.rad) * delta)).to_value(u.km),
             "radius_arcsec": (rp * info.pixel_scale).to_value(u.arcsec),

@@ -24,7 +24,7 @@ import astropy.units as u
 import numpy as np
 from astropy.table import QTable, Table
 
-from pipeline.spectra.apertures import radius_in_pixels
+from pipeline.spectra.apertures import aperture_label, radius_in_pixels
 from pipeline.io.atomic import write_fits
 from pipeline.spectra.band_measure import band_capture, continuum_level, measure_band
 from pipeline.catalogue.entries import Band, Catalogue
@@ -147,12 +147,11 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
         raise CubeError(msg)
     geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
     catalogue = settings.catalogue()
-    location = settings.location
     rpow, rsource = resolving_power_of(info, resolving_power)
-    factor = doppler_factor(info, geo, location)
+    factor = doppler_factor(info, geo)
     obs = info.wavelengths
     delta = u.Quantity(geo["delta"])
-    radii = list(settings.apertures)
+    radii = list(settings.apertures_of())
     radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in radii]
     radii_km = [float((r if r.unit.physical_type == "length" else (r.to_value(u.rad) * delta)).to_value(u.km))
                 for r in radii]
@@ -192,7 +191,8 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
         band_ids=tuple(band_ids), spectra=spectra.flux.to_value(F_LAMBDA), sigma=sigma.to_value(F_LAMBDA),
         continuum=np.array(continua) if continua else np.zeros((0, len(radii), obs.size)),
         wave=Table({"observed": obs.to(u.um), "rest": (obs / factor).to(u.um)}),
-        apertures=Table({"radius_km": np.array(radii_km) * u.km, "radius_pix": spectra.radius_pix,
+        apertures=Table({"aperture": [aperture_label(r) for r in radii], "radius_km": np.array(radii_km) * u.km,
+                         "radius_pix": spectra.radius_pix,
                          "area_pix": spectra.area_pix}),
         bands=table(band_rows), dust=table(dust_rows), colour=table(colour_rows))
     hdul = product.to_fits()

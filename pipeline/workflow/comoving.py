@@ -37,11 +37,11 @@ def run(geometry_path: str, line_id: str, settings: Settings, out_path: str) -> 
     v_out = outflow_speed(settings.coma, geo["r_h"])
     window = settings.limits.window_factor * v_out
     delta = u.Quantity(geo["delta"])
-    radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in settings.apertures]
+    radii_pix = [radius_in_pixels(r, delta, info.pixel_scale) for r in settings.apertures_of()]
     beam_pix = float((np.sqrt(info.beam_major * info.beam_minor) / info.pixel_scale).decompose()) \
         if info.beam_major is not None else 1.0
     sub = cut_subcube(info, geo, line, settings.half_width, window, crop_half_size(radii_pix, beam_pix),
-                      settings.location, spectral_response, settings.quality.dq_bad_bits)
+                      spectral_response, settings.quality.dq_bad_bits)
     if sub.meta.covered:
         log.info("line %s in cube %s: %d channels, %d x %d pixels", line_id, geo["cube_id"], *sub.data.shape)
     else:

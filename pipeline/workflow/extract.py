@@ -27,7 +27,7 @@ def run(subcube_path: str, settings: Settings, out_path: str) -> None:
         catalogue = settings.catalogue()
         line = catalogue.get_line(sub.meta.line_id)
         v_out = outflow_speed(settings.coma, sub.meta.r_h)
-        what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
+        what = extraction_settings(line, catalogue, settings.apertures_of(), settings.limits.window_factor * v_out,
                                    settings.half_width, settings.quality.max_masked_share)
         spectra = extract_spectra(sub, what)
     hdul = spectra.to_fits()

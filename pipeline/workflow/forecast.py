@@ -35,13 +35,13 @@ def run(budget_path: str, settings: Settings, out_path: str) -> None:
     ephem = read_ephemeris(ephemeris_path) if ephemeris_path is not None else None
     if ephem is not None:
         check_spacing(ephem)                            # warns (in the log) when the table is too coarse
-        check_observer(ephem, settings.location)
+        check_observer(ephem, settings.observer_of())
     elements = target.elements
     rows = []
     for plan in settings.planned:
         t = Time(plan.time, scale="utc")
         geo = target_geometry(Time([t, t]), what=f"planned epoch {plan.label}", ephemeris=ephem,
-                              elements=elements, location=settings.location)
+                              elements=elements, observer=settings.observer_of())
         geo = {k: v[0] for k, v in geo.items()}
         per_species: dict[str, list[np.ndarray]] = {}
         radii = None

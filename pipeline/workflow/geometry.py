@@ -20,16 +20,20 @@ def run(settings: Settings, out_path: str) -> None:
     """Compute and write the geometry table of the settings' cube."""
     cube = settings.cube
     info = read_cube_info(cube.path, cube.beam_arcsec)
-    target = settings.target
+    observer = settings.observer_of()
+    table_path = settings.ephemeris_of()
     inputs = [cube.path]
     ephem = None
-    if target.ephemeris is not None:
-        ephem = read_ephemeris(target.ephemeris)
-        inputs.append(target.ephemeris)
+    if table_path is not None:
+        ephem = read_ephemeris(table_path)
+        inputs.append(table_path)
         check_spacing(ephem)
-        check_observer(ephem, settings.location)
-    table = cube_geometry(info, cube.cube_id, cube.epoch, cube.time, ephemeris=ephem, elements=target.elements,
-                          location=settings.location, tracked=cube.tracked, position=cube.position,
+        check_observer(ephem, observer)
+    if observer.states is not None:
+        inputs.append(observer.states)
+    table = cube_geometry(info, cube.cube_id, cube.epoch, cube.time, ephemeris=ephem,
+                          elements=settings.elements_of(), observer=observer, tracked=cube.tracked,
+                          position=cube.position,
                           offset=tuple(cube.offset),
                           duration=cube.duration_s * u.s if cube.duration_s is not None else None)
     table.meta["provenance"] = provenance_record(settings, inputs, "geometry")

@@ -12,7 +12,8 @@ from pipeline.io.atomic import write_table
 from pipeline.rates.band_injection import inject_band, ring_positions
 from pipeline.io.cubes import open_data, read_cube_info
 from pipeline.rates.line_injection import inject_spectra, placements
-from pipeline.rates.stacking import StackInput
+from pipeline.rates.stacking import StackInput, shared_apertures
+from pipeline.spectra.apertures import aperture_labels
 from pipeline.rates.statistics import inverse_variance_mean
 from pipeline.spectra.band_windows import band_setup, band_windows
 from pipeline.io.products import BandMeasurements, SubCube
@@ -53,14 +54,14 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
     """Band injections of rate ``q`` in every infrared cube of ``species``, grouped by placement (velocity slot 0)."""
     catalogue, model, ir = settings.catalogue(), settings.coma, settings.infrared
     sp = catalogue.get_species(species)
-    paths = {c.cube_id: c.path for c in settings.cubes}
+    entries = {c.cube_id: c for c in settings.cubes}
     groups: dict[tuple[int, int], list[StackInput]] = {}
     for path in bands_paths:
         measured = BandMeasurements.from_fits(path)
         bands = measured.bands
         if "species" not in bands.colnames:
             continue
-        info = read_cube_info(paths[measured.cube_id])
+        info = read_cube_info(entries[measured.cube_id].path, entries[measured.cube_id].beam_arcsec)
         obs = info.wavelengths
         radii_pix = list(np.asarray(measured.apertures["radius_pix"], dtype=float))
         radii_km = np.asarray(measured.apertures["radius_km"], dtype=float)
@@ -79,7 +80,8 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
             for res in results:
                 groups.setdefault((res.index, 0), []).append(StackInput(
                     epoch=measured.epoch, cube_id=measured.cube_id, line_id=band_id, velocity=None, density=None,
-                    q=np.tile(res.q_recovered, (n_t, 1)), sigma_q=np.tile(res.q_err, (n_t, 1)), radius_km=radii_km))
+                    q=np.tile(res.q_recovered, (n_t, 1)), sigma_q=np.tile(res.q_err, (n_t, 1)), radius_km=radii_km,
+                    apertures=aperture_labels(measured.apertures)))
     return groups
 
 
@@ -107,7 +109,8 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
         for sub in covered:
             line = catalogue.get_line(sub.meta.line_id)
             v_out = outflow_speed(model, sub.meta.r_h)
-            what = extraction_settings(line, catalogue, settings.apertures, settings.limits.window_factor * v_out,
+            radii = settings.apertures_of(settings.with_cube(sub.meta.cube_id).cube)
+            what = extraction_settings(line, catalogue, radii, settings.limits.window_factor * v_out,
                                        settings.half_width, settings.quality.max_masked_share)
             where = placements(sub, what)
             parent = catalogue.get_species(sp.parent) if sp.parent else None
@@ -121,6 +124,7 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
         for key, members in band_groups(list(bands_paths or []), species, q, settings, t_all.size).items():
             groups.setdefault(key, []).extend(members)
         for (index, vrank), members in sorted(groups.items()):
+            members, _ = shared_apertures(members, f"injection of {species}")
             q_rec, sig = inverse_variance_mean(np.array([m.q[it] for m in members]),          # (n, n_ap)
                                                np.array([m.sigma_q[it] for m in members]), axis=0)
             for j, radius in enumerate(members[0].radius_km):

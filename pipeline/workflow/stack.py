@@ -13,7 +13,7 @@ from pipeline.io.atomic import write_fits
 from pipeline.io.products import BandMeasurements, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.rates.q_units import band_inputs, stack_input
-from pipeline.rates.stacking import combine, velocity_grid
+from pipeline.rates.stacking import combine, shared_apertures, velocity_grid
 from pipeline.settings import Settings
 
 __all__ = ["run", "ALL"]
@@ -62,7 +62,11 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
     summary = []
     spectra = {}
     for group in groups + ([ALL] if inputs else []):
-        members = [i for i in inputs if group in (ALL, i.epoch)]
+        members, left_out = shared_apertures([i for i in inputs if group in (ALL, i.epoch)],
+                                             f"stack of {species}, epoch group {group!r}")
+        if left_out:
+            log.warning("%s %s: combined over the apertures every cube has (%s); left out: %s", species, group,
+                        ", ".join(members[0].labels), "; ".join(left_out))
         edges = velocity_grid(members, half)
         res = combine(members, edges)
         centres = 0.5 * (edges[:-1] + edges[1:])
@@ -73,10 +77,10 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
         for i, t in enumerate(t_kin):
             for j in range(res["q"].shape[1]):
                 radius = float(np.mean([m.radius_km[j] for m in members]))
-                summary.append({"epoch": group, "t_kin": t, "aperture_index": j, "aperture_km": radius,
-                                "q": res["q"][i, j],
+                summary.append({"epoch": group, "t_kin": t, "aperture_index": j, "aperture": members[0].labels[j],
+                                "aperture_km": radius, "q": res["q"][i, j],
                                 "sigma_q": res["sigma_q"][i, j], "lines": ",".join(lines),
-                                "cubes": ",".join(cubes)})
+                                "cubes": ",".join(cubes), "apertures_left_out": "; ".join(left_out)})
         log.info("%s %s: %d spectra (%s) -> Q(T=%g K, first aperture) = %.3g +- %.3g /s", species, group,
                  len(members), ", ".join(lines), t_kin[0], res["q"][0, 0], res["sigma_q"][0, 0])
     stack = SpeciesStack(species=species, n_inputs=len(inputs), spectra=spectra,

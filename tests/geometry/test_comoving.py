@@ -68,7 +68,7 @@ def test_line_and_position_recovered(tmp_path):
     info = read_cube_info(path)
     geo = cube_geometry(info, "c1", "e1", ephemeris=read_ephemeris(eph))[0]
     assert geo["x_pix"] == pytest.approx(x0, abs=0.01) and geo["y_pix"] == pytest.approx(y0, abs=0.01)
-    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 10.0, None)
+    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 10.0)
     assert sub.meta.covered
     h = sub.header
     vel = h["CRVAL3"] + (np.arange(sub.data.shape[0]) + 1 - h["CRPIX3"]) * h["CDELT3"]
@@ -87,7 +87,7 @@ def test_window_outside_band_is_reported_not_cut(tmp_path):
     path, eph, _, line = _make(tmp_path, eph_ddot=-75.0)    # the ephemeris puts the line 98 km/s off the 39 MHz band
     info = read_cube_info(path)
     geo = cube_geometry(info, "c1", "e1", ephemeris=read_ephemeris(eph))[0]
-    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 10.0, None)
+    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 10.0)
     assert not sub.meta.covered and sub.data is None
     assert "not fully inside the band" in sub.meta.reason and sub.meta.covered is False
 

@@ -341,7 +341,7 @@ def test_the_comoving_cut_keeps_each_channels_beam(tmp_path):
     geo = QTable({"x_pix": [11.5], "y_pix": [11.5], "delta": [1.0] * u.au, "r_h": [1.2] * u.au,
                   "delta_dot": [0.0] * u.km / u.s, "cube_id": ["c"], "epoch": ["e"]})[0]
     line = load_catalogue().get_line("CO_230538")
-    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 8.0, None)
+    sub = cut_subcube(info, geo, line, 30 * u.km / u.s, 1.5 * u.km / u.s, 8.0)
     assert sub.meta.covered and sub.beams is not None
     c0 = sub.meta.first_channel
     assert_allclose(sub.beams[0].to_value(u.arcsec), beams[c0:c0 + sub.data.shape[0], 0], rtol=1e-6)

@@ -22,6 +22,7 @@ from pipeline.catalogue.entries import load_catalogue
 from pipeline.settings import Settings, validate_config
 from pipeline.coma.conversion import band_flux_from_production_rate
 from pipeline.io.cubes import read_cube_info
+from pipeline.geometry.observers import Observer
 from pipeline.geometry.observing import cube_geometry
 from pipeline.offline import future_time_tolerated
 from pipeline.geometry.orbit import OrbitalElements, observe
@@ -57,7 +58,7 @@ def ir_run(tmp_path_factory):
         with future_time_tolerated(), warnings.catch_warnings():
             warnings.simplefilter("ignore")  # the ERFA 'dubious year' of the demo's future epochs
             table = cube_geometry(info, setup.name, "e1", elements=OrbitalElements.from_mapping(sc.elements),
-                                  location=location)
+                                  observer=Observer(name="site", location=location))
         table.write(tmp / f"{setup.name}.ecsv", format="ascii.ecsv")
         ids = ["H2O_nu3"] if setup.name == "short" else ["CO2_nu3", "CO_v1-0"]
         with future_time_tolerated(), warnings.catch_warnings():
