@@ -30,6 +30,7 @@ def run(settings: Settings, out_path: str) -> None:
         check_spacing(ephem)
         check_observer(ephem, observer)
     if observer.states is not None:
+        observer.state_table()       # read and checked even when this cube's geometry needs no state of it
         inputs.append(observer.states)
     table = cube_geometry(info, cube.cube_id, cube.epoch, cube.time, ephemeris=ephem,
                           elements=settings.elements_of(), observer=observer, tracked=cube.tracked,

@@ -182,7 +182,7 @@ def run_workflow(config: dict) -> Path:
             sub = out / "comoving" / cid / f"{line}.fits"
             _stage("comoving", sub, comoving.run, str(geo), line, settings.with_cube(cid), str(sub))
             spec = out / "spectra" / cid / f"{line}.fits"
-            _stage("extract", spec, extract.run, str(sub), settings, str(spec))
+            _stage("extract", spec, extract.run, str(sub), settings.with_cube(cid), str(spec))
             spectra.setdefault(catalogue.get_line(line).species, []).append(str(spec))
     for species in config["species"]:
         stk = out / "stack" / f"{species}.fits"

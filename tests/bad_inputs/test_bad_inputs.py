@@ -166,6 +166,43 @@ def _missing_file(which):
     return change
 
 
+def _states(c: TinyCampaign, meta: dict, start: str = "2030-05-31T00:00:00") -> str:
+    """A spacecraft's state table 1.5 million km from the Earth (astropy's built-in Earth), 6-hourly for 3 days."""
+    from astropy.coordinates import get_body_barycentric_posvel
+
+    times = Time(start, scale="utc") + np.arange(0, 73, 6) * u.hour
+    pos, vel = get_body_barycentric_posvel("earth", times)
+    xyz, v = pos.xyz.to(u.km) + [[1.5e6], [0.0], [0.0]] * u.km, vel.xyz.to(u.km / u.s)
+    path = c.root / "data" / "probe.ecsv"
+    QTable({"time": times, "x": xyz[0], "y": xyz[1], "z": xyz[2], "vx": v[0], "vy": v[1], "vz": v[2]},
+           meta=meta).write(path, format="ascii.ecsv", overwrite=True)
+    return str(path)
+
+
+def _spacecraft(meta: dict, start: str = "2030-05-31T00:00:00", **cards):
+    def spoil(c: TinyCampaign) -> dict:
+        if cards:
+            write_hdu(cube_hdu(**cards), c.cube)
+        config = c.fresh_config()
+        config["observatory"] = {"name": "Probe (fictional)", "states": _states(c, meta, start)}
+        return config
+    return spoil
+
+
+def _geocentric_table_at_a_site(c: TinyCampaign) -> dict:
+    table = ephemeris_table()
+    table.meta["observer"] = "geocentre"
+    write_ephemeris(table, c.ephemeris)
+    return c.fresh_config(observatory={"name": "Mesa Alta (fictional)", "lon_deg": -70.0, "lat_deg": -24.0,
+                                       "height_m": 2900.0})
+
+
+def _cube_key(key, value):
+    def change(c, config):
+        config["cubes"][0][key] = value(c) if callable(value) else value
+    return change
+
+
 @dataclass(frozen=True)
 class Case:
     name: str
@@ -240,6 +277,22 @@ CASES = [
     Case("target outside the field", _ephem(_shift_ra), "geometry",
          (r"c1\.fits: the target \(RA 150\.05000 deg", r"outside the 48 x 48 field",
           r"expected the target inside the field")),
+    # observers: a table seen from elsewhere, a spacecraft's state table
+    Case("geocentric table used for a site", _geocentric_table_at_a_site, "geometry",
+         (r"ephemeris file '.*eph\.ecsv' states it is seen from the geocentre \(metadata 'observer'\)",
+          r"observed from the site 'Mesa Alta \(fictional\)'", r"expected a table seen from that observer")),
+    Case("spacecraft states without a centre", _spacecraft({"axes": "icrs"}), "geometry",
+         (r"observer state table '.*probe\.ecsv' does not state its centre \(metadata 'centre'\)",
+          r"expected one of barycentre, geocentre, sun", r"config key 'observatory\.centre'")),
+    Case("spacecraft states not covering the time",
+         _spacecraft({"centre": "barycentre", "axes": "icrs"}, "2030-06-02T00:00:00", SPECSYS="BARYCENT"), "geometry",
+         (r"time 2030-06-01T02:\d\d:\d\d\.\d+ \(UTC\) lies outside the observer's state table .*probe\.ecsv",
+          r"observer Probe \(fictional\)", r"expected a table covering the whole exposure")),
+    Case("a cube's own ephemeris missing", _config(_cube_key("ephemeris", lambda c: str(c.root / "data" / "own.ecsv"))),
+         "dag", (r"config: cubes\[0\]\.ephemeris names the file '.*own\.ecsv', which does not exist",)),
+    Case("a cube's spacecraft states missing",
+         _config(_cube_key("observatory", lambda c: {"name": "Probe", "states": str(c.root / "data" / "gone.ecsv")})),
+         "dag", (r"config: cubes\[0\]\.observatory\.states names the file '.*gone\.ecsv', which does not exist",)),
     # the campaign config
     Case("misspelt config key", _config(_set("apertures_kms", [1000.0])), "dag",
          (r"config: unknown key 'apertures_kms' under \(top level\) \(misspelt\?\)",

@@ -153,3 +153,31 @@ def test_velocity_grid_centred_on_zero_with_coarsest_step():
     assert len(centres) % 2 == 1
     # covers +-half_width to within one step: n = floor(10 / 1.3) = 7 channels each side
     assert_array_equal(np.round(centres / 1.3).astype(int), np.arange(-7, 8))
+
+
+def test_cubes_are_combined_over_the_apertures_they_share():
+    # a millimetre cube with 1000 and 3000 km apertures and a small infrared field with only 1000 km: the
+    # combination is the inverse-variance mean (closed form: sum(q/s^2)/sum(1/s^2)) over the shared 1000 km only
+    from pipeline.errors import CoverageError
+    from pipeline.rates.stacking import shared_apertures
+
+    mm = StackInput(epoch="e1", cube_id="mm", line_id="L", velocity=None, density=None,
+                    q=np.array([[2.0, 5.0]]), sigma_q=np.array([[1.0, 2.0]]), radius_km=np.array([1000.0, 3000.0]),
+                    apertures=("1000 km", "3000 km"))
+    ir = StackInput(epoch="e1", cube_id="ir", line_id="B", velocity=None, density=None,
+                    q=np.array([[4.0]]), sigma_q=np.array([[1.0]]), radius_km=np.array([1000.0]),
+                    apertures=("1000 km",))
+    members, left_out = shared_apertures([mm, ir])
+    assert [m.labels for m in members] == [("1000 km",), ("1000 km",)]
+    assert left_out == ["3000 km of mm"]
+    res = combine(members, np.array([-0.5, 0.5]))
+    assert_allclose(res["q"], [[3.0]])
+    assert_allclose(res["sigma_q"], [[1 / np.sqrt(2.0)]])
+    # apertures on the sky are named as configured and never matched to lengths
+    sky = StackInput(epoch="e1", cube_id="sky", line_id="L", velocity=None, density=None, q=np.array([[1.0]]),
+                     sigma_q=np.array([[1.0]]), radius_km=np.array([1000.0]), apertures=("1.5 arcsec",))
+    with pytest.raises(CoverageError, match=r"the cubes share no aperture \(mm: 1000 km, 3000 km; sky: 1\.5 arcsec\)"):
+        shared_apertures([mm, sky])
+    # inputs without names (older products) are named by their radius in km
+    assert StackInput(epoch="e", cube_id="c", line_id="L", velocity=None, density=None, q=mm.q, sigma_q=mm.sigma_q,
+                      radius_km=mm.radius_km).labels == ("1000 km", "3000 km")
