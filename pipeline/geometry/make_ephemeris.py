@@ -3,8 +3,8 @@
     python -m pipeline.geometry.make_ephemeris --config campaign.yaml --start 2031-03-09 --stop 2031-03-18 \\
         --step 30 --out ephemeris.ecsv
 
-The elements come from the config's ``target.elements`` (or ``--elements`` as JSON), the site from its
-``observatory``. The table has the columns the workflow reads (time, ra, dec, r_h, delta, delta_dot, phase,
+The elements come from the config's ``target.elements`` (or ``--elements`` as JSON), the observer from its
+``observatory`` (a site, the geocentre or a spacecraft), or from the ``observatory`` of the cube ``--cube ID``. The table has the columns the workflow reads (time, ra, dec, r_h, delta, delta_dot, phase,
 sky rates, and the geocentric range rate when a site is given), so a table made here and elements given
 directly feed the same code.
 """
@@ -33,6 +33,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--elements", help='elements as JSON: {"q_au":..,"e":..,"i_deg":..,"node_deg":..,'
                                            '"peri_deg":..,"tp":".."} (instead of --config)')
     parser.add_argument("--geocentre", action="store_true", help="ignore the config's observatory")
+    parser.add_argument("--cube", help="seen from this cube's own observatory (its id in the config)")
     parser.add_argument("--start", required=True, help="first time (ISO, UTC)")
     parser.add_argument("--stop", required=True, help="last time (ISO, UTC)")
     parser.add_argument("--step", type=float, default=30.0, help="step in minutes (default 30)")
@@ -47,7 +48,7 @@ def main(argv: list[str] | None = None) -> int:
                 return 2
             elements = settings.target.elements
             if not args.geocentre:
-                location = settings.observer_of()
+                location = settings.observer_of(settings.with_cube(args.cube).cube if args.cube else None)
         elif args.elements:
             elements = OrbitalElements.from_mapping(json.loads(args.elements))
         else:

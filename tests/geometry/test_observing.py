@@ -160,6 +160,40 @@ def test_make_ephemeris_command(tmp_path, capsys):
     assert make_ephemeris(["--start", "x", "--stop", "y", "--out", str(out)]) == 2
 
 
+def test_make_ephemeris_for_a_cubes_own_spacecraft(tmp_path, capsys):
+    # the table is seen from the cube's spacecraft: it says so and equals observe() for that observer
+    import yaml
+    from astropy.coordinates import get_body_barycentric_posvel
+
+    from pipeline.geometry.observers import Observer
+
+    with future_time_tolerated():
+        times = Time("2031-03-09T00:00:00", scale="utc") + np.arange(0, 4.01, 0.25) * u.day
+        pos, vel = get_body_barycentric_posvel("earth", times)
+    states = tmp_path / "probe.ecsv"
+    xyz, v = pos.xyz.to(u.km) + [[0.0], [1.5e6], [0.0]] * u.km, vel.xyz.to(u.km / u.s)
+    QTable({"time": times, "x": xyz[0], "y": xyz[1], "z": xyz[2], "vx": v[0], "vy": v[1], "vz": v[2]},
+           meta={"centre": "barycentre", "axes": "icrs"}).write(states, format="ascii.ecsv")
+    write_cube(tmp_path / "ir.fits")
+    config = {"target": {"elements": ELEMENTS}, "species": ["HCN"],
+              "cubes": [{"path": str(tmp_path / "ir.fits"), "id": "ir",
+                         "observatory": {"name": "Probe", "states": str(states)}}]}
+    (tmp_path / "c.yaml").write_text(yaml.safe_dump(config))
+    out = tmp_path / "probe_eph.ecsv"
+    rc = make_ephemeris(["--config", str(tmp_path / "c.yaml"), "--cube", "ir", "--start", "2031-03-10",
+                         "--stop", "2031-03-11", "--step", "60", "--out", str(out)])
+    assert rc == 0 and "seen from the spacecraft 'Probe'" in capsys.readouterr().out
+    with future_time_tolerated():
+        table = read_ephemeris(out)
+        direct = observe(OrbitalElements.from_mapping(ELEMENTS), Time(["2031-03-10T05:00:00"]),
+                         Observer(name="Probe", states=str(states)))
+        got = table.at(Time("2031-03-10T05:00:00"))
+    assert table.observer == {"spacecraft": "Probe"}
+    assert got["ra"].to_value(u.deg) == pytest.approx(direct["ra"][0].to_value(u.deg), abs=1e-9)
+    assert got["delta_dot"].to_value(u.km / u.s) == pytest.approx(direct["delta_dot"][0].to_value(u.km / u.s),
+                                                                  abs=1e-9)
+
+
 def test_elements_far_from_their_epoch_warn_of_drift(tmp_path):
     # 4 years from the osculating epoch the rule of thumb (0.2" at 30 d, 600" at 2.4 yr) far exceeds a tenth
     # of the 1.5" beam: a DriftWarning names the cube, the days and the size
