@@ -57,6 +57,10 @@ def run_species(stack_path: str, settings: Settings, out_path: str) -> None:
         add_fit_columns(table)
         table["tau_peak"] = np.zeros(0)
         table["surviving_fraction"] = np.zeros(0)
+    if "apertures_left_out" in summary.colnames:
+        left_out = {str(r["epoch"]): str(r["apertures_left_out"]) for r in summary if str(r["apertures_left_out"])}
+        if left_out:
+            table.meta["apertures_left_out"] = {species: left_out}
     table.meta["provenance"] = provenance_record(settings, [stack_path], "limits")
     write_table(table, out_path)
 
@@ -65,11 +69,15 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
              geometry_paths: list[str] | None = None, activity_path: str | None = None) -> None:
     """Join the per-species limits into limits.ecsv, flagging the conservative temperature."""
     tables = [QTable.read(p, format="ascii.ecsv") for p in species_paths]
+    left_out: dict[str, dict[str, str]] = {}
     for t in tables:
+        left_out.update(t.meta.get("apertures_left_out", {}))
         t.meta.clear()
     tables = [t for t in tables if len(t)] or tables[:1]
     table = mark_conservative(join_limits(tables))
     table.meta["provenance"] = provenance_record(settings, species_paths, "limits")
+    if left_out:   # species -> epoch group -> the apertures of which cubes a combination left out
+        table.meta["apertures_left_out"] = left_out
     table.meta["assumptions"] = {
         "excitation": "LTE at T_kin, optically thin, cosmic background 2.725 K",
         "coma": "Haser parent distribution, isotropic uniform outflow",

@@ -111,11 +111,19 @@ def run(inputs, outputs, settings: Settings) -> None:
         fig_sweep, "Upper limit (all epochs, smallest aperture) against the assumed kinetic temperature; the circled "
                    "point is the most conservative value, the one reported.", "temperature sweep")))
     sections.append(("Geometry per cube", table_html(
-        ["cube", "epoch", "mid-time (UTC)", "r_h [au]", "Δ [au]", "Δ̇ [km/s]", "phase [deg]",
-         "moved [arcsec]", "SPECSYS"],
-        [[str(g["cube_id"]), str(g["epoch"]), g["time_mid"].isot, float(g["r_h"].value), float(g["delta"].value),
-          float(g["delta_dot"].value), float(g["phase"].value), float(g["motion"].value), str(g["specsys"])]
-         for g in geometry], left=3)))
+        ["cube", "epoch", "observer", "mid-time (UTC)", "mid-time from", "r_h [au]", "Δ [au]", "Δ̇ [km/s]",
+         "phase [deg]", "moved [arcsec]", "SPECSYS"],
+        [[str(g["cube_id"]), str(g["epoch"]), str(g["observer"]), g["time_mid"].isot, str(g["time_source"]),
+          float(g["r_h"].value), float(g["delta"].value), float(g["delta_dot"].value), float(g["phase"].value),
+          float(g["motion"].value), str(g["specsys"])]
+         for g in geometry], left=5)))
+    left_out = limits.meta.get("apertures_left_out", {})
+    if left_out:
+        sections.append(("Apertures left out of combinations", "<p>Cubes may have their own apertures; each "
+                         "combination (an epoch, all epochs) uses only the apertures every one of its cubes has.</p>"
+                         + table_html(["species", "epoch group", "left out"],
+                                      [[sp, group, text] for sp, groups in left_out.items()
+                                       for group, text in groups.items()], left=3)))
     assumptions = dict(limits.meta.get("assumptions", {}))
     assumptions.update({f"budget: {k}": v for k, v in summary["assumptions"].items()})
     sections.append(("Assumptions", table_html(["assumption", "value"],
