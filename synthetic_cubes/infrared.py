@@ -1,4 +1,4 @@
-"""Synthetic infrared integral-field cubes of the invented campaign.
+"""Synthetic infrared integral-field cubes of the invented campaign, from the fictional space telescope.
 
 Sky model per channel: the dust continuum of a steady 1/rho coma whose Afrho
 follows a linear reflectance with the chosen colour (reflected sunlight from the
@@ -7,7 +7,10 @@ coma times the band flux per molecule, spread in wavelength by the band
 template at the instrument's resolving power), both convolved with a circular
 Gaussian point-spread function. Noise is Gaussian and independent per pixel,
 with the sigma written to an ERR extension; the data go to a SCI extension in
-the setup's BUNIT. Like the millimetre generator it reuses the pipeline's
+the setup's BUNIT. The facility layout adds what a space IFU's product holds:
+DQ flags (a blank border around the field, a few flagged voxels inside it),
+a weight map, a rotated field and a barycentric wavelength axis, with the
+observation's time cards in an empty primary HDU. Like the millimetre generator it reuses the pipeline's
 physics, so recovery is a consistency check; each function has its own
 external checks in tests/.
 """
@@ -27,6 +30,8 @@ from astropy.time import Time
 from astropy.wcs import WCS, FITSFixedWarning
 from scipy.signal import fftconvolve
 
+from pipeline.geometry.frames import observer_frame_factor
+from pipeline.geometry.observers import Observer
 from pipeline.io.atomic import write_fits
 from pipeline.spectra.band_measure import binned_band_template
 from pipeline.coma.image import beam_kernel, coma_molecules_image, pixel_column_integral
@@ -37,7 +42,18 @@ from pipeline.dust.solar import solar_flux_density
 
 from .sky import sky_header
 
-__all__ = ["InfraredSetup", "write_ir_cube", "afrho_model"]
+__all__ = ["InfraredSetup", "write_ir_cube", "afrho_model", "rotated_pc", "DO_NOT_USE", "OUTSIDE_FIELD",
+           "BAD_DETECTOR_PIXEL"]
+
+#: Data-quality bits of the facility layout: bit 0 'do not use' (the space-IFU pipelines' convention, which the
+#: pipeline's quality.dq_bad_bits default reads); the two reasons are invented assignments of higher bits.
+DO_NOT_USE = 1
+BAD_DETECTOR_PIXEL = 1 << 4
+OUTSIDE_FIELD = 1 << 9
+#: Dither positions of each exposure (the weight map's value where every one covers a voxel; invented).
+DITHERS = 4
+#: On-source share of the wall-clock exposure (XPOSURE; readout overheads, invented).
+ON_SOURCE_SHARE = 0.94
 
 
 @dataclass(frozen=True)
@@ -55,6 +71,9 @@ class InfraredSetup:
     psf_fwhm_arcsec: float
     noise_w_m2_um_sr: float          # 1-sigma per pixel and channel
     bunit: str = "W/m2/um/sr"        # or 'MJy/sr'
+    rotation_deg: float = 30.0       # facility layout: rotation of the field on the sky (PC matrix)
+    border_pix: int = 3              # facility layout: blank (NaN, flagged) pixels around the field
+    flagged_share: float = 5e-4      # facility layout: share of interior voxels flagged DO_NOT_USE
 
 
 def afrho_model(wavelength: u.Quantity, afrho_ref: u.Quantity, lam_ref: u.Quantity, slope_per_100nm: float):
@@ -63,27 +82,59 @@ def afrho_model(wavelength: u.Quantity, afrho_ref: u.Quantity, lam_ref: u.Quanti
     return afrho_ref * (1 + (s * (wavelength - lam_ref)).decompose().value)
 
 
-def write_ir_cube(path: Path, sc, setup: InfraredSetup, mid: Time, geo, catalogue,
-                  rng: np.random.Generator) -> dict:
-    """Build and write one infrared cube (SCI + ERR extensions); return a summary."""
+def rotated_pc(angle_deg: float, cdelt1: float, cdelt2: float) -> dict[str, float]:
+    """PC matrix of a field rotated by ``angle_deg`` (the CROTA2 convention: Calabretta & Greisen 2002,
+    A&A 395, 1077, eq. 189, PCi_j = CDi_j / CDELTi)."""
+    rho = np.deg2rad(angle_deg)
+    return {"PC1_1": float(np.cos(rho)), "PC1_2": float(-np.sin(rho) * cdelt2 / cdelt1),
+            "PC2_1": float(np.sin(rho) * cdelt1 / cdelt2), "PC2_2": float(np.cos(rho))}
+
+
+def write_ir_cube(path: Path, sc, setup: InfraredSetup, mid: Time, geo, catalogue, rng: np.random.Generator,
+                  layout: str = "native", observer: Observer | None = None) -> dict:
+    """Build and write one infrared cube; return a summary.
+
+    ``geo`` is the target's geometry seen from the cube's observer at ``mid`` (ra, dec, r_h, delta, delta_dot).
+    ``layout`` 'native': primary (times) + SCI + ERR, SPECSYS = TOPOCENT (the observer's frame), BMAJ/BMIN = the
+    PSF. 'facility': the space IFU's product -- an empty primary holding the observation cards (DATE-OBS date
+    and TIME-OBS, DATE-BEG/DATE-END, MJD-BEG/MJD-END, EXPSTART/EXPMID/EXPEND, TIMESYS), SCI, ERR, DQ and WMAP
+    extensions, the field rotated by ``setup.rotation_deg`` (a PC matrix), wavelengths labelled in the
+    barycentric frame (SPECSYS = BARYCENT, which needs ``observer``), a blank border of
+    ``setup.border_pix`` pixels and a share ``setup.flagged_share`` of interior voxels flagged DO_NOT_USE
+    (NaN in SCI and ERR).
+    """
+    if layout not in ("facility", "native"):
+        msg = f"layout {layout!r} is not one of facility, native"
+        raise ValueError(msg)
+    facility = layout == "facility"
     ra, dec = geo["ra"], geo["dec"]
     delta, r_h, ddot = geo["delta"], geo["r_h"], geo["delta_dot"]
     n = setup.npix
-    lam_obs = (setup.lam_min_um + setup.channel_um * np.arange(
+    lam_label = (setup.lam_min_um + setup.channel_um * np.arange(
         int(round((setup.lam_max_um - setup.lam_min_um) / setup.channel_um)) + 1)) * u.um
+    specsys = "BARYCENT" if facility else "TOPOCENT"
+    if facility and observer is None:
+        msg = "the facility layout labels wavelengths in the barycentric frame and needs the cube's observer"
+        raise ValueError(msg)
+    # f(SPECSYS) = D f(observer) (pipeline.geometry.frames), so lambda(observer) = D lambda(SPECSYS)
+    lam_obs = lam_label * observer_frame_factor(specsys, mid, observer, ra, dec)
     beta = (ddot / const.c).decompose().value
     doppler = float(np.sqrt((1 + beta) / (1 - beta)))          # observed / rest wavelength (relativistic)
     pix = setup.pixel_arcsec * u.arcsec
     pix_km = (pix.to_value(u.rad) * delta).to_value(u.km)
     omega_pix = pix.to_value(u.rad) ** 2                         # sr
     header = sky_header(ra, dec, sc.extra.get("ir_pointing_offset_arcsec", (0.4, -0.3)), pix, n, "TAN")
+    if facility:
+        for card, value in rotated_pc(setup.rotation_deg, header["CDELT1"], header["CDELT2"]).items():
+            header[card] = value
     header["CTYPE3"], header["CUNIT3"] = "WAVE", "um"
-    header["CRVAL3"], header["CDELT3"], header["CRPIX3"] = lam_obs[0].to_value(u.um), setup.channel_um, 1.0
-    header["SPECSYS"] = "TOPOCENT"
+    header["CRVAL3"], header["CDELT3"], header["CRPIX3"] = lam_label[0].to_value(u.um), setup.channel_um, 1.0
+    header["SPECSYS"] = specsys
     header["RADESYS"] = "ICRS"
     header["BUNIT"] = setup.bunit
     fwhm = setup.psf_fwhm_arcsec
-    header["BMAJ"], header["BMIN"], header["BPA"] = fwhm / 3600, fwhm / 3600, 0.0
+    if not facility:
+        header["BMAJ"], header["BMIN"], header["BPA"] = fwhm / 3600, fwhm / 3600, 0.0
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", FITSFixedWarning)
         wcs = WCS(header).celestial
@@ -130,17 +181,56 @@ def write_ir_cube(path: Path, sc, setup: InfraredSetup, mid: Time, geo, catalogu
     cube_si = signal / omega_pix + rng.normal(0.0, sigma, signal.shape)                       # W m^-2 um^-1 sr^-1
     err_si = np.full(signal.shape, sigma)
     to_unit = (1.0 * u.W / u.m**2 / u.um / u.sr).to(u.Unit(setup.bunit, format="fits"),
-                                                   equivalencies=u.spectral_density(lam_obs))
-    scale = np.broadcast_to(np.asarray(to_unit.value, dtype=float), lam_obs.shape)[:, None, None] * np.ones((1, n, n))
+                                                   equivalencies=u.spectral_density(lam_label))
+    scale = np.broadcast_to(np.asarray(to_unit.value, dtype=float), lam_label.shape)[:, None, None] * np.ones((1, n, n))
+    sci_data = (cube_si * scale).astype(np.float32)
+    err_data = (err_si * scale).astype(np.float32)
+    start, end = mid - sc.ir_exposure_s / 2 * u.s, mid + sc.ir_exposure_s / 2 * u.s
     prim = fits.PrimaryHDU()
-    half_exp = sc.exposure_s / 2 * u.s
-    prim.header["DATE-OBS"] = (mid - half_exp).isot
-    prim.header["DATE-END"] = (mid + half_exp).isot
-    prim.header["EXPTIME"] = sc.exposure_s
+    if facility:
+        dq, weight = _quality(sci_data.shape, setup, rng)
+        sci_data[dq != 0] = np.nan
+        err_data[dq != 0] = np.nan
+        date, time_of_day = start.isot.split("T")
+        prim.header["DATE-OBS"] = (date, "UTC date at the start of the exposure")
+        prim.header["TIME-OBS"] = (time_of_day, "UTC time at the start of the exposure")
+        prim.header["DATE-BEG"] = (start.isot, "start of the exposure")
+        prim.header["DATE-END"] = (end.isot, "end of the exposure")
+        prim.header["MJD-BEG"] = (start.mjd, "[d] start of the exposure")
+        prim.header["MJD-END"] = (end.mjd, "[d] end of the exposure")
+        prim.header["EXPSTART"] = (start.mjd, "[d] exposure start (MJD)")
+        prim.header["EXPMID"] = (mid.mjd, "[d] exposure mid-point (MJD)")
+        prim.header["EXPEND"] = (end.mjd, "[d] exposure end (MJD)")
+        prim.header["TIMESYS"] = ("UTC", "time scale of the time cards")
+        prim.header["XPOSURE"] = (round(sc.ir_exposure_s * ON_SOURCE_SHARE, 3), "[s] on-source (effective) time")
+        prim.header["INSTRUME"] = sc.spacecraft.get("instrument", "integral-field unit")
+    else:
+        prim.header["DATE-OBS"] = start.isot
+        prim.header["DATE-END"] = end.isot
+        prim.header["EXPTIME"] = sc.ir_exposure_s
     prim.header["OBJECT"] = sc.target_name
-    prim.header["TELESCOP"] = sc.extra.get("ir_facility", "fictional infrared telescope")
+    prim.header["TELESCOP"] = sc.spacecraft["name"]
     prim.header["ORIGIN"] = "gasledger synthetic_cubes (invented data)"
-    sci = fits.ImageHDU((cube_si * scale).astype(np.float32), header=header, name="SCI")
-    err = fits.ImageHDU((err_si * scale).astype(np.float32), header=header, name="ERR")
-    write_fits(fits.HDUList([prim, sci, err]), path)
-    return {"path": str(path), "bands": bands, "x_pix": x0, "y_pix": y0, "nchan": int(lam_obs.size)}
+    hdus = [prim, fits.ImageHDU(sci_data, header=header, name="SCI")]
+    err_header = header.copy()
+    hdus.append(fits.ImageHDU(err_data, header=err_header, name="ERR"))
+    if facility:
+        dq_header = header.copy()
+        del dq_header["BUNIT"]
+        hdus.append(fits.ImageHDU(dq, header=dq_header, name="DQ"))
+        hdus.append(fits.ImageHDU(weight, header=dq_header.copy(), name="WMAP"))
+    write_fits(fits.HDUList(hdus), path)
+    return {"path": str(path), "bands": bands, "x_pix": x0, "y_pix": y0, "nchan": int(lam_label.size)}
+
+
+def _quality(shape: tuple[int, int, int], setup: InfraredSetup, rng: np.random.Generator) -> tuple[np.ndarray, ...]:
+    """DQ flags and the weight map of a space-IFU cube: a blank border, and a share of interior voxels flagged."""
+    b = setup.border_pix
+    dq = np.zeros(shape, dtype=np.int32)
+    border = np.ones(shape[1:], dtype=bool)
+    border[b:shape[1] - b, b:shape[2] - b] = False
+    dq[:, border] = DO_NOT_USE | OUTSIDE_FIELD
+    interior = ~border[None] & (rng.random(shape) < setup.flagged_share)
+    dq[interior] = DO_NOT_USE | BAD_DETECTOR_PIXEL
+    weight = np.where(dq == 0, float(DITHERS), 0.0).astype(np.float32)    # dithers covering each voxel
+    return dq, weight
