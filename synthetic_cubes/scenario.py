@@ -105,8 +105,8 @@ def demo_scenario() -> Scenario:
         # pixels, a 6.4" field (64 pixels, the outer 3 of them blank), a near-diffraction-limited PSF (about
         # 1.03 lambda / D for an invented 6 m aperture), noise per pixel and channel (invented)
         infrared=(
-            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0024, 550.0, 0.1, 64, 0.10, 1.2e-6, "MJy/sr"),
-            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0040, 600.0, 0.1, 64, 0.16, 9.0e-7, "W/m2/um/sr"),
+            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0024, 550.0, 0.1, 64, 0.10, 3.6e-6, "MJy/sr"),
+            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0040, 600.0, 0.1, 64, 0.16, 2.7e-6, "W/m2/um/sr"),
         ),
         spacecraft=SPACECRAFT,
         extra={"dust": {"afrho_cm": 40.0, "lam_ref_um": 2.5, "slope": 2.0},
@@ -128,8 +128,8 @@ def small_scenario() -> Scenario:
         npix=64,
         half_width_km_s=30.0,
         infrared=(
-            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0030, 450.0, 0.1, 64, 0.10, 1.2e-6, "MJy/sr"),
-            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0050, 480.0, 0.1, 64, 0.16, 9.0e-7, "W/m2/um/sr"),
+            InfraredSetup("ir_short", ("e1", "e3"), 2.42, 2.95, 0.0030, 450.0, 0.1, 64, 0.10, 3.6e-6, "MJy/sr"),
+            InfraredSetup("ir_long", ("e1", "e3"), 4.00, 5.00, 0.0050, 480.0, 0.1, 64, 0.16, 2.7e-6, "W/m2/um/sr"),
         ),
         # Any seed will do; with the demo's seed the small version's CH3OH estimate happens to fall 2.6 sigma
         # low (a fluctuation: over seeds 1-12 the pulls have mean -0.5..0.3 and spread 0.7-1.2).
