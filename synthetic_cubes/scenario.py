@@ -16,10 +16,12 @@ __all__ = ["SpectralWindow", "Scenario", "demo_scenario", "small_scenario", "SPA
 #: The fictional space telescope of the infrared cubes and the invented orbit its state table follows: about
 #: 1.5 million km from the Earth along the Sun-Earth line (the L2 point's distance, a (m_Earth+Moon / 3 M_Sun)^(1/3)
 #: for a = 1 au, Hill's approximation), plus a halo offset of invented amplitudes (in the ecliptic plane across the
-#: Sun-Earth line, and out of it) and period; state vectors every 6 h.
+#: Sun-Earth line, and out of it) and period; state vectors every 6 h. Like telescopes that must keep their sunshield
+#: towards the Sun, it points only at solar elongations within its (invented) field of regard; the demo's infrared
+#: epochs see the target at 74-77 deg.
 SPACECRAFT = {"name": "Lantern Space Telescope (fictional)", "instrument": "LIFU (fictional integral-field unit)",
               "distance_km": 1.5e6, "halo_km": (2.6e5, 1.4e5), "halo_period_days": 178.0, "halo_phase_deg": 40.0,
-              "halo_epoch": "2031-01-01T00:00:00", "state_step_h": 6.0}
+              "halo_epoch": "2031-01-01T00:00:00", "state_step_h": 6.0, "field_of_regard_deg": (70.0, 135.0)}
 
 
 @dataclass(frozen=True)

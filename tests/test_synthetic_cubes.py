@@ -200,6 +200,24 @@ def test_spacecraft_sits_beyond_the_earth_near_l2(written):
     assert np.linalg.norm(offset, axis=0).min() > 1.4e6 and np.linalg.norm(offset, axis=0).max() < 1.6e6
 
 
+def test_spacecraft_sees_the_infrared_epochs_within_its_field_of_regard(written):
+    # solar elongation = angle Sun-spacecraft-target, from the spacecraft's state table and the ephemeris seen from
+    # it (Sun from astropy's built-in ephemeris)
+    root, _ = written["facility"]
+    sc = small_scenario()
+    craft = Observer(name=SPACECRAFT["name"], states=str(root / STATES_FILE))
+    labels = sorted({e for setup in demo_scenario().infrared for e in setup.epochs})
+    times = Time([t for e, t in sc.epochs if e in labels], scale="utc")
+    with future_time_tolerated(), solar_system_ephemeris.set("builtin"):
+        seen = read_ephemeris(root / SPACECRAFT_EPHEMERIS_FILE).at(times)
+        sun = get_body_barycentric("sun", times).xyz.to_value(u.km)
+    position = craft.barycentric(times)[0]
+    to_sun = SkyCoord(*(sun - position), unit="km", representation_type="cartesian", frame="icrs")
+    elongation = SkyCoord(seen["ra"], seen["dec"]).separation(to_sun).to_value(u.deg)
+    low, high = SPACECRAFT["field_of_regard_deg"]
+    assert np.all((elongation > low) & (elongation < high)), elongation
+
+
 def test_state_table_interpolates_back_to_the_model(written):
     # the pipeline's Hermite interpolation of the table between rows against the model itself
     root, _ = written["facility"]
