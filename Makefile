@@ -20,7 +20,7 @@ $(STAMP): pyproject.toml | $(BIN)/python
 
 install: $(STAMP)
 
-$(DEMO_DATA)/campaign.yaml: $(STAMP) synthetic_cubes/scenario.py synthetic_cubes/generate.py
+$(DEMO_DATA)/campaign.yaml: $(STAMP) $(wildcard synthetic_cubes/*.py)
 	$(BIN)/python -m synthetic_cubes $(DEMO_DATA)
 
 demo: $(DEMO_DATA)/campaign.yaml

@@ -60,6 +60,12 @@ def covered_lines(path: str, ephemeris, catalogue, species: list[str], observer,
     return out
 
 
+def _same_name(telescope: str, observer: str) -> bool:
+    """Whether a TELESCOP card and an observer's name plausibly name the same thing (one contains the other)."""
+    a, b = (" ".join(x.lower().replace("(fictional)", "").split()) for x in (telescope, observer))
+    return bool(a) and bool(b) and (a in b or b in a)
+
+
 def cmd_new(args) -> int:
     cubes = sorted(Path(args.cube_dir).glob(args.pattern))
     if not cubes:
@@ -82,6 +88,18 @@ def cmd_new(args) -> int:
             print(f"{path.name}: needs attention: {exc}")
             continue
         print(f"{path.name}: {', '.join(lines) if lines else 'no catalogue line of these species'}")
+    telescopes: dict[str, list[str]] = {}
+    for path in cubes:
+        try:
+            name = str(read_cube_info(path).header.get("TELESCOP", "")).strip()
+        except GasledgerError:
+            continue
+        telescopes.setdefault(name or "(no TELESCOP card)", []).append(path.name)
+    if len(telescopes) > 1:
+        listed = "; ".join(f"{t}: {len(names)} cube(s)" for t, names in telescopes.items())
+        print(f"note: the cubes come from {len(telescopes)} telescopes ({listed}); every cube is taken as observed "
+              "from the one observatory given here unless its entry names its own: give the others their own "
+              "'observatory' and 'ephemeris' keys (README, config reference)")
     write_campaign(campaign, Path(args.output), "# Written by 'gasledger new'.\n")
     print(f"wrote {args.output} with {len(cubes)} cube(s); run: snakemake --cores 2 --configfile {args.output}")
     return 0
@@ -128,6 +146,7 @@ def cmd_check(args) -> int:
         return tables[path]
 
     covered = {s: 0 for s in species}
+    notes: list[str] = []
     for entry in settings.cubes:
         try:
             observer = settings.observer_of(entry)
@@ -145,6 +164,11 @@ def cmd_check(args) -> int:
             for ln in lines:
                 covered[(catalogue.get_band(ln) if ir else catalogue.get_line(ln)).species] += 1
             f = info.wavelengths.to_value(u.um) if ir else info.frequencies.to_value(u.GHz)
+            telescope = str(info.header.get("TELESCOP", "")).strip()
+            if telescope and not _same_name(telescope, observer.name):
+                notes.append(f"cube {entry.cube_id}: its header says TELESCOP = {telescope!r} but the config observes "
+                             f"it from {observer.describe()}; if it was observed from elsewhere, give the cube its own "
+                             "'observatory' and 'ephemeris' keys")
             print(f"  {entry.cube_id:18s} epoch {entry.epoch:8s} {mid.isot[:19]}  {np.min(f):.3f}-{np.max(f):.3f} "
                   f"{'um ' if ir else 'GHz'} {info.specsys:8s} {'bands' if ir else 'lines'}: {', '.join(lines) or 'none'}; "
                   f"mid-time from {times.source}; observer {observer.describe()}")
@@ -153,6 +177,8 @@ def cmd_check(args) -> int:
     for name, n in covered.items():
         if n == 0:
             problems.append(f"species {name!r} has no line or band in any cube (it will be reported as not observed)")
+    for note in notes:
+        print(f"note: {note}")
     if problems:
         print("problems:")
         for p in dict.fromkeys(problems):

@@ -31,10 +31,19 @@ def test_new_finds_the_lines_each_cube_covers(cubes, tmp_path, capsys):
     config = yaml.safe_load(out.read_text())
     assert "e1_ir_long.fits: CO_v1-0" in text                               # an infrared cube lists its bands
     assert len(config["cubes"]) == 8 and config["species"] == ["HCN", "CO", "CH3OH"]
+    # the infrared cubes come from the (fictional) spacecraft: new says the folder holds two telescopes
+    assert "note: the cubes come from 2 telescopes" in text
     assert main(["check", str(out)]) == 0
     text = capsys.readouterr().out
     assert "no problems found" in text
-    assert text.count("mid-time from DATE-OBS/DATE-END") == 8                  # each cube says where its time came from
+    assert text.count("mid-time from DATE-OBS/DATE-END") == 6                  # each cube says where its time came from
+    assert text.count("mid-time from EXPMID") == 2                             # the space IFU products' own card
+    assert text.count("note: cube e1_ir_") == 2 and "TELESCOP = 'Lantern Space Telescope (fictional)'" in text
+    # the generator's own campaign gives those cubes their spacecraft and its ephemeris: no note, no problem
+    assert main(["check", str(cubes / "campaign.yaml")]) == 0
+    text = capsys.readouterr().out
+    assert "note:" not in text and "no problems found" in text
+    assert text.count("observer the spacecraft 'Lantern Space Telescope (fictional)'") == 2
 
 
 def test_add_appends_and_refuses_duplicates(cubes, tmp_path, capsys):

@@ -242,8 +242,9 @@ def brightness_unit(text: str) -> u.UnitBase | None:
 
 
 #: Primary-header cards copied into the header of a cube held in an extension, when the extension lacks them.
-_INHERITED = ("DATE-OBS", "DATE-END", "MJD-OBS", "EXPTIME", "XPOSURE", "TELESCOP", "INSTRUME", "OBJECT",
-              "SPECSYS", "BUNIT", "BMAJ", "BMIN", "BPA", "RESTFRQ", "RESTFREQ")
+_INHERITED = ("DATE-OBS", "TIME-OBS", "DATE-BEG", "DATE-AVG", "DATE-END", "MJD-OBS", "MJD-BEG", "MJD-AVG", "MJD-END",
+              "EXPSTART", "EXPMID", "EXPEND", "TIMESYS", "TELAPSE", "EXPTIME", "XPOSURE", "TELESCOP", "INSTRUME",
+              "OBJECT", "SPECSYS", "BUNIT", "BMAJ", "BMIN", "BPA", "RESTFRQ", "RESTFREQ")
 
 
 def _cube_hdus(hdul: fits.HDUList, path: Path) -> tuple[int, int | None]:

@@ -74,11 +74,14 @@ def inject_band(info: CubeInfo, band: Band, species: Species, q: u.Quantity, pos
                 radii_pix: list[float], r_h: u.Quantity, delta: u.Quantity, doppler: float, resolving_power: float,
                 window: tuple[u.Quantity, u.Quantity], continuum: np.ndarray, sigma: u.Quantity | None,
                 model: ComaModel, order: int = 1, continuum_shape: np.ndarray | None = None,
-                parent: Species | None = None) -> list[BandInjection]:
+                parent: Species | None = None, dq_bad_bits: int = 0,
+                max_masked_share: float | None = None) -> list[BandInjection]:
     """Inject a band of rate ``q`` at each position, measure it and return the recovered rates.
 
     ``window``, ``continuum`` (mask), ``continuum_shape`` and ``order`` are the ones the real
-    measurement used; ``sigma`` is the per-channel error to use when the cube has no ERR extension.
+    measurement used; ``sigma`` is the per-channel error to use when the cube has no ERR extension;
+    ``dq_bad_bits`` and ``max_masked_share`` treat flagged and blank voxels as the real measurement did
+    (:func:`pipeline.spectra.ir_spectra.extract_ir_spectra`).
     """
     obs = info.wavelengths
     lo, hi = band.extent_lo * doppler, band.extent_hi * doppler
@@ -94,7 +97,7 @@ def inject_band(info: CubeInfo, band: Band, species: Species, q: u.Quantity, pos
     q_value = u.Quantity(q, 1 / u.s).value
     out = []
     for index, (x, y) in enumerate(positions):
-        spectra = extract_ir_spectra(info, x, y, radii_pix)
+        spectra = extract_ir_spectra(info, x, y, radii_pix, dq_bad_bits, max_masked_share)
         sig = spectra.sigma if spectra.sigma is not None else sigma
         count = aperture_count_on_grid(info.shape[1:], x, y, list(radii_pix), pix_km, psf, v_out, length, daughter)
         rec, err = [], []

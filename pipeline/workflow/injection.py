@@ -76,7 +76,8 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
             results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,
                                   measured.r_h_au * u.au, measured.delta_au * u.au, measured.doppler,
                                   measured.resolving_power, windows[band_id][2:], free, measured.sigma * F_LAMBDA,
-                                  model, ir.continuum_order, shape)
+                                  model, ir.continuum_order, shape, dq_bad_bits=settings.quality.dq_bad_bits,
+                                  max_masked_share=settings.quality.max_masked_share)
             for res in results:
                 groups.setdefault((res.index, 0), []).append(StackInput(
                     epoch=measured.epoch, cube_id=measured.cube_id, line_id=band_id, velocity=None, density=None,

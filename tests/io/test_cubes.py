@@ -349,3 +349,22 @@ def test_the_comoving_cut_keeps_each_channels_beam(tmp_path):
     back = SubCube.from_fits(tmp_path / "sub.fits")
     assert_allclose(back.info().channel_beam_solid_angles().to_value(u.sr),
                     sub.info().channel_beam_solid_angles().to_value(u.sr), rtol=1e-6)
+
+
+def test_a_space_ifu_product_keeps_its_time_cards_in_the_primary(tmp_path):
+    # empty primary with DATE-OBS (date only) + TIME-OBS, DATE-BEG/END, EXPSTART/EXPMID/EXPEND (MJD) and TIMESYS;
+    # the cube in SCI: the extension inherits them, and the mid-time is EXPMID (MJD 60370.5 = 2024-03-01T12:00 UTC,
+    # astropy's MJD definition)
+    with fits.open(write_cube(tmp_path / "src.fits")) as hdul:
+        header, data = hdul[0].header.copy(), hdul[0].data.copy()
+    for key in ("DATE-OBS", "DATE-END", "EXPTIME", "MJD-OBS"):
+        header.remove(key, ignore_missing=True)
+    primary = fits.PrimaryHDU()
+    primary.header.update({"DATE-OBS": "2024-03-01", "TIME-OBS": "11:30:00.000", "DATE-BEG": "2024-03-01T11:30:00.000",
+                           "DATE-END": "2024-03-01T12:30:00.000", "EXPSTART": 60370.47916666667,
+                           "EXPMID": 60370.5, "EXPEND": 60370.52083333333, "TIMESYS": "UTC"})
+    fits.HDUList([primary, fits.ImageHDU(data, header=header, name="SCI")]).writeto(tmp_path / "ifu.fits")
+    info = read_cube_info(tmp_path / "ifu.fits")
+    times = observation_times(info.header, info.path)
+    assert abs((times.mid - Time("2024-03-01T12:00:00", scale="utc")).to_value(u.s)) < 1e-3
+    assert "EXPMID" in times.source
