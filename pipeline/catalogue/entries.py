@@ -1,13 +1,17 @@
 """The molecular catalogue: species properties, millimetre lines and infrared bands.
 
-The built-in catalogue lives in ``pipeline/data/species.ecsv``,
-``pipeline/data/lines.ecsv`` and ``pipeline/data/bands.ecsv``; every value has
-a provenance column beside it. A user catalogue with the same columns can be
+The built-in catalogue lives in ``pipeline/catalogue/data/species.ecsv``,
+``lines.ecsv``, ``bands.ecsv`` and ``partition.ecsv``; every value has a
+provenance column beside it. A user catalogue with the same columns can be
 given instead.
 
-Upper-level degeneracies and partition functions follow one convention (no
-nuclear-spin weights) so that the population fraction g_u exp(-E_u/kT)/Q(T)
-does not silently move by a spin-statistics factor.
+Upper-level degeneracies and partition functions follow one convention, that of
+the CDMS and JPL catalogues: a single entry per molecule, with the
+nuclear-spin statistical weights included both in g_u and in Q(T) (ortho 3,
+para 1 for H2CO and H2S; the K = 3n ladders of CH3CN weigh twice the others;
+g_I = 4 for CH3OH as in CDMS 032504; the 14N factor 3 of CDMS 027501 for HCN),
+so that the population fraction g_u exp(-E_u/kT)/Q(T) is that of the catalogue
+entry the line was taken from.
 """
 
 from __future__ import annotations
@@ -32,12 +36,18 @@ __all__ = [
     "DEFAULT_SPECIES_FILE",
     "DEFAULT_LINES_FILE",
     "DEFAULT_BANDS_FILE",
+    "DEFAULT_PARTITION_FILE",
+    "EXTRAPOLATION_FACTOR",
+    "PartitionTable",
 ]
 
 _DATA = Path(__file__).parent / "data"
 DEFAULT_SPECIES_FILE = _DATA / "species.ecsv"
 DEFAULT_LINES_FILE = _DATA / "lines.ecsv"
 DEFAULT_BANDS_FILE = _DATA / "bands.ecsv"
+DEFAULT_PARTITION_FILE = _DATA / "partition.ecsv"
+#: How far beyond its first or last tabulated temperature a partition-function table is extrapolated (a factor).
+EXTRAPOLATION_FACTOR = 2.0
 
 _SPECIES_COLUMNS = {
     "species": None,
@@ -60,6 +70,12 @@ _LINE_COLUMNS = {
     "e_up": u.K,
     "g_up": None,
 }
+_PARTITION_COLUMNS = {
+    "species": None,
+    "temperature": u.K,
+    "log10_q": None,
+    "ref": None,
+}
 _BAND_COLUMNS = {
     "band_id": None,
     "species": None,
@@ -72,6 +88,46 @@ _BAND_COLUMNS = {
 _LINE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
 #: Species names become file names (stack/<species>.fits) and a workflow wildcard: no path characters.
 _SPECIES_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_+-]*$")
+
+
+@dataclass(frozen=True)
+class PartitionTable:
+    """A catalogue's tabulated partition function of one species: log10 Q at ascending temperatures."""
+
+    temperature: tuple[float, ...]
+    log10_q: tuple[float, ...]
+    source: str
+
+    def evaluate(self, name: str, temp: np.ndarray) -> np.ndarray:
+        """Q at ``temp`` (kelvin, positive): log Q interpolated linearly in log T.
+
+        Notes
+        -----
+        Between tabulated temperatures Q is taken as a power law of T, i.e.
+        log10 Q linear in log10 T (the tables step by factors of about 2, over
+        which Q of a rotor is close to a power law, Q ~ T^1 for a linear and
+        T^1.5 for a non-linear molecule; e.g. Gordy & Cook, Microwave Molecular
+        Spectra, 1984). Within a factor :data:`EXTRAPOLATION_FACTOR` below the
+        first or above the last tabulated temperature, the power law of the end
+        interval is extended; further out the temperature is refused.
+        """
+        log_t = np.log10(np.asarray(self.temperature, dtype=float))
+        log_q = np.asarray(self.log10_q, dtype=float)
+        t_lo, t_hi = self.temperature[0], self.temperature[-1]
+        outside = (temp < t_lo / EXTRAPOLATION_FACTOR) | (temp > t_hi * EXTRAPOLATION_FACTOR)
+        if np.any(outside):
+            bad = np.asarray(temp)[outside].ravel()[0]
+            msg = (f"species {name!r}: t_kin = {bad:g} K lies outside its partition-function table "
+                   f"({self.source}, {t_lo:g} to {t_hi:g} K) by more than a factor {EXTRAPOLATION_FACTOR:g}; "
+                   "expected a temperature within that range")
+            raise CatalogueError(msg)
+        x = np.log10(temp)
+        out = np.interp(x, log_t, log_q)
+        slope_lo = (log_q[1] - log_q[0]) / (log_t[1] - log_t[0])
+        slope_hi = (log_q[-1] - log_q[-2]) / (log_t[-1] - log_t[-2])
+        out = np.where(x < log_t[0], log_q[0] + slope_lo * (x - log_t[0]), out)
+        out = np.where(x > log_t[-1], log_q[-1] + slope_hi * (x - log_t[-1]), out)
+        return 10.0**out
 
 
 @dataclass(frozen=True)
@@ -88,6 +144,7 @@ class Species:
     photo_quiet: u.Quantity
     photo_active: u.Quantity
     parent: str | None
+    partition_table: PartitionTable | None = None
 
     def photo_rate(self, solar_activity: str) -> u.Quantity:
         """Photodestruction rate at 1 au for ``'quiet'`` or ``'active'`` Sun."""
@@ -99,29 +156,40 @@ class Species:
         raise CatalogueError(msg)
 
     def partition_function(self, t_kin: u.Quantity) -> np.ndarray:
-        """Rotational partition function Q(T), with the catalogue's stated approximation.
+        """Partition function Q(T), in the convention of the catalogue's line degeneracies.
 
         Notes
         -----
-        ``linear``: Q = m (kT/(hB) + 1/3), the high-temperature expansion of
-        the sum over (2J+1) exp(-hBJ(J+1)/kT) (e.g. Gordy & Cook, Microwave
-        Molecular Spectra, 1984). ``asymmetric``: the classical rigid-rotor
-        result Q = m sqrt(pi (kT/h)^3 / (ABC)) (same source); a symmetric top
-        uses it with C = B. m is the catalogue's multiplicity (torsional species
-        counted, symmetry number, fine-structure factor); the catalogue's
-        ``partition_ref`` column states each species' choice and its accuracy.
+        ``table``: the catalogue entry's own level sum, tabulated over
+        temperature in ``partition.ecsv`` (CDMS or JPL, nuclear-spin weights
+        included as in g_u), interpolated in log Q against log T
+        (:meth:`PartitionTable.evaluate`). ``linear``: Q = m (kT/(hB) + 1/3),
+        the high-temperature expansion of the sum over (2J+1) exp(-hBJ(J+1)/kT)
+        (e.g. Gordy & Cook, Microwave Molecular Spectra, 1984), for linear
+        rotors; m is the catalogue's multiplicity (a nuclear-spin factor common
+        to every level, e.g. 3 for the 14N of HCN in CDMS 027501, or 1/2 for
+        the symmetric CO2 and CS2 whose odd J do not exist). ``asymmetric``:
+        the classical rigid-rotor result Q = m sqrt(pi (kT/h)^3 / (ABC)) (same
+        source), kept for user catalogues. The ``partition_ref`` column states
+        each species' choice and its accuracy.
         """
         temp = u.Quantity(t_kin, u.K).value
         if np.any(~np.isfinite(temp)) or np.any(temp <= 0):
             msg = f"t_kin must be positive and finite, found {t_kin!r}"
             raise CatalogueError(msg)
+        if self.partition == "table":
+            if self.partition_table is None:
+                msg = (f"species {self.name!r}: column 'partition' is 'table' but no tabulated partition "
+                       "function was loaded for it (give load_catalogue a partition_file with its rows)")
+                raise CatalogueError(msg)
+            return self.partition_table.evaluate(self.name, temp)
         kt_h = (const.k_B * temp * u.K / const.h).to_value(u.GHz)
         if self.partition == "linear":
             return self.multiplicity * (kt_h / self.rot_b.to_value(u.GHz) + 1.0 / 3.0)
         if self.partition == "asymmetric":
             abc = (self.rot_a * self.rot_b * self.rot_c).to_value(u.GHz**3)
             return self.multiplicity * np.sqrt(np.pi * kt_h**3 / abc)
-        msg = (f"species {self.name!r}: column 'partition' must be 'linear' or "
+        msg = (f"species {self.name!r}: column 'partition' must be 'table', 'linear' or "
                f"'asymmetric', found {self.partition!r}")
         raise CatalogueError(msg)
 
@@ -279,23 +347,65 @@ def _read_bands(path: Path, species: dict[str, Species], species_file: Path) -> 
     return tuple(bands)
 
 
+def _read_partition(path: Path, species_file: Path, wanted: set[str]) -> dict[str, PartitionTable]:
+    table = _read(path, _PARTITION_COLUMNS, "partition-function")
+    rows: dict[str, list[tuple[float, float, str]]] = {}
+    for row in table:
+        name = str(row["species"])
+        if name not in wanted:
+            continue  # rows of species this species file does not tabulate (a user catalogue may drop some)
+        temp = float(u.Quantity(row["temperature"], u.K).value)
+        log_q = float(row["log10_q"])
+        if not (np.isfinite(temp) and temp > 0 and np.isfinite(log_q)):
+            msg = (f"partition-function file {str(path)!r}: species {name!r} has temperature {temp:g} K and "
+                   f"log10_q {log_q:g}; expected a positive finite temperature and a finite log10_q")
+            raise CatalogueError(msg)
+        rows.setdefault(name, []).append((temp, log_q, str(row["ref"])))
+    out = {}
+    for name in sorted(wanted):
+        got = sorted(rows.get(name, []))
+        temps = [t for t, _, _ in got]
+        if len(got) < 2 or len(set(temps)) != len(temps):
+            msg = (f"species catalogue {str(species_file)!r}: species {name!r} has partition 'table', but "
+                   f"{str(path)!r} holds {len(got)} rows for it{' with a repeated temperature' if got else ''}; "
+                   "expected at least two rows at distinct temperatures")
+            raise CatalogueError(msg)
+        sources = sorted({ref for _, _, ref in got})
+        out[name] = PartitionTable(temperature=tuple(temps), log10_q=tuple(q for _, q, _ in got),
+                                   source="; ".join(sources))
+    return out
+
+
 def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
                    lines_file: str | Path = DEFAULT_LINES_FILE,
-                   bands_file: str | Path | None = DEFAULT_BANDS_FILE) -> Catalogue:
-    """Read and check a catalogue (species, line and band tables, ECSV).
+                   bands_file: str | Path | None = DEFAULT_BANDS_FILE,
+                   partition_file: str | Path | None = DEFAULT_PARTITION_FILE) -> Catalogue:
+    """Read and check a catalogue (species, line, band and partition-function tables, ECSV).
 
-    ``bands_file=None`` reads no infrared bands.
+    ``bands_file=None`` reads no infrared bands. ``partition_file`` holds the
+    tabulated partition functions of the species whose ``partition`` is
+    ``'table'`` (rows of other species are ignored); ``None`` reads none, and
+    then no species may be ``'table'``.
 
     Raises
     ------
     CatalogueError
         When a file is missing, lacks a column, has a wrong unit, a duplicated
-        name, a line or band of a species it does not define, or a band with a
-        non-positive wavelength or fluorescence efficiency.
+        name, a line or band of a species it does not define, a band with a
+        non-positive wavelength or fluorescence efficiency, or a species with
+        partition 'table' without at least two tabulated temperatures.
     """
     species_file, lines_file = Path(species_file), Path(lines_file)
     st = _read(species_file, _SPECIES_COLUMNS, "species catalogue")
     lt = _read(lines_file, _LINE_COLUMNS, "line catalogue")
+    tabulated = {str(row["species"]) for row in st if str(row["partition"]) == "table"}
+    tables: dict[str, PartitionTable] = {}
+    if tabulated and partition_file is None:
+        msg = (f"species catalogue {str(species_file)!r}: species {', '.join(sorted(tabulated))} have partition "
+               "'table', but no partition_file was given")
+        raise CatalogueError(msg)
+    if tabulated:
+        tables = _read_partition(Path(partition_file), species_file, tabulated)
     species: dict[str, Species] = {}
     for row in st:
         name = str(row["species"])
@@ -314,6 +424,7 @@ def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
             photo_quiet=u.Quantity(row["photo_quiet"], 1 / u.s),
             photo_active=u.Quantity(row["photo_active"], 1 / u.s),
             parent=None if parent in ("-", "", "None") else parent,
+            partition_table=tables.get(name),
         )
     lines = []
     seen = set()
