@@ -5,9 +5,12 @@ for the Einstein A of linear rotors, symmetric tops and (through line strengths
 from a rigid-rotor diagonalisation written here) asymmetric tops, with published
 dipole moments; the rigid-rotor and centrifugally distorted level energies; a
 Hund's case (a) fine-structure Hamiltonian of a 3Sigma molecule diagonalised here;
-partition functions summed level by level with numpy; a widely quoted
-approximation for methanol; infrared band origins; the fluorescence rate of a
-diluted blackbody Sun; and the IUPAC standard atomic weights.
+partition functions summed level by level with numpy, with the nuclear-spin
+weights of the catalogue entries, against the CDMS and JPL partition-function
+tables that astroquery ships (reference_files.py); infrared band origins; the
+fluorescence rate of a diluted blackbody Sun; and the IUPAC standard atomic
+weights. test_reference_catalogues.py compares the catalogue with those files
+directly.
 """
 
 import math
@@ -20,14 +23,20 @@ import pytest
 from astropy.table import QTable, vstack
 from astropy.tests.helper import assert_quantity_allclose
 from numpy.testing import assert_allclose
+from reference_files import cdms_log_q, jpl_log_q
 
-from pipeline.catalogue.entries import (DEFAULT_BANDS_FILE, DEFAULT_LINES_FILE, DEFAULT_SPECIES_FILE, Band,
-                                Catalogue, Line, Species, load_catalogue)
+from pipeline.catalogue.entries import (DEFAULT_BANDS_FILE, DEFAULT_LINES_FILE, DEFAULT_PARTITION_FILE,
+                                        DEFAULT_SPECIES_FILE, EXTRAPOLATION_FACTOR, Band, Catalogue, Line,
+                                        PartitionTable, Species, load_catalogue)
 from pipeline.errors import CatalogueError
 
 H_K = (const.h * u.GHz / const.k_B).to_value(u.K)  # h * 1 GHz / k in kelvin
 LINEAR_ROTORS = ("CO", "HCN", "HNC", "CS")
-# permanent dipole moments in debye (from memory; CDMS / JPL documentation values)
+# nuclear-spin factor common to every level of a linear rotor in its CDMS entry: 3 for the 14N of HCN
+# (CDMS 027501 lists hyperfine components with g = 2F+1, summing to 3(2J+1)); none for HNC (027502)
+LINEAR_SPIN = {"CO": 1, "HCN": 3, "HNC": 1, "CS": 1}
+# permanent dipole moments in debye (from memory; CDMS / JPL documentation values; CH3OH mu_a from the CDMS
+# 032504 documentation)
 DIPOLE = {"CO": 0.11011, "HCN": 2.985, "HNC": 3.05, "CS": 1.958, "CH3CN": 3.92197, "SO": 1.535,
           "H2CO": 2.3317, "H2S": 0.978, "CH3OH": 0.899}
 # centrifugal distortion constants D in GHz (from memory; CDMS fits)
@@ -225,6 +234,8 @@ def test_every_value_column_has_a_provenance_column():
     lines = QTable.read(DEFAULT_LINES_FILE, format="ascii.ecsv")
     assert len(lines) >= 60
     assert all(("CDMS" in str(v) or "JPL" in str(v)) for v in lines["ref"])
+    partition = QTable.read(DEFAULT_PARTITION_FILE, format="ascii.ecsv")
+    assert all(re.match(r"(CDMS|JPL) \d{6} ", str(v)) for v in partition["ref"])
     bands = QTable.read(DEFAULT_BANDS_FILE, format="ascii.ecsv")
     assert {"g_ref", "wavelength_ref"} <= set(bands.colnames)
 
@@ -241,8 +252,13 @@ def test_line_ids_are_species_and_rounded_megahertz(cat):
     ids = [ln.line_id for ln in cat.lines]
     assert len(ids) >= 60
     assert len(ids) == len(set(ids))
+    rounded = [(ln.species, round(ln.freq.to_value(u.MHz))) for ln in cat.lines]
     for ln in cat.lines:
-        assert ln.line_id == f"{ln.species}_{round(ln.freq.to_value(u.MHz))}"
+        mhz = ln.freq.to_value(u.MHz)
+        if rounded.count((ln.species, round(mhz))) == 1:
+            assert ln.line_id == f"{ln.species}_{round(mhz)}"
+        else:  # two lines of a species in the same MHz: both to three decimals (the CH3OH A+/A- doublets)
+            assert ln.line_id == f"{ln.species}_{mhz:.3f}"
 
 
 def test_lines_in_the_millimetre_range(cat):
@@ -252,13 +268,19 @@ def test_lines_in_the_millimetre_range(cat):
         assert ln.a_ul > 0 / u.s and ln.e_up > 0 * u.K and ln.g_up >= 1
 
 
+CH3OH_5_4 = {"CH3OH_241700", "CH3OH_241767", "CH3OH_241791", "CH3OH_241806.524", "CH3OH_241806.525",
+             "CH3OH_241813", "CH3OH_241830", "CH3OH_241832.718", "CH3OH_241833.106", "CH3OH_241842",
+             "CH3OH_241844", "CH3OH_241852", "CH3OH_241879", "CH3OH_241888", "CH3OH_241904", "CH3OH_241905"}
+
+
 @pytest.mark.parametrize("fmin, fmax, expected", [
-    (241.60, 242.00, {"CH3OH_241700", "CH3OH_241767", "CH3OH_241791", "CH3OH_241842", "CH3OH_241879"}),
+    (241.60, 242.00, CH3OH_5_4),
     (265.70, 266.10, {"HCN_265886"}),
     (230.40, 230.70, {"CO_230538"}),
 ])
 def test_demo_windows_hold_only_their_lines(cat, fmin, fmax, expected):
-    # the demo cubes cover these windows; a new catalogue line inside one would change their analysis
+    # the demo cubes cover these windows; a new catalogue line inside one changes their analysis. The
+    # CH3OH window holds the whole J = 5-4 ladder of the torsional ground state, 16 lines (CDMS 032504)
     inside = {ln.line_id for ln in cat.lines if fmin <= ln.freq.to_value(u.GHz) <= fmax}
     assert inside == expected
 
@@ -273,7 +295,7 @@ def test_existing_lines_unchanged(cat):
 def test_lines_of_sorted_by_frequency(cat):
     freqs = [ln.freq.to_value(u.GHz) for ln in cat.lines_of("CH3OH")]
     assert freqs == sorted(freqs)
-    assert len([f for f in freqs if 241.6 < f < 242.0]) == 5
+    assert len([f for f in freqs if 241.6 < f < 242.0]) == 16
     assert cat.lines_of("CS2") == ()  # no dipole moment, no rotational lines
 
 
@@ -287,8 +309,8 @@ def test_linear_einstein_a_against_dipole_formula(cat):
         j = j_up_of(ln)
         expected = einstein_a_linear(ln.freq.to_value(u.GHz), DIPOLE[ln.species], j)
         assert_allclose(ln.a_ul.to_value(1 / u.s), expected, rtol=0.03, err_msg=ln.line_id)
-        # degeneracy 2J + 1 (no nuclear spin), the catalogue's stated convention
-        assert ln.g_up == 2 * j + 1
+        # degeneracy (2J + 1) times the nuclear-spin factor of the CDMS entry (3 for HCN, 027501)
+        assert ln.g_up == LINEAR_SPIN[ln.species] * (2 * j + 1)
 
 
 def test_linear_energies_and_frequencies(cat):
@@ -308,11 +330,23 @@ def test_linear_energies_and_frequencies(cat):
         assert_allclose(ln.e_up.to_value(u.K), e_dist, rtol=2e-4, err_msg=ln.line_id)
 
 
-@pytest.mark.parametrize("name", ["CO", "HCN", "HNC", "CS"])
+@pytest.mark.parametrize("name", ["CO", "HCN", "CS"])
 @pytest.mark.parametrize("t_k", [10.0, 20.0, 40.0, 80.0])
 def test_linear_partition_against_direct_sum(cat, name, t_k):
-    # direct sum over levels with numpy; the high-T expansion is good to 0.5 % from 10 K
+    # direct sum over levels with numpy, times the entry's spin factor (3 for HCN, CDMS 027501); the
+    # high-T expansion the catalogue uses for these rotors is good to 0.5 % from 10 K
     sp = cat.get_species(name)
+    assert sp.partition == "linear" and sp.multiplicity == LINEAR_SPIN[name]
+    expected = LINEAR_SPIN[name] * linear_partition_sum(sp.rot_b.to_value(u.GHz), t_k)
+    assert_allclose(sp.partition_function(t_k * u.K), expected, rtol=5e-3)
+
+
+@pytest.mark.parametrize("t_k", [10.0, 20.0, 40.0])
+def test_hnc_table_against_direct_sum(cat, t_k):
+    # HNC is tabulated (CDMS 027502, whose bending state v2 = 1 adds 2.3 % at 150 K): below 40 K the table,
+    # interpolated, is the rigid-rotor direct sum with g = 2J+1 (numpy), to 0.5 %
+    sp = cat.get_species("HNC")
+    assert sp.partition == "table"
     expected = linear_partition_sum(sp.rot_b.to_value(u.GHz), t_k)
     assert_allclose(sp.partition_function(t_k * u.K), expected, rtol=5e-3)
 
@@ -330,7 +364,7 @@ def test_symmetric_linear_rotor_counts_even_levels(cat, name, t_k):
 def test_partition_function_vectorised(cat):
     sp = cat.get_species("HCN")
     temps = np.array([10.0, 20.0, 40.0, 80.0])
-    expected = [linear_partition_sum(sp.rot_b.to_value(u.GHz), t) for t in temps]
+    expected = [3 * linear_partition_sum(sp.rot_b.to_value(u.GHz), t) for t in temps]  # 14N factor, CDMS 027501
     got = sp.partition_function(temps * u.K)
     assert got.shape == (4,)
     assert_allclose(got, expected, rtol=5e-3)
@@ -364,28 +398,18 @@ def test_so_lines_against_fine_structure_hamiltonian(cat, so_levels):
         assert_allclose(ln.a_ul.to_value(1 / u.s), expected, rtol=0.03, err_msg=ln.line_id)
 
 
-def test_so_triplet_factor_counts_every_fine_structure_state(cat):
-    # in the pure Hund's case (b) limit each N level holds J = N-1, N, N+1 (J = 1 only for N = 0):
-    # sum (2J+1) = 3 (2N+1), so the direct sum is 3 x the linear-rotor sum
-    sp = cat.get_species("SO")
-    x = (const.h * sp.rot_b / (const.k_B * 60 * u.K)).decompose().value
-    direct = sum((2 * j + 1) * np.exp(-x * n * (n + 1))
-                 for n in range(400) for j in range(abs(n - 1), n + 2) if not (n == 0 and j != 1))
-    assert_allclose(sp.partition_function(60 * u.K), direct, rtol=5e-3)
-
-
-def test_so_partition_limits_as_stated(cat, so_levels):
-    # the N-rotor x 3 approximation against the direct sum over the fine-structure levels: the
-    # over-estimate stated in species.ecsv (40 % at 20 K, 16 % at 50 K, 8 % at 100 K, 3 % at 300 K)
-    sp = cat.get_species("SO")
-    temps = np.array([20.0, 50.0, 100.0, 300.0])
+@pytest.mark.parametrize("t_k", [9.375, 18.75, 37.5, 75.0, 150.0])
+def test_so_partition_is_the_fine_structure_level_sum(cat, so_levels, t_k):
+    # the direct sum of (2J+1) exp(-E/kT) over the levels of the Hund's case (a) Hamiltonian diagonalised here
+    # (Brown & Carrington 2003) reproduces the CDMS 048501 table (astroquery's partfunc.cat) to 0.1 %, and the
+    # catalogue's Q is that table (the N-rotor x 3 approximation it replaced was 40 % high at 20 K)
     energies = np.array([v[0] for v in so_levels.values()]) * H_K
     weights = np.array([2 * key[1] + 1 for key in so_levels])
-    direct = np.array([np.sum(weights * np.exp(-energies / t)) for t in temps])
-    assert_allclose(sp.partition_function(temps * u.K) / direct, [1.40, 1.16, 1.08, 1.03], atol=0.01)
-    ref = str(QTable.read(DEFAULT_SPECIES_FILE, format="ascii.ecsv")[list(cat.species).index("SO")]
-              ["partition_ref"])
-    assert "40 % at 20 K" in ref and "3 % at 300 K" in ref
+    direct = np.sum(weights * np.exp(-energies / t_k))
+    assert_allclose(direct, 10 ** cdms_log_q(48501)[t_k], rtol=1e-3)
+    sp = cat.get_species("SO")
+    assert sp.partition == "table"
+    assert_allclose(sp.partition_function(t_k * u.K), direct, rtol=1e-3)
 
 
 # ----------------------------------------------------------------------------- CH3CN, a symmetric top
@@ -395,14 +419,27 @@ def ch3cn_quantum_numbers(line: Line) -> tuple[int, int]:
     return j_u, k_u
 
 
-@pytest.mark.parametrize("t_k", [10.0, 20.0, 50.0, 100.0])
-def test_symmetric_top_partition_against_direct_sum(cat, t_k):
-    # direct sum over J and K = -J..J of (2J+1) exp(-E/kT) with E = hBJ(J+1) + h(A-B)K^2, no spin weight
-    # and no symmetry number (the factors stated in species.ecsv): within 1 % from 20 K, 2 % at 10 K
+def ch3cn_spin_weight(k):
+    """Nuclear-spin weight of a CH3CN level per K state, relative, as in CDMS 041505: K = 0 and K = 3n
+    states 2, other K states 1 (a K = 3n ladder weighs twice the others; Townes & Schawlow 1955, C3v tops)."""
+    return np.where(np.abs(k) % 3 == 0, 2.0, 1.0)
+
+
+@pytest.mark.parametrize("t_k", [9.375, 18.75, 37.5])
+def test_symmetric_top_partition_against_spin_weighted_sum(cat, t_k):
+    # direct sum over J and K = -J..J of w_K (2J+1) exp(-E/kT), E = hBJ(J+1) + h(A-B)K^2 (Gordy & Cook 1984),
+    # w_K the spin weight of ch3cn_spin_weight, against the CDMS 041505 table (astroquery's partfunc.cat):
+    # 0.1 % (its v8 = 1 state adds 0.2 % at 75 K and 7 % at 150 K); without the weights the sum falls short
+    # by a quarter to a third (2/3 at 9.375 K, tending to 3/4 at high temperature)
     sp = cat.get_species("CH3CN")
-    assert sp.rot_b == sp.rot_c and sp.multiplicity == 1.0
-    expected = symmetric_top_partition_sum(sp.rot_a.to_value(u.GHz), sp.rot_b.to_value(u.GHz), t_k)
-    assert_allclose(sp.partition_function(t_k * u.K), expected, rtol=0.01 if t_k >= 20 else 0.02)
+    a, b = sp.rot_a.to_value(u.GHz), sp.rot_b.to_value(u.GHz)
+    j = np.arange(201.0)[:, None]
+    k = np.arange(-200, 201.0)[None, :]
+    boltzmann = np.where(np.abs(k) <= j, (2 * j + 1) * np.exp(-(b * j * (j + 1) + (a - b) * k**2) * H_K / t_k), 0.0)
+    weighted = float(np.sum(ch3cn_spin_weight(k) * boltzmann))
+    assert_allclose(weighted, 10 ** cdms_log_q(41505)[t_k], rtol=1e-3)
+    assert_allclose(sp.partition_function(t_k * u.K), weighted, rtol=1e-3)
+    assert 0.6 < float(np.sum(boltzmann)) / weighted < 0.76
 
 
 def test_ch3cn_lines_against_symmetric_top(cat):
@@ -419,8 +456,10 @@ def test_ch3cn_lines_against_symmetric_top(cat):
         assert_allclose(nu, 2 * b * j - 4 * 3.808e-6 * j**3 - 2 * 177.4e-6 * j * k**2, rtol=1e-6)
         # E = hBJ(J+1) + h(A-B)K^2 (Gordy & Cook 1984), 0.5 %
         assert_allclose(ln.e_up.to_value(u.K), (b * j * (j + 1) + (a - b) * k**2) * H_K, rtol=5e-3)
-        # S = (J^2 - K^2)/J per K component (Gordy & Cook 1984), mu = 3.92197 D (from memory), 3 %
-        g_k = 1 if k == 0 else 2
+        # S = (J^2 - K^2)/J per K component (Gordy & Cook 1984), mu = 3.92197 D (from memory), 3 %; g_up is
+        # the spin weight of the level (both +-K states for K > 0) times 2J+1: 2(2J+1) for K = 0, 1, 2 and
+        # 4(2J+1) for K = 3, as in CDMS 041505 (its Q, test_symmetric_top_partition_against_spin_weighted_sum)
+        g_k = 2 * float(ch3cn_spin_weight(np.array(k))) if k > 0 else 2.0
         assert ln.g_up == g_k * (2 * j + 1)
         expected = einstein_a(nu, DIPOLE["CH3CN"], (j**2 - k**2) / j, 2 * j + 1)
         assert_allclose(ln.a_ul.to_value(1 / u.s), expected, rtol=0.03, err_msg=ln.line_id)
@@ -428,23 +467,33 @@ def test_ch3cn_lines_against_symmetric_top(cat):
 
 def test_methanol_a_type_lines_against_symmetric_top(cat):
     # CH3OH is a near-prolate top: a-type lines follow S = (J^2 - K^2)/J with mu_a = 0.899 D
-    # (from memory), to 5 % (asymmetry splits the |K| = 1 levels)
-    assert len(cat.lines_of("CH3OH")) >= 5
+    # (CDMS 032504 documentation), to 5 % (asymmetry splits the |K| = 1 levels); g_up = 4(2J+1), the g_I = 4
+    # of CDMS 032504 (A and E alike), while A is per state and counts 2J+1
+    assert len(cat.lines_of("CH3OH")) >= 16
     for ln in cat.lines_of("CH3OH"):
         j_u, k_u, j_l, k_l = map(int, re.match(r"(\d+)\((-?\d+)\)-(\d+)\((-?\d+)\)", ln.transition).groups())
-        assert j_l == j_u - 1 and k_l == k_u and ln.g_up == 2 * j_u + 1
+        assert j_l == j_u - 1 and k_l == k_u and ln.g_up == 4 * (2 * j_u + 1)
         expected = einstein_a(ln.freq.to_value(u.GHz), DIPOLE["CH3OH"], (j_u**2 - k_u**2) / j_u, 2 * j_u + 1)
         assert_allclose(ln.a_ul.to_value(1 / u.s), expected, rtol=0.05, err_msg=ln.line_id)
 
 
-@pytest.mark.parametrize("t_k", [10.0, 50.0, 150.0])
-def test_methanol_partition_function(cat, t_k):
-    # Q(CH3OH) = 1.2327 T^1.5, a widely quoted cometary approximation (from memory)
-    sp = cat.get_species("CH3OH")
-    assert_allclose(sp.partition_function(t_k * u.K), 1.2327 * t_k**1.5, rtol=1e-3)
+def test_methanol_ladder_is_complete(cat):
+    # the J = 5-4 ladder of the torsional ground state: for the A species K = 0 (A+ only), 1, 2, 3, 4
+    # (A+ and A- each), for the E species K = 0, +-1, +-2, +-3, +-4: 16 lines (Lees & Baker 1968 labelling;
+    # frequencies of CDMS 032504); the K = 1 A+- lines lie outside 241.6-242.0 GHz (239.7 and 243.9 GHz)
+    labels = sorted(ln.transition for ln in cat.lines_of("CH3OH") if 241.6 < ln.freq.to_value(u.GHz) < 242.0)
+    expected = sorted([f"5({k})-4({k}) A{p}" for k in (2, 3, 4) for p in "+-"] + ["5(0)-4(0) A+"]
+                      + [f"5({k})-4({k}) E" for k in (0, 1, -1, 2, -2, 3, -3, 4, -4)])
+    assert labels == expected
 
 
 # ----------------------------------------------------------------------------- asymmetric tops
+# ortho levels (spin weight 3; para 1) of the H2 pair: H2CO (H-H swapped by the C2 rotation about a) when Ka
+# is odd, H2S and H2O (C2 about b) when Ka + Kc is odd (Townes & Schawlow, Microwave Spectroscopy, 1955)
+ORTHO = {"H2CO": lambda ka, kc: ka % 2 == 1, "H2S": lambda ka, kc: (ka + kc) % 2 == 1,
+         "H2O": lambda ka, kc: (ka + kc) % 2 == 1}
+
+
 def asym_quantum_numbers(line: Line):
     nums = list(map(int, re.fullmatch(r"(\d+)\((\d+),(\d+)\)-(\d+)\((\d+),(\d+)\)", line.transition).groups()))
     return tuple(nums[:3]), tuple(nums[3:])
@@ -454,7 +503,8 @@ def asym_quantum_numbers(line: Line):
 def test_asymmetric_top_lines_against_rigid_rotor(cat, name, axis, e_tol, nu_tol):
     # rigid asymmetric rotor diagonalised here with the catalogue's A, B, C: E_up above 0(0,0) and the
     # frequency (H2S is light: centrifugal distortion, hence the looser tolerances); A from the line
-    # strength and the published dipole (H2CO mu_a, H2S mu_b, from memory), 3 %; g_up = 2J + 1
+    # strength and the published dipole (H2CO mu_a, H2S mu_b, from memory), 3 %; g_up = w (2J + 1) with the
+    # spin weight w of the upper level, 3 for ortho and 1 for para (ORTHO), as in CDMS 030501 and 034502
     sp = cat.get_species(name)
     consts = tuple(q.to_value(u.GHz) for q in (sp.rot_a, sp.rot_b, sp.rot_c))
     lines = cat.lines_of(name)
@@ -464,7 +514,7 @@ def test_asymmetric_top_lines_against_rigid_rotor(cat, name, axis, e_tol, nu_tol
         strength, e_u, e_l = asymmetric_line_strength(consts, up, lo, axis)
         assert_allclose(ln.e_up.to_value(u.K), e_u * H_K, rtol=e_tol, err_msg=ln.line_id)
         assert_allclose(ln.freq.to_value(u.GHz), e_u - e_l, rtol=nu_tol, err_msg=ln.line_id)
-        assert ln.g_up == 2 * up[0] + 1
+        assert ln.g_up == (3 if ORTHO[name](*up[1:]) else 1) * (2 * up[0] + 1), ln.line_id
         expected = einstein_a(ln.freq.to_value(u.GHz), DIPOLE[name], strength, 2 * up[0] + 1)
         assert_allclose(ln.a_ul.to_value(1 / u.s), expected, rtol=0.03, err_msg=ln.line_id)
 
@@ -475,20 +525,156 @@ def test_rigid_rotor_line_strength_of_a_textbook_line():
     assert_allclose(strength, 1.5, rtol=1e-9)
 
 
-@pytest.mark.parametrize("name, t_k, rtol, j_max", [
-    ("H2CO", 20.0, 0.035, 40), ("H2CO", 100.0, 0.01, 70),
-    ("H2S", 50.0, 0.055, 25), ("H2S", 100.0, 0.025, 30),
-    ("H2O", 50.0, 0.10, 20), ("H2O", 100.0, 0.05, 25),
-])
-def test_asymmetric_partition_against_direct_sum(cat, name, t_k, rtol, j_max):
-    # classical rigid-top formula against the direct sum over the rigid-rotor levels (ortho and para,
-    # no spin weights): it falls short by the amounts stated in species.ecsv
+@pytest.mark.parametrize("t_k", [9.375, 18.75, 37.5, 75.0, 150.0])
+@pytest.mark.parametrize("name, source, tag, j_max", [
+    ("H2CO", "CDMS", 30501, 45), ("H2S", "CDMS", 34502, 30), ("H2O", "JPL", 18003, 25)])
+def test_asymmetric_partition_is_the_spin_weighted_level_sum(cat, name, source, tag, j_max, t_k):
+    # direct sum over the rigid-rotor levels diagonalised here with the catalogue's A, B, C, each weighted
+    # w (2J+1) with w = 3 for ortho and 1 for para (ORTHO), against the entry's table (astroquery's CDMS
+    # partfunc.cat or JPL catdir.cat): 0.5 % (centrifugal distortion lowers the levels of light H2S and H2O
+    # a little at 150 K); the catalogue's Q is that table. Without the spin weights the sum is half as large.
     sp = cat.get_species(name)
     consts = tuple(q.to_value(u.GHz) for q in (sp.rot_a, sp.rot_b, sp.rot_c))
-    direct = asymmetric_partition_sum(consts, t_k, j_max)
+    weighted = 0.0
+    for j in range(j_max + 1):
+        energies, _, _, labels = asymmetric_levels(*consts, j)
+        weights = np.array([3.0 if ORTHO[name](ka, kc) else 1.0 for ka, kc in labels])
+        weighted += (2 * j + 1) * float(np.sum(weights * np.exp(-energies * H_K / t_k)))
+    reference = 10 ** (cdms_log_q(tag) if source == "CDMS" else jpl_log_q(tag))[t_k]
+    assert_allclose(weighted, reference, rtol=5e-3)
+    assert sp.partition == "table"
+    assert_allclose(sp.partition_function(t_k * u.K), reference, rtol=1e-9)
+
+
+# ----------------------------------------------------------------------------- tabulated partition functions
+def test_table_interpolation_is_a_power_law_between_tabulated_temperatures(cat):
+    # between two tabulated temperatures Q = Q_1 (T/T_1)^n, n = ln(Q_2/Q_1)/ln(T_2/T_1) (log Q linear in
+    # log T), with the CDMS 032504 values of astroquery's partfunc.cat at 18.75 and 37.5 K
+    ref = cdms_log_q(32504)
+    q1, q2 = 10 ** ref[18.75], 10 ** ref[37.5]
+    n = np.log(q2 / q1) / np.log(2.0)
+    temps = np.array([20.0, 25.0, 30.0, 37.0])
+    assert_allclose(cat.get_species("CH3OH").partition_function(temps * u.K), q1 * (temps / 18.75) ** n, rtol=1e-12)
+
+
+def test_table_extrapolates_a_factor_two_and_refuses_beyond(cat):
+    # below its first (JPL 018003: 9.375 K) and above its last tabulated temperature (CDMS 048501: 300 K) a
+    # table is extended with the power law of its end interval, up to EXTRAPOLATION_FACTOR = 2
+    assert EXTRAPOLATION_FACTOR == 2.0
+    h2o, so = cat.get_species("H2O"), cat.get_species("SO")
+    lo = jpl_log_q(18003)
+    n_lo = (lo[18.75] - lo[9.375]) / np.log10(2.0)
+    assert_allclose(h2o.partition_function(5.0 * u.K), 10 ** lo[9.375] * (5.0 / 9.375) ** n_lo, rtol=1e-12)
+    hi = cdms_log_q(48501)
+    n_hi = (hi[300.0] - hi[225.0]) / np.log10(300.0 / 225.0)
+    assert_allclose(so.partition_function(550.0 * u.K), 10 ** hi[300.0] * (550.0 / 300.0) ** n_hi, rtol=1e-12)
+    assert np.isfinite(h2o.partition_function(4.6875 * u.K)) and np.isfinite(so.partition_function(600 * u.K))
+    with pytest.raises(CatalogueError, match=r"species 'H2O': t_kin = 4 K lies outside its partition-function "
+                                             r"table \(JPL 018003 .*9\.375 to 300 K\) by more than a factor 2"):
+        h2o.partition_function([10.0, 4.0] * u.K)
+    with pytest.raises(CatalogueError, match=r"species 'SO': t_kin = 700 K lies outside"):
+        so.partition_function(700 * u.K)
+
+
+def test_table_partition_function_broadcasts(cat):
+    temps = np.array([[10.0], [40.0]]) * np.ones(3) * u.K
+    got = cat.get_species("H2CO").partition_function(temps)
+    assert got.shape == (2, 3)
+    assert_allclose(got[1], cat.get_species("H2CO").partition_function(40.0 * u.K), rtol=1e-15)
+
+
+def test_species_with_a_table_built_directly(cat):
+    # a table with two points is a single power law: Q = 2 (T / 10 K)^1.5 (closed form)
+    table = PartitionTable(temperature=(10.0, 40.0), log10_q=(np.log10(2.0), np.log10(16.0)), source="test table")
+    base = cat.get_species("CO")
+    sp = Species(name="X", mass=base.mass, partition="table", rot_a=base.rot_a, rot_b=base.rot_b,
+                 rot_c=base.rot_c, multiplicity=1.0, photo_quiet=base.photo_quiet,
+                 photo_active=base.photo_active, parent=None, partition_table=table)
+    assert_allclose(sp.partition_function([10.0, 20.0, 60.0] * u.K), 2 * (np.array([10.0, 20.0, 60.0]) / 10) ** 1.5,
+                    rtol=1e-12)
+    bare = Species(name="Y", mass=base.mass, partition="table", rot_a=base.rot_a, rot_b=base.rot_b,
+                   rot_c=base.rot_c, multiplicity=1.0, photo_quiet=base.photo_quiet,
+                   photo_active=base.photo_active, parent=None)
+    with pytest.raises(CatalogueError, match="species 'Y': column 'partition' is 'table' but no tabulated"):
+        bare.partition_function(20 * u.K)
+
+
+def _write(table, path):
+    table.write(path, format="ascii.ecsv", overwrite=True)
+    return path
+
+
+def test_user_partition_file(tmp_path, cat):
+    # a user's table replaces the built-in one for its species; rows of species the species file does not
+    # tabulate are ignored
+    part = QTable.read(DEFAULT_PARTITION_FILE, format="ascii.ecsv")
+    part["log10_q"] = np.where(part["species"] == "SO", part["log10_q"] + np.log10(2.0), part["log10_q"])
+    path = _write(part, tmp_path / "my_partition.ecsv")
+    user = load_catalogue(partition_file=path)
+    assert_allclose(user.get_species("SO").partition_function(37.5 * u.K),
+                    2 * cat.get_species("SO").partition_function(37.5 * u.K), rtol=1e-12)
+    assert str(path) != str(DEFAULT_PARTITION_FILE)
+    species = QTable.read(DEFAULT_SPECIES_FILE, format="ascii.ecsv")
+    species.remove_row(list(species["species"]).index("SO"))
+    lines = QTable.read(DEFAULT_LINES_FILE, format="ascii.ecsv")
+    lines = lines[lines["species"] != "SO"]
+    no_so = load_catalogue(_write(species, tmp_path / "s.ecsv"), _write(lines, tmp_path / "l.ecsv"))
+    assert "SO" not in no_so.species and no_so.get_species("CH3OH").partition_table is not None
+
+
+def test_catalogue_without_tables(tmp_path):
+    # partition_file=None: fine when no species is tabulated, refused naming the species otherwise
+    species = QTable.read(DEFAULT_SPECIES_FILE, format="ascii.ecsv")
+    with pytest.raises(CatalogueError, match=r"species CH3CN, CH3OH, H2CO, H2O, H2S, HNC, SO have partition "
+                                             r"'table', but no partition_file was given"):
+        load_catalogue(partition_file=None)
+    species["partition"] = [("asymmetric" if p == "table" else p) for p in species["partition"]]
+    path = _write(species, tmp_path / "closed_forms.ecsv")
+    closed = load_catalogue(path, partition_file=None)
+    assert all(sp.partition_table is None for sp in closed.species.values())
+
+
+@pytest.mark.parametrize("t_k, rtol", [(20.0, 0.035), (100.0, 0.01)])
+def test_asymmetric_closed_form_of_a_user_catalogue(tmp_path, t_k, rtol):
+    # partition = 'asymmetric' (kept for user catalogues): the classical rigid-rotor formula times the mean
+    # spin weight 2 of H2CO falls short of the spin-weighted direct sum (ORTHO weights) by the stated amounts
+    species = QTable.read(DEFAULT_SPECIES_FILE, format="ascii.ecsv")
+    species["partition"] = [("asymmetric" if n == "H2CO" else p) for n, p in zip(species["species"],
+                                                                                 species["partition"])]
+    sp = load_catalogue(_write(species, tmp_path / "s.ecsv")).get_species("H2CO")
+    assert sp.multiplicity == 2.0
+    consts = tuple(q.to_value(u.GHz) for q in (sp.rot_a, sp.rot_b, sp.rot_c))
+    direct = 0.0
+    for j in range(71):
+        energies, _, _, labels = asymmetric_levels(*consts, j)
+        weights = np.array([3.0 if ORTHO["H2CO"](ka, kc) else 1.0 for ka, kc in labels])
+        direct += (2 * j + 1) * float(np.sum(weights * np.exp(-energies * H_K / t_k)))
     got = sp.partition_function(t_k * u.K)
     assert_allclose(got, direct, rtol=rtol)
     assert got < direct
+
+
+@pytest.mark.parametrize("edit, message", [
+    (lambda t: t.remove_column("log10_q"), r"my_partition\.ecsv' has no column 'log10_q'"),
+    (lambda t: t.remove_rows(np.nonzero(t["species"] == "SO")[0][1:]),
+     r"species 'SO' has partition 'table', but .*my_partition\.ecsv' holds 1 rows for it"),
+    (lambda t: t.remove_rows(np.nonzero(t["species"] == "SO")[0]),
+     r"species 'SO' has partition 'table', but .*my_partition\.ecsv' holds 0 rows for it"),
+    (lambda t: t["temperature"].__setitem__(np.nonzero(t["species"] == "SO")[0][1], 2.725 * u.K),
+     r"species 'SO' .* holds 9 rows for it with a repeated temperature"),
+    (lambda t: t["temperature"].__setitem__(np.nonzero(t["species"] == "SO")[0][1], -5 * u.K),
+     r"species 'SO' has temperature -5 K and log10_q .* expected a positive finite temperature"),
+    (lambda t: t["log10_q"].__setitem__(np.nonzero(t["species"] == "SO")[0][1], np.nan),
+     r"species 'SO' has temperature .* expected a positive finite temperature and a finite log10_q"),
+])
+def test_bad_partition_file(tmp_path, edit, message):
+    table = QTable.read(DEFAULT_PARTITION_FILE, format="ascii.ecsv")
+    edit(table)
+    path = _write(table, tmp_path / "my_partition.ecsv")
+    with pytest.raises(CatalogueError, match=message):
+        load_catalogue(partition_file=path)
+    with pytest.raises(CatalogueError, match="partition-function file .*absent.ecsv' does not exist"):
+        load_catalogue(partition_file=tmp_path / "absent.ecsv")
 
 
 # ----------------------------------------------------------------------------- species properties
@@ -725,7 +911,7 @@ def test_unknown_partition_kind(tmp_path):
     path = tmp_path / "symtop.ecsv"
     table.write(path, format="ascii.ecsv")
     sp = load_catalogue(species_file=path).get_species("CO")
-    with pytest.raises(CatalogueError, match="column 'partition' must be 'linear' or 'asymmetric', "
+    with pytest.raises(CatalogueError, match="column 'partition' must be 'table', 'linear' or 'asymmetric', "
                                              "found 'symtop'"):
         sp.partition_function(20 * u.K)
 
