@@ -33,7 +33,10 @@ def upper_level_fraction(line: Line, species: Species, t_kin: u.Quantity) -> np.
     Notes
     -----
     f_u = g_u exp(-E_u / T) / Q(T), with E_u in kelvin and Q the catalogue's
-    partition function (Boltzmann distribution).
+    partition function (Boltzmann distribution). g_u and Q carry the
+    nuclear-spin statistical weights of the same CDMS or JPL entry (the
+    catalogue's convention), so f_u is the fraction of all molecules, ortho and
+    para (or A and E) together, in the upper level.
     """
     temp = u.Quantity(t_kin, u.K).value
     q_t = species.partition_function(temp * u.K)

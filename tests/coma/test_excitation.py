@@ -3,8 +3,8 @@
 Physics checks compare with the column-density relation of Mangum & Shirley
 (2015, PASP 127, 266) with astropy's brightness-temperature equivalency, the
 Planck function of astropy.modeling, level populations summed directly over a
-rigid rotor's levels, and the closed form of the peak optical depth written in
-frequency units.
+rigid rotor's levels, the CDMS partition-function table, and the closed form of
+the peak optical depth written in frequency units.
 """
 
 import astropy.constants as const
@@ -25,6 +25,7 @@ CO = CAT.get_species("CO")
 CO21 = CAT.get_line("CO_230538")
 HCN = CAT.get_species("HCN")
 HCN32 = CAT.get_line("HCN_265886")
+CH3OH = CAT.get_species("CH3OH")
 
 
 def planck_ratio(freq, t_bg, t_ex):
@@ -60,12 +61,32 @@ def test_level_fractions_sum_to_one(t_k):
 
 
 def test_upper_level_fraction_boltzmann():
-    # f_u = g_u exp(-E_u/kT) / Q, with Q summed directly (Boltzmann distribution)
+    # f_u = g_u exp(-E_u/kT) / Q, with Q summed directly (Boltzmann distribution); HCN carries the 14N
+    # nuclear-spin factor 3 in both g_u = 3(2J+1) = 21 and Q (CDMS 027501), which cancels
     temps = np.array([10.0, 30.0, 90.0])
     got = upper_level_fraction(HCN32, HCN, temps * u.K)
+    assert HCN32.g_up == 21
     expected = [7 * np.exp(-HCN32.e_up.to_value(u.K) / t) / direct_partition(HCN.rot_b, t) for t in temps]
     assert got.shape == (3,)
     assert_allclose(got, expected, rtol=5e-3)
+
+
+@pytest.mark.parametrize("t_k, log_q", [(9.375, 1.8931), (18.75, 2.4393), (37.5, 2.9642), (75.0, 3.4660)])
+def test_upper_level_fraction_of_a_tabulated_species(t_k, log_q):
+    # CH3OH 5(0)-4(0) A+: f_u = g_u exp(-E_u/kT) / Q with g_u = 4(2J+1) = 44, E_u = 34.817 K and Q from the
+    # CDMS 032504 partition-function table (partfunc.cat: log10 Q given beside each temperature)
+    line = CAT.get_line("CH3OH_241791")
+    expected = 44 * np.exp(-34.817 / t_k) / 10**log_q
+    assert_allclose(upper_level_fraction(line, CH3OH, t_k * u.K), expected, rtol=1e-4)
+
+
+def test_ladder_ratios_follow_boltzmann():
+    # within one species the ratio of two upper-level fractions is g_1/g_2 exp(-(E_1 - E_2)/kT) whatever Q
+    # is (Boltzmann distribution): CH3OH 5(0)-4(0) A+ against 5(4)-4(4) E of the same J = 5-4 ladder
+    a, b = CAT.get_line("CH3OH_241791"), CAT.get_line("CH3OH_241830")
+    temps = np.array([12.0, 33.0, 70.0])
+    ratio = upper_level_fraction(a, CH3OH, temps * u.K) / upper_level_fraction(b, CH3OH, temps * u.K)
+    assert_allclose(ratio, np.exp(-(a.e_up - b.e_up).to_value(u.K) / temps), rtol=1e-12)
 
 
 # ----------------------------------------------------------------------------- background
@@ -146,7 +167,8 @@ def tau_closed_form(line, species, t_k, column, fwhm):
     """Mangum & Shirley 2015 eq. 29 in frequency units: tau_0 = c^2 A N_u (e^x - 1) phi(0) / (8 pi nu^2),
     phi(0) = sqrt(4 ln 2 / pi) / dnu for a Gaussian of FWHM dnu = nu dv / c; N_u from a direct-sum Q."""
     nu = line.freq
-    n_u = column * line.g_up * np.exp(-line.e_up.to_value(u.K) / t_k) / direct_partition(species.rot_b, t_k)
+    q_direct = species.multiplicity * direct_partition(species.rot_b, t_k)  # x3 for HCN (14N, CDMS 027501)
+    n_u = column * line.g_up * np.exp(-line.e_up.to_value(u.K) / t_k) / q_direct
     x = (const.h * nu / (const.k_B * t_k * u.K)).decompose().value
     dnu = nu * fwhm / const.c
     phi0 = np.sqrt(4 * np.log(2) / np.pi) / dnu
