@@ -484,7 +484,8 @@ class BandMeasurements:
 
 #: Units of the columns of a stack file's INPUTS and SUMMARY tables ('response' mixes line and band units).
 STACK_COLUMN_UNITS = {"t_kin": "K", "aperture_km": "km", "window": "km s-1", "q": "s-1", "sigma_q": "s-1",
-                      "r_h": "AU", "delta": "AU", "outflow": "km s-1"}
+                      "r_h": "AU", "delta": "AU", "outflow": "km s-1", "response": "Jy km s-1 s",
+                      "scale": "Jy km s-1 s"}
 
 
 @dataclass
@@ -511,7 +512,9 @@ class SpeciesStack:
     ``spectra`` maps each epoch group ('all' included) to its stacked spectrum (millimetre lines only);
     ``inputs`` has one row per line or band, cube, temperature and aperture (its response, window capture,
     Q and sigma_Q); ``summary`` one row per group, temperature and aperture (the combined Q and sigma_Q, the
-    lines and cubes that went in). Table columns carry units (:data:`STACK_COLUMN_UNITS`).
+    lines and cubes that went in); ``curves`` one row per line input and aperture with its response curve S(T)
+    (the window flux per unit Q, Jy km/s s) on :data:`pipeline.rates.temperature.TEMPERATURE_GRID`. Table
+    columns carry units (:data:`STACK_COLUMN_UNITS`).
     """
 
     species: str
@@ -519,6 +522,7 @@ class SpeciesStack:
     spectra: dict[str, StackedSpectrum]
     inputs: Table
     summary: Table
+    curves: Table | None = None      # per line input and aperture: 'scale', S(T) on the temperature grid
 
     def to_fits(self) -> fits.HDUList:
         """The stack file: primary (species), one STACK_<group> image per group, INPUTS and SUMMARY tables."""
@@ -534,7 +538,10 @@ class SpeciesStack:
             hdu.header["SPECSYS"], hdu.header["BUNIT"] = "SOURCE", "s-1 / (km s-1)"
             cards.put(hdu.header, "group", group)
             hdus.append(hdu)
-        for name, table in (("INPUTS", self.inputs), ("SUMMARY", self.summary)):
+        tables = [("INPUTS", self.inputs), ("SUMMARY", self.summary)]
+        if self.curves is not None:
+            tables.append(("CURVES", self.curves))
+        for name, table in tables:
             for column, unit in STACK_COLUMN_UNITS.items():
                 if column in table.colnames:
                     table[column].unit = unit
@@ -556,10 +563,12 @@ class SpeciesStack:
                                                      v_start=float(hdu.header["CRVAL1"]),
                                                      v_step=float(hdu.header["CDELT1"]))
             tables = {}
-            for name in ("INPUTS", "SUMMARY"):
+            for name in ("INPUTS", "SUMMARY", "CURVES"):
+                if name not in hdul:
+                    continue
                 table = Table.read(hdul[name])
                 table.meta.clear()
                 tables[name] = table
             return cls(species=str(cards.get(hdul[0].header, "species", where=where)),
                        n_inputs=int(cards.get(hdul[0].header, "n_inputs", 0, where)), spectra=spectra,
-                       inputs=tables["INPUTS"], summary=tables["SUMMARY"])
+                       inputs=tables["INPUTS"], summary=tables["SUMMARY"], curves=tables.get("CURVES"))

@@ -4,20 +4,60 @@ The stack combines measurements of one species from different lines, cubes and
 epochs; before that each is divided by its model response, the flux a
 production rate of 1 molecule/s gives in that aperture, for that line, geometry
 and temperature, so that every input is in the same units (Q).
+
+Blends: other lines of the same species whose emission reaches a line's
+integration window (within the window's half-width plus 1.5 outflow speeds)
+are modelled jointly: the window's response is the sum of each line's flux per
+molecule times the share of its profile inside the window, so the window
+estimate is of the species' Q, not a sum of lines counted as one. Lines of
+other species there cannot be modelled (their Q is another unknown) and are
+named in the ``blend_other`` column and the log. The stack keeps one of several
+windows of one cube that overlap (:func:`pipeline.workflow.stack`), so no flux is
+counted twice.
+
+Each input also carries its response curve S(T) on
+:data:`pipeline.rates.temperature.TEMPERATURE_GRID` (the window flux per unit Q
+at every temperature; captures interpolated in log T from 13 temperatures), from
+which the temperature fit and Q at any temperature are computed.
 """
 
 from __future__ import annotations
 
+import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
-from pipeline.catalogue import Catalogue
+from pipeline.catalogue import Catalogue, Line
+from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.response import ComaModel, GridGeometry, line_response_on_grid, outflow_speed, window_capture
 from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.rates.stacking import StackInput
+from pipeline.rates.temperature import TEMPERATURE_GRID
 from pipeline.spectra.apertures import aperture_labels
 
-__all__ = ["stack_input", "band_inputs"]
+__all__ = ["stack_input", "band_inputs", "blend_partners", "BLEND_REACH_OUTFLOWS"]
+
+#: A line blends with another when their separation is below the window half-width plus this many outflow speeds.
+BLEND_REACH_OUTFLOWS = 1.5
+_CAPTURE_GRID = np.geomspace(TEMPERATURE_GRID[0], TEMPERATURE_GRID[-1], 13)
+
+
+def blend_partners(line: Line, catalogue: Catalogue, reach: u.Quantity) -> tuple[list[tuple[Line, float]], list[str]]:
+    """Other catalogue lines within ``reach`` of ``line``: (same-species lines with their radio velocity [km/s] on
+    ``line``'s axis, ids of other species' lines)."""
+    c = const.c.to_value(u.km / u.s)
+    f0 = line.freq.to_value(u.GHz)
+    same, other = [], []
+    for cand in catalogue.lines:
+        if cand.line_id == line.line_id:
+            continue
+        v = c * (1 - cand.freq.to_value(u.GHz) / f0)
+        if abs(v) <= u.Quantity(reach).to_value(u.km / u.s):
+            if cand.species == line.species:
+                same.append((cand, v))
+            else:
+                other.append(cand.line_id)
+    return same, other
 
 
 def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, model: ComaModel,
@@ -64,9 +104,26 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     resp, surviving = line_response_on_grid(line, species, parent, t_kin, r_h, delta, grid, model,
                                             shortest_baseline, correct_filtering)
     resp = resp.to_value(u.Jy * u.km / u.s * u.s)
-    frac = window_capture(species, t_kin, vel - float(spectra.v_centre), wts, v_out,
-                          meta.spectral_response)                                               # (T,)
+    rel = vel - float(spectra.v_centre)
+    frac = window_capture(species, t_kin, rel, wts, v_out, meta.spectral_response)                # (T,)
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
+    # the coma's molecules per unit Q seen in each aperture (times the surviving fraction): resp / flux per molecule
+    count = resp[0] / flux_per_molecule(line, species, t_kin[:1], delta).to_value(u.Jy * u.km / u.s)[0]
+    partners, others = blend_partners(line, catalogue, float(spectra.window) * u.km / u.s
+                                      + BLEND_REACH_OUTFLOWS * v_out)
+    members = [(line, 0.0)] + partners
+    grid = TEMPERATURE_GRID * u.K
+    curve = np.zeros((grid.size, count.size))
+    for member, v_p in members:
+        if member is not line:
+            f_p = flux_per_molecule(member, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
+            frac_p = window_capture(species, t_kin, rel - v_p, wts, v_out, meta.spectral_response)
+            scale = scale + count[None, :] * (f_p * frac_p)[:, None]
+        cap = window_capture(species, _CAPTURE_GRID * u.K, rel - v_p, wts, v_out, meta.spectral_response)
+        cap_grid = np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), cap)
+        f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)
+        curve += count[None, :] * (f_grid * cap_grid)[:, None]
+    share = 1.0 - resp * frac[:, None] / scale                                                    # (T, ap)
     flux = np.asarray(spectra.flux, dtype=float)                                                  # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
     # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
@@ -75,12 +132,15 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     sigma = np.asarray(aps["sigma_window"], dtype=float)[None, :] / scale
     labels = aperture_labels(aps)
     inp = StackInput(epoch=meta.epoch, cube_id=meta.cube_id, line_id=line.line_id, velocity=vel,
-                     density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km), apertures=labels)
+                     density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km), apertures=labels,
+                     curve=curve, window=float(spectra.window))
     rows = []
     for i, t in enumerate(t_kin.to_value(u.K)):
         for j, r in enumerate(radii.to_value(u.km)):
             rows.append({"epoch": inp.epoch, "cube_id": inp.cube_id, "line_id": inp.line_id, "t_kin": t,
                          "aperture": labels[j], "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
+                         "scale": scale[i, j], "blend": ",".join(p.line_id for p, _ in partners),
+                         "blend_share": share[i, j], "blend_other": ",".join(others),
                          "window": float(spectra.window), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
                          "spectral_response": meta.spectral_response, "response_model": "grid",
@@ -117,7 +177,8 @@ def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tup
             for r, label in zip(sel, labels):
                 rows.append({"epoch": epoch, "cube_id": cube_id, "line_id": band_id, "t_kin": t,
                              "aperture": label, "aperture_km": float(r["aperture_km"]), "response": float(r["response"]),
-                             "window_fraction": float(r["capture"]), "window": np.nan, "q": float(r["q"]),
+                             "window_fraction": float(r["capture"]), "scale": np.nan, "blend": "", "blend_share": 0.0,
+                             "blend_other": "", "window": np.nan, "q": float(r["q"]),
                              "sigma_q": float(r["sigma_q"]), "r_h": float(r["r_h"]), "delta": float(r["delta"]),
                              "outflow": float(r["outflow"]), "spectral_response": "band",
                              "response_model": "grid", "surviving_fraction": 1.0, "kind": "band"})

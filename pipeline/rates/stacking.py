@@ -23,7 +23,7 @@ import numpy as np
 from pipeline.errors import CoverageError
 from pipeline.rates.statistics import inverse_variance_mean
 
-__all__ = ["StackInput", "rebin_density", "velocity_grid", "combine", "shared_apertures"]
+__all__ = ["StackInput", "rebin_density", "velocity_grid", "combine", "shared_apertures", "distinct_windows"]
 
 
 @dataclass(frozen=True)
@@ -44,6 +44,8 @@ class StackInput:
     sigma_q: np.ndarray
     radius_km: np.ndarray       # (n_ap,) aperture radii at the target
     apertures: tuple[str, ...] = ()   # (n_ap,) the apertures as configured ('1000 km', '2 arcsec'); () = by radius
+    curve: np.ndarray | None = None   # (n_grid, n_ap) window flux per unit Q on the temperature grid (lines only)
+    window: float = float("nan")      # half-width of the integration window [km/s] (lines only)
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -83,7 +85,7 @@ def shared_apertures(inputs: list[StackInput], what: str = "stack") -> tuple[lis
             continue
         out.append(replace(inp, q=inp.q[:, idx], sigma_q=inp.sigma_q[:, idx], radius_km=inp.radius_km[idx],
                            density=None if inp.density is None else inp.density[:, idx, :],
-                           apertures=tuple(common)))
+                           curve=None if inp.curve is None else inp.curve[:, idx], apertures=tuple(common)))
     return out, [f"{', '.join(a)} of {cube}" for cube, a in notes.items() if a]
 
 
@@ -152,3 +154,34 @@ def combine(inputs: list[StackInput], edges: np.ndarray) -> dict[str, np.ndarray
     with np.errstate(invalid="ignore", divide="ignore"):
         dens = np.where(den > 0, num / den, np.nan)
     return {"density": dens, "q": q_mean, "sigma_q": sigma, "weights": w / w.sum(axis=0)}
+
+
+def distinct_windows(inputs: list[StackInput], catalogue) -> tuple[list[StackInput], list[str]]:
+    """The inputs with at most one of several overlapping windows per cube, and a note for each one left out.
+
+    Two lines of one cube whose integration windows overlap measure partly the same channels; their estimates
+    are not independent, and a blend is already modelled in each window's response. The input with the smallest
+    sigma_Q (first temperature and aperture) is kept.
+    """
+    c = 299792.458
+    kept: list = []
+    notes = []
+    for inp in sorted(inputs, key=lambda i: (i.cube_id, float(i.sigma_q[0, 0]))):
+        if inp.velocity is None:
+            kept.append(inp)
+            continue
+        f = catalogue.get_line(inp.line_id).freq.value
+        clash = None
+        for other in kept:
+            if other.cube_id != inp.cube_id or other.velocity is None:
+                continue
+            dv = abs(c * (1 - catalogue.get_line(other.line_id).freq.value / f))
+            if dv < inp.window + other.window:
+                clash = other
+                break
+        if clash is None:
+            kept.append(inp)
+        else:
+            notes.append(f"{inp.cube_id}:{inp.line_id} (its window overlaps that of {clash.line_id}, kept)")
+    order = {id(i): k for k, i in enumerate(inputs)}
+    return sorted(kept, key=lambda i: order[id(i)]), notes

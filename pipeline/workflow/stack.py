@@ -13,7 +13,7 @@ from pipeline.io.atomic import write_fits
 from pipeline.io.products import BandMeasurements, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.rates.q_units import band_inputs, stack_input
-from pipeline.rates.stacking import combine, shared_apertures, velocity_grid
+from pipeline.rates.stacking import combine, distinct_windows, shared_apertures, velocity_grid
 from pipeline.settings import Settings
 
 __all__ = ["run", "ALL"]
@@ -54,8 +54,18 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
             continue
         inputs.append(inp)
         rows.extend(r)
+    inputs, overlapping = distinct_windows(inputs, catalogue)
+    for note in overlapping:
+        log.warning("%s: %s", species, note)
+    skipped.extend(overlapping)
+    rows = [r for r in rows if (r["cube_id"], r["line_id"]) in {(i.cube_id, i.line_id) for i in inputs}]
+    for r in rows:
+        if r.get("blend_other"):
+            log.warning("%s: the window of %s in cube %s also holds %s (other species, not modelled)", species,
+                        r["line_id"], r["cube_id"], r["blend_other"])
+            break
     if skipped:
-        log.warning("%s: %d line(s) not covered and left out: %s", species, len(skipped), ", ".join(skipped))
+        log.warning("%s: %d line(s) not covered or left out: %s", species, len(skipped), ", ".join(skipped))
     t_kin = settings.t_kin.to_value(u.K)
     groups = sorted({i.epoch for i in inputs})
     half = float(settings.half_width.to_value(u.km / u.s))
@@ -83,9 +93,12 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
                                 "cubes": ",".join(cubes), "apertures_left_out": "; ".join(left_out)})
         log.info("%s %s: %d spectra (%s) -> Q(T=%g K, first aperture) = %.3g +- %.3g /s", species, group,
                  len(members), ", ".join(lines), t_kin[0], res["q"][0, 0], res["sigma_q"][0, 0])
+    curves = [{"epoch": i.epoch, "cube_id": i.cube_id, "line_id": i.line_id, "aperture": label,
+               "scale": i.curve[:, j]} for i in inputs if i.curve is not None for j, label in enumerate(i.labels)]
     stack = SpeciesStack(species=species, n_inputs=len(inputs), spectra=spectra,
                          inputs=Table(rows=rows) if rows else Table(names=["epoch"], dtype=[str]),
-                         summary=Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]))
+                         summary=Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]),
+                         curves=Table(rows=curves) if curves else None)
     hdul = stack.to_fits()
     add_to_header(hdul[0].header, provenance_record(settings, spectra_paths, "stack"))
     write_fits(hdul, out_path)

@@ -181,3 +181,25 @@ def test_cubes_are_combined_over_the_apertures_they_share():
     # inputs without names (older products) are named by their radius in km
     assert StackInput(epoch="e", cube_id="c", line_id="L", velocity=None, density=None, q=mm.q, sigma_q=mm.sigma_q,
                       radius_km=mm.radius_km).labels == ("1000 km", "3000 km")
+
+
+def test_overlapping_windows_of_one_cube_are_kept_once():
+    # the CH3OH 5(2)-4(2) A- and 5(3)-4(3) E lines lie 1.64 km/s apart (CDMS 032504): windows of +-1.2 km/s
+    # overlap (1.64 < 2.4, closed form), so only the better-measured one of a cube stays; in another cube both
+    # are independent of the first cube's
+    from pipeline.catalogue.entries import load_catalogue
+    from pipeline.rates.stacking import distinct_windows
+
+    cat = load_catalogue()
+
+    def inp(cube, line, sigma):
+        return StackInput(epoch="e1", cube_id=cube, line_id=line, velocity=np.arange(5.0), density=np.zeros((1, 1, 5)),
+                          q=np.array([[1.0]]), sigma_q=np.array([[sigma]]), radius_km=np.array([1000.0]), window=1.2)
+
+    a, b = inp("c1", "CH3OH_241842", 2.0), inp("c1", "CH3OH_241844", 1.0)
+    far = inp("c1", "CH3OH_241700", 3.0)
+    other = inp("c2", "CH3OH_241842", 2.0)
+    kept, notes = distinct_windows([a, b, far, other], cat)
+    assert [(i.cube_id, i.line_id) for i in kept] == [("c1", "CH3OH_241844"), ("c1", "CH3OH_241700"),
+                                                      ("c2", "CH3OH_241842")]
+    assert notes == ["c1:CH3OH_241842 (its window overlaps that of CH3OH_241844, kept)"]

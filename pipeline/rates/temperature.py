@@ -1,0 +1,187 @@
+"""The rotational temperature measured from several lines of one species, and Q at any temperature.
+
+The stack records, for every line (and band) that went in, its window estimate of Q at each temperature of the
+sweep, with the model response and window capture that made it (the stack's INPUTS table). The measured
+quantity behind those estimates does not depend on the temperature: the window-integrated flux
+W = Q(T) R(T) f(T). Its model for a production rate Q is
+
+    W_i = Q S_i(T),   S_i(T) = N_i sum_p F_p(T) f_p(T),
+
+with N_i the molecules per unit Q the aperture counts on the model coma (independent of T), F_p the LTE flux per
+molecule of line p (:func:`pipeline.coma.excitation.flux_per_molecule`: the Boltzmann population of its upper
+level over the catalogue's partition function, and the cosmic background), f_p the share of its profile inside
+the window, and p running over the line and the species' lines blended with it. The stack step computes S_i on
+:data:`TEMPERATURE_GRID` (:func:`pipeline.rates.q_units.stack_input`); here it is interpolated in log-log. A
+band's Q does not depend on T.
+
+:func:`fit_temperature` fits T and Q jointly to the lines of one species (a rotational-temperature fit on the
+full model rather than on a rotational diagram): for each T on a fine grid the best Q is linear least squares,
+and T minimises the profile chi^2; the 68 % interval of T is where chi^2 rises by 1 (profile likelihood), and
+sigma_Q is taken at the best T. :func:`q_at_temperature` gives every input's Q estimate at any T and their
+inverse-variance combination, which the limits use at a measured or configured temperature.
+
+References
+----------
+.. [1] Goldsmith, P. F. & Langer, W. D. 1999, ApJ 517, 209: population (rotational) diagrams and their
+   relation to a full LTE fit (from memory).
+.. [2] Press, W. H. et al. 2007, *Numerical Recipes*, 3rd ed., section 15.6: confidence intervals from
+   Delta chi^2 = 1 for one parameter of interest, the others profiled (from memory).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import astropy.units as u
+import numpy as np
+from astropy.table import Table
+
+from pipeline.catalogue import Catalogue
+
+__all__ = ["WindowMeasure", "window_measures", "fit_temperature", "TemperatureFit", "q_at_temperature",
+           "TEMPERATURE_GRID", "MIN_EU_SPREAD"]
+
+#: Temperatures on which the profile chi^2 is evaluated [K] (log-spaced, refined by a parabola at the minimum).
+TEMPERATURE_GRID = np.geomspace(5.0, 300.0, 241)
+#: Least spread of upper-level energies [K] for lines to measure a temperature at all.
+MIN_EU_SPREAD = 10.0
+
+
+@dataclass(frozen=True)
+class WindowMeasure:
+    """One input of a stack (a line or a band in one cube) in one aperture: the measured window flux.
+
+    ``flux`` and ``sigma`` are W and its error (Jy km/s for a line; Q units for a band, whose ``kind`` is
+    'band'); ``curve`` is S(T) on :data:`TEMPERATURE_GRID` (W = Q S(T); blended lines of the species included).
+    """
+
+    epoch: str
+    cube_id: str
+    line_id: str
+    aperture: str
+    aperture_km: float
+    kind: str
+    flux: float
+    sigma: float
+    curve: np.ndarray | None
+
+    def scale(self, t: np.ndarray) -> np.ndarray:
+        """S(T) at the temperatures ``t`` [K] (log-log interpolation on the grid; 1 for a band)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        if self.kind == "band" or self.curve is None:
+            return np.ones_like(t)
+        return np.exp(np.interp(np.log(t), np.log(TEMPERATURE_GRID), np.log(self.curve)))
+
+
+def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
+    """The stack's INPUTS table (and its CURVES) turned back into measured window fluxes, per input and aperture."""
+    out: list[WindowMeasure] = []
+    if "q" not in inputs.colnames or not len(inputs):
+        return out
+    found = {}
+    if curves is not None and len(curves):
+        for r in curves:
+            found[(str(r["epoch"]), str(r["cube_id"]), str(r["line_id"]), str(r["aperture"]))] = np.asarray(
+                r["scale"], dtype=float)
+    keys = dict.fromkeys(zip(*(list(inputs[c]) for c in ("epoch", "cube_id", "line_id", "aperture"))))
+    for key in keys:
+        epoch, cube_id, line_id, aperture = (str(k) for k in key)
+        sel = inputs[(inputs["epoch"] == epoch) & (inputs["cube_id"] == cube_id) & (inputs["line_id"] == line_id)
+                     & (inputs["aperture"] == aperture)]
+        row = sel[int(np.argmin(np.asarray(sel["t_kin"], dtype=float)))]
+        kind = str(row["kind"])
+        q, sq = float(row["q"]), float(row["sigma_q"])
+        if kind == "band":
+            flux, sigma, curve = q, sq, None
+        else:
+            s = float(row["scale"])
+            flux, sigma, curve = q * s, sq * s, found.get((epoch, cube_id, line_id, aperture))
+            if curve is None:
+                continue                  # a line without its response curve cannot be moved off the sweep
+        out.append(WindowMeasure(epoch=epoch, cube_id=cube_id, line_id=line_id, aperture=aperture,
+                                 aperture_km=float(row["aperture_km"]), kind=kind, flux=flux, sigma=sigma,
+                                 curve=curve))
+    return out
+
+
+@dataclass(frozen=True)
+class TemperatureFit:
+    """A joint fit of T and Q to several lines of one species (one epoch group, one aperture)."""
+
+    t_kin: float            # K, best fit
+    t_lo: float             # K, 68 % interval (profile chi^2 + 1); the grid's end when open
+    t_hi: float
+    bounded: bool           # both ends of the interval inside the grid
+    q: float                # 1/s at t_kin
+    sigma_q: float
+    chi2: float
+    dof: int
+    n_lines: int
+    e_up_min: float         # K
+    e_up_max: float
+
+
+def _profile(measures: list[WindowMeasure], t: np.ndarray):
+    flux = np.array([m.flux for m in measures])
+    sigma = np.array([m.sigma for m in measures])
+    scale = np.array([m.scale(t) for m in measures])                         # (n, n_T)
+    w = 1.0 / sigma**2
+    a = np.sum(w[:, None] * scale * scale, axis=0)
+    b = np.sum(w[:, None] * scale * flux[:, None], axis=0)
+    q = b / a
+    chi2 = np.sum(w[:, None] * (flux[:, None] - q[None, :] * scale) ** 2, axis=0)
+    return q, 1.0 / np.sqrt(a), chi2
+
+
+def fit_temperature(measures: list[WindowMeasure], catalogue: Catalogue,
+                    grid: np.ndarray = TEMPERATURE_GRID) -> TemperatureFit | None:
+    """Fit T and Q to the line measures of one species; None when they cannot tell a temperature.
+
+    The lines must span at least :data:`MIN_EU_SPREAD` in upper-level energy. Returns the best T (parabola
+    through the three lowest grid points of the profile chi^2), the interval where chi^2 <= min + 1 (its ends
+    interpolated linearly; ``bounded`` False when it reaches an end of the grid), Q and sigma_Q at the best T.
+    """
+    lines = [m for m in measures if m.kind == "line"]
+    if len(lines) < 2:
+        return None
+    e_up = np.array([catalogue.get_line(m.line_id).e_up.to_value(u.K) for m in lines])
+    if np.ptp(e_up) < MIN_EU_SPREAD:
+        return None
+    t = np.asarray(grid, dtype=float)
+    q, sq, chi2 = _profile(lines, t)
+    k = int(np.argmin(chi2))
+    best = t[k]
+    if 0 < k < t.size - 1:                               # parabola in log T through the three lowest points
+        x = np.log(t[k - 1:k + 2])
+        c = np.polyfit(x, chi2[k - 1:k + 2], 2)
+        if c[0] > 0:
+            best = float(np.exp(np.clip(-c[1] / (2 * c[0]), x[0], x[2])))
+    q_b, sq_b, chi2_b = (float(v[0]) for v in _profile(lines, np.array([best])))
+    level = min(chi2_b, float(chi2[k])) + 1.0
+    inside = chi2 <= level
+    lo_i = k
+    while lo_i > 0 and inside[lo_i - 1]:
+        lo_i -= 1
+    hi_i = k
+    while hi_i < t.size - 1 and inside[hi_i + 1]:
+        hi_i += 1
+
+    def crossing(i_in: int, i_out: int) -> float:
+        x0, x1 = np.log(t[i_in]), np.log(t[i_out])
+        y0, y1 = chi2[i_in] - level, chi2[i_out] - level
+        return float(np.exp(x0 + (x1 - x0) * (-y0) / (y1 - y0))) if y1 != y0 else float(t[i_in])
+
+    bounded = lo_i > 0 and hi_i < t.size - 1
+    t_lo = crossing(lo_i, lo_i - 1) if lo_i > 0 else float(t[0])
+    t_hi = crossing(hi_i, hi_i + 1) if hi_i < t.size - 1 else float(t[-1])
+    return TemperatureFit(t_kin=float(best), t_lo=min(t_lo, best), t_hi=max(t_hi, best), bounded=bool(bounded),
+                          q=q_b, sigma_q=sq_b, chi2=chi2_b, dof=len(lines) - 2, n_lines=len(lines),
+                          e_up_min=float(e_up.min()), e_up_max=float(e_up.max()))
+
+
+def q_at_temperature(measures: list[WindowMeasure], t: float) -> tuple[float, float, list[float], list[float]]:
+    """Every measure's Q estimate at ``t`` [K] and their inverse-variance mean: (Q, sigma_Q, q_i, sigma_i)."""
+    q_i = [m.flux / float(m.scale(np.array([t]))[0]) for m in measures]
+    s_i = [m.sigma / float(m.scale(np.array([t]))[0]) for m in measures]
+    w = 1.0 / np.square(s_i)
+    return float(np.sum(w * np.array(q_i)) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w))), q_i, s_i
