@@ -419,7 +419,7 @@ _FIELDS = {   # Settings field -> the top-level config keys it is built from
     "observatory": ("observatory",), "cubes": ("cubes",),
     "planned": ("planned", "comoving"), "species": ("species",), "apertures": ("apertures_km", "apertures_arcsec"),
     "half_width": ("comoving",), "interferometer": ("interferometer",), "quality": ("quality",), "infrared": ("infrared",),
-    "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "coma": ("coma",), "budget": ("budget",),
+    "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "t_adopted": ("excitation",), "coma": ("coma",), "budget": ("budget",),
 }
 
 
@@ -451,6 +451,7 @@ class Settings(_Guarded):
     dust: DustSettings
     limits: LimitsSettings
     t_kin: u.Quantity
+    t_adopted: u.Quantity | None
     coma: "ComaModel"
     budget: BudgetSettings
 
@@ -664,7 +665,9 @@ _BUILDERS = {
     "half_width": lambda c: c["comoving"]["half_width_km_s"] * u.km / u.s, "interferometer": _interferometer,
     "quality": _quality,
     "infrared": _infrared, "dust": _dust, "limits": _limits,
-    "t_kin": lambda c: u.Quantity(c["excitation"]["t_kin_K"], u.K), "coma": _coma, "budget": _budget,
+    "t_kin": lambda c: u.Quantity(c["excitation"]["t_kin_K"], u.K),
+    "t_adopted": lambda c: (c["excitation"]["t_adopted_K"] * u.K if "t_adopted_K" in c["excitation"] else None),
+    "coma": _coma, "budget": _budget,
 }
 
 

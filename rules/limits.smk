@@ -2,11 +2,12 @@ rule limits_species:
     """Q, sigma_Q, detections and upper limits of one species."""
     input:
         stack=f"{OUT}/stack/{{species}}.fits",
+        temperature=f"{OUT}/temperature.ecsv",
         catalogue=catalogue_files(),
     output:
         f"{OUT}/limits/{{species}}.ecsv",
     params:
-        settings=settings_of("catalogue", "limits.nsigma", "coma"),
+        settings=settings_of("catalogue", "limits.nsigma", "coma", "excitation"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/limits/{{species}}.log",

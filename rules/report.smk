@@ -6,6 +6,7 @@ rule report:
         budget_json=f"{OUT}/budget.json",
         geometry=geometry_files(),
         stacks=stack_files(),
+        temperature=f"{OUT}/temperature.ecsv",
         injection=injection_files(),
         exclusion=f"{OUT}/exclusion.ecsv",
         activity=f"{OUT}/activity.ecsv",

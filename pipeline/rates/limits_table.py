@@ -60,12 +60,19 @@ def limit_rows(species: str, epoch: str, t_kin: u.Quantity, aperture_km: u.Quant
 
 
 def mark_conservative(table: QTable) -> QTable:
-    """Add the boolean column ``conservative``: the largest q_upper over temperatures."""
+    """Add the boolean column ``conservative``: the largest q_upper over the sweep's temperatures.
+
+    Rows at a measured or configured temperature (column ``t_origin``) are not part of the sweep.
+    """
     flag = np.zeros(len(table), dtype=bool)
     keys = list(zip(table["species"], table["epoch"], np.round(table["aperture_km"].to_value(u.km), 6)))
     qup = table["q_upper"].to_value(1 / u.s)
+    sweep = (np.isin(np.asarray(table["t_origin"], dtype=str), ("sweep", "conservative"))
+             if "t_origin" in table.colnames else np.ones(len(table), dtype=bool))
     best: dict = {}
     for i, k in enumerate(keys):
+        if not sweep[i]:
+            continue
         if k not in best or qup[i] > qup[best[k]]:
             best[k] = i
     flag[list(best.values())] = True

@@ -39,7 +39,7 @@ from astropy.table import Table
 from pipeline.catalogue import Catalogue
 
 __all__ = ["WindowMeasure", "window_measures", "fit_temperature", "TemperatureFit", "q_at_temperature",
-           "TEMPERATURE_GRID", "MIN_EU_SPREAD"]
+           "TEMPERATURE_GRID", "MIN_EU_SPREAD", "temperature_systematic", "adopted_temperature"]
 
 #: Temperatures on which the profile chi^2 is evaluated [K] (log-spaced, refined by a parabola at the minimum).
 TEMPERATURE_GRID = np.geomspace(5.0, 300.0, 241)
@@ -138,8 +138,11 @@ def fit_temperature(measures: list[WindowMeasure], catalogue: Catalogue,
     """Fit T and Q to the line measures of one species; None when they cannot tell a temperature.
 
     The lines must span at least :data:`MIN_EU_SPREAD` in upper-level energy. Returns the best T (parabola
-    through the three lowest grid points of the profile chi^2), the interval where chi^2 <= min + 1 (its ends
-    interpolated linearly; ``bounded`` False when it reaches an end of the grid), Q and sigma_Q at the best T.
+    through the three lowest grid points of the profile chi^2), the interval where chi^2 <= min + S^2 (its ends
+    interpolated linearly; ``bounded`` False when it reaches an end of the grid), Q and sigma_Q at the best T
+    (times S). S = sqrt(chi^2/dof) when the lines scatter more than their errors allow (chi^2/dof > 1), else 1:
+    the scale factor of the Particle Data Group's averaging rule (Review of Particle Physics, Introduction,
+    from memory), so a poor fit widens its own interval instead of claiming a precision it does not have.
     """
     lines = [m for m in measures if m.kind == "line"]
     if len(lines) < 2:
@@ -157,7 +160,10 @@ def fit_temperature(measures: list[WindowMeasure], catalogue: Catalogue,
         if c[0] > 0:
             best = float(np.exp(np.clip(-c[1] / (2 * c[0]), x[0], x[2])))
     q_b, sq_b, chi2_b = (float(v[0]) for v in _profile(lines, np.array([best])))
-    level = min(chi2_b, float(chi2[k])) + 1.0
+    dof = len(lines) - 2
+    # lines scattering more than their errors allow (chi2/dof > 1): errors scaled by S = sqrt(chi2/dof)
+    scale2 = max(1.0, chi2_b / dof) if dof > 0 else 1.0
+    level = min(chi2_b, float(chi2[k])) + scale2
     inside = chi2 <= level
     lo_i = k
     while lo_i > 0 and inside[lo_i - 1]:
@@ -175,7 +181,7 @@ def fit_temperature(measures: list[WindowMeasure], catalogue: Catalogue,
     t_lo = crossing(lo_i, lo_i - 1) if lo_i > 0 else float(t[0])
     t_hi = crossing(hi_i, hi_i + 1) if hi_i < t.size - 1 else float(t[-1])
     return TemperatureFit(t_kin=float(best), t_lo=min(t_lo, best), t_hi=max(t_hi, best), bounded=bool(bounded),
-                          q=q_b, sigma_q=sq_b, chi2=chi2_b, dof=len(lines) - 2, n_lines=len(lines),
+                          q=q_b, sigma_q=sq_b * np.sqrt(scale2), chi2=chi2_b, dof=dof, n_lines=len(lines),
                           e_up_min=float(e_up.min()), e_up_max=float(e_up.max()))
 
 
@@ -185,3 +191,41 @@ def q_at_temperature(measures: list[WindowMeasure], t: float) -> tuple[float, fl
     s_i = [m.sigma / float(m.scale(np.array([t]))[0]) for m in measures]
     w = 1.0 / np.square(s_i)
     return float(np.sum(w * np.array(q_i)) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w))), q_i, s_i
+
+
+def temperature_systematic(measures: list[WindowMeasure], t: float, lo: float, hi: float) -> float:
+    """The largest change of the combined Q between ``t`` and any temperature in [lo, hi] [K] (a systematic)."""
+    q0 = q_at_temperature(measures, t)[0]
+    grid = np.concatenate([[lo, hi], TEMPERATURE_GRID[(TEMPERATURE_GRID > lo) & (TEMPERATURE_GRID < hi)]])
+    return float(max(abs(q_at_temperature(measures, float(x))[0] - q0) for x in grid))
+
+
+def adopted_temperature(fits: Table, group: str, aperture: str,
+                        configured: float | None = None) -> dict | None:
+    """The temperature a detection in ``group`` and ``aperture`` is quoted at, and where it comes from.
+
+    ``configured`` (the config's ``excitation.t_adopted_K``) wins. Otherwise the measured temperature (a fit
+    of :func:`fit_temperature` with a closed interval), from the species whose interval is narrowest relative
+    to its value, looked for in this order: this group and aperture; all epochs, this aperture; this group,
+    any aperture; all epochs, any aperture (the ``source`` says which). None when nothing was measured: the
+    detection is then quoted at the conservative temperature of the sweep.
+
+    Returns a dict with ``t``, ``lo``, ``hi`` [K], ``origin`` ('configured' or 'measured') and ``source``
+    (the species measured, with the group it was measured in).
+    """
+    if configured is not None:
+        return {"t": float(configured), "lo": float("nan"), "hi": float("nan"), "origin": "configured",
+                "source": "excitation.t_adopted_K"}
+    if fits is None or not len(fits) or "bounded" not in fits.colnames:
+        return None
+    bounded = np.asarray(fits["bounded"], bool)
+    for where, same_aperture in ((group, True), ("all", True), (group, False), ("all", False)):
+        sel = fits[(fits["epoch"] == where) & bounded & ((fits["aperture"] == aperture) if same_aperture else True)]
+        if len(sel):
+            width = (np.asarray(sel["t_hi_K"], float) - np.asarray(sel["t_lo_K"], float)) / np.asarray(
+                sel["t_kin_K"], float)
+            row = sel[int(np.argmin(width))]
+            kelvin = {k: float(u.Quantity(row[k], u.K).value) for k in ("t_kin_K", "t_lo_K", "t_hi_K")}
+            return {"t": kelvin["t_kin_K"], "lo": kelvin["t_lo_K"], "hi": kelvin["t_hi_K"],
+                    "origin": "measured", "source": f"{row['species']} ({where}, {row['aperture']})"}
+    return None

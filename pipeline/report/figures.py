@@ -10,7 +10,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-__all__ = ["SpectrumPanel", "BandPanel", "plot_band_spectra", "plot_stacked_spectra", "plot_mass_budget", "plot_temperature_sweep", "to_png"]
+__all__ = ["SpectrumPanel", "BandPanel", "plot_band_spectra", "plot_stacked_spectra", "plot_mass_budget", "plot_temperature_sweep", "plot_rotational_diagrams", "to_png"]
 
 
 class SpectrumPanel:
@@ -125,5 +125,27 @@ def plot_temperature_sweep(curves: dict[str, tuple[np.ndarray, np.ndarray, int]]
     ax.set_ylabel("Q upper limit [s$^{-1}$]")
     ax.legend(fontsize=8, frameon=False)
     ax.grid(True, alpha=0.3)
+    fig.tight_layout()
+    return fig
+
+
+def plot_rotational_diagrams(diagrams: dict[str, dict]):
+    """Population diagrams: ln(W / (g_u A_ul)) against E_u per species, with the fitted temperature's line.
+
+    ``diagrams`` maps a species to ``e_up`` [K], ``y``, ``y_err`` (per measured line and cube), ``t_kin`` [K],
+    its interval ``t_lo``, ``t_hi`` and ``intercept`` (of the line y = intercept - E_u / T).
+    """
+    n = max(len(diagrams), 1)
+    fig, axes = plt.subplots(1, n, figsize=(4.2 * n, 3.4), squeeze=False)
+    for ax, (name, d) in zip(axes[0], sorted(diagrams.items())):
+        ax.errorbar(d["e_up"], d["y"], yerr=d["y_err"], fmt="o", ms=4, capsize=2, color="0.2", label="lines")
+        e = np.linspace(0.0, max(d["e_up"]) * 1.1, 50)
+        ax.plot(e, d["intercept"] - e / d["t_kin"], color="C3",
+                label=f"T = {d['t_kin']:.0f} K ({d['t_lo']:.0f}–{d['t_hi']:.0f})")
+        ax.set_title(name, fontsize=10)
+        ax.set_xlabel("upper-level energy E$_u$ [K]")
+        ax.set_ylabel("ln(W / (g$_u$ A$_{ul}$)) + const")
+        ax.legend(fontsize=8, frameon=False)
+        ax.grid(True, alpha=0.3)
     fig.tight_layout()
     return fig

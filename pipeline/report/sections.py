@@ -18,11 +18,13 @@ from pipeline.coma.response import SPECTRAL_RESPONSES
 from pipeline.coma.thermal import thermal_dispersion
 from pipeline.coma.line_profile import channel_fractions
 from pipeline.io.products import BandMeasurements, SpeciesStack
+from pipeline.rates.temperature import window_measures
 from pipeline.report.figures import BandPanel, SpectrumPanel, plot_mass_budget
 from pipeline.report.html import figure_html, table_html
 
 __all__ = ["spectrum_panels", "band_panels", "afrho_points", "infrared_section", "budget_figure", "sweep_curves",
-           "injection_section", "joint_section", "forecast_section"]
+           "injection_section", "joint_section", "forecast_section", "rotational_diagrams", "temperature_section",
+           "quoted_section"]
 
 
 def spectrum_panels(stack_paths: list[str], limits: QTable, catalogue: Catalogue) -> list[SpectrumPanel]:
@@ -257,3 +259,74 @@ def forecast_section(forecast_path: str, limits: QTable) -> str:
             + "<p>Forecasts run the measurement code on noise-only sub-cubes with the planned noise, channel width "
               "and beam at the planned geometry. 'Needed gas' is the rate the push needs from that species alone "
               "for the lightest nucleus.</p>")
+
+
+def rotational_diagrams(temperature_path: str, stack_paths: list[str], catalogue: Catalogue) -> dict[str, dict]:
+    """Population-diagram data of every species with a closed temperature interval (all epochs, first aperture)."""
+    fits = QTable.read(temperature_path, format="ascii.ecsv")
+    out: dict[str, dict] = {}
+    if not len(fits):
+        return out
+    stacks = {SpeciesStack.from_fits(p).species: p for p in stack_paths}
+    for row in fits[(fits["epoch"] == "all") & np.asarray(fits["bounded"], bool)]:
+        name = str(row["species"])
+        if name in out or name not in stacks:
+            continue
+        stack = SpeciesStack.from_fits(stacks[name])
+        ms = [m for m in window_measures(stack.inputs, stack.curves) if m.kind == "line" and m.aperture == row["aperture"]]
+        t = float(row["t_kin_K"].to_value(u.K))
+        lines = [catalogue.get_line(m.line_id) for m in ms]
+        e_up = np.array([ln.e_up.to_value(u.K) for ln in lines])
+        ga = np.array([ln.g_up * ln.a_ul.to_value(1 / u.s) for ln in lines])
+        flux = np.array([m.flux for m in ms])
+        y = np.log(np.clip(flux, 1e-300, None) / ga)
+        y_err = np.array([m.sigma for m in ms]) / np.abs(flux)
+        model = np.log(np.array([float(row["q"].to_value(1 / u.s)) * m.scale(np.array([t]))[0] for m in ms]) / ga)
+        keep = flux > 0
+        out[name] = {"e_up": e_up[keep], "y": y[keep], "y_err": np.minimum(y_err[keep], 3.0), "t_kin": t,
+                     "t_lo": float(row["t_lo_K"].to_value(u.K)), "t_hi": float(row["t_hi_K"].to_value(u.K)),
+                     "intercept": float(np.median(model + e_up / t))}
+    return out
+
+
+def temperature_section(temperature_path: str, fig: bytes | None) -> str:
+    """The measured temperatures (every species, epoch group and aperture with a fit) and the population diagrams."""
+    fits = QTable.read(temperature_path, format="ascii.ecsv")
+    if not len(fits):
+        return ("<p>No species has lines of different upper energy in these data: no temperature is measured; "
+                "detections are quoted at the configured temperature (excitation.t_adopted_K) or at the sweep's "
+                "conservative one.</p>")
+    rows = [[str(r["species"]), str(r["epoch"]), str(r["aperture"]),
+             f"{r['t_kin_K'].value:.1f}", f"{r['t_lo_K'].value:.1f} – {r['t_hi_K'].value:.1f}"
+             + ("" if r["bounded"] else " (open)"), f"{r['q'].value:.3g} ± {r['sigma_q'].value:.2g}",
+             f"{r['chi2']:.1f} / {int(r['dof'])}", int(r["n_lines"]),
+             f"{r['e_up_min_K'].value:.0f} – {r['e_up_max_K'].value:.0f}"] for r in fits]
+    text = ("<p>T and Q fitted jointly to each species' lines (LTE, blended lines modelled, the cosmic background "
+            "included); the interval is where χ² rises by 1. A closed interval makes the temperature the one "
+            "detections are quoted at (per epoch, else the combined one).</p>")
+    table = table_html(["species", "epoch", "aperture", "T [K]", "68 % interval [K]", "Q [1/s]", "χ² / dof",
+                        "lines", "E_u range [K]"], rows, left=3)
+    figure = figure_html(fig, "Population diagrams (all epochs, smallest aperture): the measured window flux of "
+                              "each line and cube over g_u A_ul against its upper-level energy, with the fitted "
+                              "temperature's slope −1/T.", "population diagrams") if fig else ""
+    return text + table + figure
+
+
+def quoted_section(limits: QTable) -> str:
+    """The value the report quotes for each species, epoch and aperture, and the temperature it rests on."""
+    sel = limits[np.asarray(limits["adopted"], bool)] if "adopted" in limits.colnames else limits[:0]
+    rows = []
+    for r in sel:
+        origin = str(r["t_origin"])
+        source = f" ({r['t_source']})" if str(r["t_source"]) else ""
+        if bool(r["detected"]):
+            sys_ = r["q_sys"].to_value(1 / u.s)
+            value = f"{r['q'].value:.3g} ± {r['q_err'].value:.2g}" + (f" ± {sys_:.2g} (T)" if np.isfinite(sys_) else "")
+        else:
+            value = f"< {r['q_upper'].value:.3g}"
+        rows.append([str(r["species"]), str(r["epoch"]), f"{r['aperture_km'].to_value(u.km):.0f}",
+                     f"{r['t_kin_K']:.1f}", origin + source, value])
+    return ("<p>Detections at the measured (or configured) temperature, with the spread of Q over that "
+            "temperature's interval as a second, systematic error; upper limits at the sweep's conservative "
+            "temperature. The table of every temperature follows.</p>"
+            + table_html(["species", "epoch", "aperture [km]", "T [K]", "temperature from", "Q [1/s]"], rows, left=2))

@@ -15,19 +15,94 @@ from pipeline.io.tables import table_as_json
 from pipeline.rates.activity import activity_table
 from pipeline.rates.detections import add_fit_columns, filtering_columns, fit_detections, opacity_columns
 from pipeline.rates.limits_table import join_limits, limit_rows, mark_conservative
+from pipeline.rates.temperature import adopted_temperature, q_at_temperature, temperature_systematic, window_measures
 from pipeline.settings import Settings
 
 __all__ = ["run_species", "run_join"]
 
 log = logging.getLogger(__name__)
+ALL_GROUP = "all"
 
 
-def run_species(stack_path: str, settings: Settings, out_path: str) -> None:
-    """Limits of one species from its stack file; detections also get a line-profile fit."""
+#: Columns that say which row the report quotes and at which temperature (filled for sweep rows too).
+ADOPTION_COLUMNS = {"t_origin": "sweep", "t_source": "", "t_kin_lo_K": np.nan, "t_kin_hi_K": np.nan,
+                    "q_sys": np.nan, "adopted": False}
+
+
+def _with_adoption_columns(table: QTable) -> QTable:
+    for name, value in ADOPTION_COLUMNS.items():
+        if name not in table.colnames:
+            kind = "U16" if isinstance(value, str) else type(value)
+            table[name] = np.full(len(table), value, dtype=kind)
+    table["q_sys"] = u.Quantity(np.asarray(u.Quantity(table["q_sys"]).value, dtype=float), 1 / u.s)
+    for name in ("t_kin_lo_K", "t_kin_hi_K"):
+        table[name] = np.asarray(table[name], dtype=float)
+    table["t_origin"] = np.asarray(table["t_origin"], dtype="U16")
+    table["t_source"] = np.asarray(table["t_source"], dtype="U64")
+    return table
+
+
+def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Settings, nsigma: float) -> list[QTable]:
+    """Rows at the measured or configured temperature, one per aperture of the group (none without either)."""
+    configured = settings.t_adopted.to_value(u.K) if settings.t_adopted is not None else None
+    out = []
+    for label in dict.fromkeys(str(a) for a in sel["aperture"]):
+        choice = adopted_temperature(fits, str(group), label, configured)
+        members = [m for m in measures if str(group) in (ALL_GROUP, m.epoch) and m.aperture == label]
+        if choice is None or not members:
+            continue
+        t = choice["t"]
+        q, s, _, _ = q_at_temperature(members, t)
+        ap = float(np.asarray(sel["aperture_km"], dtype=float)[np.asarray(sel["aperture"]) == label][0])
+        rows = limit_rows(species, str(group), [t] * u.K, [ap] * u.km, np.array([[q]]) / u.s, np.array([[s]]) / u.s,
+                          nsigma, str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
+        add_fit_columns(rows)
+        rows["tau_peak"] = np.full(1, np.nan)
+        rows["surviving_fraction"] = np.full(1, np.nan)
+        lo, hi = ((choice["lo"], choice["hi"]) if choice["origin"] == "measured"
+                  else (float(np.min(settings.t_kin.to_value(u.K))), float(np.max(settings.t_kin.to_value(u.K)))))
+        rows["t_origin"] = np.array([choice["origin"]], dtype="U16")
+        rows["t_source"] = np.array([choice["source"]], dtype="U64")
+        rows["t_kin_lo_K"] = [choice["lo"]]
+        rows["t_kin_hi_K"] = [choice["hi"]]
+        rows["q_sys"] = [temperature_systematic(members, t, lo, hi)] / u.s
+        rows["adopted"] = [bool(rows["detected"][0])]
+        out.append(rows)
+    return out
+
+
+def _mark_adopted(table: QTable) -> QTable:
+    """Where no detection at a measured or configured temperature is quoted, quote the conservative sweep row."""
+    keys = list(zip(table["species"], table["epoch"], np.round(table["aperture_km"].to_value(u.km), 6)))
+    quoted = {k for k, a in zip(keys, table["adopted"]) if a}
+    qup = table["q_upper"].to_value(1 / u.s)
+    best: dict = {}
+    for i, k in enumerate(keys):
+        if table["t_origin"][i] != "sweep" or k in quoted:
+            continue
+        if k not in best or qup[i] > qup[best[k]]:
+            best[k] = i
+    for i in best.values():
+        table["adopted"][i] = True
+        table["t_origin"][i] = "conservative"
+    return table
+
+
+def run_species(stack_path: str, settings: Settings, out_path: str, temperature_path: str | None = None) -> None:
+    """Limits of one species from its stack file; detections also get a line-profile fit.
+
+    With the temperature table (:mod:`pipeline.workflow.temperature`), each epoch group and aperture also gets a
+    row at the adopted temperature (configured, or measured from a species' lines); where the species is
+    detected there, that row is the one the report quotes (``adopted``), with ``q_sys`` the change of Q over
+    the temperature's interval (measured) or over the sweep (configured). Otherwise the conservative row of the
+    sweep is quoted.
+    """
     catalogue = settings.catalogue()
     stack = SpeciesStack.from_fits(stack_path)
     species, summary, inputs = stack.species, stack.summary, stack.inputs
     nsigma = float(settings.limits.nsigma)
+    fits = QTable.read(temperature_path, format="ascii.ecsv") if temperature_path else None
+    measures = window_measures(inputs, stack.curves)
     tables = []
     if "q" in summary.colnames:
         for group in dict.fromkeys(summary["epoch"]):
@@ -48,7 +123,9 @@ def run_species(stack_path: str, settings: Settings, out_path: str) -> None:
             fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass)
             opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
             filtering_columns(rows, inputs)
-            tables.append(rows)
+            tables.append(_with_adoption_columns(rows))
+            tables.extend(_with_adoption_columns(r) for r in _adopted_rows(species, group, sel, measures, fits,
+                                                                            settings, nsigma))
     if tables:
         table = join_limits(tables)
     else:  # the species was not covered by any cube: an empty table with the contract's columns
@@ -57,11 +134,15 @@ def run_species(stack_path: str, settings: Settings, out_path: str) -> None:
         add_fit_columns(table)
         table["tau_peak"] = np.zeros(0)
         table["surviving_fraction"] = np.zeros(0)
+        table = _with_adoption_columns(table)
+    if len(table):
+        table = _mark_adopted(table)
     if "apertures_left_out" in summary.colnames:
         left_out = {str(r["epoch"]): str(r["apertures_left_out"]) for r in summary if str(r["apertures_left_out"])}
         if left_out:
             table.meta["apertures_left_out"] = {species: left_out}
-    table.meta["provenance"] = provenance_record(settings, [stack_path], "limits")
+    table.meta["provenance"] = provenance_record(settings, [stack_path] + ([temperature_path] if temperature_path
+                                                                          else []), "limits")
     write_table(table, out_path)
 
 

@@ -11,10 +11,12 @@ from astropy.table import QTable
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
-from pipeline.report.figures import plot_band_spectra, plot_stacked_spectra, plot_temperature_sweep, to_png
+from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams, plot_stacked_spectra,
+                                     plot_temperature_sweep, to_png)
 from pipeline.report.html import figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
-                                      injection_section, joint_section, spectrum_panels, sweep_curves)
+                                      injection_section, joint_section, quoted_section, rotational_diagrams,
+                                      spectrum_panels, sweep_curves, temperature_section)
 from pipeline.settings import Settings
 
 __all__ = ["run"]
@@ -46,6 +48,8 @@ def run(inputs, outputs, settings: Settings) -> None:
     fig_spec = to_png(plot_stacked_spectra(spectrum_panels(list(inputs.stacks), limits, catalogue)))
     fig_budget = to_png(budget_figure(budget, settings.budget.baseline, catalogue))
     fig_sweep = to_png(plot_temperature_sweep(sweep_curves(limits)))
+    diagrams = rotational_diagrams(inputs.temperature, list(inputs.stacks), catalogue)
+    fig_rot = to_png(plot_rotational_diagrams(diagrams)) if diagrams else None
     fig_ir = to_png(plot_band_spectra(band_panels(list(inputs.bands)), *afrho_points(list(inputs.bands))))
     _write_png(fig_ir, outputs.infrared)
     _write_png(fig_spec, outputs.spectra)
@@ -82,6 +86,8 @@ def run(inputs, outputs, settings: Settings) -> None:
         fig_spec, "All epochs and lines combined in production-rate units, smallest aperture, conservative "
                   "temperature. Shaded: integration window. Red: model at the measured Q (detection); orange: model at "
                   "the upper limit.", "stacked spectra")))
+    sections.append(("Quoted production rates and limits", quoted_section(limits)))
+    sections.append(("Temperature measured from line ladders", temperature_section(inputs.temperature, fig_rot)))
     cons = limits[limits["conservative"]]
     band_ids = {b.band_id for b in catalogue.bands}
     sections.append(("Production rates and upper limits (conservative temperature)", table_html(

@@ -7,4 +7,4 @@ from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
-    limits.run_species(snakemake.input.stack, settings, snakemake.output[0])
+    limits.run_species(snakemake.input.stack, settings, snakemake.output[0], snakemake.input.temperature)

@@ -70,6 +70,21 @@ def test_the_temperature_interval_covers_as_delta_chi2_of_one_says():
     assert abs(hits - n * p) <= 3 * np.sqrt(n * p * (1 - p)), hits
 
 
+def test_scatter_beyond_the_errors_widens_the_interval():
+    # the same lines with errors understated 3 times: chi2/dof ~ 9 scales the Delta chi2 level by chi2/dof and
+    # sigma_Q by its square root (PDG scale factor), so the interval is about as wide as with honest errors
+    rng = np.random.default_rng(5)
+    honest = _measures(40.0, 3e26, rel_sigma=0.15, rng=rng)
+    under = [WindowMeasure(**{**m.__dict__, "sigma": m.sigma / 3.0}) for m in honest]
+    a, b = fit_temperature(honest, CAT), fit_temperature(under, CAT)
+    assert b.chi2 == pytest.approx(9 * a.chi2, rel=1e-6)
+    width_a, width_b = np.log(a.t_hi / a.t_lo), np.log(b.t_hi / b.t_lo)
+    # unscaled, the understated errors would give an interval about 3 times narrower; scaled, it is within a
+    # factor sqrt(chi2/dof) of the honest one's
+    assert b.chi2 / b.dof > 1 and width_b > 0.6 * width_a * min(1.0, np.sqrt(a.chi2 / a.dof))
+    assert b.sigma_q == pytest.approx(a.sigma_q / 3 * np.sqrt(max(1.0, b.chi2 / b.dof)), rel=1e-6)
+
+
 def test_lines_of_one_energy_cannot_tell_a_temperature():
     one = [m for m in _measures(40.0, 3e26) if m.line_id in ("CH3OH_241791",)]
     assert fit_temperature(one, CAT) is None
@@ -110,3 +125,23 @@ def test_a_blended_window_is_modelled_jointly():
     assert rows[0]["blend"] == b.line_id
     assert rows[0]["blend_share"] == pytest.approx(0.5, abs=0.05)
     assert inp.q[0, 0] == pytest.approx(3e26, rel=0.05)
+
+
+def test_the_adopted_temperature_falls_back_in_a_stated_order():
+    from astropy.table import QTable
+
+    from pipeline.rates.temperature import adopted_temperature
+
+    fits = QTable(rows=[("CH3OH", "all", "1000 km", 30.0, 20.0, 45.0, True),
+                        ("CH3OH", "all", "3000 km", 16.0, 5.0, 60.0, False),
+                        ("H2CO", "e1", "1000 km", 50.0, 45.0, 56.0, True)],
+                  names=["species", "epoch", "aperture", "t_kin_K", "t_lo_K", "t_hi_K", "bounded"])
+    assert adopted_temperature(fits, "e1", "1000 km")["source"] == "H2CO (e1, 1000 km)"        # its own group first
+    assert adopted_temperature(fits, "e2", "1000 km")["source"] == "CH3OH (all, 1000 km)"      # then all epochs
+    # no closed interval at 3000 km: another aperture's measurement, never the conservative temperature
+    assert adopted_temperature(fits, "e2", "3000 km")["t"] == 30.0
+    assert adopted_temperature(fits, "e2", "3000 km", configured=25.0) == {
+        "t": 25.0, "lo": adopted_temperature(fits, "e2", "3000 km", configured=25.0)["lo"], "hi":
+        adopted_temperature(fits, "e2", "3000 km", configured=25.0)["hi"], "origin": "configured",
+        "source": "excitation.t_adopted_K"}
+    assert adopted_temperature(fits[2:2], "e1", "1000 km") is None

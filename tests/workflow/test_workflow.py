@@ -83,6 +83,26 @@ def test_hcn_recovered(campaign, aperture):
     assert abs(q - truth) < 0.15 * truth
 
 
+def test_detections_quoted_at_the_measured_temperature(campaign):
+    """The CH3OH lines measure the temperature (its interval holds the injected 40 K); HCN and CH3OH are quoted
+    there, within 2 sigma (statistical and temperature errors in quadrature) plus 10 % of the injected rates."""
+    root, _ = campaign
+    fits = QTable.read(root / "results" / "temperature.ecsv", format="ascii.ecsv")
+    t_all = fits[(fits["species"] == "CH3OH") & (fits["epoch"] == "all")]
+    assert len(t_all) and all(r["t_lo_K"].to_value(u.K) <= 40.0 <= r["t_hi_K"].to_value(u.K) for r in t_all)
+    table = _limits(root)
+    for species in ("HCN", "CH3OH"):
+        truth = _truth(root, species)
+        quoted = table[(table["species"] == species) & (table["epoch"] == "all") & table["adopted"]]
+        assert len(quoted) == 2 and all(quoted["t_origin"] == "measured"), quoted
+        for r in quoted:
+            q, err = r["q"].to_value(1 / u.s), float(np.hypot(r["q_err"].to_value(1 / u.s), r["q_sys"].to_value(1 / u.s)))
+            assert abs(q - truth) < 2 * err + 0.10 * truth, (species, q, err, truth)
+    # non-detections are quoted at the sweep's conservative temperature
+    co = table[(table["species"] == "CO2") & table["adopted"]]
+    assert len(co) and all(co["t_origin"] == "conservative")
+
+
 #: The millimetre epochs of the small scenario and what each one's files exercise (synthetic_cubes.scenario):
 #: where the mid-time comes from, and whether the beams come from a per-channel BEAMS table.
 MM_LAYOUTS = {"e1": ("DATE-OBS/DATE-END", False), "e2": ("DATE-OBS/DATE-END", True),
@@ -171,7 +191,7 @@ def test_outputs_contract_and_provenance(campaign):
     verdicts = {d["species"]: d["verdict"] for d in budget["drivers"]}
     assert all(verdicts[s] != "not observed" for s in ("H2O", "CO2", "CO"))    # the infrared cubes cover them
     html = (root / "results" / "report.html").read_text()
-    assert html.count("data:image/png;base64,") == 4
+    assert html.count("data:image/png;base64,") == 5       # spectra, budget, sweep, infrared, population diagrams
     assert "peer review" in html and "Infrared bands and dust" in html
     for name in ("stacked_spectra", "mass_budget", "temperature_sweep", "infrared_spectra"):
         assert (root / "results" / "figures" / f"{name}.png").stat().st_size > 10_000
@@ -204,10 +224,11 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     shutil.copy(src, new)
     cfg["cubes"].append({"path": str(new), "id": "e4_hcn", "epoch": "e4"})
     jobs = _dry_run_jobs(root, cfg, tmp_path / "four.yaml")
-    # the new cube's own jobs (one HCN line), the HCN aggregation, the campaign tables, and the injections,
-    # which depend on the campaign tables for every species
-    assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "limits_species": 1, "limits": 1,
-                    "budget": 1, "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
+    # the new cube's own jobs (one HCN line), the HCN aggregation, the temperature (a new cube may change what
+    # the lines measure) and so every species' limits, the campaign tables, and the injections, which depend on
+    # the campaign tables for every species
+    assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "temperature": 1, "limits_species": 5,
+                    "limits": 1, "budget": 1, "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
 
 
 def test_report_renders_in_a_real_browser(campaign, tmp_path):
