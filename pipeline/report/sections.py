@@ -307,8 +307,9 @@ def temperature_section(temperature_path: str, fig: bytes | None) -> str:
     table = table_html(["species", "epoch", "aperture", "T [K]", "68 % interval [K]", "Q [1/s]", "χ² / dof",
                         "lines", "E_u range [K]"], rows, left=3)
     figure = figure_html(fig, "Population diagrams (all epochs, smallest aperture): the measured window flux of "
-                              "each line and cube over g_u A_ul against its upper-level energy, with the fitted "
-                              "temperature's slope −1/T.", "population diagrams") if fig else ""
+                              "each line and cube (where positive) over g_u A_ul against its upper-level energy, "
+                              "with the fitted temperature's slope −1/T. The fit itself uses every line, on the full "
+                              "model (blends, background, window capture).", "population diagrams") if fig else ""
     return text + table + figure
 
 
@@ -318,7 +319,7 @@ def quoted_section(limits: QTable) -> str:
     rows = []
     for r in sel:
         origin = str(r["t_origin"])
-        source = f" ({r['t_source']})" if str(r["t_source"]) else ""
+        source = f" ({r['t_source']})" if str(r["t_source"]) not in ("", "--", "sweep") else ""
         if bool(r["detected"]):
             sys_ = r["q_sys"].to_value(1 / u.s)
             value = f"{r['q'].value:.3g} ± {r['q_err'].value:.2g}" + (f" ± {sys_:.2g} (T)" if np.isfinite(sys_) else "")

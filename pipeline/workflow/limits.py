@@ -25,7 +25,7 @@ ALL_GROUP = "all"
 
 
 #: Columns that say which row the report quotes and at which temperature (filled for sweep rows too).
-ADOPTION_COLUMNS = {"t_origin": "sweep", "t_source": "", "t_kin_lo_K": np.nan, "t_kin_hi_K": np.nan,
+ADOPTION_COLUMNS = {"t_origin": "sweep", "t_source": "sweep", "t_kin_lo_K": np.nan, "t_kin_hi_K": np.nan,
                     "q_sys": np.nan, "adopted": False}
 
 
@@ -85,6 +85,7 @@ def _mark_adopted(table: QTable) -> QTable:
     for i in best.values():
         table["adopted"][i] = True
         table["t_origin"][i] = "conservative"
+        table["t_source"][i] = "largest limit over the sweep"
     return table
 
 
