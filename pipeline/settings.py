@@ -419,7 +419,7 @@ _FIELDS = {   # Settings field -> the top-level config keys it is built from
     "observatory": ("observatory",), "cubes": ("cubes",),
     "planned": ("planned", "comoving"), "species": ("species",), "apertures": ("apertures_km", "apertures_arcsec"),
     "half_width": ("comoving",), "interferometer": ("interferometer",), "quality": ("quality",), "infrared": ("infrared",),
-    "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "t_adopted": ("excitation",), "coma": ("coma",), "budget": ("budget",),
+    "dust": ("dust",), "limits": ("limits",), "t_kin": ("excitation",), "t_adopted": ("excitation",), "opacity_correction": ("excitation",), "coma": ("coma",), "budget": ("budget",),
 }
 
 
@@ -452,6 +452,7 @@ class Settings(_Guarded):
     limits: LimitsSettings
     t_kin: u.Quantity
     t_adopted: u.Quantity | None
+    opacity_correction: str
     coma: "ComaModel"
     budget: BudgetSettings
 
@@ -667,6 +668,7 @@ _BUILDERS = {
     "infrared": _infrared, "dust": _dust, "limits": _limits,
     "t_kin": lambda c: u.Quantity(c["excitation"]["t_kin_K"], u.K),
     "t_adopted": lambda c: (c["excitation"]["t_adopted_K"] * u.K if "t_adopted_K" in c["excitation"] else None),
+    "opacity_correction": lambda c: str(c["excitation"]["opacity_correction"]),
     "coma": _coma, "budget": _budget,
 }
 

@@ -21,7 +21,7 @@ from pipeline.errors import OpacityWarning
 from pipeline.io.products import SpeciesStack
 from pipeline.rates.line_fit import fit_line
 
-__all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns"]
+__all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns", "opacity_factor", "OPACITY_THRESHOLD"]
 
 log = logging.getLogger(__name__)
 
@@ -92,6 +92,26 @@ def opacity_columns(table: QTable, inputs: Table, catalogue: Catalogue, species_
         log.warning("%s: the peak optical depth reaches %.2g (epoch %s, %.0f km, %g K): the optically thin Q is a "
                     "lower bound there", species_name, worst["tau_peak"], worst["epoch"],
                     worst["aperture_km"].to_value(u.km), worst["t_kin_K"])
+
+
+#: Peak optical depth above which a row is marked (and, if configured, corrected) for opacity.
+OPACITY_THRESHOLD = 0.1
+
+
+def opacity_factor(tau) -> np.ndarray:
+    """Escape-probability correction C = tau / (1 - exp(-tau)) of an optically thin Q (1 for tau -> 0).
+
+    >>> round(float(opacity_factor(1.0)), 4)
+    1.582
+
+    The factor by which a line of optical depth tau is fainter than the optically thin line of the same
+    column (Mangum & Shirley 2015, PASP 127, 266, the optical-depth correction factor, from memory). Applied with
+    the peak depth it is an upper bound of the correction of the velocity-integrated flux.
+    """
+    tau = np.asarray(tau, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = np.where(tau > 1e-8, -tau / np.expm1(-np.where(tau > 1e-8, tau, 1.0)), 1.0 + tau / 2)
+    return out
 
 
 def filtering_columns(table: QTable, inputs: Table) -> None:

@@ -18,6 +18,7 @@ from pipeline.coma.response import SPECTRAL_RESPONSES
 from pipeline.coma.thermal import thermal_dispersion
 from pipeline.coma.line_profile import channel_fractions
 from pipeline.io.products import BandMeasurements, SpeciesStack
+from pipeline.rates.detections import OPACITY_THRESHOLD
 from pipeline.rates.temperature import window_measures
 from pipeline.report.figures import BandPanel, SpectrumPanel, plot_mass_budget
 from pipeline.report.html import figure_html, table_html
@@ -325,9 +326,17 @@ def quoted_section(limits: QTable) -> str:
             value = f"{r['q'].value:.3g} ± {r['q_err'].value:.2g}" + (f" ± {sys_:.2g} (T)" if np.isfinite(sys_) else "")
         else:
             value = f"< {r['q_upper'].value:.3g}"
+        tau = float(r["tau_peak"]) if "tau_peak" in r.colnames and np.isfinite(r["tau_peak"]) else np.nan
+        thick = np.isfinite(tau) and tau > OPACITY_THRESHOLD
+        corrected = "opacity_corrected" in r.colnames and bool(r["opacity_corrected"])
+        opacity = "–" if not np.isfinite(tau) else (f"{tau:.2g}" + (" (corrected ×{:.3g})".format(
+            float(r["opacity_factor"])) if corrected else (" (thin Q is a lower bound)" if thick else "")))
         rows.append([str(r["species"]), str(r["epoch"]), f"{r['aperture_km'].to_value(u.km):.0f}",
-                     f"{r['t_kin_K']:.1f}", origin + source, value])
+                     f"{r['t_kin_K']:.1f}", origin + source, value, opacity])
     return ("<p>Detections at the measured (or configured) temperature, with the spread of Q over that "
             "temperature's interval as a second, systematic error; upper limits at the sweep's conservative "
-            "temperature. The table of every temperature follows.</p>"
-            + table_html(["species", "epoch", "aperture [km]", "T [K]", "temperature from", "Q [1/s]"], rows, left=2))
+            "temperature. τ is the peak optical depth of the strongest line in the aperture-mean column; above "
+            f"{OPACITY_THRESHOLD:g} the optically thin Q is a lower bound, corrected by τ/(1−e^−τ) only with "
+            "excitation.opacity_correction: escape_probability. The table of every temperature follows.</p>"
+            + table_html(["species", "epoch", "aperture [km]", "T [K]", "temperature from", "Q [1/s]", "peak τ"],
+                         rows, left=2))

@@ -13,7 +13,8 @@ from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
 from pipeline.io.tables import table_as_json
 from pipeline.rates.activity import activity_table
-from pipeline.rates.detections import add_fit_columns, filtering_columns, fit_detections, opacity_columns
+from pipeline.rates.detections import (OPACITY_THRESHOLD, add_fit_columns, filtering_columns, fit_detections,
+                                       opacity_columns, opacity_factor)
 from pipeline.rates.limits_table import join_limits, limit_rows, mark_conservative
 from pipeline.rates.temperature import adopted_temperature, q_at_temperature, temperature_systematic, window_measures
 from pipeline.settings import Settings
@@ -42,7 +43,8 @@ def _with_adoption_columns(table: QTable) -> QTable:
     return table
 
 
-def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Settings, nsigma: float) -> list[QTable]:
+def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Settings, nsigma: float,
+                  inputs, catalogue) -> list[QTable]:
     """Rows at the measured or configured temperature, one per aperture of the group (none without either)."""
     configured = settings.t_adopted.to_value(u.K) if settings.t_adopted is not None else None
     out = []
@@ -57,7 +59,7 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
         rows = limit_rows(species, str(group), [t] * u.K, [ap] * u.km, np.array([[q]]) / u.s, np.array([[s]]) / u.s,
                           nsigma, str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
         add_fit_columns(rows)
-        rows["tau_peak"] = np.full(1, np.nan)
+        opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
         rows["surviving_fraction"] = np.full(1, np.nan)
         lo, hi = ((choice["lo"], choice["hi"]) if choice["origin"] == "measured"
                   else (float(np.min(settings.t_kin.to_value(u.K))), float(np.max(settings.t_kin.to_value(u.K)))))
@@ -87,6 +89,24 @@ def _mark_adopted(table: QTable) -> QTable:
         table["t_origin"][i] = "conservative"
         table["t_source"][i] = "largest limit over the sweep"
     return table
+
+
+def _opacity(table: QTable, correction: str) -> None:
+    """Mark rows whose peak optical depth exceeds the threshold; with 'escape_probability', correct quoted detections.
+
+    ``opacity_factor`` is tau / (1 - exp(-tau)) where tau_peak > OPACITY_THRESHOLD, else 1; ``opacity_corrected``
+    says whether a row's Q, sigma_Q, q_sys and q_upper were multiplied by it (quoted detections only).
+    """
+    tau = np.nan_to_num(np.asarray(table["tau_peak"], dtype=float)) if "tau_peak" in table.colnames else np.zeros(
+        len(table))
+    factor = np.where(tau > OPACITY_THRESHOLD, opacity_factor(tau), 1.0)
+    table["opacity_factor"] = factor
+    fix = (np.asarray(table["adopted"], bool) & np.asarray(table["detected"], bool) & (factor > 1.0)
+           if correction == "escape_probability" else np.zeros(len(table), dtype=bool))
+    for name in ("q", "q_err", "q_sys", "q_upper"):
+        if name in table.colnames:
+            table[name][fix] = table[name][fix] * factor[fix]
+    table["opacity_corrected"] = fix
 
 
 def run_species(stack_path: str, settings: Settings, out_path: str, temperature_path: str | None = None) -> None:
@@ -126,7 +146,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
             filtering_columns(rows, inputs)
             tables.append(_with_adoption_columns(rows))
             tables.extend(_with_adoption_columns(r) for r in _adopted_rows(species, group, sel, measures, fits,
-                                                                            settings, nsigma))
+                                                                            settings, nsigma, inputs, catalogue))
     if tables:
         table = join_limits(tables)
     else:  # the species was not covered by any cube: an empty table with the contract's columns
@@ -138,6 +158,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
         table = _with_adoption_columns(table)
     if len(table):
         table = _mark_adopted(table)
+    _opacity(table, settings.opacity_correction)
     if "apertures_left_out" in summary.colnames:
         left_out = {str(r["epoch"]): str(r["apertures_left_out"]) for r in summary if str(r["apertures_left_out"])}
         if left_out:
@@ -169,6 +190,8 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
                           "band flux = continuum-subtracted integral over the band extent widened by the line-spread "
                           "function; Q does not depend on T_kin",
         "q_upper": "Bayesian, flat prior on Q >= 0, one-sided confidence of nsigma",
+        "opacity": "rows with peak optical depth > 0.1 marked (opacity_factor = tau / (1 - exp(-tau))); quoted "
+                   "detections multiplied by it only with excitation.opacity_correction = escape_probability",
         "nsigma": settings.limits.nsigma,
         "epoch 'all'": "constant Q over the epochs combined",
     }

@@ -143,3 +143,14 @@ def test_the_adopted_temperature_falls_back_in_a_stated_order():
     chosen = adopted_temperature(fits, "e2", "3000 km", configured=25.0)        # a configured one wins
     assert (chosen["t"], chosen["origin"], chosen["source"]) == (25.0, "configured", "excitation.t_adopted_K")
     assert adopted_temperature(fits[2:2], "e1", "1000 km") is None
+
+
+def test_escape_probability_factor():
+    # closed form tau / (1 - exp(-tau)) (Mangum & Shirley 2015, from memory): 1 + tau/2 for small tau, tau for
+    # large tau, and 1/(1 - e^-1) at tau = 1
+    from pipeline.rates.detections import opacity_factor
+
+    assert float(opacity_factor(1.0)) == pytest.approx(1 / (1 - np.exp(-1.0)), rel=1e-12)
+    assert float(opacity_factor(1e-4)) == pytest.approx(1 + 0.5e-4, rel=1e-8)
+    assert float(opacity_factor(0.0)) == 1.0
+    assert float(opacity_factor(30.0)) == pytest.approx(30.0, rel=1e-12)

@@ -178,3 +178,4 @@ def test_band_limits_in_a_qtable_have_units(ir_run):
     # rest = observed / Doppler factor (the relativistic factor of the target's range rate)
     ratio = (t["observed"] / t["rest"]).decompose().value
     assert np.allclose(ratio, ratio[0], rtol=1e-12) and abs(ratio[0] - 1) < 1e-3
+
