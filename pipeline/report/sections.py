@@ -303,8 +303,10 @@ def temperature_section(temperature_path: str, fig: bytes | None) -> str:
              f"{r['chi2']:.1f} / {int(r['dof'])}", int(r["n_lines"]),
              f"{r['e_up_min_K'].value:.0f} – {r['e_up_max_K'].value:.0f}"] for r in fits]
     text = ("<p>T and Q fitted jointly to each species' lines (LTE, blended lines modelled, the cosmic background "
-            "included); the interval is where χ² rises by 1. A closed interval makes the temperature the one "
-            "detections are quoted at (per epoch, else the combined one).</p>")
+            "included); the interval is where χ² rises by 1, or by χ²/dof when the lines scatter more than their "
+            "errors allow (the Particle Data Group's scale factor; σ_Q scaled alike). A closed interval makes the "
+            "temperature the one detections are quoted at (this epoch and aperture first, then all epochs, then "
+            "another aperture).</p>")
     table = table_html(["species", "epoch", "aperture", "T [K]", "68 % interval [K]", "Q [1/s]", "χ² / dof",
                         "lines", "E_u range [K]"], rows, left=3)
     figure = figure_html(fig, "Population diagrams (all epochs, smallest aperture): the measured window flux of "
@@ -321,6 +323,8 @@ def quoted_section(limits: QTable) -> str:
     for r in sel:
         origin = str(r["t_origin"])
         source = f" ({r['t_source']})" if str(r["t_source"]) not in ("", "--", "sweep") else ""
+        if origin == "not needed":
+            origin, source = "not needed", " (infrared bands)"
         if bool(r["detected"]):
             sys_ = r["q_sys"].to_value(1 / u.s)
             value = f"{r['q'].value:.3g} ± {r['q_err'].value:.2g}" + (f" ± {sys_:.2g} (T)" if np.isfinite(sys_) else "")
@@ -332,7 +336,7 @@ def quoted_section(limits: QTable) -> str:
         opacity = "–" if not np.isfinite(tau) else (f"{tau:.2g}" + (" (corrected ×{:.3g})".format(
             float(r["opacity_factor"])) if corrected else (" (thin Q is a lower bound)" if thick else "")))
         rows.append([str(r["species"]), str(r["epoch"]), f"{r['aperture_km'].to_value(u.km):.0f}",
-                     f"{r['t_kin_K']:.1f}", origin + source, value, opacity])
+                     "–" if origin == "not needed" else f"{r['t_kin_K']:.1f}", origin + source, value, opacity])
     return ("<p>Detections at the measured (or configured) temperature, with the spread of Q over that "
             "temperature's interval as a second, systematic error; upper limits at the sweep's conservative "
             "temperature. τ is the peak optical depth of the strongest line in the aperture-mean column; above "

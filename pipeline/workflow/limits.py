@@ -51,8 +51,8 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
     for label in dict.fromkeys(str(a) for a in sel["aperture"]):
         choice = adopted_temperature(fits, str(group), label, configured)
         members = [m for m in measures if str(group) in (ALL_GROUP, m.epoch) and m.aperture == label]
-        if choice is None or not members:
-            continue
+        if choice is None or not any(m.kind == "line" for m in members):
+            continue                    # nothing measured, or only bands (their Q does not depend on T)
         t = choice["t"]
         q, s, _, _ = q_at_temperature(members, t)
         ap = float(np.asarray(sel["aperture_km"], dtype=float)[np.asarray(sel["aperture"]) == label][0])
@@ -73,8 +73,12 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
     return out
 
 
-def _mark_adopted(table: QTable) -> QTable:
-    """Where no detection at a measured or configured temperature is quoted, quote the conservative sweep row."""
+def _mark_adopted(table: QTable, lines_measured: bool = True) -> QTable:
+    """Where no detection at a measured or configured temperature is quoted, quote the conservative sweep row.
+
+    A species measured only in infrared bands (``lines_measured`` False) has a Q that does not depend on the
+    temperature: its quoted row says so (t_origin 'not needed').
+    """
     keys = list(zip(table["species"], table["epoch"], np.round(table["aperture_km"].to_value(u.km), 6)))
     quoted = {k for k, a in zip(keys, table["adopted"]) if a}
     qup = table["q_upper"].to_value(1 / u.s)
@@ -86,8 +90,9 @@ def _mark_adopted(table: QTable) -> QTable:
             best[k] = i
     for i in best.values():
         table["adopted"][i] = True
-        table["t_origin"][i] = "conservative"
-        table["t_source"][i] = "largest limit over the sweep"
+        table["t_origin"][i] = "conservative" if lines_measured else "not needed"
+        table["t_source"][i] = ("largest limit over the sweep" if lines_measured
+                                else "infrared bands: Q does not depend on T")
     return table
 
 
@@ -157,7 +162,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
         table["surviving_fraction"] = np.zeros(0)
         table = _with_adoption_columns(table)
     if len(table):
-        table = _mark_adopted(table)
+        table = _mark_adopted(table, any(m.kind == "line" for m in measures))
     _opacity(table, settings.opacity_correction)
     if "apertures_left_out" in summary.colnames:
         left_out = {str(r["epoch"]): str(r["apertures_left_out"]) for r in summary if str(r["apertures_left_out"])}
