@@ -33,6 +33,7 @@ from pipeline.errors import ConfigError
 
 if TYPE_CHECKING:
     from pipeline.budget.table import BudgetAssumptions
+    from pipeline.budget.tracers import TracerAbundance
     from pipeline.catalogue import Catalogue
     from pipeline.coma.response import ComaModel
     from pipeline.geometry.observers import Observer
@@ -407,6 +408,7 @@ class BudgetSettings:
 
     assumption_sets: tuple["BudgetAssumptions", ...]
     include_dust: bool
+    water_from_tracers: tuple["TracerAbundance", ...] = ()
 
     @property
     def baseline(self) -> "BudgetAssumptions":
@@ -654,8 +656,13 @@ def _coma(config: dict[str, Any]):
 
 
 def _budget(config: dict[str, Any]) -> BudgetSettings:
+    from pipeline.budget.tracers import TracerAbundance
+
+    tracers = tuple(TracerAbundance(species=str(t["species"]), low=float(min(t["abundance"])),
+                                    high=float(max(t["abundance"])), ref=str(t["ref"]))
+                    for t in config["budget"].get("water_from_tracers", []))
     return BudgetSettings(assumption_sets=tuple(assumption_sets(config["budget"])),
-                          include_dust=bool(config["budget"]["include_dust"]))
+                          include_dust=bool(config["budget"]["include_dust"]), water_from_tracers=tracers)
 
 
 _BUILDERS = {

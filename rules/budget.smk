@@ -9,6 +9,7 @@ rule budget:
         ecsv=report(f"{OUT}/budget.ecsv", caption="../report/budget.rst", category="Tables"),
         json=f"{OUT}/budget.json",
         exclusion=f"{OUT}/exclusion.ecsv",
+        water=f"{OUT}/water_inferred.ecsv",
     params:
         settings=settings_of("budget", "campaign", "catalogue"),
         code=CODE_VERSION,

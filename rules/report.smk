@@ -9,6 +9,7 @@ rule report:
         temperature=f"{OUT}/temperature.ecsv",
         injection=injection_files(),
         exclusion=f"{OUT}/exclusion.ecsv",
+        water=f"{OUT}/water_inferred.ecsv",
         activity=f"{OUT}/activity.ecsv",
         forecast=f"{OUT}/forecast.ecsv",
         bands=bands_files(),

@@ -306,7 +306,14 @@ def campaign_config(sc: Scenario, outdir: str | Path, results: str = "results/de
         "budget": {"acceleration_m_s2": list(sc.acceleration_m_s2), "interval_days": 30,
                    "nucleus": {"radius_km": list(sc.nucleus_radius_km),
                                "density_kg_m3": list(sc.nucleus_density_kg_m3)},
-                   "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0, "include_dust": False},
+                   "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0, "include_dust": False,
+                   # published ranges of cometary abundances relative to water (the review's compilation of
+                   # measured comets; numbers from memory): turn the tracers into an inferred water range
+                   "water_from_tracers": [
+                       {"species": "HCN", "abundance": [0.0008, 0.0025],
+                        "ref": "Bockelee-Morvan & Biver 2017, Phil. Trans. R. Soc. A 375, 20160252 (from memory)"},
+                       {"species": "CH3OH", "abundance": [0.007, 0.061],
+                        "ref": "Bockelee-Morvan & Biver 2017, Phil. Trans. R. Soc. A 375, 20160252 (from memory)"}]},
     }
 
 

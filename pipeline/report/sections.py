@@ -25,7 +25,7 @@ from pipeline.report.html import figure_html, table_html
 
 __all__ = ["spectrum_panels", "band_panels", "afrho_points", "infrared_section", "budget_figure", "sweep_curves",
            "injection_section", "joint_section", "forecast_section", "rotational_diagrams", "temperature_section",
-           "quoted_section"]
+           "quoted_section", "water_section"]
 
 
 def spectrum_panels(stack_paths: list[str], limits: QTable, catalogue: Catalogue) -> list[SpectrumPanel]:
@@ -344,3 +344,21 @@ def quoted_section(limits: QTable) -> str:
             "excitation.opacity_correction: escape_probability. The table of every temperature follows.</p>"
             + table_html(["species", "epoch", "aperture [km]", "T [K]", "temperature from", "Q [1/s]", "peak τ"],
                          rows, left=2))
+
+
+def water_section(water_path: str) -> str:
+    """The water production inferred from tracers, labelled as an inference (empty when none is configured)."""
+    water = QTable.read(water_path, format="ascii.ecsv")
+    if not len(water):
+        return ("<p>No tracer abundances configured (budget.water_from_tracers): no water production is inferred "
+                "from other species.</p>")
+    rows = [[str(r["tracer"]), str(r["epoch"]), f"{r['aperture_km'].to_value(u.km):.0f}", str(r["kind"]),
+             f"{r['abundance_low'] * 100:.3g}–{r['abundance_high'] * 100:.3g} %",
+             f"{r['q_h2o_low'].value:.3g} – {r['q_h2o_high'].value:.3g}",
+             f"{r['q_h2o_required_min'].value:.3g} – {r['q_h2o_required_max'].value:.3g}", str(r["reading"]),
+             str(r["abundance_ref"])] for r in water]
+    return ('<div class="caution"><b>An inference, not a measurement.</b> Each row divides a tracer\'s quoted Q '
+            "(±2σ, the temperature's systematic included) or its limit by an abundance range relative to water "
+            "taken from the literature; the result is only as good as that range, and no verdict uses it.</div>"
+            + table_html(["tracer", "epoch", "aperture [km]", "quoted", "abundance / H2O", "inferred Q(H2O) [1/s]",
+                          "Q(H2O) the push needs [1/s]", "reading", "abundance source"], rows, left=4))

@@ -2,21 +2,27 @@
 
 from __future__ import annotations
 
+import logging
+
 import astropy.units as u
 import numpy as np
 from astropy.table import QTable
 
 from pipeline.io.atomic import write_json, write_table
 from pipeline.budget.table import budget_table, dust_forces, epoch_distances, joint_exclusion, rocket_fraction
+from pipeline.budget.tracers import inferred_water
 from pipeline.io.provenance import provenance_record
 from pipeline.settings import Settings
 
 __all__ = ["run"]
 
+log = logging.getLogger(__name__)
+
 
 def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecsv: str, out_json: str,
-        out_exclusion: str | None = None, dust_path: str | None = None) -> None:
-    """Compute and write the budget tables (with the dust's push when budget.include_dust is set)."""
+        out_exclusion: str | None = None, dust_path: str | None = None, out_water: str | None = None) -> None:
+    """Compute and write the budget tables (with the dust's push when budget.include_dust is set), and the water
+    inferred from tracers (``out_water``; empty without budget.water_from_tracers)."""
     limits = QTable.read(limits_path, format="ascii.ecsv")
     include_dust = settings.budget.include_dust
     forces = dust_forces(dust_path, include_dust)
@@ -67,3 +73,12 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
         "provenance": record,
     }
     write_json(summary, out_json)
+    if out_water is not None:
+        tracers = settings.budget.water_from_tracers
+        missing = [t.species for t in tracers if t.species not in set(str(x) for x in limits["species"])]
+        if missing:
+            log.warning("water_from_tracers: %s not among the campaign's measured species; no inference from them",
+                        ", ".join(missing))
+        water = inferred_water(limits, table, tracers)
+        water.meta["provenance"] = record
+        write_table(water, out_water)
