@@ -145,6 +145,7 @@ class Species:
     photo_active: u.Quantity
     parent: str | None
     partition_table: PartitionTable | None = None
+    distributed_scale: u.Quantity | None = None   # scale length at 1 au of a distributed source (∝ r_h^2), if any
 
     def photo_rate(self, solar_activity: str) -> u.Quantity:
         """Photodestruction rate at 1 au for ``'quiet'`` or ``'active'`` Sun."""
@@ -376,6 +377,14 @@ def _read_partition(path: Path, species_file: Path, wanted: set[str]) -> dict[st
     return out
 
 
+def _distributed_scale(row) -> u.Quantity | None:
+    """The optional column ``distributed_scale_km`` (km at 1 au; NaN or absent: no distributed source)."""
+    if "distributed_scale_km" not in row.colnames:
+        return None
+    value = u.Quantity(row["distributed_scale_km"], u.km)
+    return value if np.isfinite(value.value) and value.value > 0 else None
+
+
 def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
                    lines_file: str | Path = DEFAULT_LINES_FILE,
                    bands_file: str | Path | None = DEFAULT_BANDS_FILE,
@@ -425,6 +434,7 @@ def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
             photo_active=u.Quantity(row["photo_active"], 1 / u.s),
             parent=None if parent in ("-", "", "None") else parent,
             partition_table=tables.get(name),
+            distributed_scale=_distributed_scale(row),
         )
     lines = []
     seen = set()

@@ -24,10 +24,16 @@ __all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "wind
 
 @dataclass(frozen=True)
 class ComaModel:
-    """The coma assumptions shared by every response: outflow and photodestruction."""
+    """The coma assumptions shared by every response: outflow, photodestruction and where a species comes from.
+
+    ``source`` 'nucleus' releases every parent species at the nucleus (Haser parent); 'distributed' releases a
+    species that the catalogue gives a distributed source (``Species.distributed_scale``, e.g. H2CO) as a Haser
+    daughter of that source (its scale length at 1 au times r_h^2).
+    """
 
     outflow: str | float = "law"      # 'law' (0.85 r_h^-0.5 km/s) or a speed in km/s
     solar_activity: str = "quiet"
+    source: str = "nucleus"
 
 
 def outflow_speed(model: ComaModel, r_h: u.Quantity) -> u.Quantity:
@@ -41,11 +47,20 @@ def scale_lengths(species: Species, parent: Species | None, model: ComaModel, r_
                   speed: u.Quantity) -> tuple[u.Quantity, u.Quantity | None]:
     """Haser scale lengths (parent, daughter): a parent species gives (L, None); a daughter (L_parent, L).
 
+    Under ``model.source == 'distributed'`` a species with a distributed source is a daughter of it:
+    (distributed_scale r_h^2, L).
+
     Each is :func:`pipeline.coma.haser.scale_length` of the species' photodestruction rate under
     ``model.solar_activity``.  ``parent`` must be the catalogue entry of a daughter's parent, and None
     for a parent species (CatalogueError otherwise).
     """
     r_h = u.Quantity(r_h, u.au)
+    if model.source not in ("nucleus", "distributed"):
+        msg = f"coma model source must be 'nucleus' or 'distributed', found {model.source!r}"
+        raise CatalogueError(msg)
+    if model.source == "distributed" and species.parent is None and species.distributed_scale is not None:
+        return (species.distributed_scale * (r_h / u.au).decompose().value ** 2,
+                scale_length(speed, species.photo_rate(model.solar_activity), r_h))
     if species.parent is None:
         if parent is not None:
             msg = (f"species {species.name!r} is a parent molecule in the catalogue; 'parent' must be "

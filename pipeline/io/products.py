@@ -485,7 +485,7 @@ class BandMeasurements:
 #: Units of the columns of a stack file's INPUTS and SUMMARY tables ('response' mixes line and band units).
 STACK_COLUMN_UNITS = {"t_kin": "K", "aperture_km": "km", "window": "km s-1", "q": "s-1", "sigma_q": "s-1",
                       "r_h": "AU", "delta": "AU", "outflow": "km s-1", "response": "Jy km s-1 s",
-                      "scale": "Jy km s-1 s"}
+                      "scale": "Jy km s-1 s", "q_distributed": "s-1", "sigma_q_distributed": "s-1"}
 
 
 @dataclass

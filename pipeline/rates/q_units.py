@@ -23,6 +23,8 @@ which the temperature fit and Q at any temperature are computed.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import astropy.constants as const
 import astropy.units as u
 import numpy as np
@@ -99,9 +101,10 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     pixel = spectra.pixel_scale_arcsec
     beam_pix = ((spectra.beam_deg[0] * 3600 / pixel, spectra.beam_deg[1] * 3600 / pixel, spectra.beam_deg[2])
                 if spectra.beam_deg is not None else None)
-    grid = GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1], pixel_arcsec=pixel,
-                        radii_pix=list(np.asarray(aps["radius_pix"], dtype=float)), beam_pix=beam_pix)
-    resp, surviving = line_response_on_grid(line, species, parent, t_kin, r_h, delta, grid, model,
+    grid_geometry = GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1],
+                                 pixel_arcsec=pixel, radii_pix=list(np.asarray(aps["radius_pix"], dtype=float)),
+                                 beam_pix=beam_pix)
+    resp, surviving = line_response_on_grid(line, species, parent, t_kin, r_h, delta, grid_geometry, model,
                                             shortest_baseline, correct_filtering)
     resp = resp.to_value(u.Jy * u.km / u.s * u.s)
     rel = vel - float(spectra.v_centre)
@@ -124,6 +127,13 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)
         curve += count[None, :] * (f_grid * cap_grid)[:, None]
     share = 1.0 - resp * frac[:, None] / scale                                                    # (T, ap)
+    # a species the catalogue gives a distributed source: the response under that hypothesis over the nucleus one
+    # (the coma's count changes, the excitation does not, so the ratio holds at every temperature)
+    ratio = None
+    if species.distributed_scale is not None and species.parent is None:
+        alt, _ = line_response_on_grid(line, species, None, t_kin[:1], r_h, delta, grid_geometry,
+                                       replace(model, source="distributed"), shortest_baseline, correct_filtering)
+        ratio = alt.to_value(u.Jy * u.km / u.s * u.s)[0] / resp[0]
     flux = np.asarray(spectra.flux, dtype=float)                                                  # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
     # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
@@ -133,7 +143,7 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     labels = aperture_labels(aps)
     inp = StackInput(epoch=meta.epoch, cube_id=meta.cube_id, line_id=line.line_id, velocity=vel,
                      density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km), apertures=labels,
-                     curve=curve, window=float(spectra.window))
+                     curve=curve, window=float(spectra.window), distributed_ratio=ratio)
     rows = []
     for i, t in enumerate(t_kin.to_value(u.K)):
         for j, r in enumerate(radii.to_value(u.km)):
@@ -141,6 +151,7 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                          "aperture": labels[j], "aperture_km": r, "response": resp[i, j], "window_fraction": frac[i],
                          "scale": scale[i, j], "blend": ",".join(p.line_id for p, _ in partners),
                          "blend_share": share[i, j], "blend_other": ",".join(others),
+                         "distributed_ratio": float(ratio[j]) if ratio is not None else np.nan,
                          "window": float(spectra.window), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
                          "spectral_response": meta.spectral_response, "response_model": "grid",
@@ -178,7 +189,7 @@ def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tup
                 rows.append({"epoch": epoch, "cube_id": cube_id, "line_id": band_id, "t_kin": t,
                              "aperture": label, "aperture_km": float(r["aperture_km"]), "response": float(r["response"]),
                              "window_fraction": float(r["capture"]), "scale": np.nan, "blend": "", "blend_share": 0.0,
-                             "blend_other": "", "window": np.nan, "q": float(r["q"]),
+                             "blend_other": "", "distributed_ratio": np.nan, "window": np.nan, "q": float(r["q"]),
                              "sigma_q": float(r["sigma_q"]), "r_h": float(r["r_h"]), "delta": float(r["delta"]),
                              "outflow": float(r["outflow"]), "spectral_response": "band",
                              "response_model": "grid", "surviving_fraction": 1.0, "kind": "band"})

@@ -23,7 +23,8 @@ import numpy as np
 from pipeline.errors import CoverageError
 from pipeline.rates.statistics import inverse_variance_mean
 
-__all__ = ["StackInput", "rebin_density", "velocity_grid", "combine", "shared_apertures", "distinct_windows"]
+__all__ = ["StackInput", "rebin_density", "velocity_grid", "combine", "shared_apertures", "distinct_windows",
+           "combine_distributed"]
 
 
 @dataclass(frozen=True)
@@ -46,6 +47,7 @@ class StackInput:
     apertures: tuple[str, ...] = ()   # (n_ap,) the apertures as configured ('1000 km', '2 arcsec'); () = by radius
     curve: np.ndarray | None = None   # (n_grid, n_ap) window flux per unit Q on the temperature grid (lines only)
     window: float = float("nan")      # half-width of the integration window [km/s] (lines only)
+    distributed_ratio: np.ndarray | None = None   # (n_ap,) response under a distributed source / nucleus source
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -85,7 +87,8 @@ def shared_apertures(inputs: list[StackInput], what: str = "stack") -> tuple[lis
             continue
         out.append(replace(inp, q=inp.q[:, idx], sigma_q=inp.sigma_q[:, idx], radius_km=inp.radius_km[idx],
                            density=None if inp.density is None else inp.density[:, idx, :],
-                           curve=None if inp.curve is None else inp.curve[:, idx], apertures=tuple(common)))
+                           curve=None if inp.curve is None else inp.curve[:, idx], apertures=tuple(common),
+                           distributed_ratio=None if inp.distributed_ratio is None else inp.distributed_ratio[idx]))
     return out, [f"{', '.join(a)} of {cube}" for cube, a in notes.items() if a]
 
 
@@ -185,3 +188,13 @@ def distinct_windows(inputs: list[StackInput], catalogue) -> tuple[list[StackInp
             notes.append(f"{inp.cube_id}:{inp.line_id} (its window overlaps that of {clash.line_id}, kept)")
     order = {id(i): k for k, i in enumerate(inputs)}
     return sorted(kept, key=lambda i: order[id(i)]), notes
+
+
+def combine_distributed(inputs: list[StackInput]) -> tuple[np.ndarray, np.ndarray] | None:
+    """Q and sigma_Q (n_T, n_ap) under the distributed-source hypothesis: every input's estimate divided by its
+    response ratio, inverse-variance combined; None unless every input has the ratio."""
+    if not inputs or any(i.distributed_ratio is None for i in inputs):
+        return None
+    q = np.array([i.q / i.distributed_ratio[None, :] for i in inputs])
+    s = np.array([i.sigma_q / i.distributed_ratio[None, :] for i in inputs])
+    return inverse_variance_mean(q, s, axis=0)

@@ -64,6 +64,7 @@ class WindowMeasure:
     flux: float
     sigma: float
     curve: np.ndarray | None
+    distributed_ratio: float = float("nan")    # response under a distributed source over the nucleus one
 
     def scale(self, t: np.ndarray) -> np.ndarray:
         """S(T) at the temperatures ``t`` [K] (log-log interpolation on the grid; 1 for a band)."""
@@ -98,9 +99,10 @@ def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
             flux, sigma, curve = q * s, sq * s, found.get((epoch, cube_id, line_id, aperture))
             if curve is None:
                 continue                  # a line without its response curve cannot be moved off the sweep
+        ratio = float(row["distributed_ratio"]) if "distributed_ratio" in row.colnames else float("nan")
         out.append(WindowMeasure(epoch=epoch, cube_id=cube_id, line_id=line_id, aperture=aperture,
                                  aperture_km=float(row["aperture_km"]), kind=kind, flux=flux, sigma=sigma,
-                                 curve=curve))
+                                 curve=curve, distributed_ratio=ratio))
     return out
 
 
@@ -185,10 +187,16 @@ def fit_temperature(measures: list[WindowMeasure], catalogue: Catalogue,
                           e_up_min=float(e_up.min()), e_up_max=float(e_up.max()))
 
 
-def q_at_temperature(measures: list[WindowMeasure], t: float) -> tuple[float, float, list[float], list[float]]:
-    """Every measure's Q estimate at ``t`` [K] and their inverse-variance mean: (Q, sigma_Q, q_i, sigma_i)."""
-    q_i = [m.flux / float(m.scale(np.array([t]))[0]) for m in measures]
-    s_i = [m.sigma / float(m.scale(np.array([t]))[0]) for m in measures]
+def q_at_temperature(measures: list[WindowMeasure], t: float,
+                     distributed: bool = False) -> tuple[float, float, list[float], list[float]]:
+    """Every measure's Q estimate at ``t`` [K] and their inverse-variance mean: (Q, sigma_Q, q_i, sigma_i).
+
+    With ``distributed`` the estimates are under the distributed-source hypothesis (each divided by its
+    ``distributed_ratio``; NaN when a measure has none).
+    """
+    ratio = [m.distributed_ratio if distributed else 1.0 for m in measures]
+    q_i = [m.flux / float(m.scale(np.array([t]))[0]) / r for m, r in zip(measures, ratio)]
+    s_i = [m.sigma / float(m.scale(np.array([t]))[0]) / r for m, r in zip(measures, ratio)]
     w = 1.0 / np.square(s_i)
     return float(np.sum(w * np.array(q_i)) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w))), q_i, s_i
 

@@ -330,6 +330,10 @@ def quoted_section(limits: QTable) -> str:
             value = f"{r['q'].value:.3g} ± {r['q_err'].value:.2g}" + (f" ± {sys_:.2g} (T)" if np.isfinite(sys_) else "")
         else:
             value = f"< {r['q_upper'].value:.3g}"
+        q_d = float(r["q_distributed"].to_value(1 / u.s)) if "q_distributed" in r.colnames else np.nan
+        if np.isfinite(q_d) and abs(q_d - r["q"].value) > r["q_err"].value:
+            value += (f"; from a distributed source {q_d:.3g} ± {r['q_distributed_err'].to_value(1 / u.s):.2g}"
+                      if bool(r["detected"]) else "; a distributed source needs more (see limits.ecsv)")
         tau = float(r["tau_peak"]) if "tau_peak" in r.colnames and np.isfinite(r["tau_peak"]) else np.nan
         thick = np.isfinite(tau) and tau > OPACITY_THRESHOLD
         corrected = "opacity_corrected" in r.colnames and bool(r["opacity_corrected"])

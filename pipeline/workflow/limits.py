@@ -68,9 +68,25 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
         rows["t_kin_lo_K"] = [choice["lo"]]
         rows["t_kin_hi_K"] = [choice["hi"]]
         rows["q_sys"] = [temperature_systematic(members, t, lo, hi)] / u.s
+        q_d, s_d, _, _ = q_at_temperature(members, t, distributed=True)
+        rows["q_distributed"] = [q_d] / u.s
+        rows["q_distributed_err"] = [s_d] / u.s
         rows["adopted"] = [bool(rows["detected"][0])]
         out.append(rows)
     return out
+
+
+def _distributed_columns(rows: QTable, sel, t: np.ndarray) -> None:
+    """Q and its error under a distributed source, in the order limit_rows gives (T outer, aperture inner)."""
+    q_d = np.full(len(rows), np.nan)
+    s_d = np.full(len(rows), np.nan)
+    if "q_distributed" in sel.colnames:
+        n_ap = len(rows) // max(len(t), 1)
+        for row in sel:
+            k = int(np.searchsorted(t, row["t_kin"])) * n_ap + int(row["aperture_index"])
+            q_d[k], s_d[k] = float(row["q_distributed"]), float(row["sigma_q_distributed"])
+    rows["q_distributed"] = q_d / u.s
+    rows["q_distributed_err"] = s_d / u.s
 
 
 def _mark_adopted(table: QTable, lines_measured: bool = True) -> QTable:
@@ -145,6 +161,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
                 ap[row["aperture_index"]] = row["aperture_km"]
             rows = limit_rows(species, str(group), t * u.K, ap * u.km, q / u.s, s / u.s, nsigma,
                               str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
+            _distributed_columns(rows, sel, t)
             add_fit_columns(rows)
             fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass)
             opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
@@ -160,6 +177,8 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
         add_fit_columns(table)
         table["tau_peak"] = np.zeros(0)
         table["surviving_fraction"] = np.zeros(0)
+        table["q_distributed"] = np.zeros(0) / u.s
+        table["q_distributed_err"] = np.zeros(0) / u.s
         table = _with_adoption_columns(table)
     if len(table):
         table = _mark_adopted(table, any(m.kind == "line" for m in measures))

@@ -13,7 +13,7 @@ from pipeline.io.atomic import write_fits
 from pipeline.io.products import BandMeasurements, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.rates.q_units import band_inputs, stack_input
-from pipeline.rates.stacking import combine, distinct_windows, shared_apertures, velocity_grid
+from pipeline.rates.stacking import combine, combine_distributed, distinct_windows, shared_apertures, velocity_grid
 from pipeline.settings import Settings
 
 __all__ = ["run", "ALL"]
@@ -79,6 +79,7 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
                         ", ".join(members[0].labels), "; ".join(left_out))
         edges = velocity_grid(members, half)
         res = combine(members, edges)
+        alt = combine_distributed(members)
         centres = 0.5 * (edges[:-1] + edges[1:])
         spectra[group] = StackedSpectrum(group=group, density=res["density"], v_start=float(centres[0]),
                                          v_step=float(edges[1] - edges[0]))
@@ -90,7 +91,9 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
                 summary.append({"epoch": group, "t_kin": t, "aperture_index": j, "aperture": members[0].labels[j],
                                 "aperture_km": radius, "q": res["q"][i, j],
                                 "sigma_q": res["sigma_q"][i, j], "lines": ",".join(lines),
-                                "cubes": ",".join(cubes), "apertures_left_out": "; ".join(left_out)})
+                                "cubes": ",".join(cubes), "apertures_left_out": "; ".join(left_out),
+                                "q_distributed": alt[0][i, j] if alt is not None else np.nan,
+                                "sigma_q_distributed": alt[1][i, j] if alt is not None else np.nan})
         log.info("%s %s: %d spectra (%s) -> Q(T=%g K, first aperture) = %.3g +- %.3g /s", species, group,
                  len(members), ", ".join(lines), t_kin[0], res["q"][0, 0], res["sigma_q"][0, 0])
     curves = [{"epoch": i.epoch, "cube_id": i.cube_id, "line_id": i.line_id, "aperture": label,
