@@ -10,8 +10,9 @@ rule budget:
         json=f"{OUT}/budget.json",
         exclusion=f"{OUT}/exclusion.ecsv",
         water=f"{OUT}/water_inferred.ecsv",
+        zeta=f"{OUT}/zeta.ecsv",
     params:
-        settings=settings_of("budget", "campaign", "catalogue"),
+        settings=settings_of("budget", "campaign", "catalogue", "target"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/budget.log",

@@ -10,6 +10,7 @@ rule report:
         injection=injection_files(),
         exclusion=f"{OUT}/exclusion.ecsv",
         water=f"{OUT}/water_inferred.ecsv",
+        zeta=f"{OUT}/zeta.ecsv",
         activity=f"{OUT}/activity.ecsv",
         forecast=f"{OUT}/forecast.ecsv",
         bands=bands_files(),

@@ -19,7 +19,7 @@ from pipeline.coma.haser import parent_aperture_count, scale_length
 from pipeline.coma.line_profile import thermal_dispersion
 from pipeline.errors import OpacityWarning
 from pipeline.io.products import SpeciesStack
-from pipeline.rates.line_fit import fit_line
+from pipeline.rates.line_fit import fit_line, line_moment
 
 __all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns", "opacity_factor", "OPACITY_THRESHOLD"]
 
@@ -27,17 +27,20 @@ log = logging.getLogger(__name__)
 
 
 def add_fit_columns(table: QTable) -> None:
-    """Add the columns of the line-profile fit (q_fit, q_fit_err, v_offset, v_offset_err), NaN until fitted."""
+    """Add the columns of the line-profile fit (q_fit, q_fit_err, v_offset, v_offset_err) and of the line's first
+    moment (v_moment, v_moment_err), NaN until fitted."""
     n = len(table)
     table["q_fit"] = np.full(n, np.nan) / u.s
     table["q_fit_err"] = np.full(n, np.nan) / u.s
     table["v_offset"] = np.full(n, np.nan) * u.km / u.s
     table["v_offset_err"] = np.full(n, np.nan) * u.km / u.s
+    table["v_moment"] = np.full(n, np.nan) * u.km / u.s
+    table["v_moment_err"] = np.full(n, np.nan) * u.km / u.s
 
 
 def fit_detections(table: QTable, group: str, stack: SpeciesStack, inputs: Table, t_grid: np.ndarray,
                     mass) -> None:
-    """Fill q_fit, q_fit_err, v_offset, v_offset_err for the detected rows of one epoch group."""
+    """Fill q_fit, q_fit_err, v_offset, v_offset_err, v_moment, v_moment_err for the detected rows of one group."""
     members = inputs[(inputs["epoch"] == group)] if group != "all" else inputs
     if "kind" in members.colnames:  # infrared bands have no velocity spectrum to fit
         members = members[members["kind"] == "line"]
@@ -61,6 +64,9 @@ def fit_detections(table: QTable, group: str, stack: SpeciesStack, inputs: Table
         table["q_fit_err"][k] = fit.q_err / u.s
         table["v_offset"][k] = fit.v_offset * u.km / u.s
         table["v_offset_err"][k] = fit.v_offset_err * u.km / u.s
+        m1, m1_err = line_moment(vel, spectrum.density[it, ja], v_out + 3 * sig_th + abs(spectrum.v_step))
+        table["v_moment"][k] = m1 * u.km / u.s
+        table["v_moment_err"][k] = m1_err * u.km / u.s
 
 
 def opacity_columns(table: QTable, inputs: Table, catalogue: Catalogue, species_name: str,

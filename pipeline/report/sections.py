@@ -25,7 +25,7 @@ from pipeline.report.html import figure_html, table_html
 
 __all__ = ["spectrum_panels", "band_panels", "afrho_points", "infrared_section", "budget_figure", "sweep_curves",
            "injection_section", "joint_section", "forecast_section", "rotational_diagrams", "temperature_section",
-           "quoted_section", "water_section"]
+           "quoted_section", "water_section", "zeta_section"]
 
 
 def spectrum_panels(stack_paths: list[str], limits: QTable, catalogue: Catalogue) -> list[SpectrumPanel]:
@@ -366,3 +366,27 @@ def water_section(water_path: str) -> str:
             "taken from the literature; the result is only as good as that range, and no verdict uses it.</div>"
             + table_html(["tracer", "epoch", "aperture [km]", "quoted", "abundance / H2O", "inferred Q(H2O) [1/s]",
                           "Q(H2O) the push needs [1/s]", "reading", "abundance source"], rows, left=4))
+
+
+def zeta_section(zeta_path: str) -> str:
+    """The momentum efficiency each detected line's centre allows (empty note when no line was fitted)."""
+    zeta = QTable.read(zeta_path, format="ascii.ecsv")
+    model = ("<p>If escaping gas drives the push, it leaves against it, and a detected line's centre moves by "
+             "ζ v_ej cos θ (θ between the line of sight and the direction opposite to the push; the first moment of "
+             "an optically thin line is the emitters' mean line-of-sight velocity). Each detected line's first moment "
+             "gives "
+             "the efficiency ζ it allows; the budget is also computed at the combined 95 % bound when that is below "
+             "the configured efficiency (the assumption set 'line-shift zeta'). The push's direction: "
+             + (html.escape(str(zeta["push_direction"][0])) if len(zeta) else "–") + ".</p>")
+    if not len(zeta):
+        return "<p>No detected line has a fitted centre: the line shapes say nothing about the push here.</p>"
+
+    def fmt(x, spec):
+        return "–" if not np.isfinite(x) else format(x, spec)
+
+    rows = [[str(r["species"]), str(r["epoch"]), fmt(float(r["v_moment"].value), "+.3f") + " ± "
+             + fmt(float(r["v_moment_err"].value), ".3f"), fmt(float(r["cos_theta"]), "+.2f"),
+             fmt(float(r["zeta"]), ".2g") + " ± " + fmt(float(r["zeta_err"]), ".2g"), fmt(float(r["zeta_upper"]), ".2g"),
+             str(r["reading"])] for r in zeta]
+    return model + table_html(["species", "epoch", "line first moment [km/s]", "cos θ", "ζ", "ζ (95 % upper)", "reading"],
+                              rows, left=2)

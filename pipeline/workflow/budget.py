@@ -10,6 +10,7 @@ from astropy.table import QTable
 
 from pipeline.io.atomic import write_json, write_table
 from pipeline.budget.table import budget_table, dust_forces, epoch_distances, joint_exclusion, rocket_fraction
+from pipeline.budget.line_shift import offered_zeta, zeta_table
 from pipeline.budget.tracers import inferred_water
 from pipeline.io.provenance import provenance_record
 from pipeline.settings import Settings
@@ -20,7 +21,8 @@ log = logging.getLogger(__name__)
 
 
 def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecsv: str, out_json: str,
-        out_exclusion: str | None = None, dust_path: str | None = None, out_water: str | None = None) -> None:
+        out_exclusion: str | None = None, dust_path: str | None = None, out_water: str | None = None,
+        out_zeta: str | None = None) -> None:
     """Compute and write the budget tables (with the dust's push when budget.include_dust is set), and the water
     inferred from tracers (``out_water``; empty without budget.water_from_tracers)."""
     limits = QTable.read(limits_path, format="ascii.ecsv")
@@ -30,6 +32,11 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
     assume = sets[0]
     rh = epoch_distances(geometry_paths)
     catalogue = settings.catalogue()
+    geometry = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
+    zeta = zeta_table(limits, geometry, settings.target.elements, assume, catalogue, rh)
+    offered = offered_zeta(zeta, assume)
+    if offered is not None:
+        sets.append(offered)
     table = budget_table(limits, rh, sets, catalogue, forces)
     record = provenance_record(settings, [limits_path, *geometry_paths, *([dust_path] if dust_path else [])], "budget")
     table.meta["provenance"] = record
@@ -73,6 +80,11 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
         "provenance": record,
     }
     write_json(summary, out_json)
+    if out_zeta is not None:
+        zeta.meta["model"] = ("v_offset = zeta v_ej cos(theta), theta between the line of sight and the direction "
+                              "opposite to the push (pipeline.budget.line_shift)")
+        zeta.meta["provenance"] = record
+        write_table(zeta, out_zeta)
     if out_water is not None:
         tracers = settings.budget.water_from_tracers
         missing = [t.species for t in tracers if t.species not in set(str(x) for x in limits["species"])]

@@ -16,7 +16,8 @@ from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams
 from pipeline.report.html import figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
                                       injection_section, joint_section, quoted_section, rotational_diagrams,
-                                      spectrum_panels, sweep_curves, temperature_section, water_section)
+                                      spectrum_panels, sweep_curves, temperature_section, water_section,
+                                      zeta_section)
 from pipeline.settings import Settings
 
 __all__ = ["run"]
@@ -88,6 +89,7 @@ def run(inputs, outputs, settings: Settings) -> None:
                   "the upper limit.", "stacked spectra")))
     sections.append(("Quoted production rates and limits", quoted_section(limits)))
     sections.append(("Temperature measured from line ladders", temperature_section(inputs.temperature, fig_rot)))
+    sections.append(("What the line shapes say about the push", zeta_section(inputs.zeta)))
     sections.append(("Water inferred from tracers", water_section(inputs.water)))
     cons = limits[limits["conservative"]]
     band_ids = {b.band_id for b in catalogue.bands}

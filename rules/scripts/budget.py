@@ -9,4 +9,4 @@ with stage_errors(log):
     settings = rule_settings(snakemake)
     budget.run(snakemake.input.limits, list(snakemake.input.geometry), settings, snakemake.output.ecsv,
                snakemake.output.json, snakemake.output.exclusion, dust_path=snakemake.input.dust,
-               out_water=snakemake.output.water)
+               out_water=snakemake.output.water, out_zeta=snakemake.output.zeta)
