@@ -214,6 +214,11 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
                           "band flux = continuum-subtracted integral over the band extent widened by the line-spread "
                           "function; Q does not depend on T_kin",
         "q_upper": "Bayesian, flat prior on Q >= 0, one-sided confidence of nsigma",
+        "quoted temperature": "detections at the temperature measured from a species' lines (or "
+                              "excitation.t_adopted_K), with Q's spread over its interval as q_sys; upper limits at "
+                              "the sweep's conservative temperature",
+        "distributed sources": "species with a catalogue distributed_scale_km also given as a Haser daughter of "
+                               "that source (q_distributed); the main result assumes release at the nucleus",
         "opacity": "rows with peak optical depth > 0.1 marked (opacity_factor = tau / (1 - exp(-tau))); quoted "
                    "detections multiplied by it only with excitation.opacity_correction = escape_probability",
         "nsigma": settings.limits.nsigma,
