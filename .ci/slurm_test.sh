@@ -23,7 +23,7 @@ T0=$(date +%s)
 MARK="# Written by gasledger .ci/slurm_test.sh for its one-node test cluster."
 PARTITION=main            # the partition that profiles/slurm asks for by default
 NODE_TIMEOUT=120          # seconds for the node to come up idle
-RUN_TIMEOUT=900           # seconds for one workflow run
+RUN_TIMEOUT=1500          # seconds for one workflow run
 
 say() { echo "slurm_test: $*"; }
 die() { echo "slurm_test: FAILED: $*" >&2; exit 1; }
