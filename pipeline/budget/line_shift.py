@@ -36,18 +36,18 @@ from astropy.time import Time
 from pipeline.budget.table import ejection_speed_at
 from pipeline.geometry.observers import body_barycentric
 from pipeline.geometry.orbit import heliocentric_state
-from pipeline.rates.statistics import inverse_variance_mean
+from pipeline.rates.statistics import bayesian_upper_limit, inverse_variance_mean
 
 if TYPE_CHECKING:
     from pipeline.budget.table import BudgetAssumptions
     from pipeline.catalogue import Catalogue
     from pipeline.geometry.orbit import OrbitalElements
 
-__all__ = ["line_of_sight", "push_direction", "target_heliocentric", "zeta_from_offset", "UPPER_Z", "zeta_table",
-           "offered_zeta"]
+__all__ = ["line_of_sight", "push_direction", "target_heliocentric", "zeta_from_offset", "UPPER_CONFIDENCE",
+           "zeta_table", "offered_zeta"]
 
-#: One-sided 95 % upper bound, in sigma (the standard normal quantile of 0.95).
-UPPER_Z = 1.6448536269514722
+#: Confidence of the upper bound on zeta (one-sided).
+UPPER_CONFIDENCE = 0.95
 
 
 def line_of_sight(ra: u.Quantity, dec: u.Quantity) -> np.ndarray:
@@ -80,7 +80,8 @@ def zeta_from_offset(v_offset: float, v_err: float, v_ej: float, cos_theta: floa
                      min_cos: float = 0.2) -> dict:
     """The momentum efficiency a line-centre offset allows.
 
-    Returns ``zeta``, ``zeta_err``, ``zeta_upper`` (one-sided 95 %, never below 0) and ``reading``; all NaN with
+    Returns ``zeta``, ``zeta_err``, ``zeta_upper`` (95 %, the Bayesian bound for a flat prior on zeta >= 0, as
+    for the production-rate limits: a shift the wrong way does not push the bound to zero) and ``reading``; NaN with
     a reading when |cos theta| < ``min_cos`` (the line of sight nearly across the push: the shift cannot tell).
     Speeds in km/s.
 
@@ -93,7 +94,7 @@ def zeta_from_offset(v_offset: float, v_err: float, v_ej: float, cos_theta: floa
                            "the line shift cannot tell"}
     zeta = v_offset / (v_ej * cos_theta)
     err = v_err / (v_ej * abs(cos_theta))
-    upper = max(zeta + UPPER_Z * err, 0.0)
+    upper = float(bayesian_upper_limit(zeta, err, UPPER_CONFIDENCE))
     if zeta - 2 * err > 0:
         reading = f"the gas leaves against the push: zeta = {zeta:.2g} +- {err:.2g}"
     elif zeta + 2 * err < 0:
@@ -151,7 +152,7 @@ def zeta_table(limits: QTable, geometry: list, elements: "OrbitalElements | None
         if usable:
             mean, err = inverse_variance_mean(np.array([z["zeta"] for z in usable]),
                                               np.array([z["zeta_err"] for z in usable]))
-            upper = max(float(mean) + UPPER_Z * float(err), 0.0)
+            upper = float(bayesian_upper_limit(float(mean), float(err), UPPER_CONFIDENCE))
             rows.append({"species": species, "epoch": "all", "aperture_km": np.nan, "v_moment": np.nan,
                          "v_moment_err": np.nan, "cos_theta": np.nan, "ejection_speed": np.nan,
                          "zeta": float(mean), "zeta_err": float(err), "zeta_upper": upper,
