@@ -74,6 +74,11 @@ class WindowMeasure:
         return np.exp(np.interp(np.log(t), np.log(TEMPERATURE_GRID), np.log(self.curve)))
 
 
+def _float(value) -> float:
+    """A table cell as a float; a masked cell (a NaN written to FITS reads back masked) as NaN."""
+    return float("nan") if np.ma.is_masked(value) else float(value)
+
+
 def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
     """The stack's INPUTS table (and its CURVES) turned back into measured window fluxes, per input and aperture."""
     out: list[WindowMeasure] = []
@@ -99,7 +104,7 @@ def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
             flux, sigma, curve = q * s, sq * s, found.get((epoch, cube_id, line_id, aperture))
             if curve is None:
                 continue                  # a line without its response curve cannot be moved off the sweep
-        ratio = float(row["distributed_ratio"]) if "distributed_ratio" in row.colnames else float("nan")
+        ratio = _float(row["distributed_ratio"]) if "distributed_ratio" in row.colnames else float("nan")
         out.append(WindowMeasure(epoch=epoch, cube_id=cube_id, line_id=line_id, aperture=aperture,
                                  aperture_km=float(row["aperture_km"]), kind=kind, flux=flux, sigma=sigma,
                                  curve=curve, distributed_ratio=ratio))

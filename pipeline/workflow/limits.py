@@ -84,7 +84,8 @@ def _distributed_columns(rows: QTable, sel, t: np.ndarray) -> None:
         n_ap = len(rows) // max(len(t), 1)
         for row in sel:
             k = int(np.searchsorted(t, row["t_kin"])) * n_ap + int(row["aperture_index"])
-            q_d[k], s_d[k] = float(row["q_distributed"]), float(row["sigma_q_distributed"])
+            q_d[k], s_d[k] = (np.nan if np.ma.is_masked(row[c]) else float(row[c])
+                              for c in ("q_distributed", "sigma_q_distributed"))
     rows["q_distributed"] = q_d / u.s
     rows["q_distributed_err"] = s_d / u.s
 
