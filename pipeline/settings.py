@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import copy
 import functools
+import re
 from collections.abc import Iterable
 from dataclasses import dataclass, fields, replace
 from pathlib import Path
@@ -161,6 +162,7 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
         msg = f"{source}: expected a mapping of keys at the top level, found {type(config).__name__}"
         raise ConfigError(msg)
     validator = _with_defaults(jsonschema.Draft202012Validator)(_load_schema())
+    _numbers_from_text(validator, config)
     errors = sorted(validator.iter_errors(config), key=lambda e: list(e.absolute_path))
     if errors:
         error = errors[0]
@@ -180,6 +182,7 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
                 extra = [e for e in errs if e.validator == "additionalProperties"]
                 error = (deep or extra or errs)[0]
         raise ConfigError(_describe(error, source))
+    _check_ranges(config, source)
     entries = cube_entries(config, source)
     if not {"ephemeris", "elements"} & set(config["target"]):
         bare = [f"cubes[{i}] ({e.cube_id})" for i, e in enumerate(entries) if e.ephemeris is None]
@@ -196,6 +199,56 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
             raise ConfigError(msg)
         seen[entry.cube_id] = entry.path
     return config
+
+
+#: A number in exponent form without a decimal point ('2e-6'): YAML 1.2 reads it as a float, YAML 1.1 as text.
+_EXPONENT_FLOAT = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)[eE][-+]?\d+$")
+
+
+def _numbers_from_text(validator, config: dict[str, Any]) -> None:
+    """Read '2e-6' as the number YAML 1.2 makes of it where the schema expects a number (YAML 1.1 loaders, as
+    PyYAML and Snakemake's, leave it a string); nothing else is converted."""
+    for _ in range(10_000):
+        for error in validator.iter_errors(config):
+            expected = error.validator_value if isinstance(error.validator_value, list) else [error.validator_value]
+            if (error.validator == "type" and "number" in expected and isinstance(error.instance, str)
+                    and _EXPONENT_FLOAT.match(error.instance.strip()) and error.absolute_path):
+                *where, last = list(error.absolute_path)
+                holder = config
+                for key in where:
+                    holder = holder[key]
+                holder[last] = float(error.instance)
+                break
+        else:
+            return
+
+
+#: Config keys that hold a [min, max] range (a path of keys; '*' for every item of a list).
+_RANGES = (("budget", "nucleus", "radius_km"), ("budget", "nucleus", "density_kg_m3"),
+           ("budget", "nucleus", "mass_kg"), ("budget", "nucleus", "albedo"),
+           ("budget", "water_from_tracers", "*", "abundance"))
+
+
+def _check_ranges(config: dict[str, Any], source: str) -> None:
+    """Refuse a [min, max] range given high to low (e.g. a nucleus radius [0.6, 0.15])."""
+    def walk(node, path, done):
+        if not path:
+            if isinstance(node, list) and len(node) == 2 and all(isinstance(v, (int, float)) for v in node) \
+                    and node[0] > node[1]:
+                key = ".".join(done).replace(".[", "[")
+                msg = (f"{source}: key {key} = {node!r} is a range given high to low; expected [min, max] "
+                       f"([{node[1]!r}, {node[0]!r}])")
+                raise ConfigError(msg)
+            return
+        head, rest = path[0], path[1:]
+        if head == "*" and isinstance(node, list):
+            for i, item in enumerate(node):
+                walk(item, rest, done[:-1] + [f"{done[-1]}[{i}]"])
+        elif isinstance(node, dict) and head in node:
+            walk(node[head], rest, done + [head])
+
+    for path in _RANGES:
+        walk(config, list(path), [])
 
 
 def cube_entries(config: dict[str, Any], source: str = "config") -> list[CubeEntry]:

@@ -272,3 +272,26 @@ def test_a_step_reads_only_the_sections_its_rule_declares():
 def test_absolute_magnitude_needs_an_albedo():
     with pytest.raises(ConfigError, match="albedo"):
         validate_config(_base(budget={"nucleus": {"absolute_magnitude": 18.0}}))
+
+
+def test_exponent_numbers_that_yaml_1_1_leaves_as_text_are_read_as_numbers():
+    # YAML 1.2 (core schema) reads '2e-6' as a float; PyYAML (YAML 1.1) as a string: gasledger reads it as the
+    # number where the schema expects a number, and nowhere else (a cube id '1e5' stays text)
+    config = yaml.safe_load("budget: {acceleration_m_s2: [2e-6, 3e-7]}\napertures_km: [1e3, 3000]\n")
+    assert config["budget"]["acceleration_m_s2"] == ["2e-6", "3e-7"]          # what a YAML 1.1 loader gives
+    config.update(_base(cubes=[{"path": "a.fits", "id": "1e5"}]))
+    config = validate_config(config)
+    assert config["budget"]["acceleration_m_s2"] == [2e-6, 3e-7] and config["apertures_km"] == [1000.0, 3000]
+    assert config["cubes"][0]["id"] == "1e5"
+    with pytest.raises(ConfigError, match=r"key apertures_km\[0\] = 'big' is not valid"):
+        validate_config(_base(apertures_km=["big"]))
+
+
+@pytest.mark.parametrize("changes, key", [
+    ({"budget": {"nucleus": {"radius_km": [0.6, 0.15]}}}, r"budget\.nucleus\.radius_km = \[0\.6, 0\.15\]"),
+    ({"budget": {"water_from_tracers": [{"species": "HCN", "abundance": [0.01, 0.001], "ref": "r"}]}},
+     r"budget\.water_from_tracers\[0\]\.abundance = \[0\.01, 0\.001\]"),
+])
+def test_a_range_given_high_to_low_is_refused(changes, key):
+    with pytest.raises(ConfigError, match=key + r" is a range given high to low; expected \[min, max\]"):
+        validate_config(_base(**changes))

@@ -17,6 +17,7 @@ entry the line was taken from.
 from __future__ import annotations
 
 import re
+import difflib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -255,7 +256,11 @@ class Catalogue:
             return self.species[name]
         except KeyError:
             known = ", ".join(sorted(self.species))
-            msg = (f"species {name!r} is not in the catalogue {self.source[0]}; "
+            # a case slip ('hcn') or a digit zero for the letter O ('C0') first, then the closest spelling
+            same = [s for s in self.species if s.lower() in (str(name).lower(), str(name).lower().replace("0", "o"))]
+            close = same or difflib.get_close_matches(str(name).upper(), list(self.species), n=1, cutoff=0.6)
+            hint = f" (did you mean {close[0]!r}? names are case-sensitive)" if close else ""
+            msg = (f"species {name!r} is not in the catalogue {self.source[0]}{hint}; "
                    f"expected one of: {known}")
             raise CatalogueError(msg) from None
 

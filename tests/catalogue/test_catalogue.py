@@ -935,3 +935,15 @@ def test_band_extent_holds_the_rotational_branches(cat, band_id, j_step):
     # and the extent is not much wider than the branches (within 0.01 um)
     assert lines_um.min() - band.extent_lo.to_value(u.um) < 0.01
     assert band.extent_hi.to_value(u.um) - lines_um.max() < 0.01
+
+
+def test_a_misspelt_species_gets_a_suggestion():
+    from pipeline.catalogue.entries import load_catalogue
+    from pipeline.errors import CatalogueError
+
+    cat = load_catalogue()
+    for typed, meant in (("hcn", "HCN"), ("C0", "CO"), ("CH3OHH", "CH3OH")):
+        with pytest.raises(CatalogueError, match=rf"species '{typed}' is not in the catalogue .*did you mean '{meant}'"):
+            cat.get_species(typed)
+    with pytest.raises(CatalogueError, match=r"species 'xyz' is not in the catalogue [^(]*; expected one of"):
+        cat.get_species("xyz")
