@@ -324,14 +324,52 @@ def append_cubes(path: str | Path, entries: list[dict[str, Any]]) -> None:
     """
     path = Path(path)
     known = {c.cube_id for c in cube_entries(load_config(path), str(path))}
-    raw = yaml.safe_load(path.read_text(encoding="utf-8"))
+    text = path.read_text(encoding="utf-8")
+    raw = yaml.safe_load(text)
     for entry in entries:
         if entry["id"] in known:
             msg = f"{path}: a cube with id {entry['id']!r} is already in the campaign; expected a new id (set 'id')"
             raise ConfigError(msg)
         known.add(entry["id"])
         raw["cubes"].append(entry)
-    write_campaign(raw, path)
+    validate_config(copy.deepcopy(raw), source=str(path))
+    kept = _insert_cubes(text, entries)
+    if kept is not None and yaml.safe_load(kept) == raw:
+        from pipeline.io.atomic import write_text
+
+        write_text(kept, path)              # the user's comments and layout kept
+    else:
+        write_campaign(raw, path)           # a flow-style or unusual 'cubes' list: rewritten as plain YAML
+
+
+def _insert_cubes(text: str, entries: list[dict[str, Any]]) -> str | None:
+    """``text`` with ``entries`` added at the end of its block-style top-level ``cubes:`` list (None if not found)."""
+    lines = text.splitlines(keepends=True)
+    start = next((i for i, ln in enumerate(lines) if re.match(r"^cubes:\s*(#.*)?$", ln.rstrip("\n"))), None)
+    if start is None:
+        return None
+    indent, end = None, len(lines)
+    for i in range(start + 1, len(lines)):
+        ln = lines[i].rstrip("\n")
+        if not ln.strip() or ln.lstrip().startswith("#"):
+            continue
+        lead = len(ln) - len(ln.lstrip())
+        if indent is None:
+            if not ln.lstrip().startswith("- "):
+                return None
+            indent = lead
+        if lead < indent or (lead == indent and not ln.lstrip().startswith("- ")):
+            end = i
+            break
+    if indent is None:
+        return None
+    while end > start + 1 and not lines[end - 1].strip():
+        end -= 1                            # new items go right after the last item, before blank lines
+    block = yaml.safe_dump(entries, sort_keys=False, default_flow_style=False)
+    added = "".join(" " * indent + ln + "\n" for ln in block.splitlines())
+    if end > 0 and not lines[end - 1].endswith("\n"):
+        lines[end - 1] += "\n"
+    return "".join(lines[:end]) + added + "".join(lines[end:])
 
 
 def load_settings(path: str | Path) -> "Settings":

@@ -295,3 +295,27 @@ def test_exponent_numbers_that_yaml_1_1_leaves_as_text_are_read_as_numbers():
 def test_a_range_given_high_to_low_is_refused(changes, key):
     with pytest.raises(ConfigError, match=key + r" is a range given high to low; expected \[min, max\]"):
         validate_config(_base(**changes))
+
+
+@pytest.mark.parametrize("item_indent", [0, 2])
+def test_adding_cubes_keeps_the_users_comments(tmp_path, item_indent):
+    from pipeline.settings import append_cubes
+
+    for name in ("a.fits", "b.fits", "e.ecsv"):
+        (tmp_path / name).write_text("x")
+    pad = " " * item_indent
+    text = (f"# my campaign: a comment to keep\ntarget:\n  ephemeris: {tmp_path}/e.ecsv\ncubes:\n{pad}# first night\n"
+            f"{pad}- path: {tmp_path}/a.fits   # the good one\n{pad}  id: a\n\nspecies: [HCN]   # only HCN\n")
+    (tmp_path / "c.yaml").write_text(text)
+    append_cubes(tmp_path / "c.yaml", [{"path": str(tmp_path / "b.fits"), "id": "b", "epoch": "e5"}])
+    out = (tmp_path / "c.yaml").read_text()
+    for comment in ("# my campaign: a comment to keep", "# first night", "# the good one", "# only HCN"):
+        assert comment in out
+    config = yaml.safe_load(out)
+    assert [c["id"] for c in config["cubes"]] == ["a", "b"] and config["cubes"][1]["epoch"] == "e5"
+    assert config["species"] == ["HCN"]
+    # a flow-style list cannot take a block item: the file is rewritten as plain YAML, still complete
+    (tmp_path / "f.yaml").write_text(f"target: {{ephemeris: {tmp_path}/e.ecsv}}\ncubes: [{{path: {tmp_path}/a.fits}}]\n"
+                                     "species: [HCN]\n")
+    append_cubes(tmp_path / "f.yaml", [{"path": str(tmp_path / "b.fits"), "id": "b"}])
+    assert [c.get("id") for c in yaml.safe_load((tmp_path / "f.yaml").read_text())["cubes"]] == [None, "b"]
