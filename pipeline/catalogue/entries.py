@@ -382,12 +382,24 @@ def _read_partition(path: Path, species_file: Path, wanted: set[str]) -> dict[st
     return out
 
 
-def _distributed_scale(row) -> u.Quantity | None:
-    """The optional column ``distributed_scale_km`` (km at 1 au; NaN or absent: no distributed source)."""
-    if "distributed_scale_km" not in row.colnames:
+def _distributed_scale(row, source: Path) -> u.Quantity | None:
+    """The optional column ``distributed_scale_km`` (km at 1 au; NaN, masked or absent: no distributed source).
+
+    Raises
+    ------
+    CatalogueError
+        For a value that is not a positive length.
+    """
+    if "distributed_scale_km" not in row.colnames or np.ma.is_masked(row["distributed_scale_km"]):
         return None
     value = u.Quantity(row["distributed_scale_km"], u.km)
-    return value if np.isfinite(value.value) and value.value > 0 else None
+    if not np.isfinite(value.value):
+        return None
+    if value.value <= 0:
+        msg = (f"species catalogue {str(source)!r}: species {str(row['species'])!r} has distributed_scale_km = "
+               f"{value.value:g}; expected a positive scale length at 1 au, or nan for no distributed source")
+        raise CatalogueError(msg)
+    return value
 
 
 def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
@@ -439,7 +451,7 @@ def load_catalogue(species_file: str | Path = DEFAULT_SPECIES_FILE,
             photo_active=u.Quantity(row["photo_active"], 1 / u.s),
             parent=None if parent in ("-", "", "None") else parent,
             partition_table=tables.get(name),
-            distributed_scale=_distributed_scale(row),
+            distributed_scale=_distributed_scale(row, species_file),
         )
     lines = []
     seen = set()

@@ -7,7 +7,17 @@ from typing import Any
 import numpy as np
 from astropy.table import QTable
 
-__all__ = ["table_as_json"]
+__all__ = ["table_as_json", "cell_float"]
+
+
+def cell_float(value) -> float:
+    """A table cell as a float; a masked cell (a NaN written to a FITS table reads back masked) as NaN.
+
+    >>> import numpy as np
+    >>> cell_float(np.ma.masked), cell_float(2)
+    (nan, 2.0)
+    """
+    return float("nan") if np.ma.is_masked(value) else float(value)
 
 
 def table_as_json(table: QTable) -> dict[str, Any]:

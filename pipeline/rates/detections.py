@@ -21,7 +21,7 @@ from pipeline.errors import OpacityWarning
 from pipeline.io.products import SpeciesStack
 from pipeline.rates.line_fit import fit_line, line_moment
 
-__all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns", "opacity_factor", "OPACITY_THRESHOLD"]
+__all__ = ["add_fit_columns", "fit_detections", "opacity_columns", "filtering_columns", "opacity_factor", "OPACITY_THRESHOLD", "mark_opacity"]
 
 log = logging.getLogger(__name__)
 
@@ -118,6 +118,24 @@ def opacity_factor(tau) -> np.ndarray:
     with np.errstate(invalid="ignore", divide="ignore"):
         out = np.where(tau > 1e-8, -tau / np.expm1(-np.where(tau > 1e-8, tau, 1.0)), 1.0 + tau / 2)
     return out
+
+
+def mark_opacity(table: QTable, correction: str) -> None:
+    """Mark rows whose peak optical depth exceeds the threshold; with 'escape_probability', correct quoted detections.
+
+    ``opacity_factor`` is tau / (1 - exp(-tau)) where tau_peak > OPACITY_THRESHOLD, else 1; ``opacity_corrected``
+    says whether a row's Q, sigma_Q, q_sys and q_upper were multiplied by it (quoted detections only).
+    """
+    tau = np.nan_to_num(np.asarray(table["tau_peak"], dtype=float)) if "tau_peak" in table.colnames else np.zeros(
+        len(table))
+    factor = np.where(tau > OPACITY_THRESHOLD, opacity_factor(tau), 1.0)
+    table["opacity_factor"] = factor
+    fix = (np.asarray(table["adopted"], bool) & np.asarray(table["detected"], bool) & (factor > 1.0)
+           if correction == "escape_probability" else np.zeros(len(table), dtype=bool))
+    for name in ("q", "q_err", "q_sys", "q_upper"):
+        if name in table.colnames:
+            table[name][fix] = table[name][fix] * factor[fix]
+    table["opacity_corrected"] = fix
 
 
 def filtering_columns(table: QTable, inputs: Table) -> None:

@@ -17,7 +17,7 @@ from astropy.table import QTable, vstack
 from pipeline.rates.statistics import (bayesian_upper_limit, classical_upper_limit, feldman_cousins_upper_limit,
                            nsigma_to_confidence)
 
-__all__ = ["LIMIT_COLUMNS", "limit_rows", "mark_conservative", "join_limits"]
+__all__ = ["LIMIT_COLUMNS", "limit_rows", "mark_conservative", "mark_adopted", "join_limits"]
 
 #: The column contract of limits.ecsv (more columns may follow these).
 LIMIT_COLUMNS = ("species", "epoch", "aperture_km", "t_kin_K", "q", "q_err", "q_upper", "snr", "detected")
@@ -77,6 +77,29 @@ def mark_conservative(table: QTable) -> QTable:
             best[k] = i
     flag[list(best.values())] = True
     table["conservative"] = flag
+    return table
+
+
+def mark_adopted(table: QTable, lines_measured: bool = True) -> QTable:
+    """Where no detection at a measured or configured temperature is quoted, quote the conservative sweep row.
+
+    A species measured only in infrared bands (``lines_measured`` False) has a Q that does not depend on the
+    temperature: its quoted row says so (t_origin 'not needed').
+    """
+    keys = list(zip(table["species"], table["epoch"], np.round(table["aperture_km"].to_value(u.km), 6)))
+    quoted = {k for k, a in zip(keys, table["adopted"]) if a}
+    qup = table["q_upper"].to_value(1 / u.s)
+    best: dict = {}
+    for i, k in enumerate(keys):
+        if table["t_origin"][i] != "sweep" or k in quoted:
+            continue
+        if k not in best or qup[i] > qup[best[k]]:
+            best[k] = i
+    for i in best.values():
+        table["adopted"][i] = True
+        table["t_origin"][i] = "conservative" if lines_measured else "not needed"
+        table["t_source"][i] = ("largest limit over the sweep" if lines_measured
+                                else "infrared bands: Q does not depend on T")
     return table
 
 

@@ -37,6 +37,7 @@ import numpy as np
 from astropy.table import Table
 
 from pipeline.catalogue import Catalogue
+from pipeline.io.tables import cell_float
 
 __all__ = ["WindowMeasure", "window_measures", "fit_temperature", "TemperatureFit", "q_at_temperature",
            "TEMPERATURE_GRID", "MIN_EU_SPREAD", "temperature_systematic", "adopted_temperature"]
@@ -74,11 +75,6 @@ class WindowMeasure:
         return np.exp(np.interp(np.log(t), np.log(TEMPERATURE_GRID), np.log(self.curve)))
 
 
-def _float(value) -> float:
-    """A table cell as a float; a masked cell (a NaN written to FITS reads back masked) as NaN."""
-    return float("nan") if np.ma.is_masked(value) else float(value)
-
-
 def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
     """The stack's INPUTS table (and its CURVES) turned back into measured window fluxes, per input and aperture."""
     out: list[WindowMeasure] = []
@@ -89,12 +85,15 @@ def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
         for r in curves:
             found[(str(r["epoch"]), str(r["cube_id"]), str(r["line_id"]), str(r["aperture"]))] = np.asarray(
                 r["scale"], dtype=float)
-    keys = dict.fromkeys(zip(*(list(inputs[c]) for c in ("epoch", "cube_id", "line_id", "aperture"))))
-    for key in keys:
-        epoch, cube_id, line_id, aperture = (str(k) for k in key)
-        sel = inputs[(inputs["epoch"] == epoch) & (inputs["cube_id"] == cube_id) & (inputs["line_id"] == line_id)
-                     & (inputs["aperture"] == aperture)]
-        row = sel[int(np.argmin(np.asarray(sel["t_kin"], dtype=float)))]
+    first: dict[tuple[str, str, str, str], int] = {}        # each input's row at the lowest temperature, one pass
+    t_kin = np.asarray(inputs["t_kin"], dtype=float)
+    for i, key in enumerate(zip(*(np.asarray(inputs[c], dtype=str) for c in ("epoch", "cube_id", "line_id",
+                                                                             "aperture")))):
+        key = tuple(str(k) for k in key)
+        if key not in first or t_kin[i] < t_kin[first[key]]:
+            first[key] = i
+    for (epoch, cube_id, line_id, aperture), i in first.items():
+        row = inputs[i]
         kind = str(row["kind"])
         q, sq = float(row["q"]), float(row["sigma_q"])
         if kind == "band":
@@ -104,7 +103,7 @@ def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
             flux, sigma, curve = q * s, sq * s, found.get((epoch, cube_id, line_id, aperture))
             if curve is None:
                 continue                  # a line without its response curve cannot be moved off the sweep
-        ratio = _float(row["distributed_ratio"]) if "distributed_ratio" in row.colnames else float("nan")
+        ratio = cell_float(row["distributed_ratio"]) if "distributed_ratio" in row.colnames else float("nan")
         out.append(WindowMeasure(epoch=epoch, cube_id=cube_id, line_id=line_id, aperture=aperture,
                                  aperture_km=float(row["aperture_km"]), kind=kind, flux=flux, sigma=sigma,
                                  curve=curve, distributed_ratio=ratio))

@@ -11,11 +11,10 @@ from astropy.table import QTable
 from pipeline.io.atomic import write_json, write_table
 from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
-from pipeline.io.tables import table_as_json
+from pipeline.io.tables import cell_float, table_as_json
 from pipeline.rates.activity import activity_table
-from pipeline.rates.detections import (OPACITY_THRESHOLD, add_fit_columns, filtering_columns, fit_detections,
-                                       opacity_columns, opacity_factor)
-from pipeline.rates.limits_table import join_limits, limit_rows, mark_conservative
+from pipeline.rates.detections import add_fit_columns, filtering_columns, fit_detections, mark_opacity, opacity_columns
+from pipeline.rates.limits_table import join_limits, limit_rows, mark_adopted, mark_conservative
 from pipeline.rates.temperature import adopted_temperature, q_at_temperature, temperature_systematic, window_measures
 from pipeline.settings import Settings
 
@@ -84,51 +83,9 @@ def _distributed_columns(rows: QTable, sel, t: np.ndarray) -> None:
         n_ap = len(rows) // max(len(t), 1)
         for row in sel:
             k = int(np.searchsorted(t, row["t_kin"])) * n_ap + int(row["aperture_index"])
-            q_d[k], s_d[k] = (np.nan if np.ma.is_masked(row[c]) else float(row[c])
-                              for c in ("q_distributed", "sigma_q_distributed"))
+            q_d[k], s_d[k] = cell_float(row["q_distributed"]), cell_float(row["sigma_q_distributed"])
     rows["q_distributed"] = q_d / u.s
     rows["q_distributed_err"] = s_d / u.s
-
-
-def _mark_adopted(table: QTable, lines_measured: bool = True) -> QTable:
-    """Where no detection at a measured or configured temperature is quoted, quote the conservative sweep row.
-
-    A species measured only in infrared bands (``lines_measured`` False) has a Q that does not depend on the
-    temperature: its quoted row says so (t_origin 'not needed').
-    """
-    keys = list(zip(table["species"], table["epoch"], np.round(table["aperture_km"].to_value(u.km), 6)))
-    quoted = {k for k, a in zip(keys, table["adopted"]) if a}
-    qup = table["q_upper"].to_value(1 / u.s)
-    best: dict = {}
-    for i, k in enumerate(keys):
-        if table["t_origin"][i] != "sweep" or k in quoted:
-            continue
-        if k not in best or qup[i] > qup[best[k]]:
-            best[k] = i
-    for i in best.values():
-        table["adopted"][i] = True
-        table["t_origin"][i] = "conservative" if lines_measured else "not needed"
-        table["t_source"][i] = ("largest limit over the sweep" if lines_measured
-                                else "infrared bands: Q does not depend on T")
-    return table
-
-
-def _opacity(table: QTable, correction: str) -> None:
-    """Mark rows whose peak optical depth exceeds the threshold; with 'escape_probability', correct quoted detections.
-
-    ``opacity_factor`` is tau / (1 - exp(-tau)) where tau_peak > OPACITY_THRESHOLD, else 1; ``opacity_corrected``
-    says whether a row's Q, sigma_Q, q_sys and q_upper were multiplied by it (quoted detections only).
-    """
-    tau = np.nan_to_num(np.asarray(table["tau_peak"], dtype=float)) if "tau_peak" in table.colnames else np.zeros(
-        len(table))
-    factor = np.where(tau > OPACITY_THRESHOLD, opacity_factor(tau), 1.0)
-    table["opacity_factor"] = factor
-    fix = (np.asarray(table["adopted"], bool) & np.asarray(table["detected"], bool) & (factor > 1.0)
-           if correction == "escape_probability" else np.zeros(len(table), dtype=bool))
-    for name in ("q", "q_err", "q_sys", "q_upper"):
-        if name in table.colnames:
-            table[name][fix] = table[name][fix] * factor[fix]
-    table["opacity_corrected"] = fix
 
 
 def run_species(stack_path: str, settings: Settings, out_path: str, temperature_path: str | None = None) -> None:
@@ -182,8 +139,8 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
         table["q_distributed_err"] = np.zeros(0) / u.s
         table = _with_adoption_columns(table)
     if len(table):
-        table = _mark_adopted(table, any(m.kind == "line" for m in measures))
-    _opacity(table, settings.opacity_correction)
+        table = mark_adopted(table, any(m.kind == "line" for m in measures))
+    mark_opacity(table, settings.opacity_correction)
     if "apertures_left_out" in summary.colnames:
         left_out = {str(r["epoch"]): str(r["apertures_left_out"]) for r in summary if str(r["apertures_left_out"])}
         if left_out:

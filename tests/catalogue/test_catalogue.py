@@ -947,3 +947,13 @@ def test_a_misspelt_species_gets_a_suggestion():
             cat.get_species(typed)
     with pytest.raises(CatalogueError, match=r"species 'xyz' is not in the catalogue [^(]*; expected one of"):
         cat.get_species("xyz")
+
+
+def test_a_distributed_source_scale_must_be_a_positive_length(tmp_path, cat):
+    assert cat.get_species("H2CO").distributed_scale.to_value(u.km) == 5000.0
+    assert cat.get_species("HCN").distributed_scale is None            # nan: no distributed source
+    species = QTable.read(DEFAULT_SPECIES_FILE, format="ascii.ecsv")
+    species["distributed_scale_km"][list(species["species"]).index("H2CO")] = -5000.0 * u.km
+    with pytest.raises(CatalogueError, match=r"species 'H2CO' has distributed_scale_km = -5000; expected a "
+                                             r"positive scale length at 1 au, or nan"):
+        load_catalogue(_write(species, tmp_path / "s.ecsv"))

@@ -101,3 +101,22 @@ def test_empty_group_gives_an_empty_table():
     assert len(table) == 0
     assert table.colnames[:len(LIMIT_COLUMNS)] == list(LIMIT_COLUMNS)
     assert len(mark_conservative(table)) == 0
+
+
+def test_the_conservative_row_is_quoted_where_no_detection_at_a_measured_temperature_is():
+    # per (species, epoch, aperture): a detection already adopted stays the quoted row; elsewhere the sweep row
+    # with the largest limit is (the same rule as the conservative flag); a band-only species needs no temperature
+    from pipeline.rates.limits_table import mark_adopted
+
+    def table():
+        return QTable({"species": ["HCN"] * 3 + ["CO"] * 2, "epoch": ["all"] * 5,
+                       "aperture_km": [1000.0] * 5 * u.km, "q_upper": [4.0, 6.0, 5.0, 2.0, 3.0] / u.s,
+                       "t_origin": np.array(["sweep", "sweep", "measured", "sweep", "sweep"], dtype="U16"),
+                       "t_source": np.array(["sweep"] * 5, dtype="U64"),
+                       "adopted": [False, False, True, False, False]})
+
+    t = mark_adopted(table())
+    assert list(t["adopted"]) == [False, False, True, False, True]
+    assert t["t_origin"][4] == "conservative" and t["t_source"][4] == "largest limit over the sweep"
+    bands = mark_adopted(table(), lines_measured=False)
+    assert bands["t_origin"][4] == "not needed"
