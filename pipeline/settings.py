@@ -183,6 +183,11 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
                 error = (deep or extra or errs)[0]
         raise ConfigError(_describe(error, source))
     _check_ranges(config, source)
+    for i, tracer in enumerate(config.get("budget", {}).get("water_from_tracers", [])):
+        if tracer["species"] not in config["species"]:
+            msg = (f"{source}: key budget.water_from_tracers[{i}].species = {tracer['species']!r} is not among the "
+                   f"campaign's species {config['species']}; expected a measured tracer (add it to 'species')")
+            raise ConfigError(msg)
     entries = cube_entries(config, source)
     if not {"ephemeris", "elements"} & set(config["target"]):
         bare = [f"cubes[{i}] ({e.cube_id})" for i, e in enumerate(entries) if e.ephemeris is None]

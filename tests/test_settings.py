@@ -287,6 +287,13 @@ def test_exponent_numbers_that_yaml_1_1_leaves_as_text_are_read_as_numbers():
         validate_config(_base(apertures_km=["big"]))
 
 
+def test_a_tracer_must_be_a_measured_species():
+    with pytest.raises(ConfigError, match=r"budget\.water_from_tracers\[0\]\.species = 'CH3OH' is not among the "
+                                          r"campaign's species"):
+        validate_config(_base(budget={"water_from_tracers": [{"species": "CH3OH", "abundance": [0.01, 0.05],
+                                                               "ref": "r"}]}))
+
+
 @pytest.mark.parametrize("changes, key", [
     ({"budget": {"nucleus": {"radius_km": [0.6, 0.15]}}}, r"budget\.nucleus\.radius_km = \[0\.6, 0\.15\]"),
     ({"budget": {"water_from_tracers": [{"species": "HCN", "abundance": [0.01, 0.001], "ref": "r"}]}},

@@ -135,14 +135,16 @@ def read_states(path: str | Path, centre: str | None = None, axes: str | None = 
       [au/d].
 
     ``centre`` and ``axes`` (the config's ``observatory.centre`` and
-    ``observatory.axes``) override the table's metadata; one of the two must
-    say each.
+    ``observatory.axes``) complete a table whose metadata does not say; one of
+    the two must say each, and a config key contradicting the metadata is
+    refused.
 
     Raises
     ------
     EphemerisError
         Missing file, unreadable table, missing column, unit of the wrong kind, non-finite values,
-        times not increasing, fewer than 2 rows, or the centre or axes stated nowhere.
+        times not increasing, fewer than 2 rows, the centre or axes stated nowhere, or stated differently by
+        the table and the config.
     """
     path = Path(path)
     source = repr(str(path))
@@ -163,6 +165,14 @@ def read_states(path: str | Path, centre: str | None = None, axes: str | None = 
                f"{', '.join(table.colnames)}); expected time, x, y, z [km], vx, vy, vz [km/s] (or the client layout "
                "datetime_jd, x, y, z [au], vx, vy, vz [au/d])")
         raise EphemerisError(msg)
+    for what, given, key, aliases in (("centre", centre, "observatory.centre", _CENTRE_ALIASES),
+                                      ("axes", axes, "observatory.axes", _AXES_ALIASES)):
+        meta = table.meta.get(what)
+        if given is not None and meta is not None and aliases.get(str(given).strip().lower()) != aliases.get(
+                str(meta).strip().lower()):
+            msg = (f"observer state table {source} states {what} {meta!r} (metadata {what!r}) but the config key "
+                   f"{key!r} says {given!r}; expected one answer (remove the config key, or correct the table)")
+            raise EphemerisError(msg)
     stated_centre = centre if centre is not None else table.meta.get("centre")
     stated_axes = axes if axes is not None else table.meta.get("axes")
     for what, value, key in (("centre", stated_centre, "observatory.centre"), ("axes", stated_axes, "observatory.axes")):

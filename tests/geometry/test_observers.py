@@ -102,6 +102,12 @@ def test_centres_and_axes_the_service_uses(tmp_path):
     # without centre or axes the table is refused, naming the config key
     with pytest.raises(EphemerisError, match=r"does not state its centre .* 'observatory.centre'"):
         read_states(tmp_path / "vectors.csv", axes="ecliptic")
+    # a config key contradicting the table's own metadata is refused, not silently preferred
+    pos, vel = _earth_states(GRID)
+    _write_states(tmp_path / "stated.ecsv", GRID, pos, vel, {"centre": "barycentre", "axes": "icrs"})
+    with pytest.raises(EphemerisError, match=r"states centre 'barycentre' .* 'observatory.centre' says 'sun'"):
+        read_states(tmp_path / "stated.ecsv", centre="sun")
+    assert read_states(tmp_path / "stated.ecsv", centre="@0").centre == "barycentre"      # the same, in a code
 
 
 def test_hermite_interpolation_of_uniform_circular_motion(tmp_path):
