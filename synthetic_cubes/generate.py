@@ -309,11 +309,12 @@ def campaign_config(sc: Scenario, outdir: str | Path, results: str = "results/de
                    "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0, "include_dust": False,
                    # published ranges of cometary abundances relative to water (the review's compilation of
                    # measured comets; numbers from memory): turn the tracers into an inferred water range
-                   "water_from_tracers": [
+                   "water_from_tracers": [t for t in [
                        {"species": "HCN", "abundance": [0.0008, 0.0025],
                         "ref": "Bockelee-Morvan & Biver 2017, Phil. Trans. R. Soc. A 375, 20160252 (from memory)"},
                        {"species": "CH3OH", "abundance": [0.007, 0.061],
-                        "ref": "Bockelee-Morvan & Biver 2017, Phil. Trans. R. Soc. A 375, 20160252 (from memory)"}]},
+                        "ref": "Bockelee-Morvan & Biver 2017, Phil. Trans. R. Soc. A 375, 20160252 (from memory)"}]
+                       if t["species"] in sc.production_rates]},                 # only tracers the campaign measures
     }
 
 
