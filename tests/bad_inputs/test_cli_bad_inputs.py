@@ -46,6 +46,8 @@ def campaign(scenario, tmp_path):
     config["target"]["ephemeris"] = str(eph)
     config["cubes"] = [{"path": str(cube), "id": CUBE, "epoch": "e1"}]
     config["species"] = ["HCN"]
+    budget = config.get("budget", {})                  # a tracer must be a measured species: keep HCN's only
+    budget["water_from_tracers"] = [t for t in budget.get("water_from_tracers", []) if t["species"] == "HCN"]
     return tmp_path, config, cube, eph
 
 
