@@ -18,6 +18,7 @@ from astropy.table import QTable
 from pipeline.catalogue.entries import Catalogue
 from pipeline.errors import ConfigError
 from pipeline.coma.haser import outflow_speed_law
+from pipeline.io.tables import read_table
 from pipeline.budget.momentum import (LATENT_HEAT, max_bulk_density, max_nucleus_mass,
                           nongrav_acceleration, required_mass_loss_rate, required_production_rate,
                           rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
@@ -243,7 +244,7 @@ def joint_exclusion(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Bud
 
 def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
     """Mean heliocentric distance of each epoch group and of all cubes ('all')."""
-    rows = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
+    rows = [read_table(p)[0] for p in geometry_paths]
     groups: dict[str, list[float]] = {}
     for r in rows:
         groups.setdefault(str(r["epoch"]), []).append(float(r["r_h"].to_value(u.au)))
@@ -256,7 +257,7 @@ def dust_forces(dust_path: str | None, include: bool) -> dict[str, u.Quantity]:
     """The dust's largest push per epoch group (N) from dust.ecsv, at the largest aperture; empty unless included."""
     if not include or dust_path is None:
         return {}
-    dust = QTable.read(dust_path, format="ascii.ecsv")
+    dust = read_table(dust_path)
     out: dict[str, u.Quantity] = {}
     if "momentum_rate" not in dust.colnames:
         return out

@@ -2,12 +2,17 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 from astropy.table import QTable
 
-__all__ = ["table_as_json", "cell_float"]
+__all__ = ["table_as_json", "cell_float", "read_table"]
+
+def read_table(path: str | Path) -> QTable:
+    """An output table (ECSV) as a QTable: the one reader of the pipeline's own products."""
+    return QTable.read(path, format="ascii.ecsv")
 
 
 def cell_float(value) -> float:

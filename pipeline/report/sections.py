@@ -22,6 +22,7 @@ from pipeline.rates.detections import OPACITY_THRESHOLD
 from pipeline.rates.temperature import window_measures
 from pipeline.report.figures import BandPanel, SpectrumPanel, plot_mass_budget
 from pipeline.report.html import figure_html, table_html
+from pipeline.io.tables import read_table
 
 __all__ = ["spectrum_panels", "band_panels", "afrho_points", "infrared_section", "budget_figure", "sweep_curves",
            "injection_section", "joint_section", "forecast_section", "rotational_diagrams", "temperature_section",
@@ -129,7 +130,7 @@ def infrared_section(bands_paths: list[str], dust_path: str, fig: bytes) -> str:
             "larger of the ERR propagation and the empirical estimate. Q: band flux over the fluorescence flux per "
             "molecule (g-factor scaled as r_h⁻², optically thin, no Swings effect) times the Haser coma counted on "
             "the cube's pixel grid with its PSF.</p>")
-    dust = QTable.read(dust_path, format="ascii.ecsv")
+    dust = read_table(dust_path)
     if len(dust) and "afrho" in dust.colnames:
         out += table_html(["epoch", "aperture [km]", "λ_ref [µm]", "Afρ [cm]", "slope [%/100 nm] (at mean λ)",
                            "dust production [kg/s]", "momentum rate [N]"],
@@ -182,7 +183,7 @@ def injection_section(paths: list[str]) -> str:
     """The injection-recovery section: would the needed gas (or gas at the limit) have been seen."""
     rows = []
     for path in paths:
-        table = QTable.read(path, format="ascii.ecsv")
+        table = read_table(path)
         if not len(table) or "q_recovered" not in table.colnames:
             continue
         species = table.meta.get("species", "?")
@@ -207,7 +208,7 @@ def injection_section(paths: list[str]) -> str:
 
 def joint_section(exclusion_path: str, activity_path: str) -> str:
     """The joint test over all epochs and the activity-law fits."""
-    ex = QTable.read(exclusion_path, format="ascii.ecsv")
+    ex = read_table(exclusion_path)
     crossing = ex.meta.get("mass_at_3sigma_kg", {})
     rows = []
     for species, m3 in crossing.items():
@@ -221,7 +222,7 @@ def joint_section(exclusion_path: str, activity_path: str) -> str:
               "to carry the push alone is there' against 'less gas than that' (chi-bar-square null distribution). "
               "Below the listed mass the hypothesis survives at 3σ; above it the data exclude it. "
               "'–': no crossing inside a wide mass range.</p>")
-    act = QTable.read(activity_path, format="ascii.ecsv")
+    act = read_table(activity_path)
     if len(act) and "n" in act.colnames:
         html_ += "<h3>Activity law Q(r_h) = Q0 (r_h/1 au)^-n across epochs</h3>" + table_html(
             ["species", "aperture [km]", "slope", "n", "n (1σ)", "Q0 [1/s]", "σ(Q0) [1/s]", "Q0 upper [1/s]",
@@ -235,7 +236,7 @@ def joint_section(exclusion_path: str, activity_path: str) -> str:
 
 def forecast_section(forecast_path: str, limits: QTable) -> str:
     """The planned epochs' forecasts beside the measured limits."""
-    fc = QTable.read(forecast_path, format="ascii.ecsv")
+    fc = read_table(forecast_path)
     if not len(fc) or "sigma_q" not in fc.colnames:
         return "<p>No planned epochs in the config (key <code>planned</code>).</p>"
     rows = []
@@ -264,7 +265,7 @@ def forecast_section(forecast_path: str, limits: QTable) -> str:
 
 def rotational_diagrams(temperature_path: str, stack_paths: list[str], catalogue: Catalogue) -> dict[str, dict]:
     """Population-diagram data of every species with a closed temperature interval (all epochs, first aperture)."""
-    fits = QTable.read(temperature_path, format="ascii.ecsv")
+    fits = read_table(temperature_path)
     out: dict[str, dict] = {}
     if not len(fits):
         return out
@@ -292,7 +293,7 @@ def rotational_diagrams(temperature_path: str, stack_paths: list[str], catalogue
 
 def temperature_section(temperature_path: str, fig: bytes | None) -> str:
     """The measured temperatures (every species, epoch group and aperture with a fit) and the population diagrams."""
-    fits = QTable.read(temperature_path, format="ascii.ecsv")
+    fits = read_table(temperature_path)
     if not len(fits):
         return ("<p>No species has lines of different upper energy in these data: no temperature is measured; "
                 "detections are quoted at the configured temperature (excitation.t_adopted_K) or at the sweep's "
@@ -352,7 +353,7 @@ def quoted_section(limits: QTable) -> str:
 
 def water_section(water_path: str) -> str:
     """The water production inferred from tracers, labelled as an inference (empty when none is configured)."""
-    water = QTable.read(water_path, format="ascii.ecsv")
+    water = read_table(water_path)
     if not len(water):
         return ("<p>No tracer abundances configured (budget.water_from_tracers): no water production is inferred "
                 "from other species.</p>")
@@ -370,7 +371,7 @@ def water_section(water_path: str) -> str:
 
 def zeta_section(zeta_path: str) -> str:
     """The momentum efficiency each detected line's centre allows (empty note when no line was fitted)."""
-    zeta = QTable.read(zeta_path, format="ascii.ecsv")
+    zeta = read_table(zeta_path)
     model = ("<p>If escaping gas drives the push, it leaves against it, and a detected line's centre moves by "
              "ζ v_ej cos θ (θ between the line of sight and the direction opposite to the push; the first moment of "
              "an optically thin line is the emitters' mean line-of-sight velocity). Each detected line's first moment "

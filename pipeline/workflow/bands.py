@@ -22,7 +22,7 @@ from typing import Any
 
 import astropy.units as u
 import numpy as np
-from astropy.table import QTable, Table
+from astropy.table import Table
 
 from pipeline.spectra.apertures import aperture_label, radius_in_pixels
 from pipeline.io.atomic import write_fits
@@ -37,6 +37,7 @@ from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.coma.response import ComaModel, GridGeometry, band_response_on_grid, outflow_speed
 from pipeline.settings import DustSettings, InfraredSettings, Settings
 from pipeline.spectra.band_windows import band_setup, band_windows, doppler_factor, resolving_power_of, scatter_sigma
+from pipeline.io.tables import read_table
 
 __all__ = ["run"]
 
@@ -145,7 +146,7 @@ def run(geometry_path: str, band_ids: list[str], settings: Settings, out_path: s
         msg = (f"{cube_path}: the spectral axis reaches {info.wavelengths.max():.1f}; expected an infrared cube "
                "(every channel short of 30 um) for band measurement")
         raise CubeError(msg)
-    geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
+    geo = read_table(geometry_path)[0]
     catalogue = settings.catalogue()
     rpow, rsource = resolving_power_of(info, resolving_power)
     factor = doppler_factor(info, geo)

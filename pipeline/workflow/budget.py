@@ -6,7 +6,6 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.table import QTable
 
 from pipeline.io.atomic import write_json, write_table
 from pipeline.budget.table import budget_table, dust_forces, epoch_distances, joint_exclusion, rocket_fraction
@@ -14,6 +13,7 @@ from pipeline.budget.line_shift import offered_zeta, zeta_table
 from pipeline.budget.tracers import inferred_water
 from pipeline.io.provenance import provenance_record
 from pipeline.settings import Settings
+from pipeline.io.tables import read_table
 
 __all__ = ["run"]
 
@@ -25,14 +25,14 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
         out_zeta: str | None = None) -> None:
     """Compute and write the budget tables (with the dust's push when budget.include_dust is set), and the water
     inferred from tracers (``out_water``; empty without budget.water_from_tracers)."""
-    limits = QTable.read(limits_path, format="ascii.ecsv")
+    limits = read_table(limits_path)
     include_dust = settings.budget.include_dust
     forces = dust_forces(dust_path, include_dust)
     sets = list(settings.budget.assumption_sets)
     assume = sets[0]
     rh = epoch_distances(geometry_paths)
     catalogue = settings.catalogue()
-    geometry = [QTable.read(p, format="ascii.ecsv")[0] for p in geometry_paths]
+    geometry = [read_table(p)[0] for p in geometry_paths]
     zeta = zeta_table(limits, geometry, settings.target.elements, assume, catalogue, rh)
     offered = offered_zeta(zeta, assume)
     if offered is not None:

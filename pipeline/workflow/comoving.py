@@ -6,7 +6,6 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.table import QTable
 
 from pipeline.spectra.apertures import radius_in_pixels
 from pipeline.io.atomic import write_fits
@@ -15,6 +14,7 @@ from pipeline.io.cubes import read_cube_info
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.coma.response import outflow_speed
 from pipeline.settings import Settings
+from pipeline.io.tables import read_table
 
 __all__ = ["run", "crop_half_size"]
 
@@ -32,7 +32,7 @@ def run(geometry_path: str, line_id: str, settings: Settings, out_path: str) -> 
     cube_path = settings.cube.path
     spectral_response = settings.cube.spectral_response
     info = read_cube_info(cube_path, settings.cube.beam_arcsec)
-    geo = QTable.read(geometry_path, format="ascii.ecsv")[0]
+    geo = read_table(geometry_path)[0]
     line = settings.catalogue().get_line(line_id)
     v_out = outflow_speed(settings.coma, geo["r_h"])
     window = settings.limits.window_factor * v_out

@@ -17,6 +17,7 @@ from pipeline.io.provenance import provenance_record
 from pipeline.rates.statistics import bayesian_upper_limit, nsigma_to_confidence
 from pipeline.settings import Settings
 from pipeline.spectra.line_spectra import extraction_settings
+from pipeline.io.tables import read_table
 
 __all__ = ["run"]
 
@@ -25,7 +26,7 @@ def run(budget_path: str, settings: Settings, out_path: str) -> None:
     """Forecast every planned epoch; write forecast.ecsv (empty when nothing is planned)."""
     catalogue = settings.catalogue()
     filtering = settings.interferometer
-    budget = QTable.read(budget_path, format="ascii.ecsv")
+    budget = read_table(budget_path)
     base = budget[(budget["epoch"] == "all") & (budget["assumption_set"] == budget["assumption_set"][0])] \
         if len(budget) else budget
     cl = float(nsigma_to_confidence(settings.limits.nsigma))

@@ -23,6 +23,7 @@ from pipeline.coma.response import outflow_speed
 from pipeline.rates.q_units import stack_input
 from pipeline.settings import Settings
 from pipeline.spectra.line_spectra import extraction_settings
+from pipeline.io.tables import read_table
 
 __all__ = ["run", "injection_levels"]
 
@@ -96,8 +97,8 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     """
     catalogue = settings.catalogue()
     sp = catalogue.get_species(species)
-    limits = QTable.read(limits_path, format="ascii.ecsv")
-    budget = QTable.read(budget_path, format="ascii.ecsv")
+    limits = read_table(limits_path)
+    budget = read_table(budget_path)
     levels, t_kin = injection_levels(species, limits, budget)
     t_all = settings.t_kin.to_value(u.K)
     it = int(np.argmin(np.abs(t_all - t_kin)))

@@ -11,7 +11,7 @@ from astropy.table import QTable
 from pipeline.io.atomic import write_json, write_table
 from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
-from pipeline.io.tables import cell_float, table_as_json
+from pipeline.io.tables import cell_float, table_as_json, read_table
 from pipeline.rates.activity import activity_table
 from pipeline.rates.detections import add_fit_columns, filtering_columns, fit_detections, mark_opacity, opacity_columns
 from pipeline.rates.limits_table import join_limits, limit_rows, mark_adopted, mark_conservative
@@ -101,7 +101,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
     stack = SpeciesStack.from_fits(stack_path)
     species, summary, inputs = stack.species, stack.summary, stack.inputs
     nsigma = float(settings.limits.nsigma)
-    fits = QTable.read(temperature_path, format="ascii.ecsv") if temperature_path else None
+    fits = read_table(temperature_path) if temperature_path else None
     measures = window_measures(inputs, stack.curves)
     tables = []
     if "q" in summary.colnames:
@@ -153,7 +153,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
 def run_join(species_paths: list[str], settings: Settings, out_path: str, json_path: str | None = None,
              geometry_paths: list[str] | None = None, activity_path: str | None = None) -> None:
     """Join the per-species limits into limits.ecsv, flagging the conservative temperature."""
-    tables = [QTable.read(p, format="ascii.ecsv") for p in species_paths]
+    tables = [read_table(p) for p in species_paths]
     left_out: dict[str, dict[str, str]] = {}
     for t in tables:
         left_out.update(t.meta.get("apertures_left_out", {}))
@@ -188,7 +188,7 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
     if activity_path is not None:
         rh: dict[str, list[float]] = {}
         for path in geometry_paths or []:
-            g = QTable.read(path, format="ascii.ecsv")[0]
+            g = read_table(path)[0]
             rh.setdefault(str(g["epoch"]), []).append(float(g["r_h"].to_value(u.au)))
         act = activity_table(table, {k: float(np.mean(v)) for k, v in rh.items()},
                              float(settings.limits.activity_slope), float(table["confidence"][0])

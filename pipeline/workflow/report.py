@@ -7,7 +7,6 @@ import json
 
 import numpy as np
 import yaml
-from astropy.table import QTable
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
@@ -19,6 +18,7 @@ from pipeline.report.sections import (afrho_points, band_panels, budget_figure, 
                                       spectrum_panels, sweep_curves, temperature_section, water_section,
                                       zeta_section)
 from pipeline.settings import Settings
+from pipeline.io.tables import read_table
 
 __all__ = ["run"]
 
@@ -40,11 +40,11 @@ def _write_png(data: bytes, path: str) -> None:
 def run(inputs, outputs, settings: Settings) -> None:
     """Build the report from the run's tables and stacks."""
     catalogue = settings.catalogue()
-    limits = QTable.read(inputs.limits, format="ascii.ecsv")
-    budget = QTable.read(inputs.budget_ecsv, format="ascii.ecsv")
+    limits = read_table(inputs.limits)
+    budget = read_table(inputs.budget_ecsv)
     with open(inputs.budget_json, encoding="utf-8") as fh:
         summary = json.load(fh)
-    geometry = [QTable.read(p, format="ascii.ecsv")[0] for p in inputs.geometry]
+    geometry = [read_table(p)[0] for p in inputs.geometry]
 
     fig_spec = to_png(plot_stacked_spectra(spectrum_panels(list(inputs.stacks), limits, catalogue)))
     fig_budget = to_png(budget_figure(budget, settings.budget.baseline, catalogue))
