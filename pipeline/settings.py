@@ -58,6 +58,8 @@ __all__ = [
     "append_cubes",
     "assumptions_from_config",
     "assumption_sets",
+    "budget_missing",
+    "budget_defaulted",
     "CubeEntry",
     "load_config",
     "validate_config",
@@ -505,6 +507,8 @@ class BudgetSettings:
     assumption_sets: tuple["BudgetAssumptions", ...]
     include_dust: bool
     water_from_tracers: tuple["TracerAbundance", ...] = ()
+    missing: tuple[str, ...] = ()       # one sentence per input a verdict needs and the campaign lacks
+    defaulted: tuple[str, ...] = ()     # one sentence per input a verdict rests on that was left at its default
 
     @property
     def baseline(self) -> "BudgetAssumptions":
@@ -758,7 +762,29 @@ def _budget(config: dict[str, Any]) -> BudgetSettings:
                                     high=float(max(t["abundance"])), ref=str(t["ref"]))
                     for t in config["budget"].get("water_from_tracers", []))
     return BudgetSettings(assumption_sets=tuple(assumption_sets(config["budget"])),
-                          include_dust=bool(config["budget"]["include_dust"]), water_from_tracers=tracers)
+                          include_dust=bool(config["budget"]["include_dust"]), water_from_tracers=tracers,
+                          missing=tuple(budget_missing(config["budget"])),
+                          defaulted=tuple(budget_defaulted(config["budget"])))
+
+
+def budget_missing(budget: dict[str, Any]) -> list[str]:
+    """One sentence per input the verdicts need that the validated ``budget`` section lacks, naming the key."""
+    if "acceleration_m_s2" in budget or "nongrav" in budget:
+        return []
+    return ["no verdict will be computed: the campaign gives no measured non-gravitational acceleration; set "
+            "budget.acceleration_m_s2: [value, sigma] in m/s^2 (or budget.nongrav: {A1, A2, A3} in au/d^2)"]
+
+
+def budget_defaulted(budget: dict[str, Any]) -> list[str]:
+    """One sentence per budget input left at the schema's default although a verdict rests on it."""
+    default = _load_schema()["properties"]["budget"]["properties"]["nucleus"]["default"]
+    nucleus = budget.get("nucleus", default)
+    if {"mass_kg", "absolute_magnitude"} & set(nucleus) or nucleus.get("radius_km") != default["radius_km"]:
+        return []
+    lo, hi = default["radius_km"]
+    return [f"the nucleus radius is the schema's default range {lo:g}-{hi:g} km, which nobody chose for this "
+            "target: set budget.nucleus.radius_km (or budget.nucleus.mass_kg, or budget.nucleus.absolute_magnitude "
+            "with albedo)"]
 
 
 _BUILDERS = {

@@ -24,7 +24,7 @@ from pipeline.budget.momentum import (LATENT_HEAT, max_bulk_density, max_nucleus
                           rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
 
 __all__ = ["BudgetAssumptions", "epoch_distances", "dust_forces", "joint_exclusion", "acceleration_at", "ejection_speed_at",
-           "budget_table", "rocket_fraction", "VERDICTS"]
+           "budget_table", "rocket_fraction", "VERDICTS", "BUDGET_COLUMNS"]
 
 VERDICTS = ("not observed", "excluded for every mass in the range", "excluded above the allowed mass",
             "not excluded")
@@ -101,6 +101,17 @@ def _verdict(q_upper: float, m_allowed: float, m_min: float, m_max: float) -> st
     return VERDICTS[3]
 
 
+#: The budget table's columns and their types, in order (a table without rows carries the same columns).
+BUDGET_COLUMNS = {
+    "assumption_set": str, "species": str, "epoch": str, "r_h": float, "acceleration": float,
+    "acceleration_err": float, "ejection_speed": float, "mdot_required_min": float, "mdot_required_max": float,
+    "q_required_min": float, "q_required_max": float, "q_upper": float, "t_kin_K": float, "aperture_km": float,
+    "detected": bool, "ratio_min": float, "ratio_max": float, "mass_allowed": float, "density_allowed_rmin": float,
+    "density_allowed_rmax": float, "sunlit_area_ratio_min": float, "sunlit_area_ratio_max": float,
+    "dust_force": float, "verdict": str,
+}
+
+
 def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: BudgetAssumptions | list,
                  catalogue: Catalogue, dust_force: dict[str, u.Quantity] | None = None) -> QTable:
     """One row per driver species and epoch group: required Q, limit, ratios, allowed mass, verdict.
@@ -169,7 +180,7 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
             "dust_force": f_dust.to_value(u.N),
             "verdict": _verdict(q_up, m_allowed, m_min.value, m_max.value),
         })
-    table = QTable(rows=rows)
+    table = QTable(rows=rows) if rows else QTable(names=list(BUDGET_COLUMNS), dtype=list(BUDGET_COLUMNS.values()))
     units = {"r_h": u.au, "acceleration": u.m / u.s**2, "acceleration_err": u.m / u.s**2,
              "ejection_speed": u.km / u.s, "mdot_required_min": u.kg / u.s, "mdot_required_max": u.kg / u.s,
              "q_required_min": 1 / u.s, "q_required_max": 1 / u.s, "q_upper": 1 / u.s, "aperture_km": u.km,
@@ -232,8 +243,8 @@ def joint_exclusion(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Bud
             rows.append({"species": name, "mass": m, "significance": exclusion_significance(x, s, m * per_kg),
                          "n_epochs": len(x), "t_kin_K": t_kin, "aperture_km": ap})
         crossing[name] = mass_at_significance(x, s, per_kg, 3.0, (masses[0] * 1e-3, masses[-1] * 1e3))
-    table = QTable(rows=rows) if rows else QTable(names=["species", "mass", "significance"],
-                                                   dtype=[str, float, float])
+    table = QTable(rows=rows) if rows else QTable(names=["species", "mass", "significance", "n_epochs", "t_kin_K",
+                                                          "aperture_km"], dtype=[str, float, float, int, float, float])
     table["mass"] = np.asarray(table["mass"], dtype=float) * u.kg
     table.meta["mass_at_3sigma_kg"] = {k: (None if not np.isfinite(v) else v) for k, v in crossing.items()}
     table.meta["test"] = ("likelihood ratio of Q_e = Q_req(t_e) against 0 <= Q_e <= Q_req(t_e) over all epochs, "

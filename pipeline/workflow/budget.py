@@ -24,28 +24,41 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
         out_exclusion: str | None = None, dust_path: str | None = None, out_water: str | None = None,
         out_zeta: str | None = None) -> None:
     """Compute and write the budget tables (with the dust's push when budget.include_dust is set), and the water
-    inferred from tracers (``out_water``; empty without budget.water_from_tracers)."""
+    inferred from tracers (``out_water``; empty without budget.water_from_tracers).
+
+    Without a measured acceleration (``settings.budget.missing``) no epoch can be judged: budget.ecsv and
+    exclusion.ecsv are written without rows (same columns), the line-shift efficiencies and the tracers' water
+    still are, and budget.json lists what is missing and which key gives it.
+    """
     limits = read_table(limits_path)
     include_dust = settings.budget.include_dust
     forces = dust_forces(dust_path, include_dust)
     sets = list(settings.budget.assumption_sets)
     assume = sets[0]
+    missing, defaulted = list(settings.budget.missing), list(settings.budget.defaulted)
+    for sentence in missing:
+        log.info("budget: %s", sentence)
+    for sentence in defaulted:
+        log.info("budget: %s", sentence)
     rh = epoch_distances(geometry_paths)
+    judged = {} if missing else rh           # the epochs a verdict is computed for: none without the push
     catalogue = settings.catalogue()
     geometry = [read_table(p)[0] for p in geometry_paths]
     zeta = zeta_table(limits, geometry, settings.target.elements, assume, catalogue, rh)
-    offered = offered_zeta(zeta, assume)
+    offered = offered_zeta(zeta, assume) if not missing else None
     if offered is not None:
         sets.append(offered)
-    table = budget_table(limits, rh, sets, catalogue, forces)
+    table = budget_table(limits, judged, sets, catalogue, forces)
     record = provenance_record(settings, [limits_path, *geometry_paths, *([dust_path] if dust_path else [])], "budget")
     table.meta["provenance"] = record
+    table.meta["missing"] = missing
+    table.meta["defaulted"] = defaulted
     table.meta["assumptions"] = dict(assume.as_dict(), dust=(
         "the dust's momentum rate (dust.ecsv, largest aperture) pays for part of the push first" if include_dust
         else "not included (budget.include_dust: false)"))
     table.meta["assumption_sets"] = [a.as_dict() for a in sets]
     write_table(table, out_ecsv)
-    joint = joint_exclusion(limits, rh, assume, catalogue)
+    joint = joint_exclusion(limits, judged, assume, catalogue)
     joint.meta["provenance"] = record
     if out_exclusion is not None:
         write_table(joint, out_exclusion)
@@ -55,7 +68,9 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
         "campaign": settings.campaign,
         "assumptions": table.meta["assumptions"],
         "dust_force_N": {k: float(v.to_value(u.N)) for k, v in forces.items()},
-        "rocket_mass_fraction_over_interval": rocket_fraction(assume, rh["all"], water),
+        "missing": missing,
+        "defaulted": defaulted,
+        "rocket_mass_fraction_over_interval": None if missing else rocket_fraction(assume, rh["all"], water),
         "assumption_sets": [a.as_dict() for a in sets],
         "verdicts_by_assumption_set": [
             {"assumption_set": str(r["assumption_set"]), "species": str(r["species"]), "verdict": str(r["verdict"]),

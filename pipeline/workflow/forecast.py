@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 
 import astropy.units as u
 import numpy as np
@@ -21,6 +22,8 @@ from pipeline.io.tables import read_table
 
 __all__ = ["run"]
 
+log = logging.getLogger(__name__)
+
 
 def run(budget_path: str, settings: Settings, out_path: str) -> None:
     """Forecast every planned epoch; write forecast.ecsv (empty when nothing is planned)."""
@@ -29,6 +32,9 @@ def run(budget_path: str, settings: Settings, out_path: str) -> None:
     budget = read_table(budget_path)
     base = budget[(budget["epoch"] == "all") & (budget["assumption_set"] == budget["assumption_set"][0])] \
         if len(budget) else budget
+    if not len(budget) and settings.planned:
+        log.info("forecast: the budget has no rows (%s); the planned epochs are forecast without the Q the push "
+                 "needs", "; ".join(budget.meta.get("missing", [])) or "no verdict was computed")
     cl = float(nsigma_to_confidence(settings.limits.nsigma))
     t_all = settings.t_kin.to_value(u.K)
     target = settings.target

@@ -47,6 +47,9 @@ def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list
                   & ((budget["assumption_set"] == baseline) if baseline is not None else True)]
     if len(bsel) and np.isfinite(bsel["q_required_min"][0].value):
         levels.append(("required", float(bsel["q_required_min"][0].to_value(1 / u.s))))
+    elif not len(budget):
+        log.info("%s: no injection at the rate the push needs: the budget has no rows (%s)", species,
+                 "; ".join(budget.meta.get("missing", [])) or "no verdict was computed")
     return levels, t_kin
 
 
