@@ -19,7 +19,11 @@ from scipy.optimize import brentq, minimize_scalar
 from pipeline.errors import CoverageError
 from pipeline.rates.statistics import bayesian_upper_limit
 
-__all__ = ["ActivityFit", "fit_fixed_slope", "fit_free_slope", "free_slope_possible", "activity_table"]
+__all__ = ["ActivityFit", "fit_fixed_slope", "fit_free_slope", "free_slope_possible", "activity_table", "SLOPE_RANGE",
+           "slope_bound"]
+
+#: The range a free slope n is searched in; a best fit at one of its ends is no measurement of n.
+SLOPE_RANGE = (-10.0, 20.0)
 
 
 @dataclass(frozen=True)
@@ -35,6 +39,7 @@ class ActivityFit:
     chi2: float
     dof: int
     fitted_slope: bool
+    at_bound: float = float("nan")   # the end of the search range the fitted n sits at (NaN: inside the range)
 
 
 def _q0_for_slope(q, s, r, n):
@@ -61,8 +66,20 @@ def free_slope_possible(r_h_au: np.ndarray) -> bool:
     return bool(len(r) >= 3 and np.ptp(np.log(r)) >= 1e-3)
 
 
+def slope_bound(n: float, n_range: tuple[float, float] = SLOPE_RANGE, tolerance: float = 1e-3) -> float:
+    """The end of ``n_range`` a fitted slope ``n`` sits at (within ``tolerance``), NaN when it lies inside.
+
+    A bounded minimiser that ends at an edge has found no minimum of the profile chi^2: the slope is then
+    unconstrained in that direction, and the edge is a setting of the search, not a fitted value.
+    """
+    for edge in n_range:
+        if np.isfinite(n) and abs(n - edge) <= tolerance * max(1.0, abs(edge)):
+            return float(edge)
+    return float("nan")
+
+
 def fit_free_slope(q: np.ndarray, sigma: np.ndarray, r_h_au: np.ndarray, confidence: float,
-                   n_range: tuple[float, float] = (-10.0, 20.0)) -> ActivityFit:
+                   n_range: tuple[float, float] = SLOPE_RANGE) -> ActivityFit:
     """Q0 and n both fitted; the 1σ interval of n from the profile χ² (Δχ² = 1), NaN where it is open."""
     q, s, r = (np.asarray(x, dtype=float) for x in (q, sigma, r_h_au))
     if not free_slope_possible(r):
@@ -89,7 +106,7 @@ def fit_free_slope(q: np.ndarray, sigma: np.ndarray, r_h_au: np.ndarray, confide
     q0, err, _ = _q0_for_slope(q, s, r, n_best)
     return ActivityFit(q0=float(q0), q0_err=float(err), q0_upper=float(bayesian_upper_limit(q0, err, confidence)),
                        n=n_best, n_lo=float(n_lo), n_hi=float(n_hi), chi2=chi2_min, dof=len(q) - 2,
-                       fitted_slope=True)
+                       fitted_slope=True, at_bound=slope_bound(n_best, n_range))
 
 
 def activity_table(limits: QTable, epoch_rh: dict[str, float], slope: float, confidence: float) -> QTable:
@@ -124,7 +141,8 @@ def activity_table(limits: QTable, epoch_rh: dict[str, float], slope: float, con
             for f in fits_:
                 rows.append({"species": species, "aperture_km": ap, "t_kin_K": t, "slope": "fitted" if
                              f.fitted_slope else "fixed", "n": f.n, "n_lo": f.n_lo, "n_hi": f.n_hi,
-                             "n_constrained": bool(np.isfinite(f.n_lo) and np.isfinite(f.n_hi)), "q0": f.q0,
+                             "n_constrained": bool(np.isfinite(f.n_lo) and np.isfinite(f.n_hi)),
+                             "n_at_bound": f.at_bound, "q0": f.q0,
                              "q0_err": f.q0_err, "q0_upper": f.q0_upper, "chi2": f.chi2, "dof": f.dof,
                              "n_epochs": len(q), "r_h_min": float(r.min()), "r_h_max": float(r.max())})
     table = QTable(rows=rows) if rows else QTable(names=["species", "q0"], dtype=[str, float])
@@ -132,4 +150,7 @@ def activity_table(limits: QTable, epoch_rh: dict[str, float], slope: float, con
         if name in table.colnames:
             table[name] = np.asarray(table[name], dtype=float) / u.s
     table.meta["model"] = "Q(r_h) = Q0 (r_h / 1 au)^-n; n fixed (config limits.activity_slope) and fitted"
+    table.meta["slope_range"] = list(SLOPE_RANGE)
+    table.meta["n_at_bound"] = ("the end of slope_range a fitted n sits at (the chi^2 has no minimum inside it: n "
+                                "unconstrained that way); NaN when n lies inside")
     return table

@@ -28,6 +28,7 @@ from pipeline.coma.image import aperture_count_on_grid
 from pipeline.coma.conversion import band_flux_from_molecules
 from pipeline.io.cubes import CubeInfo
 from pipeline.errors import CoverageError
+from pipeline.rates.line_injection import placement_kind
 from pipeline.spectra.ir_spectra import F_LAMBDA, extract_ir_spectra
 from pipeline.coma.response import ComaModel, outflow_speed, scale_lengths
 
@@ -43,6 +44,11 @@ class BandInjection:
     y: float
     q_recovered: np.ndarray    # 1/s
     q_err: np.ndarray          # 1/s
+
+    @property
+    def kind(self) -> str:
+        """'nucleus' or 'ring' (:func:`pipeline.rates.line_injection.placement_kind`)."""
+        return placement_kind(self.index)
 
 
 def ring_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float, n: int = 4,

@@ -24,7 +24,15 @@ from pipeline.io.products import LineSpectra, SubCube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from pipeline.coma.response import ComaModel
 
-__all__ = ["Placement", "placements", "inject_spectra"]
+__all__ = ["Placement", "placements", "inject_spectra", "placement_kind", "PLACEMENT_KINDS"]
+
+#: What each kind of placement is (index 0 is the nucleus, 1.. the ring), for tables and the report.
+PLACEMENT_KINDS = {"nucleus": "on the nucleus", "ring": "on a ring of sky positions around the nucleus"}
+
+
+def placement_kind(index: int) -> str:
+    """'nucleus' for placement index 0, 'ring' for the ring positions 1.. (millimetre and infrared alike)."""
+    return "nucleus" if int(index) == 0 else "ring"
 
 
 @dataclass(frozen=True)
@@ -35,6 +43,11 @@ class Placement:
     x: float
     y: float
     v_centre: float       # km/s
+
+    @property
+    def kind(self) -> str:
+        """'nucleus' or 'ring' (:func:`placement_kind`)."""
+        return placement_kind(self.index)
 
 
 def _free_velocities(vel: np.ndarray, avoid: np.ndarray, window: float, n: int = 2) -> list[float]:

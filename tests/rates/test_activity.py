@@ -43,3 +43,16 @@ def test_free_slope_needs_spread_epochs():
         fit_free_slope([1.0, 2.0], [0.1, 0.1], [1.0, 1.2], 0.99)
     with pytest.raises(CoverageError, match="found 3 epochs at r_h 1.5-1.5 au"):
         fit_free_slope([1.0, 2.0, 3.0], [0.1, 0.1, 0.1], [1.5, 1.5, 1.5], 0.99)
+
+
+def test_free_slope_at_the_search_edge_is_marked():
+    # Q rising as r_h^15 (n = -15) lies outside SLOPE_RANGE: chi^2(n) falls all the way to the edge n = -10, so the
+    # minimiser ends there; that edge is a setting of the search, marked at_bound, not a fitted slope
+    from pipeline.rates.activity import SLOPE_RANGE, slope_bound
+    r = np.array([1.2, 1.25, 1.3, 1.4])
+    q = 1e25 * r**15
+    fit = fit_free_slope(q, 0.01 * q, r, 0.99865)
+    assert fit.n == pytest.approx(SLOPE_RANGE[0], abs=1e-3) and fit.at_bound == SLOPE_RANGE[0]
+    inside = fit_free_slope(10 * r**-3, 0.01 * 10 * r**-3, r, 0.99865)      # n = 3 inside the range: no edge
+    assert inside.n == pytest.approx(3.0, abs=1e-3) and np.isnan(inside.at_bound)
+    assert slope_bound(19.9999992) == 20.0 and np.isnan(slope_bound(19.5)) and np.isnan(slope_bound(np.nan))
