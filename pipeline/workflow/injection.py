@@ -11,7 +11,7 @@ from astropy.table import QTable
 from pipeline.io.atomic import write_table
 from pipeline.rates.band_injection import inject_band, ring_positions
 from pipeline.io.cubes import open_data, read_cube_info
-from pipeline.rates.line_injection import inject_spectra, placements
+from pipeline.rates.line_injection import inject_spectra, placement_kind, placements
 from pipeline.rates.stacking import StackInput, shared_apertures
 from pipeline.spectra.apertures import aperture_labels
 from pipeline.rates.statistics import inverse_variance_mean
@@ -108,9 +108,10 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     model = settings.coma
     filtering = settings.interferometer
     rows = []
+    cubes: dict[str, set] = {}
     covered = [sub for sub in map(SubCube.from_fits, subcube_paths) if sub.meta.covered]
     for level, q in levels:
-        groups: dict[tuple[int, int], list] = {}
+        groups: dict[tuple[str, int, int], list] = {}
         for sub in covered:
             line = catalogue.get_line(sub.meta.line_id)
             v_out = outflow_speed(model, sub.meta.r_h)
@@ -125,24 +126,30 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
                                      filtering.shortest_baseline if filtering else None,
                                      filtering.correct if filtering else True)
                 vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
-                groups.setdefault((where[k].index, vrank), []).append(inp)
-        for key, members in band_groups(list(bands_paths or []), species, q, settings, t_all.size).items():
-            groups.setdefault(key, []).extend(members)
-        for (index, vrank), members in sorted(groups.items()):
+                groups.setdefault(("millimetre", where[k].index, vrank), []).append(inp)
+        # instruments apart: a millimetre line moved in velocity and an infrared band differenced on the sky are
+        # different tests (and their noise differs by orders of magnitude), so their results are not combined
+        for (index, vrank), members in band_groups(list(bands_paths or []), species, q, settings,
+                                                   t_all.size).items():
+            groups.setdefault(("infrared", index, vrank), []).extend(members)
+        for (instrument, index, vrank), members in sorted(groups.items()):
+            cubes.setdefault(instrument, set()).update(m.cube_id for m in members)
             members, _ = shared_apertures(members, f"injection of {species}")
             q_rec, sig = inverse_variance_mean(np.array([m.q[it] for m in members]),          # (n, n_ap)
                                                np.array([m.sigma_q[it] for m in members]), axis=0)
             for j, radius in enumerate(members[0].radius_km):
-                rows.append({"level": level, "q_injected": q, "t_kin_K": float(t_all[it]), "placement": index,
+                rows.append({"level": level, "q_injected": q, "t_kin_K": float(t_all[it]), "instrument": instrument,
+                             "placement_kind": placement_kind(index), "placement": index,
                              "velocity_slot": vrank, "aperture_km": float(radius), "q_recovered": q_rec[j],
                              "q_err": sig[j], "snr": q_rec[j] / sig[j], "n_spectra": len(members)})
-        if groups:
-            first = min(r["aperture_km"] for r in rows if r["level"] == level)
-            snr = [r["snr"] for r in rows if r["level"] == level and r["aperture_km"] == first]
+        for instrument in sorted({key[0] for key in groups}):
+            mine = [r for r in rows if r["level"] == level and r["instrument"] == instrument]
+            first = min(r["aperture_km"] for r in mine)
+            snr = [r["snr"] for r in mine if r["aperture_km"] == first]
             what = "at its upper limit" if level == "limit" else "at the rate the push needs (lightest nucleus)"
-            log.info("%s: a coma %s, Q = %.3g /s, would be seen at %.1f sigma (median; %.1f to %.1f over %d "
-                     "placements, %.0f km aperture)", species, what, q, np.median(snr), np.min(snr), np.max(snr),
-                     len(snr), first)
+            log.info("%s, %s: a coma %s, Q = %.3g /s, would be seen at %.1f sigma (median; %.1f to %.1f over %d "
+                     "placements, %.0f km aperture)", species, instrument, what, q, np.median(snr), np.min(snr),
+                     np.max(snr), len(snr), first)
     table = QTable(rows=rows) if rows else QTable(names=["level", "q_injected", "snr"], dtype=[str, float, float])
     for name in ("q_injected", "q_recovered", "q_err"):
         if name in table.colnames:
@@ -150,6 +157,7 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
     if "aperture_km" in table.colnames:
         table["aperture_km"] = table["aperture_km"] * u.km
     table.meta["species"] = species
+    table.meta["instrument_cubes"] = {k: sorted(v) for k, v in sorted(cubes.items())}
     table.meta["provenance"] = provenance_record(settings, [*subcube_paths, *(bands_paths or []), limits_path,
                                                           budget_path], "injection")
     table.meta["bands"] = ("infrared bands: injected at the nucleus and on a ring of sky positions; recovered = "
