@@ -4,7 +4,7 @@ import sys
 
 from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 from pipeline.errors import GasledgerError
-from pipeline.io.cubes import read_cube_info
+from pipeline.io.cube_index import cube_spans, index_location
 from pipeline.io.provenance import code_version
 from pipeline.settings import Settings, check_inputs_exist, cube_entries, schema_keys, sections_record, validate_config
 
@@ -17,11 +17,12 @@ try:
         CATALOGUE.get_species(_name)
     CUBES = {c.cube_id: c for c in SETTINGS.cubes}
     CUBE_ITEMS = {c.cube_id: item for c, item in zip(SETTINGS.cubes, config["cubes"])}
-    # each cube's header read once (with the config's beam for a cube whose header has none)
-    INFOS = {cid: read_cube_info(c.path, c.beam_arcsec) for cid, c in CUBES.items()}
-    LINES = {cid: lines_for_cube(INFOS[cid], CATALOGUE, config["species"]) for cid in CUBES}
-    IR_CUBES = {cid: INFOS[cid].regime == "infrared" for cid in CUBES}
-    BANDS = {cid: bands_for_cube(INFOS[cid], CATALOGUE, config["species"]) for cid in CUBES}
+    # each cube's spectral range: its header read (and checked) once per file version, kept in the cube index
+    SPANS = cube_spans({cid: (c.path, c.beam_arcsec) for cid, c in CUBES.items()},
+                       index_location(config["outdir"]))
+    LINES = {cid: lines_for_cube(SPANS[cid], CATALOGUE, config["species"]) for cid in CUBES}
+    IR_CUBES = {cid: SPANS[cid].regime == "infrared" for cid in CUBES}
+    BANDS = {cid: bands_for_cube(SPANS[cid], CATALOGUE, config["species"]) for cid in CUBES}
 except GasledgerError as exc:
     sys.exit(f"gasledger: {exc}")
 

@@ -15,16 +15,18 @@ import astropy.units as u
 
 from pipeline.catalogue.entries import Catalogue
 from pipeline.io.cubes import CubeInfo, read_cube_info  # noqa: F401  (read_cube_info: named in docstrings)
+from pipeline.io.cube_index import CubeSpan
 
 __all__ = ["lines_for_cube", "bands_for_cube"]
 
 
-def lines_for_cube(info: CubeInfo, catalogue: Catalogue, species: list[str],
+def lines_for_cube(info: CubeInfo | CubeSpan, catalogue: Catalogue, species: list[str],
                    margin: u.Quantity = 100 * u.km / u.s) -> list[str]:
-    """Line ids of ``species`` that may fall in the band of the cube ``info`` (:func:`read_cube_info`)."""
+    """Line ids of ``species`` that may fall in the band of the cube ``info`` (:func:`read_cube_info`, or its
+    :class:`~pipeline.io.cube_index.CubeSpan`)."""
     if info.regime == "infrared":
         return []
-    fmin, fmax = info.frequencies.min(), info.frequencies.max()
+    fmin, fmax = info.frequency_range
     beta = (margin / const.c).decompose().value
     out = []
     for name in species:
@@ -34,12 +36,12 @@ def lines_for_cube(info: CubeInfo, catalogue: Catalogue, species: list[str],
     return out
 
 
-def bands_for_cube(info: CubeInfo, catalogue: Catalogue, species: list[str],
+def bands_for_cube(info: CubeInfo | CubeSpan, catalogue: Catalogue, species: list[str],
                    margin: u.Quantity = 100 * u.km / u.s) -> list[str]:
     """Band ids of ``species`` whose extent may overlap the wavelength range of the infrared cube ``info``."""
     if info.regime != "infrared":
         return []
-    lam = info.wavelengths
+    lam = u.Quantity(info.frequency_range).to(u.um, equivalencies=u.spectral())
     beta = (margin / const.c).decompose().value
     out = []
     for name in species:

@@ -31,7 +31,6 @@ from astropy.coordinates import (CartesianDifferential, CartesianRepresentation,
                                  get_body_barycentric_posvel, solar_system_ephemeris)
 from astropy.table import QTable
 from astropy.time import Time
-from scipy.interpolate import CubicHermiteSpline, CubicSpline
 
 from pipeline.errors import ConfigError, EphemerisError, GasledgerTypeError
 from pipeline.offline import future_time_tolerated
@@ -103,6 +102,8 @@ class StateTable:
             raise EphemerisError(msg)
         x = (self.jd_tdb - self.jd_tdb[0]) * 86400.0
         t = (jd - self.jd_tdb[0]) * 86400.0
+        from scipy.interpolate import CubicHermiteSpline, CubicSpline   # where used: the graph builder needs none
+
         pos = CubicHermiteSpline(x, self.position, self.velocity, axis=1)(t)
         if x.size >= 4:
             vel = CubicSpline(x, self.velocity, axis=1)(t)

@@ -101,6 +101,11 @@ class CubeInfo:
         return "infrared" if longest < INFRARED_LIMIT else "millimetre"
 
     @property
+    def frequency_range(self) -> tuple[u.Quantity, u.Quantity]:
+        """Lowest and highest channel frequency, as labelled."""
+        return self.frequencies.min(), self.frequencies.max()
+
+    @property
     def wavelengths(self) -> u.Quantity:
         """Vacuum wavelength of each channel, as labelled (um)."""
         return self.frequencies.to(u.um, equivalencies=u.spectral())

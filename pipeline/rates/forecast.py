@@ -11,18 +11,17 @@ realisations are averaged so that the forecast is stable.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import astropy.constants as const
 import astropy.units as u
 import numpy as np
 from astropy.wcs import WCS
-from scipy.signal import fftconvolve
 
-from pipeline.coma.image import apply_spectral_response, beam_kernel
-from pipeline.coma.response import ComaModel
-from pipeline.io.products import ProductMeta, SubCube
-from pipeline.rates.q_units import stack_input
-from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
+if TYPE_CHECKING:     # the workflow's graph builder reads PlannedEpoch only: the heavy modules load where used
+    from pipeline.coma.response import ComaModel
+    from pipeline.io.products import SubCube
+    from pipeline.spectra.line_spectra import ExtractionSettings
 
 __all__ = ["PlannedEpoch", "noise_subcube", "noise_realisation", "forecast_sigma"]
 
@@ -63,6 +62,8 @@ def noise_subcube(plan: PlannedEpoch, line, geo: dict, data: np.ndarray | None =
     wcs.wcs.crpix = [n / 2 + 0.5, n / 2 + 0.5]
     wcs.wcs.cunit = ["deg", "deg"]
     velocity = -dv * (nchan // 2) + np.arange(nchan) * dv
+    from pipeline.io.products import ProductMeta, SubCube
+
     meta = ProductMeta(cube_id=f"plan_{plan.label}", epoch=plan.label, line_id=line.line_id, species=line.species,
                        covered=True, spectral_response="hanning", target_x=(n - 1) / 2, target_y=(n - 1) / 2,
                        r_h_au=float(geo["r_h"].to_value(u.au)), delta_au=float(geo["delta"].to_value(u.au)))
@@ -75,6 +76,10 @@ def noise_subcube(plan: PlannedEpoch, line, geo: dict, data: np.ndarray | None =
 
 def noise_realisation(plan: PlannedEpoch, nchan: int, rng: np.random.Generator) -> np.ndarray:
     """Noise-only data with the planned rms, correlated over the beam and by Hanning smoothing."""
+    from scipy.signal import fftconvolve
+
+    from pipeline.coma.image import apply_spectral_response, beam_kernel
+
     kernel = beam_kernel(plan.beam_arcsec[0] / plan.pixel_arcsec, plan.beam_arcsec[1] / plan.pixel_arcsec,
                          plan.beam_arcsec[2])
     kernel = kernel / np.sqrt(np.sum(kernel**2))
@@ -93,6 +98,9 @@ def forecast_sigma(plan: PlannedEpoch, line, geo: dict, extraction: ExtractionSe
     :func:`pipeline.rates.q_units.stack_input` at the temperatures ``t_kin`` under the coma ``model``
     (and the interferometer's ``shortest_baseline``, when given), exactly as measured cubes are.
     """
+    from pipeline.rates.q_units import stack_input
+    from pipeline.spectra.line_spectra import extract_spectra
+
     sig2 = []
     _, nchan = _velocity_channels(plan, line)
     for k in range(n_realisations):

@@ -25,7 +25,7 @@ from astropy.table import QTable
 from astropy.time import Time
 
 from pipeline.catalogue.entries import load_catalogue
-from pipeline.io.cubes import read_cube_info
+from pipeline.io.cube_index import cube_spans
 from pipeline.settings import Settings, check_inputs_exist, validate_config
 from pipeline.errors import GasledgerError
 from pipeline.geometry.orbit import write_ephemeris
@@ -153,8 +153,8 @@ def dag_checks(config: dict) -> tuple[dict, dict, Any]:
         for name in config["species"]:
             catalogue.get_species(name)
         cubes = {c.cube_id: c for c in settings.cubes}
-        lines = {cid: lines_for_cube(read_cube_info(c.path, c.beam_arcsec), catalogue, config["species"])
-                 for cid, c in cubes.items()}
+        spans = cube_spans({cid: (c.path, c.beam_arcsec) for cid, c in cubes.items()})   # no index: always read
+        lines = {cid: lines_for_cube(spans[cid], catalogue, config["species"]) for cid in cubes}
     except GasledgerError as exc:
         raise Failed("dag", None, 1, str(exc)) from None
     return cubes, lines, catalogue

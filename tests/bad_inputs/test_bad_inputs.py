@@ -422,7 +422,7 @@ def test_the_dag_checks_mirror_rules_common_smk():
     # bad_builders.dag_checks must make the calls the workflow makes when it builds the job graph
     text = (REPO / "rules" / "common.smk").read_text()
     for call in ("validate_config(config", "check_inputs_exist(config", "Settings.from_config(config)",
-                 "SETTINGS.catalogue()", ".get_species(", "SETTINGS.cubes", "lines_for_cube(", 'sys.exit(f"gasledger: {exc}")'):
+                 "SETTINGS.catalogue()", ".get_species(", "SETTINGS.cubes", "cube_spans(", "lines_for_cube(", 'sys.exit(f"gasledger: {exc}")'):
         assert call in text, call
 
 
