@@ -18,7 +18,7 @@ from astropy.table import QTable
 from pipeline.catalogue.entries import Catalogue
 from pipeline.errors import ConfigError
 from pipeline.coma.haser import outflow_speed_law
-from pipeline.io.tables import read_table
+from pipeline.io.tables import cell_float, read_table
 from pipeline.budget.momentum import (LATENT_HEAT, max_bulk_density, max_nucleus_mass,
                           nongrav_acceleration, required_mass_loss_rate, required_production_rate,
                           rocket_mass_fraction, sublimation_area_required, thermal_ejection_speed)
@@ -150,7 +150,7 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
         if len(sel):
             k = int(np.argmax(sel["q_upper"].to_value(1 / u.s)))
             q_up = float(sel["q_upper"][k].to_value(1 / u.s))
-            t_best, ap_best = float(sel["t_kin_K"][k]), float(sel["aperture_km"][k].to_value(u.km))
+            t_best, ap_best = cell_float(sel["t_kin_K"][k], u.K), float(sel["aperture_km"][k].to_value(u.km))
             m_allowed = float((max_nucleus_mass(q_up / u.s, mol, a, v_ej, aset.efficiency)
                                + f_dust / a).to_value(u.kg)) if a > 0 else np.inf
             detected = bool(np.any(sel["detected"]))
@@ -208,8 +208,9 @@ def _epoch_measurements(limits: QTable, species: str) -> tuple[list[str], np.nda
     if not len(comb):
         return [], np.array([]), np.array([]), np.nan, np.nan
     ap = float(np.min(comb["aperture_km"].to_value(u.km)))
-    t = float(comb[np.argmin(comb["aperture_km"].to_value(u.km))]["t_kin_K"])
-    rows = sel[(sel["epoch"] != "all") & np.isclose(sel["aperture_km"].to_value(u.km), ap) & (sel["t_kin_K"] == t)]
+    t = cell_float(comb[np.argmin(comb["aperture_km"].to_value(u.km))]["t_kin_K"], u.K)
+    rows = sel[(sel["epoch"] != "all") & np.isclose(sel["aperture_km"].to_value(u.km), ap)
+               & (u.Quantity(sel["t_kin_K"], u.K).value == t)]
     return ([str(e) for e in rows["epoch"]], rows["q"].to_value(1 / u.s), rows["q_err"].to_value(1 / u.s), t, ap)
 
 
