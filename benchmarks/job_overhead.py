@@ -1,0 +1,144 @@
+"""Benchmark: what a workflow job pays before it does any work, and what building the job graph costs.
+
+Every Snakemake job starts a fresh interpreter that imports its stage module (rules/scripts/*.py import
+pipeline.workflow.<stage>); on a cluster every job also re-parses the workflow. This prints, in one run, medians of:
+
+- the bare interpreter start (``python -c pass``: the baseline) and the import of each stage module, as seconds and
+  as the cost beyond the baseline (the fixed cost per job; the target is at most 0.5 s);
+- the slowest imports of the slowest stage (``python -X importtime``), to show where that cost comes from;
+- the graph builder's own work (config validation, settings, catalogue, cube spectral ranges) for a campaign of
+  N cubes, with a cold and a warm cube index (pipeline.io.cube_index), against Snakemake's import alone.
+
+    .venv/bin/python benchmarks/job_overhead.py [--repeat 3] [--cubes 111] [--config config/config.yaml]
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+STAGES = sorted(p.stem for p in (REPO / "pipeline" / "workflow").glob("*.py") if p.stem not in ("__init__", "common"))
+
+
+def wall(code: str, repeat: int) -> float:
+    """Median wall time (s) of a fresh interpreter running ``code``."""
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        subprocess.run([sys.executable, "-c", code], check=True, cwd=REPO)
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def slowest_imports(module: str, n: int = 8) -> list[tuple[float, str]]:
+    """The ``n`` outside packages whose import costs most (largest cumulative s in ``python -X importtime``)."""
+    run = subprocess.run([sys.executable, "-X", "importtime", "-c", f"import {module}"], capture_output=True,
+                         text=True, check=True, cwd=REPO)
+    by_package: dict[str, float] = {}
+    for line in run.stderr.splitlines():
+        parts = line.split("|")
+        if not line.startswith("import time:") or len(parts) != 3:
+            continue
+        try:
+            seconds = int(parts[1].strip()) / 1e6
+        except ValueError:
+            continue
+        root = parts[2].strip().split(".")[0]
+        if root != "pipeline":
+            by_package[root] = max(by_package.get(root, 0.0), seconds)
+    return sorted(((t, name) for name, t in by_package.items()), reverse=True)[:n]
+
+
+GRAPH_CODE = """
+import sys, time, yaml
+t0 = time.perf_counter()
+from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
+from pipeline.io.cube_index import cube_spans
+from pipeline.settings import Settings, check_inputs_exist, validate_config
+t1 = time.perf_counter()
+config = yaml.safe_load(open(sys.argv[1]))
+validate_config(config, source="config")
+check_inputs_exist(config, source="config")
+settings = Settings.from_config(config)
+catalogue = settings.catalogue()
+spans = cube_spans({c.cube_id: (c.path, c.beam_arcsec) for c in settings.cubes}, sys.argv[2])
+lines = {k: lines_for_cube(s, catalogue, config["species"]) for k, s in spans.items()}
+bands = {k: bands_for_cube(s, catalogue, config["species"]) for k, s in spans.items()}
+t2 = time.perf_counter()
+print(t1 - t0, t2 - t1)
+"""
+
+
+def graph_cost(config: Path, index: Path, repeat: int) -> tuple[float, float]:
+    """Median (imports, work) seconds of the graph builder's own part."""
+    out = []
+    for _ in range(repeat):
+        run = subprocess.run([sys.executable, "-c", GRAPH_CODE, str(config), str(index)], capture_output=True,
+                             text=True, check=True)
+        out.append(tuple(float(x) for x in run.stdout.split()))
+    return statistics.median(o[0] for o in out), statistics.median(o[1] for o in out)
+
+
+def campaign_of(config_path: Path, n_cubes: int, folder: Path) -> Path:
+    """The campaign ``config_path`` with its cubes repeated (new ids, same files) up to ``n_cubes`` entries."""
+    import yaml
+
+    config = yaml.safe_load(config_path.read_text())
+    base = config["cubes"]
+    cubes = []
+    for k in range(n_cubes):
+        entry = dict(base[k % len(base)])
+        entry["id"] = f"{entry.get('id', Path(entry['path']).stem)}_r{k}"
+        entry["epoch"] = f"r{k // len(base)}"
+        cubes.append(entry)
+    config["cubes"] = cubes
+    out = folder / "campaign.yaml"
+    out.write_text(yaml.safe_dump(config, sort_keys=False))
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--cubes", type=int, default=111)
+    parser.add_argument("--config", default=str(REPO / "config" / "config.yaml"),
+                        help="a campaign whose cube files exist, paths relative to the current folder (the demo's: "
+                             "run 'make demo' first)")
+    args = parser.parse_args(argv)
+
+    base = wall("pass", args.repeat)
+    print(f"interpreter start (baseline): {base:.3f} s")
+    print(f"{'stage module':28s} {'import s':>9s} {'beyond baseline s':>18s}")
+    costs = {}
+    for stage in STAGES:
+        t = wall(f"import pipeline.workflow.{stage}", args.repeat)
+        costs[stage] = t - base
+        print(f"{'pipeline.workflow.' + stage:28s} {t:9.3f} {t - base:18.3f}")
+    worst = max(costs, key=costs.get)
+    print(f"fixed cost per job: median {statistics.median(costs.values()):.3f} s, worst {costs[worst]:.3f} s "
+          f"({worst}); target <= 0.5 s")
+    print(f"costliest outside packages imported by pipeline.workflow.{worst} (cumulative s):")
+    for seconds, name in slowest_imports(f"pipeline.workflow.{worst}"):
+        print(f"  {seconds:7.3f}  {name}")
+
+    snake = wall("import snakemake.api", args.repeat) - base
+    with tempfile.TemporaryDirectory() as tmp:
+        config = campaign_of(Path(args.config), args.cubes, Path(tmp))
+        index = Path(tmp) / ".cube_index.json"
+        cold = graph_cost(config, Path(tmp) / "none" / ".cube_index.json", 1)   # a fresh index each run: all reads
+        graph_cost(config, index, 1)                                             # fill the index
+        warm = graph_cost(config, index, args.repeat)
+    print(f"graph building for {args.cubes} cubes: imports {warm[0]:.3f} s; work {cold[1]:.3f} s with a cold cube "
+          f"index, {warm[1]:.3f} s warm; total beyond Snakemake's own {warm[0] + warm[1]:.3f} s "
+          f"(Snakemake's import alone: {snake:.3f} s; ratio {(warm[0] + warm[1]) / snake:.2f}); target <= 0.5 s")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
