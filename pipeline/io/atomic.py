@@ -19,6 +19,8 @@ from typing import Any, Iterator
 from astropy.io import fits
 from astropy.table import Table
 
+from pipeline.io.columns import described, table_kind
+
 _UMASK = os.umask(0)
 os.umask(_UMASK)
 
@@ -84,10 +86,16 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
         raise
 
 
-def write_table(table: Table, path: str | Path) -> None:
-    """Write an astropy table as ECSV (units and metadata kept), atomically."""
+def write_table(table: Table, path: str | Path, kind: str | None = None) -> None:
+    """Write an astropy table as ECSV (units and metadata kept), atomically.
+
+    Each column gets its description and unit from :mod:`pipeline.io.columns` (looked up in the table ``kind``,
+    by default the one the path names: ``limits.ecsv`` or ``limits/CO.ecsv`` is 'limits'); ``table`` itself is
+    not changed. A column the registry does not list is written as it is.
+    """
+    out = described(table, kind if kind is not None else table_kind(path))
     with atomic_path(path) as tmp:
-        table.write(tmp, format="ascii.ecsv", overwrite=True)
+        out.write(tmp, format="ascii.ecsv", overwrite=True)
 
 
 def write_fits(hdul: fits.HDUList, path: str | Path) -> None:

@@ -37,7 +37,9 @@ def cell_float(value, unit: str | u.UnitBase | None = None) -> float:
 
 def _json_cell(value) -> Any:
     if isinstance(value, Time):
-        return None if np.ma.is_masked(value) or bool(np.any(getattr(value, "mask", False))) else value.isot
+        if bool(np.any(getattr(value, "mask", False))):
+            return None
+        return str(getattr(value, "unmasked", value).isot)
     if np.ma.is_masked(value):
         return None
     value = value.value if hasattr(value, "unit") else value

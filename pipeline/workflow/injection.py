@@ -23,7 +23,7 @@ from pipeline.coma.response import outflow_speed
 from pipeline.rates.q_units import stack_input
 from pipeline.settings import Settings
 from pipeline.spectra.line_spectra import extraction_settings
-from pipeline.io.tables import read_table
+from pipeline.io.tables import cell_float, read_table
 
 __all__ = ["run", "injection_levels"]
 
@@ -41,7 +41,7 @@ def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list
     if len(sel):
         row = sel[np.argmin(sel["aperture_km"].to_value(u.km))]
         levels.append(("limit", float(row["q_upper"].to_value(1 / u.s))))
-        t_kin = float(row["t_kin_K"])
+        t_kin = cell_float(row["t_kin_K"], u.K)
     baseline = budget["assumption_set"][0] if "assumption_set" in budget.colnames and len(budget) else None
     bsel = budget[(budget["species"] == species) & (budget["epoch"] == "all")
                   & ((budget["assumption_set"] == baseline) if baseline is not None else True)]

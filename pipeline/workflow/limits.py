@@ -7,8 +7,10 @@ import logging
 import astropy.units as u
 import numpy as np
 from astropy.table import QTable
+from astropy.time import Time
 
 from pipeline.io.atomic import write_json, write_table
+from pipeline.io.columns import described
 from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
 from pipeline.io.tables import cell_float, table_as_json, read_table
@@ -18,7 +20,7 @@ from pipeline.rates.limits_table import join_limits, limit_rows, mark_adopted, m
 from pipeline.rates.temperature import adopted_temperature, q_at_temperature, temperature_systematic, window_measures
 from pipeline.settings import Settings
 
-__all__ = ["run_species", "run_join"]
+__all__ = ["run_species", "run_join", "epoch_geometry"]
 
 log = logging.getLogger(__name__)
 ALL_GROUP = "all"
@@ -182,16 +184,44 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
         "nsigma": settings.limits.nsigma,
         "epoch 'all'": "constant Q over the epochs combined",
     }
+    epochs = epoch_geometry(geometry_paths or [])
+    if epochs:
+        _with_epoch_geometry(table, epochs)
+    table = described(table, "limits")
     write_table(table, out_path)
     if json_path is not None:
         write_json(table_as_json(table), json_path)
     if activity_path is not None:
-        rh: dict[str, list[float]] = {}
-        for path in geometry_paths or []:
-            g = read_table(path)[0]
-            rh.setdefault(str(g["epoch"]), []).append(float(g["r_h"].to_value(u.au)))
-        act = activity_table(table, {k: float(np.mean(v)) for k, v in rh.items()},
+        act = activity_table(table, {k: v[1] for k, v in epochs.items()},
                              float(settings.limits.activity_slope), float(table["confidence"][0])
                              if len(table) else 0.99865)
         act.meta["provenance"] = provenance_record(settings, [*species_paths, *(geometry_paths or [])], "limits")
         write_table(act, activity_path)
+
+
+def epoch_geometry(geometry_paths: list[str]) -> dict[str, tuple[float, float, float]]:
+    """Per epoch group: the mean mid-exposure time (MJD, UTC), r_h [au] and Delta [au] of its cubes.
+
+    The mean over the epoch's cubes, whatever their species: the cubes of one epoch lie hours apart, over which
+    r_h and Delta change little and nearly linearly; two observers (a site and a spacecraft) differ in Delta
+    by their separation, which the mean splits.
+    """
+    groups: dict[str, list] = {}
+    for path in geometry_paths:
+        g = read_table(path)[0]
+        groups.setdefault(str(g["epoch"]), []).append((g["time_mid"].utc.mjd, g["r_h"].to_value(u.au),
+                                                       g["delta"].to_value(u.au)))
+    return {e: tuple(float(np.mean([v[i] for v in vals])) for i in range(3)) for e, vals in sorted(groups.items())}
+
+
+def _with_epoch_geometry(table: QTable, epochs: dict[str, tuple[float, float, float]]) -> None:
+    """Columns time_mid, r_h and delta of each row's epoch; masked (time) and NaN for 'all', which is no one time."""
+    known = np.array([str(e) in epochs for e in table["epoch"]], dtype=bool)
+    values = np.array([epochs.get(str(e), (np.nan,) * 3) for e in table["epoch"]], dtype=float).reshape(-1, 3)
+    mid = Time(np.where(known, values[:, 0], 0.0), format="mjd", scale="utc")
+    mid.format = "isot"
+    if not np.all(known):
+        mid[~known] = np.ma.masked
+    table["time_mid"] = mid
+    table["r_h"] = values[:, 1] * u.au
+    table["delta"] = values[:, 2] * u.au

@@ -50,7 +50,7 @@ def limits(tmp_path_factory) -> dict[str, QTable]:
 
 
 def _row(table: QTable, epoch: str, aperture: float):
-    sel = table[(table["species"] == "HCN") & (table["epoch"] == epoch) & (table["t_kin_K"] == 40.0)
+    sel = table[(table["species"] == "HCN") & (table["epoch"] == epoch) & (table["t_kin_K"].to_value(u.K) == 40.0)
                 & np.isclose(table["aperture_km"].to_value(u.km), aperture)]
     assert len(sel) == 1
     return sel[0]

@@ -62,7 +62,8 @@ def _limits(root: Path) -> QTable:
 
 def _row(table, species, epoch, aperture, t_kin=40.0):
     sel = table[(table["species"] == species) & (table["epoch"] == epoch)
-                & (np.isclose(table["aperture_km"].to_value(u.km), aperture)) & (table["t_kin_K"] == t_kin)]
+                & (np.isclose(table["aperture_km"].to_value(u.km), aperture))
+                & (table["t_kin_K"].to_value(u.K) == t_kin)]
     assert len(sel) == 1
     return sel[0]
 
@@ -198,6 +199,64 @@ def test_outputs_contract_and_provenance(campaign):
     assert "peer review" in html and "Infrared bands and dust" in html
     for name in ("stacked_spectra", "mass_budget", "temperature_sweep", "infrared_spectra"):
         assert (root / "results" / "figures" / f"{name}.png").stat().st_size > 10_000
+
+
+#: Header cards of a FITS HDU that have no business in a table's metadata (astropy puts them there on reading).
+FITS_BOOKKEEPING = re.compile(r"^(CHECKSUM|DATASUM|EXTNAME|EXTVER|XTENSION|BITPIX|NAXIS\d*|PCOUNT|GCOUNT|TFIELDS"
+                              r"|T(TYPE|FORM|UNIT|DISP|NULL)\d+)$")
+
+
+def test_every_output_table_explains_its_columns(campaign):
+    """Every column of every ECSV the workflow writes has a description; every numeric column has the unit
+    pipeline.io.columns names for it ('' there: dimensionless on purpose), so a name has one unit in all tables;
+    limits.ecsv carries each epoch's mid-time, r_h and Delta; no FITS card sits in any table's metadata, and no
+    job logged a MergeConflictWarning (the dust job stacks tables read from FITS)."""
+    from astropy.time import Time
+
+    from pipeline.io.columns import column_spec, table_kind
+    from pipeline.io.tables import read_table
+
+    root, _ = campaign
+    results = root / "results"
+    paths = sorted(results.rglob("*.ecsv"))
+    kinds = {table_kind(p) for p in paths}
+    assert kinds >= {"geometry", "limits", "activity", "temperature", "budget", "exclusion", "zeta", "water_inferred",
+                     "dust", "afrho", "injection", "forecast"}, kinds
+    problems = []
+    for path in paths:
+        table, kind = read_table(path), table_kind(path)
+        where = str(path.relative_to(results))
+        problems += [f"{where}: FITS card {k} in the meta" for k in table.meta if FITS_BOOKKEEPING.match(str(k))]
+        for name in table.colnames:
+            col, spec = table[name], column_spec(name, kind)
+            if not col.info.description:
+                problems.append(f"{where}: column {name} has no description")
+            if spec is None:
+                problems.append(f"{where}: column {name} is not in pipeline.io.columns")
+                continue
+            numeric = not isinstance(col, Time) and col.dtype.kind in "fiu"
+            unit = getattr(col, "unit", None)
+            if spec[0] is None and (numeric or unit is not None):
+                problems.append(f"{where}: column {name} is numeric ({unit}) but listed as text, flag or time")
+            elif spec[0] == "" and unit is not None and unit != u.dimensionless_unscaled:
+                problems.append(f"{where}: column {name} has unit {unit}, listed as dimensionless")
+            elif spec[0] and unit != u.Unit(spec[0]):
+                problems.append(f"{where}: column {name} has unit {unit}, expected {spec[0]}")
+    assert not problems, "\n".join(problems)
+    limits = _limits(root)
+    for epoch in ("e1", "e2", "e3"):
+        geo = [read_table(p)[0] for p in (results / "geometry").glob("*.ecsv")]
+        geo = [g for g in geo if g["epoch"] == epoch]
+        rows = limits[limits["epoch"] == epoch]
+        assert len(rows) and len(geo)
+        mid = np.mean([g["time_mid"].mjd for g in geo])
+        assert np.allclose(rows["time_mid"].mjd, mid, atol=1e-6)                 # 0.1 s
+        assert np.allclose(rows["r_h"].to_value(u.au), np.mean([g["r_h"].to_value(u.au) for g in geo]))
+        assert np.allclose(rows["delta"].to_value(u.au), np.mean([g["delta"].to_value(u.au) for g in geo]))
+    combined = limits[limits["epoch"] == "all"]
+    assert np.all(combined["time_mid"].mask) and np.all(np.isnan(combined["r_h"].value))
+    logs = [p for p in (results / "logs").rglob("*.log") if "MergeConflictWarning" in p.read_text()]
+    assert not logs, logs
 
 
 def _jobs(dry_run_stdout: str) -> dict[str, int]:
