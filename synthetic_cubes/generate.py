@@ -307,6 +307,9 @@ def campaign_config(sc: Scenario, outdir: str | Path, results: str = "results/de
                    "nucleus": {"radius_km": list(sc.nucleus_radius_km),
                                "density_kg_m3": list(sc.nucleus_density_kg_m3)},
                    "ejection_speed_km_s": 0.3, "momentum_efficiency": 1.0, "include_dust": False,
+                   # a second set: gas leaving at the outflow law's speed, so the report shows how far the verdict
+                   # moves with the ejection speed
+                   "assumption_sets": [{"name": "outflow-law ejection speed", "ejection_speed_km_s": "law"}],
                    # published ranges of cometary abundances relative to water (the review's compilation of
                    # measured comets; numbers from memory): turn the tracers into an inferred water range
                    "water_from_tracers": [t for t in [

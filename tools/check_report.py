@@ -1,14 +1,17 @@
 """Open a gasledger report in headless Chromium, take a screenshot and check the figures were rendered.
 
-    .venv/bin/python tools/check_report.py results/demo/report.html [--png shot.png]
+    .venv/bin/python tools/check_report.py results/demo/report.html [--png shot.png] [--fold-png first_screen.png]
 
-Exit status 0 when the screenshot shows the figures (enough pixels in matplotlib's line colours), 1 when it
-does not, 2 when no Chromium is installed (Debian: apt-get install chromium).
+Exit status 0 when the screenshot shows the figures (enough pixels in matplotlib's line colours) and the campaign
+figure lies wholly above the fold of a 1400x900 window, 1 when not, 2 when no Chromium is installed (Debian:
+apt-get install chromium).
 """
 
 from __future__ import annotations
 
 import argparse
+import json
+import re
 import shutil
 import subprocess
 import sys
@@ -34,13 +37,13 @@ def find_chromium() -> str | None:
     return None
 
 
-def screenshot(html: Path, png: Path, height: int = 6000, timeout: float = 120) -> None:
-    """Render ``html`` to ``png`` (1200 px wide) with headless Chromium."""
+def screenshot(html: Path, png: Path, height: int = 6000, timeout: float = 120, width: int = 1200) -> None:
+    """Render ``html`` to ``png`` (``width`` px wide, 1200 unless given) with headless Chromium."""
     browser = find_chromium()
     if browser is None:
         raise FileNotFoundError("no chromium on PATH (Debian: apt-get install chromium)")
     with tempfile.TemporaryDirectory() as profile:
-        cmd = [browser, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", f"--window-size=1200,{height}",
+        cmd = [browser, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", f"--window-size={width},{height}",
                f"--screenshot={png}", html.resolve().as_uri()]
         subprocess.run(cmd, check=True, capture_output=True, timeout=timeout)
 
@@ -52,11 +55,82 @@ def figure_pixels(png: Path, tolerance: float = 0.08) -> int:
     return int(np.sum(dist < tolerance))
 
 
+#: the <img> id of the campaign figure (pipeline.report.campaign_figure.IMG_ID)
+CAMPAIGN_FIGURE_ID = "campaign-figure"
+#: the window a reader first sees: the campaign figure must lie wholly inside it
+FOLD = (1400, 900)
+
+_BOX_SCRIPT = """<script>window.addEventListener('load', function () {
+  var e = document.getElementById(%s), p = document.createElement('pre'), r = e ? e.getBoundingClientRect() : null;
+  p.id = 'check-report-box';
+  p.textContent = r ? [r.left + scrollX, r.top + scrollY, r.right + scrollX, r.bottom + scrollY].join(' ') : 'none';
+  document.body.appendChild(p);
+});</script>"""
+
+
+def element_box(html: Path, element_id: str, width: int = FOLD[0], timeout: float = 120
+                ) -> tuple[float, float, float, float] | None:
+    """Page coordinates (left, top, right, bottom, CSS px) of the element ``element_id`` in a ``width`` px window.
+
+    Chromium loads a copy of the page with a small script that writes the element's box into the DOM once every
+    image is loaded, and prints the DOM (--dump-dom); None when the page has no such element.
+    """
+    browser = find_chromium()
+    if browser is None:
+        raise FileNotFoundError("no chromium on PATH (Debian: apt-get install chromium)")
+    text = html.read_text(encoding="utf-8")
+    script = _BOX_SCRIPT % json.dumps(element_id)
+    text = text.replace("</body>", script + "</body>") if "</body>" in text else text + script
+    with tempfile.TemporaryDirectory() as tmp:
+        page = Path(tmp) / "page.html"
+        page.write_text(text, encoding="utf-8")
+        cmd = [browser, *CHROMIUM_FLAGS, f"--user-data-dir={tmp}/profile", f"--window-size={width},{FOLD[1]}",
+               "--virtual-time-budget=10000", "--dump-dom", page.as_uri()]
+        out = subprocess.run(cmd, check=True, capture_output=True, text=True, timeout=timeout).stdout
+    found = re.search(r'<pre id="check-report-box">([^<]*)</pre>', out)
+    if found is None:
+        raise RuntimeError("chromium printed no element box: the page's load event did not run")
+    if found.group(1).strip() == "none":
+        return None
+    left, top, right, bottom = (float(x) for x in found.group(1).split())
+    return left, top, right, bottom
+
+
+def campaign_figure_above_fold(html: Path, png: Path | None = None, min_pixels: int = 1000) -> tuple[bool, str]:
+    """Whether the campaign figure lies wholly above the fold of a 1400x900 window, with a one-line reason.
+
+    The figure's box comes from the DOM (:func:`element_box`); a 1400x900 screenshot (kept at ``png``) must show
+    figure colours inside that box, so the figure was drawn there and not merely laid out.
+    """
+    box = element_box(html, CAMPAIGN_FIGURE_ID)
+    if box is None:
+        return False, f"no element with id '{CAMPAIGN_FIGURE_ID}' (the campaign figure) in the page"
+    left, top, right, bottom = box
+    if right - left < 200 or bottom - top < 150:
+        return False, f"the campaign figure is only {right - left:.0f}x{bottom - top:.0f} px"
+    if top < 0 or bottom > FOLD[1] or right > FOLD[0]:
+        return False, (f"the campaign figure spans y = {top:.0f}-{bottom:.0f} px, beyond the fold at {FOLD[1]} px "
+                       f"of a {FOLD[0]}x{FOLD[1]} window")
+    with tempfile.TemporaryDirectory() as tmp:
+        shot = png or Path(tmp) / "fold.png"
+        screenshot(html, shot, height=FOLD[1], width=FOLD[0])
+        img = imread(shot)[..., :3]
+        inside = img[int(top):int(np.ceil(bottom)), int(left):int(np.ceil(right))]
+        dist = np.min(np.linalg.norm(inside[..., None, :] - FIGURE_COLOURS[None, None], axis=-1), axis=-1)
+        n = int(np.sum(dist < 0.08))
+    if n < min_pixels:
+        return False, f"the campaign figure's box holds only {n} pixels in the figure colours: not rendered?"
+    return True, (f"campaign figure above the fold: y = {top:.0f}-{bottom:.0f} px of {FOLD[1]}, {n} pixels in the "
+                  "figure colours")
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("report", type=Path)
     parser.add_argument("--png", type=Path, default=None, help="keep the screenshot here")
     parser.add_argument("--min-pixels", type=int, default=3000)
+    parser.add_argument("--fold-png", type=Path, default=None,
+                        help="keep the 1400x900 screenshot (what a reader sees first) here")
     args = parser.parse_args(argv)
     if find_chromium() is None:
         print("check_report: no chromium on PATH (Debian: apt-get install chromium)", file=sys.stderr)
@@ -67,7 +141,9 @@ def main(argv: list[str] | None = None) -> int:
         n = figure_pixels(png)
     ok = n >= args.min_pixels
     print(f"check_report: {n} pixels in the figures' colours ({'ok' if ok else 'too few: figures not rendered?'})")
-    return 0 if ok else 1
+    fold_ok, why = campaign_figure_above_fold(args.report, args.fold_png)
+    print(f"check_report: {why}")
+    return 0 if ok and fold_ok else 1
 
 
 if __name__ == "__main__":
