@@ -90,9 +90,17 @@ class CubeEntry:
     apertures: tuple[u.Quantity, ...] | None = None   # this cube's own aperture radii (None: the campaign's)
 
 
-def _load_schema() -> dict:
+@functools.lru_cache(maxsize=1)
+def _schema_text_parsed() -> dict:
+    # libyaml's loader where installed: the schema is read at every workflow start (and in every cluster job)
+    loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
     with open(SCHEMA_FILE, encoding="utf-8") as fh:
-        return yaml.safe_load(fh)
+        return yaml.load(fh, Loader=loader)  # noqa: S506  (a safe loader)
+
+
+def _load_schema() -> dict:
+    """The config schema (a fresh copy: callers may not change the cached one)."""
+    return copy.deepcopy(_schema_text_parsed())
 
 
 def _with_defaults(validator_class):
@@ -185,6 +193,7 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
                 error = (deep or extra or errs)[0]
         raise ConfigError(_describe(error, source))
     _check_ranges(config, source)
+    _normalise_species(config)
     for i, tracer in enumerate(config.get("budget", {}).get("water_from_tracers", [])):
         if tracer["species"] not in config["species"]:
             msg = (f"{source}: key budget.water_from_tracers[{i}].species = {tracer['species']!r} is not among the "
@@ -206,6 +215,33 @@ def validate_config(config: dict[str, Any], source: str = "config") -> dict[str,
             raise ConfigError(msg)
         seen[entry.cube_id] = entry.path
     return config
+
+
+def _normalise_species(config: dict[str, Any]) -> None:
+    """Species names spelt as in the catalogue when they match one of its names but for case ('hcn' -> 'HCN'), in
+    ``species``, ``budget.drivers`` and ``budget.water_from_tracers``; a name matching none is left for the
+    catalogue's own refusal (with its closest suggestions). Nothing changes when the catalogue cannot be read."""
+    from pipeline.errors import GasledgerError
+
+    try:
+        names = list(_load_catalogue(_catalogue_files(config)).species)
+    except (GasledgerError, OSError):
+        return
+    by_lower: dict[str, list[str]] = {}
+    for name in names:
+        by_lower.setdefault(name.lower(), []).append(name)
+
+    def spelt(name: Any) -> Any:
+        if not isinstance(name, str) or name in names or len(by_lower.get(name.lower(), [])) != 1:
+            return name
+        return by_lower[name.lower()][0]
+
+    config["species"] = [spelt(n) for n in config.get("species", [])]
+    budget = config.get("budget") or {}
+    if "drivers" in budget:
+        budget["drivers"] = [spelt(n) for n in budget["drivers"]]
+    for tracer in budget.get("water_from_tracers", []):
+        tracer["species"] = spelt(tracer["species"])
 
 
 #: A number in exponent form without a decimal point ('2e-6'): YAML 1.2 reads it as a float, YAML 1.1 as text.
@@ -313,12 +349,20 @@ def check_inputs_exist(config: dict[str, Any], source: str = "config") -> None:
             raise ConfigError(msg)
 
 
-def write_campaign(config: dict[str, Any], path: str | Path, header: str = "") -> None:
-    """Write a campaign file: validate a copy (defaults are not written into the user's file), then write atomically."""
+def write_campaign(config: dict[str, Any], path: str | Path, header: str = "", trailer: str = "") -> None:
+    """Write a campaign file: validate a copy (defaults are not written into the user's file), then write atomically.
+
+    ``header`` and ``trailer`` are text (comments) written before and after the YAML; the whole is checked to
+    read back as ``config``.
+    """
     from pipeline.io.atomic import write_text
 
     validate_config(copy.deepcopy(config), source=str(path))
-    write_text(header + yaml.safe_dump(config, sort_keys=False), Path(path))
+    text = header + yaml.safe_dump(config, sort_keys=False) + trailer
+    if yaml.safe_load(text) != config:
+        msg = f"{path}: the text around the campaign's keys changes what the file holds; expected comments only"
+        raise ConfigError(msg)
+    write_text(text, Path(path))
 
 
 def append_cubes(path: str | Path, entries: list[dict[str, Any]]) -> None:
