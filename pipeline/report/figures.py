@@ -14,12 +14,23 @@ __all__ = ["SpectrumPanel", "BandPanel", "plot_band_spectra", "plot_stacked_spec
 
 
 class SpectrumPanel:
-    """What one panel of the stacked-spectra figure shows."""
+    """What one panel of the stacked-spectra figure shows.
+
+    Besides the stack and its model: ``title`` (which instrument carries a combined result), ``own_model`` and
+    ``own_label`` (the model at the millimetre lines' own limit, where other instruments enter the combined one),
+    ``estimates`` (label, Q, σ_Q of each instrument) and ``combined`` (Q, σ_Q, Q upper, detected) for the side
+    panel that shows what the quoted value rests on.
+    """
 
     def __init__(self, species: str, velocity: np.ndarray, density: np.ndarray, window: float,
                  model: np.ndarray, label: str, detected: bool):
         self.species, self.velocity, self.density = species, velocity, density
         self.window, self.model, self.label, self.detected = window, model, label, detected
+        self.title: str | None = None
+        self.own_model: np.ndarray | None = None
+        self.own_label = ""
+        self.estimates: list[tuple[str, float, float]] = []
+        self.combined: tuple[float, float, float, bool] | None = None
 
 
 class BandPanel:
@@ -78,20 +89,64 @@ def to_png(fig) -> bytes:
     return buf.getvalue()
 
 
+def _estimates_axis(ax, p: SpectrumPanel) -> None:
+    """The side panel: each instrument's Q ± σ, the combined Q ± σ and the quoted limit, on one Q axis."""
+    rows = list(p.estimates)
+    if p.combined is not None:
+        rows.append(("combined (quoted)", p.combined[0], p.combined[1]))
+    y = np.arange(len(rows))[::-1]
+    for k, (label, q, s) in enumerate(rows):
+        ax.errorbar([q], [y[k]], xerr=[s], fmt="o", ms=4, capsize=3,
+                    color="0.15" if label.startswith("combined") else "tab:blue")
+    if p.combined is not None:
+        q, s, q_up, detected = p.combined
+        if not detected:
+            ax.plot([q_up], [y[-1]], marker=8, ms=9, color="tab:orange", ls="none")   # caret left: "below this"
+            ax.annotate("limit", (q_up, y[-1]), xytext=(0, 7), textcoords="offset points", fontsize=6,
+                        ha="center", color="tab:orange")
+    ax.axvline(0, color="0.6", lw=0.6)
+    ends = [v for _, q, s in rows for v in (q - s, q + s)] + ([p.combined[2]] if p.combined is not None else []) + [0.0]
+    lo, hi = min(ends), max(ends)
+    ax.set_xlim(lo - 0.12 * (hi - lo or 1.0), hi + 0.12 * (hi - lo or 1.0))
+    ax.set_yticks(y)
+    ax.set_yticklabels([r[0] for r in rows], fontsize=6)
+    ax.set_ylim(-0.7, len(rows) - 0.3)
+    ax.tick_params(axis="x", labelsize=6)
+    ax.xaxis.get_offset_text().set_fontsize(6)
+    ax.set_xlabel("Q ± 1σ [s$^{-1}$]", fontsize=7)
+
+
 def plot_stacked_spectra(panels: list[SpectrumPanel]):
-    """One panel per species: Q-density spectrum, window shaded, model at Q or at the limit."""
+    """One row per species: Q-density spectrum, window shaded, model at Q or at the limit; beside it what the
+    quoted value rests on (each instrument's Q ± σ and the combination)."""
     n = max(1, len(panels))
-    fig, axes = plt.subplots(n, 1, figsize=(7.5, 2.4 * n), squeeze=False)
-    for ax, p in zip(axes[:, 0], panels):
-        ax.step(p.velocity, p.density, where="mid", color="0.2", lw=1, label="stack")
-        ax.axvspan(-p.window, p.window, color="tab:blue", alpha=0.12, label="integration window")
-        ax.plot(p.velocity, p.model, color="tab:red" if p.detected else "tab:orange", lw=1.5,
-                label=p.label)
-        ax.axhline(0, color="0.6", lw=0.6)
-        ax.set_ylabel(f"{p.species}\nQ density [s$^{{-1}}$/(km/s)]", fontsize=8)
-        ax.legend(fontsize=7, loc="upper right", frameon=False)
+    fig, axes = plt.subplots(n, 2, figsize=(9.5, 2.6 * n), squeeze=False, gridspec_kw={"width_ratios": [3.2, 1]})
+    for (ax, side), p in zip(axes, panels):
         lim = 6 * max(p.window, 1.0)
+        seen = [c[np.abs(p.velocity) <= lim] for c in (p.density, p.model, p.own_model) if c is not None]
+        top = max(float(np.nanmax(np.abs(c))) for c in seen) or 1.0
+        scale = 10.0 ** np.floor(np.log10(top))
+        ax.step(p.velocity, p.density / scale, where="mid", color="0.2", lw=1, label="stack (millimetre lines)")
+        ax.axvspan(-p.window, p.window, color="tab:blue", alpha=0.12, label="integration window")
+        ax.plot(p.velocity, p.model / scale, color="tab:red" if p.detected else "tab:orange", lw=1.5,
+                label=p.label)
+        if p.own_model is not None:
+            ax.plot(p.velocity, p.own_model / scale, color="tab:orange", lw=1.2, ls="--", label=p.own_label)
+        ax.axhline(0, color="0.6", lw=0.6)
+        ax.set_ylabel(f"{p.species}\nQ density\n[10$^{{{int(np.log10(scale))}}}$ s$^{{-1}}$/(km/s)]", fontsize=8)
         ax.set_xlim(-lim, lim)
+        lo, hi = (min(float(np.nanmin(c)) for c in seen) / scale, max(float(np.nanmax(c)) for c in seen) / scale)
+        pad = 0.08 * (hi - lo or 1.0)
+        ax.set_ylim(lo - pad, hi + 0.6 * (hi - lo) + pad)           # headroom for the legend
+        ax.legend(fontsize=6.5, loc="upper left", frameon=False, ncol=2)
+        if p.title:
+            ax.set_title(p.title, fontsize=8, loc="left")
+        if p.estimates or p.combined is not None:
+            _estimates_axis(side, p)
+        else:
+            side.set_axis_off()
+    for side in axes[len(panels):, 1]:
+        side.set_axis_off()
     axes[-1, 0].set_xlabel("velocity in the target's rest frame [km/s]")
     fig.tight_layout()
     return fig

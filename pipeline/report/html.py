@@ -6,7 +6,7 @@ import base64
 import html
 from typing import Any, Iterable
 
-__all__ = ["table_html", "figure_html", "page"]
+__all__ = ["table_html", "figure_html", "page", "Cell", "details"]
 
 _STYLE = """
 body{font-family:system-ui,-apple-system,Segoe UI,sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;
@@ -16,12 +16,22 @@ table{border-collapse:collapse;font-size:.85em;margin:.6em 0} th,td{border:1px s
 text-align:right} th{background:#f3f3f3} td.l,th.l{text-align:left}
 .caution{background:#fff6e0;border-left:4px solid #e0a000;padding:.6em 1em;margin:1em 0}
 .excluded{color:#a00000;font-weight:600} .allowed{color:#006000} .unobserved{color:#666;font-style:italic}
+td.warn{color:#8a4b00;background:#fff3df} td.differs{font-weight:600} details{margin:.6em 0} summary{cursor:pointer;color:#333}
 figure{margin:1em 0} figcaption{font-size:.85em;color:#444} pre{background:#f7f7f7;padding:.6em;overflow-x:auto;
 font-size:.75em} .meta{color:#555;font-size:.9em}
 """
 
 
+class Cell:
+    """A table cell with a CSS class of its own (e.g. 'warn' for a value whose assumption fails)."""
+
+    def __init__(self, value: Any, css: str):
+        self.value, self.css = value, css
+
+
 def _cell(value: Any) -> str:
+    if isinstance(value, Cell):
+        return _cell(value.value)
     if isinstance(value, float):
         if value != value:  # NaN
             return "&ndash;"
@@ -37,9 +47,15 @@ def table_html(header: list[str], rows: Iterable[list[Any]], left: int = 1,
     classes = list(row_class) if row_class is not None else None
     for k, row in enumerate(rows):
         cls = f' class="{classes[k]}"' if classes else ""
-        cells = "".join(f'<td class="{"l" if i < left else ""}">{_cell(v)}</td>' for i, v in enumerate(row))
+        cells = "".join(f'<td class="{(("l " if i < left else "") + (v.css if isinstance(v, Cell) else "")).strip()}">'
+                        f'{_cell(v)}</td>' for i, v in enumerate(row))
         body.append(f"<tr{cls}>{cells}</tr>")
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def details(summary: str, body: str, opened: bool = False) -> str:
+    """A collapsible block (closed unless ``opened``): ``summary`` is plain text, ``body`` HTML."""
+    return f"<details{' open' if opened else ''}><summary>{html.escape(summary)}</summary>{body}</details>"
 
 
 def figure_html(png: bytes, caption: str, alt: str) -> str:

@@ -6,7 +6,6 @@ import html
 import json
 
 import numpy as np
-import yaml
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
@@ -16,7 +15,7 @@ from pipeline.report.html import figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
                                       injection_section, joint_section, quoted_section, rotational_diagrams,
                                       spectrum_panels, sweep_curves, temperature_section, water_section,
-                                      zeta_section)
+                                      zeta_section, conservative_section, assumptions_section, provenance_section)
 from pipeline.settings import Settings
 from pipeline.io.tables import read_table
 
@@ -84,35 +83,21 @@ def run(inputs, outputs, settings: Settings) -> None:
                     "upper limit allows (dashed). Where the black line lies above a dashed line, that species alone "
                     "cannot pay for the push at that nucleus mass.", "mass budget chart")))
     sections.append(("Stacked spectra", figure_html(
-        fig_spec, "All epochs and lines combined in production-rate units, smallest aperture, conservative "
-                  "temperature. Shaded: integration window. Red: model at the measured Q (detection); orange: model at "
-                  "the upper limit.", "stacked spectra")))
+        fig_spec, "All epochs and lines combined in production-rate units, smallest aperture, at the quoted "
+                  "temperature (the rows of the next table). Shaded: integration window. Red: model at the quoted Q "
+                  "(detection); orange: model at the quoted limit; dashed: at the millimetre lines' own limit where "
+                  "infrared bands enter the same limit. Beside each spectrum, what the quoted value rests on: "
+                  "each instrument's Q ± 1σ and their combination (the instrument with the smaller σ carries it).",
+        "stacked spectra")))
     sections.append(("Quoted production rates and limits", quoted_section(limits)))
     sections.append(("Temperature measured from line ladders", temperature_section(inputs.temperature, fig_rot)))
     sections.append(("What the line shapes say about the push", zeta_section(inputs.zeta)))
     sections.append(("Water inferred from tracers", water_section(inputs.water)))
-    cons = limits[limits["conservative"]]
-    band_ids = {b.band_id for b in catalogue.bands}
-    sections.append(("Production rates and upper limits (conservative temperature)", table_html(
-        ["species", "epoch", "aperture [km]", "T_kin [K]", "Q [1/s]", "σ_Q [1/s]", "SNR", "detected",
-         "Q upper [1/s]", "profile-fit Q [1/s]", "line centre [km/s]", "lines [MHz] / IR bands"],
-        [[str(r["species"]), str(r["epoch"]), float(r["aperture_km"].value),
-          "–" if all(x in band_ids for x in str(r["lines"]).split(",")) else float(r["t_kin_K"]),
-          float(r["q"].value), float(r["q_err"].value), float(r["snr"]), "yes" if r["detected"] else "no",
-          float(r["q_upper"].value),
-          "–" if not np.isfinite(r["q_fit"].value) else f"{r['q_fit'].value:.3g} ± {r['q_fit_err'].value:.2g}",
-          "–" if not np.isfinite(r["v_offset"].value)
-          else f"{r['v_offset'].value:+.3f} ± {r['v_offset_err'].value:.3f}",
-          ", ".join(f"{x.split('_', 1)[-1]} band" if x in band_ids else x.split("_", 1)[-1]
-                    for x in str(r["lines"]).split(","))] for r in cons], left=2)
-        + "<p>Q upper: Bayesian limit with a flat prior on Q ≥ 0 at the one-sided confidence of "
-          f"{settings.limits.nsigma}σ; limits.ecsv also holds the classical Q + nσ and the Feldman–Cousins "
-          "limits, every temperature and every aperture. For detections, a fit of the outflow line profile gives Q "
-          "again and the line centre; a centre far from 0 km/s points at an error in the ephemeris' range rate. "
-          "Infrared band rates do not depend on T_kin (shown as –)."
-          "</p>"))
+    sections.append(("Production rates and upper limits (conservative temperature)",
+                     conservative_section(limits, catalogue, float(settings.limits.nsigma))))
     sections.append(("Infrared bands and dust", infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
-    sections.append(("Injection–recovery", injection_section(list(inputs.injection))))
+    sections.append(("Injection–recovery", injection_section(
+        list(inputs.injection), limits, {str(g["cube_id"]): str(g["observer"]) for g in geometry})))
     sections.append(("All epochs in one test", joint_section(inputs.exclusion, inputs.activity)))
     sections.append(("Forecast for planned epochs, beside the measurements", forecast_section(inputs.forecast,
                                                                                               limits)))
@@ -133,16 +118,9 @@ def run(inputs, outputs, settings: Settings) -> None:
                          + table_html(["species", "epoch group", "left out"],
                                       [[sp, group, text] for sp, groups in left_out.items()
                                        for group, text in groups.items()], left=3)))
-    assumptions = dict(limits.meta.get("assumptions", {}))
-    assumptions.update({f"budget: {k}": v for k, v in summary["assumptions"].items()})
-    sections.append(("Assumptions", table_html(["assumption", "value"],
-                                               [[k, json.dumps(v) if not isinstance(v, str) else v]
-                                                for k, v in assumptions.items()], left=2)))
-    prov = limits.meta.get("provenance", {})
-    sections.append(("Provenance", f"<p>gasledger {html.escape(__version__)}. Inputs of the limits table:</p>"
-                     + table_html(["file", "checksum"], [[k, v] for k, v in prov.get("inputs", {}).items()], left=2)
-                     + "<p>Configuration of this run:</p><pre>"
-                     + html.escape(yaml.safe_dump(settings.record, sort_keys=False)) + "</pre>"))
+    sections.append(("Assumptions", assumptions_section(dict(limits.meta.get("assumptions", {})), summary)))
+    sections.append(("Provenance", provenance_section(__version__, limits.meta.get("provenance", {}),
+                                                      settings.record)))
     title = f"gasledger report: {settings.campaign}"
     sub = f"Target: {settings.target.name}. Species: {', '.join(settings.species)}."
     write_text(page(title, sections, sub), outputs.html)
