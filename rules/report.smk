@@ -22,6 +22,8 @@ rule report:
         budget=report(f"{OUT}/figures/mass_budget.png", caption="../report/budget_figure.rst", category="Figures"),
         sweep=report(f"{OUT}/figures/temperature_sweep.png", caption="../report/sweep.rst", category="Figures"),
         infrared=report(f"{OUT}/figures/infrared_spectra.png", caption="../report/infrared.rst", category="Figures"),
+        campaign=report(f"{OUT}/figures/campaign.png", caption="../report/campaign.rst", category="Figures"),
+        tracers=report(f"{OUT}/figures/tracers.png", caption="../report/tracers.rst", category="Figures"),
     params:
         settings=settings_of(*CONFIG_KEYS),
         code=CODE_VERSION,

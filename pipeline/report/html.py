@@ -75,3 +75,18 @@ def page(title: str, sections: list[tuple[str, str]], subtitle: str = "") -> str
         parts.append(f"<h2>{html.escape(heading)}</h2>{body}" if heading else body)
     parts.append("</body></html>\n")
     return "".join(parts)
+
+
+def anchored_figure_html(png: bytes, caption: str, alt: str, img_id: str) -> str:
+    """:func:`figure_html` whose <img> carries ``img_id`` (a figure a check or a link finds by id)."""
+    return figure_html(png, caption, alt).replace("<img ", f'<img id="{html.escape(img_id)}" ', 1)
+
+
+def _verdict_style() -> str:
+    from pipeline.report.verdicts import VERDICT_CSS
+
+    return VERDICT_CSS
+
+
+_STYLE += _verdict_style()
+__all__ += ["anchored_figure_html"]

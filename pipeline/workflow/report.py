@@ -5,17 +5,17 @@ from __future__ import annotations
 import html
 import json
 
-import numpy as np
-
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
 from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams, plot_stacked_spectra,
                                      plot_temperature_sweep, to_png)
-from pipeline.report.html import figure_html, page, table_html
+from pipeline.report.campaign_figure import IMG_ID, campaign_figures, plot_note
+from pipeline.report.html import anchored_figure_html, figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
                                       injection_section, joint_section, quoted_section, rotational_diagrams,
                                       spectrum_panels, sweep_curves, temperature_section, water_section,
                                       zeta_section, conservative_section, assumptions_section, provenance_section)
+from pipeline.report.verdicts import assumption_sets_table, defaulted_html, driver_verdicts, no_verdict_html, verdict_section
 from pipeline.settings import Settings
 from pipeline.io.tables import read_table
 
@@ -29,6 +29,9 @@ CAUTION = ("These production rates and limits rest on model assumptions: LTE exc
            "efficiency and ejection speed with all mass loss in one species at a time. Change an assumption and "
            "the numbers change. gasledger reports numbers; whether outgassing can or cannot drive the push is a "
            "conclusion that belongs to peer review, not to this tool.")
+
+SHORT_CAUTION = ("Numbers under stated model assumptions, not a conclusion about the push: read the caution below the "
+                 "verdict.")
 
 
 def _write_png(data: bytes, path: str) -> None:
@@ -46,7 +49,16 @@ def run(inputs, outputs, settings: Settings) -> None:
     geometry = [read_table(p)[0] for p in inputs.geometry]
 
     fig_spec = to_png(plot_stacked_spectra(spectrum_panels(list(inputs.stacks), limits, catalogue)))
-    fig_budget = to_png(budget_figure(budget, settings.budget.baseline, catalogue))
+    missing = [str(x) for x in summary.get("missing", [])]
+    defaulted = [str(x) for x in summary.get("defaulted", [])]
+    sets = list(summary.get("assumption_sets", [])) if not missing and len(budget) else []
+    verdicts = driver_verdicts(budget, limits, list(settings.budget.baseline.drivers), sets) if sets else []
+    campaign = campaign_figures(limits, budget, read_table(inputs.exclusion), geometry, settings, verdicts, sets,
+                                to_png, with_budget=bool(sets), dust=bool(summary.get("dust_force_N")))
+    _write_png(campaign.drivers_png, outputs.campaign)
+    _write_png(campaign.tracers_png or to_png(plot_note("No tracer species in this campaign.")), outputs.tracers)
+    fig_budget = to_png(budget_figure(budget, settings.budget.baseline, catalogue) if sets else
+                        plot_note("No mass budget: " + " ".join(missing or ["budget.ecsv has no rows."])))
     fig_sweep = to_png(plot_temperature_sweep(sweep_curves(limits)))
     diagrams = rotational_diagrams(inputs.temperature, list(inputs.stacks), catalogue)
     fig_rot = to_png(plot_rotational_diagrams(diagrams)) if diagrams else None
@@ -56,32 +68,31 @@ def run(inputs, outputs, settings: Settings) -> None:
     _write_png(fig_budget, outputs.budget)
     _write_png(fig_sweep, outputs.sweep)
 
-    sections = [("", f'<div class="caution"><b>Read this first.</b> {html.escape(CAUTION)}</div>')]
-    sets = list(dict.fromkeys(budget["assumption_set"]))
-    combined = budget[(budget["epoch"] == "all") & (budget["assumption_set"] == sets[0])]
-    classes = ["unobserved" if r["verdict"] == "not observed" else
-               ("allowed" if r["verdict"] == "not excluded" else "excluded") for r in combined]
-    sections.append(("Verdict (all epochs combined)", table_html(
-        ["species", "verdict", "Q limit [1/s]", "Q required [1/s] (lightest – heaviest nucleus)",
-         "required / limit", "largest nucleus mass allowed [kg]"],
-        [[str(r["species"]), str(r["verdict"]), float(r["q_upper"].value),
-          f"{r['q_required_min'].value:.3g} – {r['q_required_max'].value:.3g}",
-          "–" if not np.isfinite(r["ratio_min"]) else f"{r['ratio_min']:.3g} – {r['ratio_max']:.3g}",
-          float(r["mass_allowed"].value)] for r in combined], left=2, row_class=classes)
-        + f"<p>Over {summary['assumptions']['interval_days']:g} days the push would cost the nucleus "
-          f"{100 * summary['rocket_mass_fraction_over_interval']:.3g} % of its mass (rocket equation, independent "
-          "of the mass). A driver that no cube covered is listed as 'not observed', never as excluded.</p>"))
-    if len(sets) > 1:
-        every = budget[budget["epoch"] == "all"]
-        sections.append(("Verdict under each assumption set", table_html(
-            ["assumption set", "species", "verdict", "required / limit"],
-            [[str(r["assumption_set"]), str(r["species"]), str(r["verdict"]),
-              "–" if not np.isfinite(r["ratio_min"]) else f"{r['ratio_min']:.3g} – {r['ratio_max']:.3g}"]
-             for r in every], left=3)))
-    sections.append(("Mass budget", figure_html(
-        fig_budget, "Mass-loss rate the acceleration requires (black, grey band ±1σ) against the rate each species' "
-                    "upper limit allows (dashed). Where the black line lies above a dashed line, that species alone "
-                    "cannot pay for the push at that nucleus mass.", "mass budget chart")))
+    sections = [("", f'<p class="caution">{html.escape(SHORT_CAUTION)}</p>'),
+                ("", anchored_figure_html(campaign.drivers_png, campaign.drivers_caption, campaign.drivers_alt,
+                                          IMG_ID))]
+    if sets:
+        cost = ""
+        if "rocket_mass_fraction_over_interval" in summary:
+            cost = (f"<p>Over {summary['assumptions']['interval_days']:g} days the push would cost the nucleus "
+                    f"{100 * summary['rocket_mass_fraction_over_interval']:.3g} % of its mass (rocket equation, "
+                    "independent of the mass).</p>")
+        sections.append(("Verdict (all epochs combined)",
+                         verdict_section(verdicts, sets, float(settings.limits.nsigma), defaulted) + cost))
+        if len(sets) > 1:
+            sections.append(("How the verdict moves with the assumptions", assumption_sets_table(verdicts, sets)))
+    else:
+        sections.append(("Verdict", no_verdict_html(missing or ["budget.ecsv has no rows"])
+                         + defaulted_html(defaulted)))
+    sections.append(("", f'<div class="caution" id="caution"><b>Read this first.</b> {html.escape(CAUTION)}</div>'))
+    if campaign.tracers_png is not None:
+        sections.append(("Tracers", figure_html(campaign.tracers_png, campaign.tracers_caption,
+                                                campaign.tracers_alt)))
+    if sets:
+        sections.append(("Mass budget", figure_html(
+            fig_budget, "Mass-loss rate the acceleration requires (black, grey band ±1σ) against the rate each "
+                        "species' upper limit allows (dashed). Where the black line lies above a dashed line, that "
+                        "species alone cannot pay for the push at that nucleus mass.", "mass budget chart")))
     sections.append(("Stacked spectra", figure_html(
         fig_spec, "All epochs and lines combined in production-rate units, smallest aperture, at the quoted "
                   "temperature (the rows of the next table). Shaded: integration window. Red: model at the quoted Q "
