@@ -23,10 +23,9 @@ install: $(STAMP)
 $(DEMO_DATA)/campaign.yaml: $(STAMP) $(wildcard synthetic_cubes/*.py)
 	$(BIN)/python -m synthetic_cubes $(DEMO_DATA)
 
+# gasledger run prints one line per job and, at the end, the report's absolute path (results/demo/report.html)
 demo: $(DEMO_DATA)/campaign.yaml
-	$(BIN)/snakemake --cores $(CORES) --configfile config/config.yaml --rerun-triggers mtime params input code
-	@echo
-	@echo "Report: $(CURDIR)/results/demo/report.html"
+	$(BIN)/gasledger run config/config.yaml --cores $(CORES)
 	@echo "Tables: results/demo/limits.ecsv results/demo/budget.ecsv results/demo/budget.json"
 
 test: $(STAMP)

@@ -96,7 +96,9 @@ class ProgressReader:
     jobs: dict[str, JobInfo] = field(default_factory=dict)
     failed: list[JobInfo] = field(default_factory=list)
     nothing_to_do: bool = False
+    errors: list[list[str]] = field(default_factory=list)   # tracebacks and 'gasledger:' sentences jobs printed
     _block: JobInfo | None = None
+    _traceback: list[str] | None = None
     _in_error: bool = False
     _finished: JobInfo | None = None
     _t0: float | None = None
@@ -107,6 +109,18 @@ class ProgressReader:
         if self._t0 is None:
             self._t0 = now
         line = line.rstrip("\n")
+        if self._traceback is not None:
+            self._traceback.append(line)
+            if line and not line.startswith((" ", "\t", "Traceback")):
+                self.errors.append(self._traceback)          # the exception's own line ends the traceback
+                self._traceback = None
+            return None
+        if line.startswith("Traceback (most recent call last):"):
+            self._traceback = [line]
+            return None
+        if line.startswith("gasledger: "):
+            self.errors.append([line])
+            return None
         if m := _RULE.match(line):
             self._close_block()
             self._block, self._in_error = JobInfo(rule=m["rule"], started=now), False
@@ -224,7 +238,10 @@ def run_workflow(command: Sequence[str], directory: str | Path | None = None, ve
                 log = Path(job.log) if job.log else None
                 if log is not None and not log.is_absolute():
                     log = base / log
-                for ln in (log_excerpt(log) if log is not None else []):
+                excerpt = log_excerpt(log) if log is not None else []
+                if not excerpt and reader.errors:          # the job stopped before writing its log
+                    excerpt = reader.errors[-1][-12:]
+                for ln in excerpt:
                     print(f"  {ln}", file=out)
                 print(f"  log: {log if log is not None else '(none)'}", file=out)
         else:
