@@ -1,5 +1,5 @@
 # gasledger: raw line cubes -> production rates and limits -> mass budget -> report.
-# Run with:  snakemake --cores 2 --configfile config/config.yaml
+# Run with:  gasledger run config/config.yaml --cores 2   (or: snakemake --cores 2 --configfile config/config.yaml)
 from snakemake.utils import min_version
 
 min_version("8.20")
