@@ -290,7 +290,7 @@ def injection_section(paths: list[str], limits: QTable | None = None,
     and placement kind are summarised per level only, and say so.
     """
     observers = observers or {}
-    rows, old = [], []
+    rows, old, seen_by = [], [], {}
     for path in paths:
         table = read_table(path)
         if not len(table) or "q_recovered" not in table.colnames:
@@ -318,25 +318,30 @@ def injection_section(paths: list[str], limits: QTable | None = None,
             q_inj = float(u.Quantity(sel["q_injected"][0], 1 / u.s).value)
             sigma = np.asarray(u.Quantity(sel["q_err"], 1 / u.s).value, dtype=float)
             ratio = np.asarray(u.Quantity(sel["q_recovered"], 1 / u.s).value, dtype=float) / q_inj
-            what = (("at the upper end of its detection" if detected else "at its upper limit") if level == "limit"
-                    else "at the rate the push needs from it alone (lightest nucleus)")
+            what = ("upper end of the detection" if detected else "upper limit") if level == "limit" else "needed"
             who = INSTRUMENT_NAMES.get(instrument, "all instruments together")
             names = _observer_names(list(cubes.get(instrument, [])), observers)
-            rows.append([species, what, who + (f" ({names})" if names else ""),
-                         PLACEMENT_KINDS.get(kind, "every placement") if split else "every placement", q_inj,
-                         len(snr), float(np.median(q_inj / sigma)), float(np.median(snr)),
-                         f"{np.min(snr):.1f} – {np.max(snr):.1f}" if len(snr) > 1 else "–",
-                         float(np.median(ratio)) if np.median(q_inj / sigma) >= 3 else "– (below 3σ)",
+            if names:
+                seen_by.setdefault(who, names)
+            expected = float(np.median(q_inj / sigma))
+            rows.append([species, what, who, kind if split else "all", q_inj, len(snr), f"{expected:.3g}",
+                         f"{np.median(snr):.3g}", f"{np.min(snr):.1f} – {np.max(snr):.1f}" if len(snr) > 1 else "–",
+                         f"{np.median(ratio):.3g}" if expected >= 3 else "– (below 3σ)",
                          t_kin_text(sel["t_kin_K"][0]), smallest])
     if not rows:
         return "<p>No injections (no covered lines).</p>"
     note = ("" if not old else "<p>Injection tables written before instruments were told apart (" + ", ".join(
         html.escape(s) for s in old) + "): their rows summarise every instrument and placement together; "
         "rerun the injection step for the split.</p>")
-    return (table_html(["species", "coma injected", "instrument (observer)", "placed", "Q [1/s]", "placements",
+    observed = "".join(f" {html.escape(k.capitalize())}: {html.escape(v)}." for k, v in seen_by.items())
+    kinds = "; ".join(f"{k}: {v}" for k, v in PLACEMENT_KINDS.items())
+    return (table_html(["species", "coma injected at", "instrument", "placed", "Q [1/s]", "placements",
                         "expected (Q / median σ)", "seen at (median σ)", "range over placements [σ]",
                         "recovered / injected (median)", "T_kin [K]", "aperture [km]"], rows, left=4)
             + note
+            + f"<p>Injected at: the species' upper limit, the upper end of its detection (Q upper) or the rate the "
+              f"push needs from it alone for the lightest nucleus ('needed'). Placed: {html.escape(kinds)}."
+              f"{observed}</p>"
             + "<p>Each row: a model coma of the listed Q added to the real data and measured exactly like the real "
               "line or band, at every placement of that kind, in the smallest aperture, at the conservative "
               "T_kin. Millimetre lines are placed at velocities clear of every catalogue line (so the injected "

@@ -107,16 +107,17 @@ def test_injection_rows_split_by_instrument_and_placement_and_caption_fits_detec
                             {"e1_ir": "spacecraft: Far Lamp (fictional)", "e1_co": "site: Hill (fictional)"})
     rows = [r for r in re.findall(r"<tr>(.*?)</tr>", out) if ">CO<" in r]
     assert len(rows) == 6                                       # 2 levels x (infrared nucleus, mm nucleus, mm ring)
-    assert sum("infrared bands (Far Lamp (fictional))" in r and "on the nucleus" in r for r in rows) == 2
-    assert sum("millimetre lines (Hill (fictional))" in r and "on a ring" in r for r in rows) == 2
-    ring = [r for r in rows if "on a ring" in r and "at its upper limit" in r][0]
+    assert sum("infrared bands" in r and ">nucleus<" in r for r in rows) == 2
+    assert sum("millimetre lines" in r and ">ring<" in r for r in rows) == 2
+    assert "Infrared bands: Far Lamp (fictional). Millimetre lines: Hill (fictional)." in out
+    ring = [r for r in rows if ">ring<" in r and ">upper limit<" in r][0]
     assert re.search(r"<td[^>]*>2</td>", ring)                                 # two ring placements, never mixed with the nucleus
     # the expected significance of the infrared injection at the limit is Q / sigma = 4e25 / 1e25 = 4
-    ir = [r for r in rows if "infrared" in r and "upper limit" in r][0]
+    ir = [r for r in rows if "infrared" in r and ">upper limit<" in r][0]
     assert re.search(r"<td[^>]*>4</td>", ir)
     old = [r for r in re.findall(r"<tr>(.*?)</tr>", out) if ">CH3OH<" in r]
     assert len(old) == 2 and all("all instruments together" in r for r in old)
-    assert "upper end of its detection" in old[0] and "upper limit" not in out.split("CH3OH")[1]
+    assert ">upper end of the detection<" in old[0] and ">upper limit<" not in old[0] + old[1]
     assert "written before instruments were told apart" in out
     assert "For a detected species" in out and "recovered in full" in out
 
