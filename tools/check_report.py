@@ -96,7 +96,7 @@ def element_box(html: Path, element_id: str, width: int = FOLD[0], timeout: floa
     return left, top, right, bottom
 
 
-def campaign_figure_above_fold(html: Path, png: Path | None = None, min_pixels: int = 1000) -> tuple[bool, str]:
+def campaign_figure_above_fold(html: Path, png: Path | None = None, min_pixels: int = 200) -> tuple[bool, str]:
     """Whether the campaign figure lies wholly above the fold of a 1400x900 window, with a one-line reason.
 
     The figure's box comes from the DOM (:func:`element_box`); a 1400x900 screenshot (kept at ``png``) must show

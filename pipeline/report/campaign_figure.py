@@ -262,7 +262,8 @@ def plot_campaign(series: list[SpeciesSeries], times: EpochTimes,
     """
     n = max(1, len(series))
     with_test = exclusion is not None
-    height = 1.5 * n + 1.2
+    panel = max(0.9, min(1.5, 4.5 / n))         # up to five species fit in a 1400x900 window's first screen
+    height = panel * n + 1.2
     fig = plt.figure(figsize=(width_in, height))
     grid = fig.add_gridspec(n, 2 if with_test else 1, width_ratios=[2.1, 1] if with_test else None,
                             hspace=0.08, wspace=0.22, left=0.07, right=0.985, top=1 - 0.42 / height,

@@ -297,8 +297,8 @@ def no_verdict_html(missing: list[str]) -> str:
     """The verdict section when the budget lacks an input: no verdict, and the sentences saying what is missing."""
     items = "".join(f"<li>{html.escape(s)}</li>" for s in missing)
     return ('<div class="v-missing"><b>No verdict was computed.</b> The budget lacks what a verdict needs:'
-            f"<ul>{items}</ul>The production rates and limits below are complete; the campaign figure shows them "
-            "without the band the push would demand.</div>")
+            f"<ul>{items}</ul>The production rates and limits are computed as usual; the campaign figure shows "
+            "them without the band the push would demand.</div>")
 
 
 def defaulted_html(defaulted: list[str]) -> str:

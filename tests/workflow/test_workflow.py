@@ -308,6 +308,10 @@ def test_report_renders_in_a_real_browser(campaign, tmp_path):
     png = tmp_path / "report.png"
     check_report.screenshot(root / "results" / "report.html", png)
     assert check_report.figure_pixels(png) >= 3000
+    # the campaign figure (each driver's Q per epoch against the push's demand) is the first thing a reader sees:
+    # wholly inside a 1400x900 window, and drawn there
+    above, why = check_report.campaign_figure_above_fold(root / "results" / "report.html", tmp_path / "fold.png")
+    assert above, why
 
 
 def test_snakemake_report_builds(campaign, tmp_path):
