@@ -137,3 +137,36 @@ def test_constant_cube_fails_its_extract_job(campaign):
     assert not [p for p in written if p.startswith("spectra/") or p.endswith(".part")], written
     assert not [p for p in written if "extract" in p and not p.startswith("logs/")], written
     assert f"logs/extract/{CUBE}/{LINE}.log" in written
+
+
+def gasledger_run(workdir: Path, config: dict) -> subprocess.CompletedProcess:
+    path = workdir / "campaign.yaml"
+    path.write_text(yaml.safe_dump(config, sort_keys=False))
+    cmd = [sys.executable, "-m", "pipeline.cli", "run", str(path), "--cores", "2", "--directory", str(workdir)]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=600)
+
+
+def test_gasledger_run_refuses_a_misspelt_key_before_snakemake(campaign):
+    workdir, config, _, _ = campaign
+    config["apertures_kms"] = config.pop("apertures_km")
+    run = gasledger_run(workdir, config)
+    assert run.returncode == 2 and run.stdout == "", run.stdout[-2000:]
+    assert run.stderr.startswith("gasledger: ") and "unknown key 'apertures_kms'" in run.stderr
+    assert len(run.stderr.splitlines()) == 1
+    assert not Path(config["outdir"]).exists()
+
+
+def test_gasledger_run_names_the_failing_job_its_error_and_log(campaign):
+    """A job failing under 'gasledger run': the rule and cube, the log's error sentence and the log's absolute path,
+    exit 1; no Snakemake job blocks on the console."""
+    workdir, config, cube, eph = campaign
+    table = QTable.read(eph, format="ascii.ecsv")
+    table[table["time"] > fits.getheader(cube)["DATE-OBS"]].write(eph, format="ascii.ecsv", overwrite=True)
+    run = gasledger_run(workdir, config)
+    assert run.returncode == 1, run.stdout[-3000:]
+    lines = run.stdout.splitlines()
+    assert f"failed: geometry (cube={CUBE})" in lines, run.stdout
+    log = Path(config["outdir"]) / "logs" / "geometry" / f"{CUBE}.log"
+    assert f"  log: {log}" in lines
+    assert any(" ERROR " in ln and "lies outside the ephemeris" in ln for ln in lines), run.stdout
+    assert not any(ln.lstrip().startswith(("jobid:", "input:", "reason:")) for ln in lines), run.stdout
