@@ -16,6 +16,8 @@ rule report:
         bands=bands_files(),
         dust=f"{OUT}/dust.ecsv",
         catalogue=catalogue_files(),
+        cube_images=[f"{OUT}/figures/cubes/{cid}.png" for cid in CUBES],
+        line_spectra=[f"{OUT}/spectra/{cid}/{line}.fits" for cid in CUBES for line in LINES[cid]],
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),

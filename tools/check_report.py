@@ -10,12 +10,15 @@ apt-get install chromium).
 from __future__ import annotations
 
 import argparse
+import base64
+import io
 import json
 import re
 import shutil
 import subprocess
 import sys
 import tempfile
+from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
@@ -122,6 +125,42 @@ def campaign_figure_above_fold(html: Path, png: Path | None = None, min_pixels: 
         return False, f"the campaign figure's box holds only {n} pixels in the figure colours: not rendered?"
     return True, (f"campaign figure above the fold: y = {top:.0f}-{bottom:.0f} px of {FOLD[1]}, {n} pixels in the "
                   "figure colours")
+
+
+class _CubeImages(HTMLParser):
+    """The ``<img class="cube-image">`` elements of a page: their alt text and decoded PNG size."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.images: list[tuple[str, tuple[int, int]]] = []
+
+    def handle_starttag(self, tag: str, attrs) -> None:
+        a = dict(attrs)
+        if tag != "img" or "cube-image" not in (a.get("class") or "").split():
+            return
+        src = a.get("src") or ""
+        size = (0, 0)
+        if src.startswith("data:image/png;base64,"):
+            try:
+                img = imread(io.BytesIO(base64.b64decode(src.split(",", 1)[1])), format="png")
+                size = (int(img.shape[1]), int(img.shape[0]))
+            except (ValueError, OSError):
+                size = (0, 0)
+        self.images.append((a.get("alt") or "", size))
+
+
+def cube_images(html: Path, timeout: float = 120) -> list[tuple[str, tuple[int, int]]]:
+    """The cube images (``<img class="cube-image">``) of the page as headless Chromium parsed it (its DOM after
+    loading): (alt text, (width, height) of the decoded PNG; (0, 0) when it does not decode), in page order."""
+    browser = find_chromium()
+    if browser is None:
+        raise FileNotFoundError("no chromium on PATH (Debian: apt-get install chromium)")
+    with tempfile.TemporaryDirectory() as profile:
+        cmd = [browser, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", "--dump-dom", html.resolve().as_uri()]
+        dom = subprocess.run(cmd, check=True, capture_output=True, timeout=timeout, text=True).stdout
+    parser = _CubeImages()
+    parser.feed(dom)
+    return parser.images
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import base64
 import html
+from pathlib import Path
+from typing import TYPE_CHECKING
 
 import astropy.units as u
 import matplotlib
@@ -15,11 +17,20 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+from astropy.table import QTable  # noqa: E402
 from matplotlib.patches import Circle, Ellipse  # noqa: E402
 
+from pipeline.io.cubes import read_cube_info  # noqa: E402
+from pipeline.io.products import BandMeasurements, LineSpectra  # noqa: E402
+from pipeline.report.cube_spectra import SpectrumPanel, band_spectrum_panels, line_spectrum_panels  # noqa: E402
+from pipeline.report.figures import to_png  # noqa: E402
 from pipeline.spectra.cube_images import ImageFrame, SkyImage  # noqa: E402
 
-__all__ = ["plot_cube_images", "unit_label", "cube_images_html", "CUBE_IMAGE_CLASS", "CUBE_SPECTRA_CLASS"]
+if TYPE_CHECKING:
+    from pipeline.settings import Settings
+
+__all__ = ["plot_cube_images", "plot_cube_spectra", "unit_label", "cube_images_html", "cubes_section",
+           "CUBE_IMAGE_CLASS", "CUBE_SPECTRA_CLASS"]
 
 #: HTML class of each cube's image in the report (the browser check counts them).
 CUBE_IMAGE_CLASS = "cube-image"
@@ -139,6 +150,65 @@ def plot_cube_images(title: str, frame: ImageFrame, images: list[SkyImage], stat
     return fig
 
 
+def plot_cube_spectra(title: str, panels: list[SpectrumPanel], notes: list[str]):
+    """The cube's aperture spectra, one panel per line or band: the spectrum (black) with its ±1σ channel noise
+    (grey), the integration window (blue), the fitted continuum (green, infrared) and the model at the quoted Q
+    (red) or at the upper limit (orange); each panel's title says which, at what temperature and aperture.
+
+    Millimetre panels show ±8 window half-widths around the line (at least ±10 km/s), or what the spectrum has.
+    """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    n = max(1, len(panels))
+    cols = min(n, _PER_ROW)
+    rows = int(np.ceil(n / cols))
+    legend_rows = {1: 3, 2: 2}.get(cols, 1)
+    bottom_in = 0.2 * legend_rows + 0.13 * len(notes) + 0.1          # legend and notes below the panels [inch]
+    height = 2.7 * rows + 0.35 + bottom_in
+    fig, axes = plt.subplots(rows, cols, figsize=(max(3.9 * cols, 5.0), height), squeeze=False)
+    for k, ax in enumerate(axes.flat):
+        if k >= len(panels):
+            ax.set_axis_off()
+            if not panels and k == 0:
+                ax.text(0.5, 0.5, "no spectrum of a configured species in this cube", ha="center", va="center",
+                        fontsize=8, transform=ax.transAxes)
+            continue
+        p = panels[k]
+        ax.axvspan(*p.window, color="tab:blue", alpha=0.12, lw=0)
+        sigma = np.broadcast_to(p.sigma, p.flux.shape)
+        base = p.continuum if p.continuum is not None else np.zeros_like(p.flux)
+        ax.fill_between(p.x, base - sigma, base + sigma, step="mid", color="0.85", lw=0)
+        ax.step(p.x, p.flux, where="mid", color="0.1", lw=0.7)
+        if p.continuum is not None:
+            ax.plot(p.x, p.continuum, color="tab:green", lw=1.0)
+        if p.model is not None:
+            colour = "tab:red" if p.model_label.startswith("model at Q") else "tab:orange"
+            ax.plot(p.x, p.model, color=colour, lw=1.3)
+        if p.x_label.startswith("velocity"):
+            half = max(8 * (p.window[1] - p.window[0]) / 2, 10.0)
+            centre = 0.5 * (p.window[0] + p.window[1])
+            ax.set_xlim(max(np.min(p.x), centre - half), min(np.max(p.x), centre + half))
+        ax.set_title(f"{p.title}\n{p.model_label}", fontsize=7.5)
+        ax.set_xlabel(p.x_label, fontsize=7)
+        ax.set_ylabel(p.y_label, fontsize=7)
+        ax.tick_params(labelsize=6.5)
+    handles = [Line2D([], [], color="0.1", lw=0.8, label="aperture spectrum"),
+               Patch(color="0.85", label="±1σ per channel"), Patch(color="tab:blue", alpha=0.12,
+                                                                   label="integration window"),
+               Line2D([], [], color="tab:red", lw=1.3, label="model at the quoted Q (detection)"),
+               Line2D([], [], color="tab:orange", lw=1.3, label="model at the upper limit")]
+    if any(p.continuum is not None for p in panels):
+        handles.append(Line2D([], [], color="tab:green", lw=1.0, label="continuum fit"))
+    fig.suptitle(title, fontsize=9)
+    fig.legend(handles=handles, loc="lower center", ncol=int(np.ceil(len(handles) / legend_rows)), fontsize=6.5,
+               frameon=False, bbox_to_anchor=(0.5, (0.13 * len(notes) + 0.05) / height))
+    if notes:
+        fig.text(0.01, 0.03 / height, "\n".join(notes), fontsize=6.5, va="bottom", ha="left", color="0.3")
+    fig.tight_layout(rect=(0, bottom_in / height, 1, 1 - 0.3 / height))
+    return fig
+
+
 def cube_images_html(entries: list[tuple[str, bytes, str, bytes | None]]) -> str:
     """The report's "Cubes" section: per cube, its image (class :data:`CUBE_IMAGE_CLASS`) and its spectra figure.
 
@@ -147,8 +217,10 @@ def cube_images_html(entries: list[tuple[str, bytes, str, bytes | None]]) -> str
     parts = ["<p>Per cube: the integrated line of each configured species (millimetre) or the continuum-subtracted "
              "band (infrared) over its integration window, and the continuum, with the target's predicted position "
              "(red cross), the apertures (orange circles), the beam (grey ellipse) and north/east. Contours: 3, 5, "
-             "8, 13… × the image rms (dashed: −3, −5). Below each, the aperture spectra of that cube in its own "
-             "units with the model at the quoted production rate or at the upper limit.</p>"]
+             "8, 13… × the image rms (dashed: −3, −5); the rms, and the peak inside the largest aperture with its "
+             "distance from the predicted position, in the lower right. Below each, unfolded on a click, the "
+             "cube's aperture spectra in its own units (Jy, K or F<sub>λ</sub>) with the model at the quoted "
+             "production rate (red) or at the upper limit (orange) of limits.ecsv for that epoch.</p>"]
     for cube_id, png, caption, spectra in entries:
         data = base64.b64encode(png).decode("ascii")
         name = html.escape(cube_id)
@@ -157,6 +229,43 @@ def cube_images_html(entries: list[tuple[str, bytes, str, bytes | None]]) -> str
                      f"<figcaption>{html.escape(caption)}</figcaption></figure>")
         if spectra is not None:
             sdata = base64.b64encode(spectra).decode("ascii")
-            parts.append(f'<figure><img class="{CUBE_SPECTRA_CLASS}" src="data:image/png;base64,{sdata}" '
-                         f'alt="aperture spectra of cube {name}" style="max-width:100%"></figure>')
+            parts.append(f"<details><summary>Aperture spectra of cube {name}, with the model at the quoted Q or "
+                         f'at the limit</summary><figure><img class="{CUBE_SPECTRA_CLASS}" '
+                         f'src="data:image/png;base64,{sdata}" alt="aperture spectra of cube {name}" '
+                         'style="max-width:100%"></figure></details>')
     return "".join(parts)
+
+
+def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
+                  limits: QTable) -> str:
+    """The report's "Cubes" section: each cube's image (made by its cube_images job, read from ``image_paths``,
+    named ``<cube>.png``) and its spectra figure, drawn here because it needs the campaign's limits.
+
+    ``settings`` is the run's :class:`pipeline.settings.Settings`; ``spectra_paths`` the extract step's files,
+    ``bands_paths`` the bands files (each names its cube); ``limits`` the limits table (its ``adopted`` rows).
+    """
+    catalogue = settings.catalogue()
+    images = {Path(p).stem: Path(p).read_bytes() for p in image_paths}
+    spectra: dict[str, list[LineSpectra]] = {}
+    for path in spectra_paths:
+        s = LineSpectra.from_fits(path)
+        spectra.setdefault(s.meta.cube_id, []).append(s)
+    bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
+    filtering = settings.interferometer
+    entries = []
+    for cube in settings.cubes:
+        if cube.cube_id not in images:
+            continue
+        title = f"{cube.cube_id}  ·  epoch {cube.epoch}  ·  aperture spectra"
+        if cube.cube_id in bands:
+            panels, notes = band_spectrum_panels(bands[cube.cube_id], limits, catalogue)
+        else:
+            kelvin = read_cube_info(cube.path, cube.beam_arcsec).bunit.is_equivalent(u.K)
+            panels, notes = line_spectrum_panels(spectra.get(cube.cube_id, []), limits, catalogue, settings.coma,
+                                                 kelvin, filtering.shortest_baseline if filtering else None,
+                                                 filtering.correct if filtering else True)
+        figure = to_png(plot_cube_spectra(title, panels, notes))
+        caption = (f"Cube {cube.cube_id} (epoch {cube.epoch}): images of the integration window around the "
+                   "target's predicted position.")
+        entries.append((cube.cube_id, images[cube.cube_id], caption, figure))
+    return cube_images_html(entries)

@@ -10,6 +10,7 @@ from pipeline.io.atomic import atomic_path, write_text
 from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams, plot_stacked_spectra,
                                      plot_temperature_sweep, to_png)
 from pipeline.report.campaign_figure import IMG_ID, campaign_figures, plot_note
+from pipeline.report.cube_figures import cubes_section
 from pipeline.report.html import anchored_figure_html, figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
                                       injection_section, joint_section, quoted_section, rotational_diagrams,
@@ -107,6 +108,8 @@ def run(inputs, outputs, settings: Settings) -> None:
     sections.append(("Production rates and upper limits (conservative temperature)",
                      conservative_section(limits, catalogue, float(settings.limits.nsigma))))
     sections.append(("Infrared bands and dust", infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
+    sections.append(("Cubes", cubes_section(settings, list(inputs.cube_images), list(inputs.line_spectra),
+                                            list(inputs.bands), limits)))
     sections.append(("Injection–recovery", injection_section(
         list(inputs.injection), limits, {str(g["cube_id"]): str(g["observer"]) for g in geometry})))
     sections.append(("All epochs in one test", joint_section(inputs.exclusion, inputs.activity)))

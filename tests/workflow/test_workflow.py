@@ -304,7 +304,7 @@ def test_report_renders_in_a_real_browser(campaign, tmp_path):
         if os.environ.get("CI"):
             pytest.fail("CI must have Chromium (.ci/run installs Debian's chromium)")
         pytest.skip("no Chromium on this machine (Debian: apt-get install chromium); CI installs it")
-    root, _ = campaign
+    root, config = campaign
     png = tmp_path / "report.png"
     check_report.screenshot(root / "results" / "report.html", png)
     assert check_report.figure_pixels(png) >= 3000
@@ -312,6 +312,12 @@ def test_report_renders_in_a_real_browser(campaign, tmp_path):
     # wholly inside a 1400x900 window, and drawn there
     above, why = check_report.campaign_figure_above_fold(root / "results" / "report.html", tmp_path / "fold.png")
     assert above, why
+    # one image per cube, in the campaign's order, each named in its alt text and a PNG the page decodes
+    cube_ids = [c["id"] for c in yaml.safe_load(config.read_text())["cubes"]]
+    images = check_report.cube_images(root / "results" / "report.html")
+    assert len(images) == len(cube_ids)
+    assert [alt.rsplit(" ", 1)[-1] for alt, _ in images] == cube_ids
+    assert all(w > 200 and h > 200 for _, (w, h) in images)
 
 
 def test_snakemake_report_builds(campaign, tmp_path):
