@@ -326,3 +326,33 @@ def test_adding_cubes_keeps_the_users_comments(tmp_path, item_indent):
                                      "species: [HCN]\n")
     append_cubes(tmp_path / "f.yaml", [{"path": str(tmp_path / "b.fits"), "id": "b"}])
     assert [c.get("id") for c in yaml.safe_load((tmp_path / "f.yaml").read_text())["cubes"]] == [None, "b"]
+
+
+def test_species_names_match_the_catalogue_whatever_their_case():
+    from pipeline.catalogue import load_catalogue
+
+    config = validate_config(_base(species=["hcn", "Co", "ch3oh"], budget={
+        "drivers": ["h2o", "CO"], "water_from_tracers": [{"species": "Hcn", "abundance": [1e-3, 2e-3], "ref": "x"}]}))
+    assert config["species"] == ["HCN", "CO", "CH3OH"]
+    assert config["budget"]["drivers"] == ["H2O", "CO"]
+    assert config["budget"]["water_from_tracers"][0]["species"] == "HCN"
+    # a name matching nothing is left for the catalogue's refusal with its closest suggestion
+    config = validate_config(_base(species=["C0"]))
+    assert config["species"] == ["C0"]
+    with pytest.raises(ValueError, match="did you mean 'CO'"):
+        load_catalogue().get_species(config["species"][0])
+
+
+def test_budget_missing_and_defaulted_inputs_are_named():
+    from pipeline.settings import Settings
+
+    plain = Settings.from_config(validate_config(_base())).budget
+    assert len(plain.missing) == 1 and "budget.acceleration_m_s2" in plain.missing[0]
+    assert plain.missing[0].startswith("no verdict will be computed")
+    assert len(plain.defaulted) == 1 and "budget.nucleus.radius_km" in plain.defaulted[0]
+    given = Settings.from_config(validate_config(_base(budget={"acceleration_m_s2": [2e-6, 3e-7],
+                                                               "nucleus": {"radius_km": [0.15, 0.6]}}))).budget
+    assert given.missing == () and given.defaulted == ()
+    by_mass = Settings.from_config(validate_config(_base(budget={"nongrav": {"A1": 1e-8, "A2": 0, "A3": 0},
+                                                                 "nucleus": {"mass_kg": [1e10, 1e12]}}))).budget
+    assert by_mass.missing == () and by_mass.defaulted == ()
