@@ -24,6 +24,7 @@ import numpy as np
 from astropy.table import QTable
 
 from pipeline.catalogue import Catalogue
+from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.response import ComaModel, outflow_speed
 from pipeline.coma.thermal import thermal_dispersion
 from pipeline.io.products import BandMeasurements, LineSpectra
@@ -117,7 +118,7 @@ def line_spectrum_panels(spectra: list[LineSpectra], limits: QTable, catalogue: 
                                                                                                 list[str]]:
     """The panels of one millimetre cube's covered lines (``spectra``, the extract step's products), and notes.
 
-    Per species, the ``max_lines`` lines with the largest flux per unit Q at the quoted temperature are drawn
+    Per species, the ``max_lines`` lines with the largest flux per molecule at the quoted temperature are drawn
     (in frequency order); a note says how many were left out. ``kelvin`` draws the aperture's mean brightness
     temperature (a cube in K) instead of its flux density.
     """
@@ -132,17 +133,29 @@ def line_spectrum_panels(spectra: list[LineSpectra], limits: QTable, catalogue: 
         responses: dict[str, float] = {}
         if quoted is not None:
             model, j = quoted
+            # rank by the LTE flux per molecule (the response's only line-dependent factor), then compute the
+            # pipeline's response for the lines drawn and the same-species lines that blend with them
+            t = [model.t_kin] * u.K
+            strength = {s.meta.line_id: float(flux_per_molecule(catalogue.get_line(s.meta.line_id), species, t,
+                                                                 s.meta.delta)[0].value) for s in group}
+            order = sorted(group, key=lambda s: -strength[s.meta.line_id])
+            needed = {s.meta.line_id for s in order[:max_lines]}
+            for s in order[:max_lines]:
+                reach = (np.max(np.abs(s.velocity)) + 3 * outflow_speed(coma, s.meta.r_h).to_value(u.km / u.s))
+                needed |= {p.line_id for p, _ in blend_partners(catalogue.get_line(s.meta.line_id), catalogue,
+                                                                 reach * u.km / u.s)[0]}
             for s in group:
-                _, rows = stack_input(s, catalogue, [model.t_kin] * u.K, coma, shortest_baseline, correct_filtering)
-                responses[s.meta.line_id] = float(rows[j]["response"])          # Jy km/s per (1/s)
+                if s.meta.line_id in needed:
+                    _, rows = stack_input(s, catalogue, t, coma, shortest_baseline, correct_filtering)
+                    responses[s.meta.line_id] = float(rows[j]["response"])      # Jy km/s per (1/s)
         else:
             notes.append(f"{species_name}: limits.ecsv quotes no row for epoch {group[0].meta.epoch} in these "
                          "apertures; spectra drawn without a model")
-        order = sorted(group, key=lambda s: -responses.get(s.meta.line_id, 0.0))
+            order = group
         shown = sorted(order[:max_lines], key=lambda s: catalogue.get_line(s.meta.line_id).freq.to_value(u.Hz))
         if len(group) > len(shown):
-            notes.append(f"{species_name}: {len(shown)} of {len(group)} lines shown, those with the largest model "
-                         "flux per unit Q")
+            notes.append(f"{species_name}: {len(shown)} of {len(group)} lines shown, those with the largest LTE "
+                         "flux per molecule at the quoted temperature")
         for s in shown:
             panels.append(_line_panel(s, quoted, responses, catalogue, coma, species, kelvin))
     return panels, notes
