@@ -11,6 +11,7 @@ Right (drivers): the joint test's exclusion significance against nucleus mass (e
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import astropy.units as u
 import matplotlib
@@ -25,7 +26,10 @@ from astropy.time import Time  # noqa: E402
 from pipeline.budget.momentum import required_mass_loss_rate, required_production_rate  # noqa: E402
 from pipeline.budget.table import BudgetAssumptions, acceleration_at, ejection_speed_at  # noqa: E402
 from pipeline.offline import future_time_tolerated  # noqa: E402
-from pipeline.report.verdicts import COLOURS, short_label  # noqa: E402
+from pipeline.report.verdicts import COLOURS, conditions_text, short_label  # noqa: E402
+
+if TYPE_CHECKING:
+    from pipeline.settings import Settings
 
 __all__ = ["EpochTimes", "EpochPoint", "SpeciesSeries", "epoch_times", "species_series", "demand_curve",
            "exclusion_curves", "driver_series", "plot_campaign", "plot_note", "CampaignFigures", "campaign_figures", "campaign_caption", "campaign_alt", "IMG_ID"]
@@ -377,15 +381,13 @@ def plot_note(text: str, width_in: float = 7.5):
     return fig
 
 
-def campaign_figures(limits: QTable, budget: QTable, exclusion: QTable, geometry: list, settings, verdicts: list,
-                     sets: list[dict], to_png, with_budget: bool, dust: bool) -> CampaignFigures:
+def campaign_figures(limits: QTable, budget: QTable, exclusion: QTable, geometry: list, settings: "Settings",
+                     verdicts: list, sets: list[dict], to_png, with_budget: bool, dust: bool) -> CampaignFigures:
     """Both figures of the campaign: the drivers with the push's demand and the joint test, then the tracers.
 
     ``with_budget`` False (no acceleration: no verdict) draws the measured values only. ``dust`` True (the budget
     subtracts the dust's push, known at the epochs only) leaves out the band between epochs.
     """
-    from pipeline.report.verdicts import conditions_text
-
     catalogue = settings.catalogue()
     times = epoch_times(geometry)
     assume = settings.budget.baseline if with_budget and sets else None
@@ -402,7 +404,7 @@ def campaign_figures(limits: QTable, budget: QTable, exclusion: QTable, geometry
     assume_text = conditions_text(sets[0], mean_v) if assume is not None else ""
     caption = campaign_caption(series, assume_text, assume is not None, nsigma)
     if assume is None:
-        caption += " No band of demanded production: the budget has no acceleration to turn into one."
+        caption += " No band of demanded production: no verdict was computed (the verdict section says why)."
     out = {"drivers_png": to_png(fig), "drivers_caption": caption,
            "drivers_alt": campaign_alt(series, assume is not None)}
     if tracers:

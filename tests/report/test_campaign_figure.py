@@ -106,7 +106,7 @@ def test_a_campaign_without_an_acceleration_draws_the_measurements_and_says_no_v
     fig = campaign_figures(_limits(), empty, empty, GEOMETRY, settings, [], [], to_png, with_budget=False,
                            dust=False)
     assert fig.drivers_png.startswith(b"\x89PNG") and fig.tracers_png.startswith(b"\x89PNG")
-    assert "No band of demanded production" in fig.drivers_caption
+    assert "No band of demanded production: no verdict was computed" in fig.drivers_caption
     assert "Grey: the production rate the push needs" not in fig.drivers_caption
     assert "HCN" in fig.tracers_alt and "HCN" not in fig.drivers_alt
     missing = ["no verdict will be computed: the campaign gives no measured non-gravitational acceleration; set "
