@@ -270,7 +270,7 @@ def plot_campaign(series: list[SpeciesSeries], times: EpochTimes,
     height = panel * n + 1.2
     fig = plt.figure(figsize=(width_in, height))
     grid = fig.add_gridspec(n, 2 if with_test else 1, width_ratios=[2.1, 1] if with_test else None,
-                            hspace=0.08, wspace=0.22, left=0.07, right=0.985, top=1 - 0.42 / height,
+                            hspace=0.08, wspace=0.22, left=0.07, right=0.985, top=1 - 0.5 / height,
                             bottom=0.78 / height)
     axes = [fig.add_subplot(grid[i, 0]) for i in range(n)]
     for ax in axes[1:]:
@@ -289,7 +289,7 @@ def plot_campaign(series: list[SpeciesSeries], times: EpochTimes,
     axes[-1].set_xlabel(f"days from {start} UTC (first epoch)", fontsize=8, labelpad=2)
     top = axes[0].secondary_xaxis("top")
     top.set_ticks(x)
-    top.set_xticklabels([f"{e}  r$_h$ {times.r_h[e]:.3f} au" for e in epochs], fontsize=7)
+    top.set_xticklabels([f"{e}\nr$_h$ {times.r_h[e]:.3f} au" for e in epochs], fontsize=7, linespacing=1.1)
     top.tick_params(length=3)
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
@@ -322,7 +322,7 @@ def plot_campaign(series: list[SpeciesSeries], times: EpochTimes,
         ax.set_ylim(0, SIGNIFICANCE_CAP + 0.3)
         ax.tick_params(labelsize=7)
         ax.grid(True, alpha=0.3)
-        ax.legend(fontsize=6.5, loc="upper left", framealpha=0.9)
+        ax.legend(fontsize=6.5, loc="lower right", framealpha=0.9)
     return fig
 
 
