@@ -10,9 +10,12 @@ everything Snakemake prints).
 
 from __future__ import annotations
 
+import queue
 import re
+import shutil
 import subprocess
 import sys
+import threading
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -94,6 +97,7 @@ class ProgressReader:
 
     clock: Callable[[], float] = time.monotonic
     jobs: dict[str, JobInfo] = field(default_factory=dict)
+    running: dict[str, JobInfo] = field(default_factory=dict)
     failed: list[JobInfo] = field(default_factory=list)
     nothing_to_do: bool = False
     errors: list[list[str]] = field(default_factory=list)   # tracebacks and 'gasledger:' sentences jobs printed
@@ -136,6 +140,8 @@ class ProgressReader:
                     value = value.split(" (check log")[0].split(",")[0].strip()
                 if m["key"] != "message":
                     setattr(self._block, m["key"], value)
+                if m["key"] == "jobid" and not self._in_error:
+                    self._register(self._block)            # running from now on (its block may end much later)
                 return None
             if line.startswith((" ", "\t")):
                 return None
@@ -145,6 +151,7 @@ class ProgressReader:
             return "nothing to do: every output is up to date"
         if m := _FINISHED.match(line):
             self._finished = self.jobs.get(m["jobid"])
+            self.running.pop(m["jobid"], None)
             return None
         if (m := _STEPS.match(line)) and self._finished is not None:
             job, self._finished = self._finished, None
@@ -159,13 +166,28 @@ class ProgressReader:
         if block is None:
             return
         if self._in_error:
+            self.running.pop(block.jobid, None)
             known = self.jobs.get(block.jobid)
             if known is not None:
                 block.wildcards = block.wildcards or known.wildcards
                 block.log = block.log or known.log
             self.failed.append(block)
         elif block.jobid:
+            self._register(block)
+
+    def _register(self, block: JobInfo) -> None:
+        if block.jobid not in self.jobs:
             self.jobs[block.jobid] = block
+            if block.rule != "all":
+                self.running[block.jobid] = block
+
+    def status(self) -> str | None:
+        """The jobs running now and for how long (None when none is): for a line that is rewritten in place."""
+        if not self.running:
+            return None
+        now = self.clock()
+        parts = [f"{(j.rule + ' ' + j.wildcards).strip()} ({_clock(now - j.started)})" for j in self.running.values()]
+        return "running: " + "; ".join(parts)
 
     def finish(self) -> None:
         """End of the output: close a block still open."""
@@ -181,8 +203,9 @@ def _clock(s: float) -> str:
     return f"{m // 60}:{m % 60:02d}:{sec:02d}" if m >= 60 else f"{m}:{sec:02d}"
 
 
-def log_excerpt(path: Path, n: int = 12) -> list[str]:
-    """The error lines of a job's log: its ERROR lines and any traceback, else its last ``n`` lines."""
+def log_excerpt(path: Path, n: int = 12, errors_only: bool = False) -> list[str]:
+    """The error lines of a job's log: its last traceback or its ERROR lines, else (unless ``errors_only``) its last
+    ``n`` lines."""
     try:
         lines = path.read_text(encoding="utf-8", errors="replace").splitlines()
     except OSError:
@@ -191,7 +214,7 @@ def log_excerpt(path: Path, n: int = 12) -> list[str]:
         start = max(i for i, ln in enumerate(lines) if ln.startswith("Traceback"))
         return lines[start:][-n:]
     errors = [ln for ln in lines if " ERROR " in ln or ln.startswith("gasledger:")]
-    return errors[-n:] if errors else lines[-n:]
+    return errors[-n:] if errors or errors_only else lines[-n:]
 
 
 def report_path(campaign: str | Path, directory: str | Path | None = None) -> Path:
@@ -215,20 +238,38 @@ def run_workflow(command: Sequence[str], directory: str | Path | None = None, ve
     base = Path(directory if directory is not None else Path.cwd()).resolve()
     reader = ProgressReader()
     tail: list[str] = []
+    live = not verbose and _is_terminal(out)                # a terminal also sees the running jobs, rewritten
+    width = shutil.get_terminal_size().columns - 1
+    status = ""
     with subprocess.Popen(list(command), stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
                           bufsize=1) as proc:
         assert proc.stdout is not None
-        for line in proc.stdout:
+        for line in _lines(proc.stdout, 1.0 if live else None):
             if verbose:
                 out.write(line)
                 out.flush()
                 reader.feed(line)
                 continue
-            tail = (tail + [line.rstrip("\n")])[-40:]
-            shown = reader.feed(line)
-            if shown is not None:
+            if line:
+                tail = (tail + [line.rstrip("\n")])[-40:]
+                shown = reader.feed(line)
+            else:
+                shown = None                                  # a second without output: only the status changes
+            if live:
+                new_status = (reader.status() or "")[:width]
+                if shown is not None or new_status != status:
+                    out.write("\r" + " " * len(status) + "\r")
+                    if shown is not None:
+                        out.write(shown + "\n")
+                    out.write(new_status)
+                    out.flush()
+                    status = new_status
+            elif shown is not None:
                 print(shown, file=out, flush=True)
         code = proc.wait()
+    if live and status:
+        out.write("\r" + " " * len(status) + "\r")
+        out.flush()
     reader.finish()
     if code != 0 and not verbose:
         if reader.failed:
@@ -238,9 +279,11 @@ def run_workflow(command: Sequence[str], directory: str | Path | None = None, ve
                 log = Path(job.log) if job.log else None
                 if log is not None and not log.is_absolute():
                     log = base / log
-                excerpt = log_excerpt(log) if log is not None else []
-                if not excerpt and reader.errors:          # the job stopped before writing its log
+                excerpt = log_excerpt(log, errors_only=True) if log is not None else []
+                if not excerpt and reader.errors:          # the job's error went to its stderr, not its log
                     excerpt = reader.errors[-1][-12:]
+                if not excerpt and log is not None:
+                    excerpt = log_excerpt(log)
                 for ln in excerpt:
                     print(f"  {ln}", file=out)
                 print(f"  log: {log if log is not None else '(none)'}", file=out)
@@ -249,6 +292,37 @@ def run_workflow(command: Sequence[str], directory: str | Path | None = None, ve
                 print(ln, file=out)
         print("(run again with --verbose for Snakemake's full output)", file=out, flush=True)
     return code, reader
+
+
+def _is_terminal(out) -> bool:
+    try:
+        return bool(out.isatty())
+    except (AttributeError, ValueError):
+        return False
+
+
+def _lines(stream, tick: float | None):
+    """The lines of ``stream``; with ``tick``, also an empty string after every ``tick`` seconds without one."""
+    if tick is None:
+        yield from stream
+        return
+    lines: queue.Queue = queue.Queue()
+
+    def pump():
+        for line in stream:
+            lines.put(line)
+        lines.put(None)
+
+    threading.Thread(target=pump, daemon=True).start()
+    while True:
+        try:
+            line = lines.get(timeout=tick)
+        except queue.Empty:
+            yield ""
+            continue
+        if line is None:
+            return
+        yield line
 
 
 def _snakemake_error(tail: list[str]) -> list[str]:

@@ -253,6 +253,11 @@ def test_progress_lines_from_snakemake_output():
     assert shown == ["[ 1 of 12 steps] geometry cube=e1_hcn  (30.0 s; total 0:46)"]
     assert [(j.rule, j.jobid, j.log) for j in reader.failed] == [("budget", "3", "results/logs/budget.log")]
     assert reader.jobs["7"].wildcards == "cube=e1_hcn" and not reader.nothing_to_do
+    assert reader.running == {} and reader.status() is None          # geometry finished, budget failed
+    running = ProgressReader(clock=lambda: 75.0)
+    for ln in SNAKEMAKE_LINES.splitlines()[7:14]:                     # the geometry job's block, still open
+        running.feed(ln + "\n")
+    assert running.status() == "running: geometry cube=e1_hcn (0:00)"
     nothing = ProgressReader()
     assert nothing.feed("Nothing to be done (all requested files are present and up to date).\n") is not None
     assert nothing.nothing_to_do
