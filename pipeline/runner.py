@@ -238,38 +238,15 @@ def run_workflow(command: Sequence[str], directory: str | Path | None = None, ve
     base = Path(directory if directory is not None else Path.cwd()).resolve()
     reader = ProgressReader()
     tail: list[str] = []
-    live = not verbose and _is_terminal(out)                # a terminal also sees the running jobs, rewritten
-    width = shutil.get_terminal_size().columns - 1
-    status = ""
     with subprocess.Popen(list(command), stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
                           bufsize=1) as proc:
-        assert proc.stdout is not None
-        for line in _lines(proc.stdout, 1.0 if live else None):
-            if verbose:
-                out.write(line)
-                out.flush()
-                reader.feed(line)
-                continue
-            if line:
-                tail = (tail + [line.rstrip("\n")])[-40:]
-                shown = reader.feed(line)
-            else:
-                shown = None                                  # a second without output: only the status changes
-            if live:
-                new_status = (reader.status() or "")[:width]
-                if shown is not None or new_status != status:
-                    out.write("\r" + " " * len(status) + "\r")
-                    if shown is not None:
-                        out.write(shown + "\n")
-                    out.write(new_status)
-                    out.flush()
-                    status = new_status
-            elif shown is not None:
-                print(shown, file=out, flush=True)
-        code = proc.wait()
-    if live and status:
-        out.write("\r" + " " * len(status) + "\r")
-        out.flush()
+        try:
+            code = _follow(proc, reader, tail, out, verbose)
+        except KeyboardInterrupt:                       # Snakemake got the interrupt too and stops its jobs
+            proc.wait()
+            print("\ninterrupted: run the same command again to go on (Snakemake may ask for -- --unlock first)",
+                  file=out, flush=True)
+            return 130, reader
     reader.finish()
     if code != 0 and not verbose:
         if reader.failed:
@@ -292,6 +269,38 @@ def run_workflow(command: Sequence[str], directory: str | Path | None = None, ve
                 print(ln, file=out)
         print("(run again with --verbose for Snakemake's full output)", file=out, flush=True)
     return code, reader
+
+
+def _follow(proc: subprocess.Popen, reader: ProgressReader, tail: list[str], out, verbose: bool) -> int:
+    """Read the process's output to its end, printing what :class:`ProgressReader` says (everything with
+    ``verbose``; on a terminal also the running jobs on a line rewritten in place); keep its last lines in
+    ``tail``. Returns the exit status."""
+    assert proc.stdout is not None
+    live = not verbose and _is_terminal(out)
+    width = shutil.get_terminal_size().columns - 1
+    status = ""
+    for line in _lines(proc.stdout, 1.0 if live else None):
+        if verbose:
+            out.write(line)
+            out.flush()
+            reader.feed(line)
+            continue
+        shown = None                                      # an empty line: a second without output
+        if line:
+            tail[:] = (tail + [line.rstrip("\n")])[-40:]
+            shown = reader.feed(line)
+        if live:
+            new_status = (reader.status() or "")[:width]
+            if shown is not None or new_status != status:
+                out.write("\r" + " " * len(status) + "\r" + (shown + "\n" if shown is not None else "") + new_status)
+                out.flush()
+                status = new_status
+        elif shown is not None:
+            print(shown, file=out, flush=True)
+    if status:
+        out.write("\r" + " " * len(status) + "\r")
+        out.flush()
+    return proc.wait()
 
 
 def _is_terminal(out) -> bool:

@@ -271,3 +271,27 @@ def test_log_excerpt_keeps_the_error_lines(tmp_path):
     log.write_text("line\nTraceback (most recent call last):\n  File \"x.py\", line 1\nValueError: boom\n")
     assert log_excerpt(log)[-1] == "ValueError: boom" and log_excerpt(log)[0].startswith("Traceback")
     assert log_excerpt(tmp_path / "missing.log") == []
+
+
+def test_run_workflow_prints_progress_and_the_failing_job(tmp_path):
+    """run_workflow on a stand-in for Snakemake (a script printing its lines): one progress line per finished job;
+    the failed job with its log's error line and the log's absolute path; the exit status passed on."""
+    import io
+
+    from pipeline.runner import run_workflow
+
+    log = tmp_path / "results" / "logs" / "budget.log"
+    log.parent.mkdir(parents=True)
+    log.write_text("2031-03-10 04:00:01,000 ERROR gasledger: budget: a sentence naming the key\n")
+    script = tmp_path / "fake_snakemake.py"
+    script.write_text(f"import sys\nsys.stdout.write({SNAKEMAKE_LINES!r})\nsys.exit(1)\n")
+    out = io.StringIO()
+    code, reader = run_workflow([sys.executable, str(script)], directory=tmp_path, out=out)
+    lines = out.getvalue().splitlines()
+    assert code == 1 and lines[0].startswith("[ 1 of 12 steps] geometry cube=e1_hcn  (")
+    assert lines[1:4] == ["failed: budget", "  2031-03-10 04:00:01,000 ERROR gasledger: budget: a sentence naming the key",
+                          f"  log: {log}"]
+    assert not any("jobid" in ln or "Building DAG" in ln for ln in lines)
+    verbose = io.StringIO()
+    assert run_workflow([sys.executable, str(script)], directory=tmp_path, verbose=True, out=verbose)[0] == 1
+    assert verbose.getvalue() == SNAKEMAKE_LINES
