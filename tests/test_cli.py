@@ -295,3 +295,13 @@ def test_run_workflow_prints_progress_and_the_failing_job(tmp_path):
     verbose = io.StringIO()
     assert run_workflow([sys.executable, str(script)], directory=tmp_path, verbose=True, out=verbose)[0] == 1
     assert verbose.getvalue() == SNAKEMAKE_LINES
+
+
+def test_workflow_found_beside_the_package_or_refused_in_one_sentence(tmp_path, monkeypatch):
+    root = workflow_root()
+    assert (root / "Snakefile").is_file() and (root / "config" / "schema.yaml").is_file()
+    (tmp_path / "pipeline").mkdir()
+    monkeypatch.setattr(pipeline, "__file__", str(tmp_path / "pipeline" / "__init__.py"))   # as from a wheel
+    with pytest.raises(ValueError, match=r"the workflow \(Snakefile and rules/\) was not found next to the "
+                                         r"installed package in .*; expected a source checkout"):
+        workflow_root()
