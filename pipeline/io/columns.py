@@ -171,6 +171,8 @@ COLUMNS: dict[str, tuple[str | None, str]] = {
     # injection
     "level": (None, "what was injected: Q at the limit, or the Q the push needs"),
     "q_injected": (_PER_S, "production rate of the injected model coma"),
+    "instrument": (None, "which measurement the coma was injected into: millimetre lines or infrared bands"),
+    "placement_kind": (None, "where the coma was injected: on the nucleus or on the ring around it"),
     "placement": ("", "index of the sky position the coma was injected at (0: the nucleus)"),
     "velocity_slot": ("", "index of the velocity the coma was injected at, clear of every catalogue line"),
     "q_recovered": (_PER_S, "production rate measured from the injected coma"),

@@ -86,7 +86,8 @@ def quoted_model(limits: QTable, species: str, epoch: str, radii_km: np.ndarray)
         if match.size and (best is None or r < best[0].aperture_km):
             detected = bool(row["detected"])
             q = u.Quantity(row["q"] if detected else row["q_upper"]).to_value(1 / u.s)
-            best = (QuotedModel(q=float(q), detected=detected, t_kin=float(row["t_kin_K"]), aperture_km=r),
+            t_kin = float(u.Quantity(row["t_kin_K"], u.K).value)      # limits.ecsv: in K (a bare number read as K)
+            best = (QuotedModel(q=float(q), detected=detected, t_kin=t_kin, aperture_km=r),
                     int(match[0]))
     return best
 
