@@ -157,8 +157,10 @@ class ProgressReader:
             job, self._finished = self._finished, None
             what = f"{job.rule} {job.wildcards}".strip() if job.wildcards else job.rule
             width = len(m["total"])
-            return (f"[{int(m['done']):>{width}} of {m['total']} steps] {what}  ({_seconds(now - job.started)}; "
-                    f"total {_clock(now - self._t0)})")
+            steps = f"[{int(m['done']):>{width}} of {m['total']} steps]"
+            if job.rule == "all":                       # the workflow's target rule: nothing of its own to run
+                return f"{steps} every output complete  (total {_clock(now - self._t0)})"
+            return f"{steps} {what}  ({_seconds(now - job.started)}; total {_clock(now - self._t0)})"
         return None
 
     def _close_block(self) -> None:
