@@ -46,6 +46,12 @@ def fill_budget(text: str) -> str:
     return "".join(out)
 
 
+def python_warnings(folder: Path) -> list[str]:
+    """The Python warnings the jobs logged (each step's log captures them, pipeline.workflow.common)."""
+    return [f"{log.name}: {ln}" for log in (folder / "results" / "logs").rglob("*.log")
+            for ln in log.read_text(encoding="utf-8").splitlines() if "py.warnings" in ln]
+
+
 @pytest.fixture(scope="module")
 def folder(tmp_path_factory) -> Path:
     """A folder outside the repository with the cubes in data/: HCN and CO windows at two epochs (no infrared,
@@ -80,7 +86,7 @@ def test_new_check_run_without_and_with_a_budget(folder):
     report = folder / "results" / "report.html"
     assert lines[0].startswith("[ 1 of ") and lines[-1] == f"Report: {report}"
     assert all(ln.startswith("[") for ln in lines[:-1]), run.stdout            # one progress line per job, no more
-    assert "Warning" not in run.stdout + run.stderr
+    assert "Warning" not in run.stdout + run.stderr and python_warnings(folder) == []
     summary = json.loads((folder / "results" / "budget.json").read_text())
     assert len(summary["missing"]) == 1 and "budget.acceleration_m_s2" in summary["missing"][0]
     assert len(read_table(folder / "results" / "budget.ecsv")) == 0
@@ -94,7 +100,7 @@ def test_new_check_run_without_and_with_a_budget(folder):
     assert check.returncode == 0 and "no problems found" in check.stdout, check.stdout
     run = gasledger("run", "campaign.yaml", "--cores", "2", cwd=folder)
     assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
-    assert run.stdout.splitlines()[-1] == f"Report: {report}"
+    assert run.stdout.splitlines()[-1] == f"Report: {report}" and python_warnings(folder) == []
     assert not any("geometry" in ln or "extract" in ln for ln in run.stdout.splitlines())   # only what the budget feeds
     summary = json.loads((folder / "results" / "budget.json").read_text())
     assert summary["missing"] == [] and summary["defaulted"] == []
