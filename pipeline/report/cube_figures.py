@@ -46,7 +46,7 @@ def unit_label(unit: u.UnitBase) -> str:
         rest = unit * per
         for base, name in ((u.Jy * u.km / u.s, "Jy{p} km/s"), (u.mJy * u.km / u.s, "mJy{p} km/s"),
                            (u.K * u.km / u.s, "K km/s"), (u.Jy, "Jy{p}"), (u.mJy, "mJy{p}"), (u.MJy, "MJy{p}"),
-                           (u.W / u.m**2, "W m$^{{-2}}${p}")):
+                           (u.W / u.m**2, "W m$^{{-2}}${p}"), (u.W / u.m**2 / u.um, "W m$^{{-2}}$ µm$^{{-1}}${p}")):
             if rest == base or (rest.is_equivalent(base) and np.isclose(rest.to(base), 1.0)):
                 return name.format(p=text)
     if unit.is_equivalent(u.K * u.km / u.s):

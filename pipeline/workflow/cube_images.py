@@ -49,11 +49,12 @@ def run(geometry_path: str, line_ids: list[str], band_ids: list[str], settings: 
         images = millimetre_images(info, geo, frame, catalogue, line_ids, window, dq)
     stats = [image_statistics(im.data, frame) if im.data is not None else None for im in images]
     for im, st in zip(images, stats):
+        what = im.name if im.kind == "continuum" else f"{im.kind} {im.name}"
         if st is None:
-            log.warning("cube %s: no %s image for %s (%s)", geo["cube_id"], im.kind, im.name, im.note)
+            log.warning("cube %s: no image of the %s (%s)", geo["cube_id"], what, im.note)
         else:
-            log.info("cube %s, %s %s: %d channels, rms %.3g, peak %.1f sigma at %.2f arcsec from the predicted "
-                     "position", geo["cube_id"], im.kind, im.name, im.n_channels, st["noise"], st["snr"],
+            log.info("cube %s, %s: %d channels, rms %.3g %s, peak %.1f sigma at %.2f arcsec from the predicted "
+                     "position", geo["cube_id"], what, im.n_channels, st["noise"], im.data.unit, st["snr"],
                      st["offset_arcsec"])
     beam = (f"beam {frame.beam.major.to_value(u.arcsec):.2f}″ × {frame.beam.minor.to_value(u.arcsec):.2f}″ "
             f"PA {frame.beam.pa.to_value(u.deg):.0f}° ({info.beam_source})" if frame.beam is not None else "no beam")

@@ -61,6 +61,7 @@ def test_unit_labels():
     assert unit_label(u.K * u.km / u.s) == "K km/s"
     assert unit_label(u.MJy / u.sr) == "MJy/sr"
     assert unit_label(u.W / u.m**2 / u.sr) == "W m$^{-2}$/sr"
+    assert unit_label(u.W / u.m**2 / u.um / u.sr) == "W m$^{-2}$ µm$^{-1}$/sr"
 
 
 def test_html_has_one_classed_image_per_cube_named_in_its_alt():
