@@ -57,7 +57,9 @@ def run(geometry_path: str, line_ids: list[str], band_ids: list[str], settings: 
                      "position", geo["cube_id"], what, im.n_channels, st["noise"], im.data.unit, st["snr"],
                      st["offset_arcsec"])
     beam = (f"beam {frame.beam.major.to_value(u.arcsec):.2f}″ × {frame.beam.minor.to_value(u.arcsec):.2f}″ "
-            f"PA {frame.beam.pa.to_value(u.deg):.0f}° ({info.beam_source})" if frame.beam is not None else "no beam")
+            f"PA {frame.beam.pa.to_value(u.deg):.0f}° ("
+            + ("median of the per-channel BEAMS table" if info.channel_beams is not None else info.beam_source)
+            + ")" if frame.beam is not None else "no beam")
     title = (f"{geo['cube_id']}  ·  epoch {geo['epoch']}  ·  {geo['observer']}  ·  mid-time {geo['time_mid'].isot[:16]}"
              f"\nr$_h$ {u.Quantity(geo['r_h']).to_value(u.au):.3f} au, Δ {delta.to_value(u.au):.3f} au  ·  {beam}")
     png = to_png(plot_cube_images(title, frame, images, stats))
