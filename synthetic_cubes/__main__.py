@@ -6,6 +6,8 @@ import argparse
 import sys
 from dataclasses import replace
 
+from pipeline.offline import future_time_tolerated
+
 from .generate import LAYOUTS, write_scenario
 from .scenario import demo_scenario, small_scenario
 
@@ -27,7 +29,8 @@ def main(argv: list[str] | None = None) -> int:
     sc = small_scenario() if args.small else demo_scenario()
     if args.seed is not None:
         sc = replace(sc, seed=args.seed)
-    write_scenario(sc, args.outdir, args.config, results=args.results, layout=args.layout)
+    with future_time_tolerated():      # the invented epochs lie beyond the bundled leap-second/UT1 tables
+        write_scenario(sc, args.outdir, args.config, results=args.results, layout=args.layout)
     return 0
 
 

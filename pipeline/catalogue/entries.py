@@ -258,8 +258,8 @@ class Catalogue:
             known = ", ".join(sorted(self.species))
             # a case slip ('hcn') or a digit zero for the letter O ('C0') first, then the closest spelling
             same = [s for s in self.species if s.lower() in (str(name).lower(), str(name).lower().replace("0", "o"))]
-            close = same or difflib.get_close_matches(str(name).upper(), list(self.species), n=1, cutoff=0.6)
-            hint = f" (did you mean {close[0]!r}? names are case-sensitive)" if close else ""
+            close = same or difflib.get_close_matches(str(name).upper(), list(self.species), n=3, cutoff=0.6)
+            hint = f" (did you mean {' or '.join(repr(c) for c in close)}?)" if close else ""
             msg = (f"species {name!r} is not in the catalogue {self.source[0]}{hint}; "
                    f"expected one of: {known}")
             raise CatalogueError(msg) from None
