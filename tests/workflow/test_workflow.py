@@ -289,8 +289,8 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     # the new cube's own jobs (one HCN line), the HCN aggregation, the temperature (a new cube may change what
     # the lines measure) and so every species' limits, the campaign tables, and the injections, which depend on
     # the campaign tables for every species
-    assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "stack": 1, "temperature": 1, "limits_species": 5,
-                    "limits": 1, "budget": 1, "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
+    assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "cube_images": 1, "stack": 1, "temperature": 1,
+                    "limits_species": 5, "limits": 1, "budget": 1, "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
 
 
 def test_report_renders_in_a_real_browser(campaign, tmp_path):
