@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import astropy.units as u
 import numpy as np
-from scipy import integrate, special
 
 from pipeline.spectra.apertures import aperture_spectra, aperture_weights
 from pipeline.coma.image import beam_kernel, coma_molecules_image
@@ -42,6 +41,8 @@ def inverse_radius_fraction(radius_rad: float, q_min: float) -> float:
     relative to the unfiltered 2πR is (1/R) ∫_0^R [1 - Ji0(2π q_min θ)] dθ, with Ji0 from
     scipy.special.itj0y0 (the integral of J0).
     """
+    from scipy import integrate, special     # where used: only interferometric filtering needs them
+
     def integrand(theta):
         return 1.0 - special.itj0y0(2 * np.pi * q_min * theta)[0]
 

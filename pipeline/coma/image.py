@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import astropy.units as u
 import numpy as np
-from scipy.signal import fftconvolve
 
 from pipeline.spectra.apertures import aperture_spectra, aperture_weights
 from pipeline.catalogue.entries import Line, Species
@@ -23,6 +22,14 @@ from pipeline.coma.response import SPECTRAL_RESPONSES, ComaModel, outflow_speed,
 
 __all__ = ["pixel_column_integral", "coma_molecules_image", "projected_coma_image", "beam_kernel", "apply_spectral_response",
            "model_line_cube", "aperture_count_on_grid"]
+
+
+def _convolved(image: np.ndarray, kernel: np.ndarray) -> np.ndarray:
+    """``image`` convolved with ``kernel`` (scipy.signal.fftconvolve, mode 'same'), the signal package loaded only
+    where a model image is convolved (its import costs about half a second)."""
+    from scipy.signal import fftconvolve
+
+    return fftconvolve(image, kernel, mode="same")
 
 
 def _g(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -97,7 +104,7 @@ def projected_coma_image(shape: tuple[int, int], x0: float, y0: float,
     xc, yc = np.meshgrid(np.arange(nx, dtype=float), np.arange(ny, dtype=float))
     img = pixel_column_integral(xc - 0.5 - x0, xc + 0.5 - x0, yc - 0.5 - y0, yc + 0.5 - y0)
     if beam_pix is not None:
-        img = fftconvolve(img, beam_kernel(*beam_pix), mode="same")
+        img = _convolved(img, beam_kernel(*beam_pix))
     return np.clip(img, 0.0, None)
 
 
@@ -139,7 +146,7 @@ def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: 
     molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length, daughter)
     flux_img = molecules * q * flux_per_molecule(line, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
     bmaj, bmin, bpa = beam_arcsec
-    sky = fftconvolve(flux_img, beam_kernel(bmaj / pixel_arcsec, bmin / pixel_arcsec, bpa), mode="same")
+    sky = _convolved(flux_img, beam_kernel(bmaj / pixel_arcsec, bmin / pixel_arcsec, bpa))
     beam_over_pix = np.pi / (4 * np.log(2)) * bmaj * bmin / pixel_arcsec**2
     sigma_th = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
     vel = np.asarray(velocity, dtype=float)
@@ -162,7 +169,7 @@ def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix
     """
     img = coma_molecules_image(shape, x, y, pixel_km, speed, length, length_daughter)
     if beam_pix is not None:
-        img = fftconvolve(img, beam_kernel(*beam_pix), mode="same")
+        img = _convolved(img, beam_kernel(*beam_pix))
     weights = [aperture_weights(shape, x, y, r) for r in radii_pix]
     sums, _ = aperture_spectra(img[None], weights)
     return sums[:, 0]

@@ -21,7 +21,7 @@ import math
 
 import astropy.units as u
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import special
 
 from pipeline.errors import LimitError
 
@@ -267,7 +267,8 @@ def _fc_setup(confidence: float) -> tuple[float, float, float]:
         msg = f"'confidence' of a Feldman-Cousins interval must be > 0.5, found {confidence!r}"
         raise LimitError(msg)
     alpha = 1.0 - cl  # exact in floating point for cl in (0.5, 1)
-    return alpha, float(stats.norm.isf(alpha)), float(stats.norm.isf(0.5 * alpha))
+    # the normal quantile: isf(p) = -ndtri(p), as scipy.stats.norm.isf computes it (without loading scipy.stats)
+    return alpha, float(-special.ndtri(alpha)), float(-special.ndtri(0.5 * alpha))
 
 
 def _half_width(mu: float, alpha: float, z1: float, zc: float) -> float:
@@ -285,6 +286,8 @@ def _half_width(mu: float, alpha: float, z1: float, zc: float) -> float:
     lo = max(mu, z1)
     if excess(lo) >= 0.0:
         return lo
+    from scipy import optimize     # loaded where a root is needed (most importers of this module never need one)
+
     return optimize.brentq(excess, lo, zc, xtol=_XTOL)
 
 
@@ -298,6 +301,8 @@ def _acceptance_unit(mu: float, alpha: float, z1: float, zc: float) -> tuple[flo
 
 def _interval_unit(x: float, alpha: float, z1: float, zc: float) -> tuple[float, float]:
     """Feldman-Cousins interval of ``mu`` for one observation ``x`` (sigma units)."""
+    from scipy import optimize
+
     # upper end: mu_hi with x1(mu_hi) = x
     if x >= 0.0:
         upper = x + zc

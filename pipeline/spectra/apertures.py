@@ -16,7 +16,6 @@ from dataclasses import dataclass
 
 import astropy.units as u
 import numpy as np
-from photutils.aperture import CircularAperture
 
 from pipeline.errors import CoverageError, CubeError
 
@@ -67,6 +66,8 @@ def aperture_weights(shape: tuple[int, int], x: float, y: float, radius_pix: flo
                f"{nx} x {ny} image; expected an aperture smaller than the field (reduce apertures_km or "
                "apertures_arcsec)")
         raise CoverageError(msg)
+    from photutils.aperture import CircularAperture    # where used: a job that only reads pixel radii skips it
+
     mask = CircularAperture((x, y), r=radius_pix).to_mask(method="exact")
     (ys, xs), (my, mx) = mask.get_overlap_slices((ny, nx))
     return ApertureWeights(ys=ys, xs=xs, weights=np.asarray(mask.data[my, mx], dtype=np.float64),
