@@ -92,10 +92,11 @@ class CubeEntry:
 
 @functools.lru_cache(maxsize=1)
 def _schema_text_parsed() -> dict:
-    # libyaml's loader where installed: the schema is read at every workflow start (and in every cluster job)
-    loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+    # libyaml's safe loader where installed: the schema is read at every workflow start (and in every cluster job)
     with open(SCHEMA_FILE, encoding="utf-8") as fh:
-        return yaml.load(fh, Loader=loader)  # noqa: S506  (a safe loader)
+        if hasattr(yaml, "CSafeLoader"):
+            return yaml.load(fh, Loader=yaml.CSafeLoader)
+        return yaml.safe_load(fh)
 
 
 def _load_schema() -> dict:

@@ -18,8 +18,7 @@ try:
     CUBES = {c.cube_id: c for c in SETTINGS.cubes}
     CUBE_ITEMS = {c.cube_id: item for c, item in zip(SETTINGS.cubes, config["cubes"])}
     # each cube's spectral range: its header read (and checked) once per file version, kept in the cube index
-    SPANS = cube_spans({cid: (c.path, c.beam_arcsec) for cid, c in CUBES.items()},
-                       index_location(config["outdir"]))
+    SPANS = cube_spans({cid: (c.path, c.beam_arcsec) for cid, c in CUBES.items()}, index_location())
     LINES = {cid: lines_for_cube(SPANS[cid], CATALOGUE, config["species"]) for cid in CUBES}
     IR_CUBES = {cid: SPANS[cid].regime == "infrared" for cid in CUBES}
     BANDS = {cid: bands_for_cube(SPANS[cid], CATALOGUE, config["species"]) for cid in CUBES}

@@ -84,7 +84,7 @@ def cube_spans(cubes: dict[str, tuple[str, object]], index_path: str | Path | No
     return out
 
 
-def index_location(outdir: str) -> Path:
-    """Where a campaign's cube index lives: beside its products (hidden), so a fresh output folder starts fresh."""
-    return Path(outdir) / ".cube_index.json"
-
+def index_location(workdir: str | Path = ".") -> Path:
+    """Where a workflow's cube index lives: in Snakemake's own metadata folder of the working directory, never among
+    the campaign's products (an output folder holds outputs only)."""
+    return Path(workdir) / ".snakemake" / "gasledger" / "cube_index.json"

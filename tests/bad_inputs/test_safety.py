@@ -105,6 +105,9 @@ def _python_files() -> list[Path]:
     return files
 
 
+_SAFE_LOADERS = ("SafeLoader", "CSafeLoader")     # PyYAML's loaders that build only plain Python objects
+
+
 def _dangerous_calls(path: Path) -> list[str]:
     found = []
     for node in ast.walk(ast.parse(path.read_text(), filename=str(path))):
@@ -113,7 +116,10 @@ def _dangerous_calls(path: Path) -> list[str]:
         f = node.func
         if isinstance(f, ast.Name) and f.id in _FORBIDDEN_NAMES:
             found.append(f"{path.name}:{node.lineno} {f.id}()")
-        if isinstance(f, ast.Attribute) and isinstance(f.value, ast.Name) and (f.value.id, f.attr) in _FORBIDDEN_ATTRS:
+        safe_loader = any(k.arg == "Loader" and isinstance(k.value, ast.Attribute) and k.value.attr in _SAFE_LOADERS
+                          for k in node.keywords)
+        if (isinstance(f, ast.Attribute) and isinstance(f.value, ast.Name) and (f.value.id, f.attr) in _FORBIDDEN_ATTRS
+                and not (f.attr == "load" and safe_loader)):
             found.append(f"{path.name}:{node.lineno} {f.value.id}.{f.attr}()")
         if any(k.arg == "shell" and not (isinstance(k.value, ast.Constant) and k.value.value is False)
                for k in node.keywords):
@@ -125,9 +131,10 @@ def test_the_scanner_finds_what_it_looks_for(tmp_path):
     # the check below must be able to fail: a file with each kind of call is flagged
     probe = tmp_path / "probe.py"
     probe.write_text("import yaml, os, subprocess\neval('1')\nexec('x = 1')\nyaml.load(s)\nos.system('true')\n"
-                     "subprocess.run('true', shell=True)\nyaml.safe_load(s)\n")
+                     "subprocess.run('true', shell=True)\nyaml.safe_load(s)\nyaml.load(s, Loader=yaml.CSafeLoader)\n"
+                     "yaml.load(s, Loader=yaml.FullLoader)\n")
     assert [c.split(" ", 1)[1] for c in _dangerous_calls(probe)] == ["eval()", "exec()", "yaml.load()",
-                                                                     "os.system()", "shell="]
+                                                                     "os.system()", "shell=", "yaml.load()"]
 
 
 def test_no_value_is_ever_evaluated():

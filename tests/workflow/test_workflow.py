@@ -195,7 +195,10 @@ def test_outputs_contract_and_provenance(campaign):
     verdicts = {d["species"]: d["verdict"] for d in budget["drivers"]}
     assert all(verdicts[s] != "not observed" for s in ("H2O", "CO2", "CO"))    # the infrared cubes cover them
     html = (root / "results" / "report.html").read_text()
-    assert html.count("data:image/png;base64,") == 5       # spectra, budget, sweep, infrared, population diagrams
+    # campaign, tracers, spectra, budget, sweep, infrared, population diagrams, and per cube its image and spectra
+    n_cubes = len(yaml.safe_load(config.read_text())["cubes"])
+    assert html.count('class="cube-image"') == n_cubes
+    assert html.count("data:image/png;base64,") >= 7 + n_cubes
     assert "peer review" in html and "Infrared bands and dust" in html
     for name in ("stacked_spectra", "mass_budget", "temperature_sweep", "infrared_spectra"):
         assert (root / "results" / "figures" / f"{name}.png").stat().st_size > 10_000
