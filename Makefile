@@ -13,9 +13,11 @@ DEMO_DATA := demo_data
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
 
+# pip -qq prints errors only: a machine's own pip configuration (e.g. index folders it lacks) would otherwise
+# print warnings that are not the project's
 $(STAMP): pyproject.toml | $(BIN)/python
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
+	$(BIN)/python -m pip install -qq --upgrade pip
+	$(BIN)/python -m pip install -qq -e '.[test]'
 	touch $(STAMP)
 
 install: $(STAMP)
