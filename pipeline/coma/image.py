@@ -20,8 +20,9 @@ from pipeline.coma.haser import daughter_column_density, parent_column_density
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 from pipeline.coma.response import SPECTRAL_RESPONSES, ComaModel, outflow_speed, scale_lengths
 
-__all__ = ["pixel_column_integral", "coma_molecules_image", "projected_coma_image", "beam_kernel", "apply_spectral_response",
-           "model_line_cube", "aperture_count_on_grid"]
+__all__ = ["pixel_column_integral", "coma_molecules_image", "projected_coma_image", "beam_kernel",
+           "apply_spectral_response", "model_line_map", "line_cube_from_map", "model_line_cube",
+           "aperture_count_on_grid"]
 
 
 def _convolved(image: np.ndarray, kernel: np.ndarray) -> np.ndarray:
@@ -129,6 +130,39 @@ def apply_spectral_response(cube: np.ndarray, response: str = "hanning") -> np.n
     return kernel[0] * padded[:-2] + kernel[1] * padded[1:-1] + kernel[2] * padded[2:]
 
 
+def model_line_map(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: float, line: Line, species: Species,
+                   t_kin: u.Quantity, r_h: u.Quantity, delta: u.Quantity, beam_arcsec: tuple[float, float, float],
+                   model: ComaModel, parent: Species | None = None) -> np.ndarray:
+    """The velocity-integrated model line of a coma with Q = 1/s, beam-convolved, in Jy/beam km/s per pixel-to-beam
+    area (the map :func:`model_line_cube` spreads over the channels), shape (n_y, n_x).
+
+    The cube is linear in Q and separable (this map times the line profile), so a caller placing the same coma at
+    several velocities computes the map once.
+    """
+    v = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v)
+    pix_km = (pixel_arcsec * u.arcsec).to_value(u.rad) * u.Quantity(delta).to_value(u.km)
+    molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length, daughter)
+    flux_img = molecules * flux_per_molecule(line, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
+    bmaj, bmin, bpa = beam_arcsec
+    sky = _convolved(flux_img, beam_kernel(bmaj / pixel_arcsec, bmin / pixel_arcsec, bpa))
+    beam_over_pix = np.pi / (4 * np.log(2)) * bmaj * bmin / pixel_arcsec**2
+    return sky * beam_over_pix
+
+
+def line_cube_from_map(line_map: np.ndarray, velocity: np.ndarray, species: Species, t_kin: u.Quantity,
+                       r_h: u.Quantity, model: ComaModel, v_centre: float = 0.0,
+                       spectral_response: str | None = "hanning") -> np.ndarray:
+    """``line_map`` (:func:`model_line_map` times Q) spread over the channels with the outflow and thermal profile
+    centred at ``v_centre`` [km/s], and the channel response applied (None leaves it out)."""
+    v = outflow_speed(model, r_h)
+    sigma_th = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
+    vel = np.asarray(velocity, dtype=float)
+    prof = channel_fractions(vel - v_centre, v.to_value(u.km / u.s), sigma_th) / np.abs(np.median(np.diff(vel)))
+    cube = prof[:, None, None] * line_map[None, :, :]
+    return apply_spectral_response(cube, spectral_response) if spectral_response else cube
+
+
 def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: float, velocity: np.ndarray,
                     line: Line, species: Species, q: float, t_kin: u.Quantity, r_h: u.Quantity,
                     delta: u.Quantity, beam_arcsec: tuple[float, float, float], model: ComaModel,
@@ -140,19 +174,9 @@ def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: 
     the line is centred at ``v_centre``. ``spectral_response`` None leaves the
     channel response out (apply it once to signal and noise together instead).
     """
-    v = outflow_speed(model, r_h)
-    length, daughter = scale_lengths(species, parent, model, r_h, v)
-    pix_km = (pixel_arcsec * u.arcsec).to_value(u.rad) * u.Quantity(delta).to_value(u.km)
-    molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length, daughter)
-    flux_img = molecules * q * flux_per_molecule(line, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
-    bmaj, bmin, bpa = beam_arcsec
-    sky = _convolved(flux_img, beam_kernel(bmaj / pixel_arcsec, bmin / pixel_arcsec, bpa))
-    beam_over_pix = np.pi / (4 * np.log(2)) * bmaj * bmin / pixel_arcsec**2
-    sigma_th = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
-    vel = np.asarray(velocity, dtype=float)
-    prof = channel_fractions(vel - v_centre, v.to_value(u.km / u.s), sigma_th) / np.abs(np.median(np.diff(vel)))
-    cube = prof[:, None, None] * (sky * beam_over_pix)[None, :, :]
-    return apply_spectral_response(cube, spectral_response) if spectral_response else cube
+    line_map = model_line_map(shape, x0, y0, pixel_arcsec, line, species, t_kin, r_h, delta, beam_arcsec, model,
+                              parent)
+    return line_cube_from_map(q * line_map, velocity, species, t_kin, r_h, model, v_centre, spectral_response)
 
 
 def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix: list[float], pixel_km: float,

@@ -106,6 +106,7 @@ def forecast_sigma(plan: PlannedEpoch, line, geo: dict, extraction: ExtractionSe
     for k in range(n_realisations):
         sub = noise_subcube(plan, line, geo, noise_realisation(plan, nchan, np.random.default_rng(seed + k)))
         spectra = extract_spectra(sub, extraction, offsource=False)
-        inp, _ = stack_input(spectra, catalogue, t_kin, model, shortest_baseline, correct_filtering)
+        inp, _ = stack_input(spectra, catalogue, t_kin, model, shortest_baseline, correct_filtering,
+                             response_curve=False)
         sig2.append(inp.sigma_q**2)
     return np.sqrt(np.mean(sig2, axis=0))

@@ -19,7 +19,7 @@ import numpy as np
 
 from pipeline.spectra.apertures import flux_conversion, offsource_positions, radius_in_pixels
 from pipeline.catalogue.entries import Line, Species
-from pipeline.coma.image import model_line_cube
+from pipeline.coma.image import line_cube_from_map, model_line_map
 from pipeline.io.products import LineSpectra, SubCube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from pipeline.coma.response import ComaModel
@@ -101,10 +101,13 @@ def inject_spectra(sub: SubCube, settings: ExtractionSettings, line: Line, speci
                                                info.channel_beam_solid_angles(), info.frequencies)
     out = []
     real = np.asarray(sub.data, dtype=np.float64)
+    maps: dict[tuple[float, float], np.ndarray] = {}     # one coma map per sky position, spread at each velocity
     for p in where:
-        cube = model_line_cube(info.shape[1:], p.x, p.y, pix, vel, line, species, q, t_kin,
-                               sub.meta.r_h, sub.meta.delta, beam, model,
-                               v_centre=p.v_centre, spectral_response=sub.meta.spectral_response, parent=parent)
+        if (p.x, p.y) not in maps:
+            maps[(p.x, p.y)] = model_line_map(info.shape[1:], p.x, p.y, pix, line, species, t_kin, sub.meta.r_h,
+                                              sub.meta.delta, beam, model, parent)
+        cube = line_cube_from_map(q * maps[(p.x, p.y)], vel, species, t_kin, sub.meta.r_h, model,
+                                  v_centre=p.v_centre, spectral_response=sub.meta.spectral_response)
         cube = cube * to_cube_unit[:, None, None]
         spectra = extract_spectra(sub, settings, data=real + cube, centre=(p.x, p.y), v_centre=p.v_centre,
                                   offsource=False)

@@ -64,7 +64,7 @@ def blend_partners(line: Line, catalogue: Catalogue, reach: u.Quantity) -> tuple
 
 def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, model: ComaModel,
                 shortest_baseline: u.Quantity | None = None,
-                correct_filtering: bool = True) -> tuple[StackInput, list[dict]]:
+                correct_filtering: bool = True, response_curve: bool = True) -> tuple[StackInput, list[dict]]:
     """Rescale one line's aperture spectra to Q units; also return its rows for the stack's INPUTS table.
 
     Each spectrum is divided by the model response, the line flux per unit Q in each aperture on the
@@ -85,6 +85,9 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         spatial filtering is computed per aperture and recorded.
     correct_filtering : bool
         Scale the response by that surviving fraction.
+    response_curve : bool
+        Compute the response curve S(T) on :data:`TEMPERATURE_GRID` (what the temperature fit needs); a caller that
+        reads only Q and σ at the sweep's temperatures (injection, forecasts) leaves it out (``curve`` None).
     """
     meta = spectra.meta
     line = catalogue.get_line(meta.line_id)
@@ -116,12 +119,14 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                                       + BLEND_REACH_OUTFLOWS * v_out)
     members = [(line, 0.0)] + partners
     grid = TEMPERATURE_GRID * u.K
-    curve = np.zeros((grid.size, count.size))
+    curve = np.zeros((grid.size, count.size)) if response_curve else None
     for member, v_p in members:
         if member is not line:
             f_p = flux_per_molecule(member, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
             frac_p = window_capture(species, t_kin, rel - v_p, wts, v_out, meta.spectral_response)
             scale = scale + count[None, :] * (f_p * frac_p)[:, None]
+        if curve is None:
+            continue
         cap = window_capture(species, _CAPTURE_GRID * u.K, rel - v_p, wts, v_out, meta.spectral_response)
         cap_grid = np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), cap)
         f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)

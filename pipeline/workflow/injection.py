@@ -124,7 +124,7 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
                                                        parent)):
                 inp, _ = stack_input(spectra, catalogue, settings.t_kin, model,
                                      filtering.shortest_baseline if filtering else None,
-                                     filtering.correct if filtering else True)
+                                     filtering.correct if filtering else True, response_curve=False)
                 vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
                 groups.setdefault(("millimetre", where[k].index, vrank), []).append(inp)
         # instruments apart: a millimetre line moved in velocity and an infrared band differenced on the sky are
