@@ -250,15 +250,23 @@ def integrated_line_image(info: CubeInfo, frame: ImageFrame, weights: np.ndarray
     if use.size == 0:
         msg = f"{info.path}: no channel inside the integration window; expected a window the band covers"
         raise CoverageError(msg)
+    total, valid = _weighted_sums(info, frame, use, weights * dv, dq_bad_bits, chunk)
+    return _filled_sum(total, valid, float(np.sum(weights * dv))) * info.bunit * u.km / u.s
+
+
+def _weighted_sums(info: CubeInfo, frame: ImageFrame, use: np.ndarray, kernel: np.ndarray, dq_bad_bits: int,
+                   chunk: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per pixel, sum_c k_c I_c over the valid voxels of the channels ``use`` and sum_c k_c over those voxels, read
+    ``chunk`` channels at a time (blank: NaN or flagged with ``dq_bad_bits``)."""
     total = np.zeros(frame.shape)
     valid = np.zeros(frame.shape)
     for c0, c1 in _runs(use, chunk):
         block = _read(info, frame, c0, c1, dq_bad_bits)
-        kernel = weights[c0:c1] * dv[c0:c1]
+        k = kernel[c0:c1]
         ok = np.isfinite(block)
-        total += np.tensordot(kernel, np.where(ok, block, 0.0), axes=(0, 0))
-        valid += np.tensordot(kernel, ok.astype(float), axes=(0, 0))
-    return _filled_sum(total, valid, float(np.sum(weights * dv))) * info.bunit * u.km / u.s
+        total += np.tensordot(k, np.where(ok, block, 0.0), axes=(0, 0))
+        valid += np.tensordot(k, ok.astype(float), axes=(0, 0))
+    return total, valid
 
 
 def _filled_sum(total: np.ndarray, valid: np.ndarray, full: float) -> np.ndarray:
@@ -277,13 +285,7 @@ def continuum_image(info: CubeInfo, frame: ImageFrame, free: np.ndarray, dq_bad_
     if use.size == 0:
         msg = f"{info.path}: no line-free channel for a continuum image; expected channels outside every window"
         raise CoverageError(msg)
-    total = np.zeros(frame.shape)
-    count = np.zeros(frame.shape)
-    for c0, c1 in _runs(use, chunk):
-        block = _read(info, frame, c0, c1, dq_bad_bits)
-        ok = np.isfinite(block)
-        total += np.where(ok, block, 0.0).sum(axis=0)
-        count += ok.sum(axis=0)
+    total, count = _weighted_sums(info, frame, use, np.ones(free.shape), dq_bad_bits, chunk)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(count > 0, total / np.maximum(count, 1), np.nan)
     return mean * info.bunit
