@@ -10,6 +10,8 @@ line profile and the spectrometer's channel response.
 
 from __future__ import annotations
 
+import functools
+
 import astropy.units as u
 import numpy as np
 
@@ -74,9 +76,23 @@ def coma_molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km:
     Haser distribution centred on pixel (x0, y0), 0-based; ``pixel_km`` is the
     pixel side at the target. With ``length_daughter`` the molecules are a
     daughter produced by a parent of scale length ``length``.
+
+    The image is read-only and shared: one process asks for the same coma many times (every line of a cube,
+    every injection level, the response at each placement), so the last images made are kept
+    (:func:`_molecules_image`, keyed by the arguments' values in fixed units).
     """
+    daughter = None if length_daughter is None else float(u.Quantity(length_daughter).to_value(u.km))
+    return _molecules_image((int(shape[0]), int(shape[1])), float(x0), float(y0), float(pixel_km),
+                            float(u.Quantity(speed).to_value(u.km / u.s)), float(u.Quantity(length).to_value(u.km)),
+                            daughter, int(sub))
+
+
+@functools.lru_cache(maxsize=64)
+def _molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km: float, v: float, length_km: float,
+                     daughter_km: float | None, sub: int) -> np.ndarray:
+    """:func:`coma_molecules_image` with plain values (speed km/s, lengths km), computed once per set of values."""
     ny, nx = shape
-    v = u.Quantity(speed).to_value(u.km / u.s)
+    speed = v * u.km / u.s
     xi = (np.arange(nx * sub) + 0.5) / sub - 0.5
     yi = (np.arange(ny * sub) + 0.5) / sub - 0.5
     xc, yc = np.meshgrid(xi, yi)
@@ -85,11 +101,13 @@ def coma_molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km:
                                           (yc - half - y0) * pixel_km, (yc + half - y0) * pixel_km)   # km
     rho = np.maximum(np.hypot(xc - x0, yc - y0) * pixel_km, 1e-6 * pixel_km)
     # Haser factor: the column relative to its L -> infinity form Q/(4 v rho)
-    column = (parent_column_density(rho * u.km, 1 / u.s, speed, length) if length_daughter is None
-              else daughter_column_density(rho * u.km, 1 / u.s, speed, length, length_daughter))
-    factor = (column * 4 * u.Quantity(speed) * rho * u.km * u.s).decompose().value
+    column = (parent_column_density(rho * u.km, 1 / u.s, speed, length_km * u.km) if daughter_km is None
+              else daughter_column_density(rho * u.km, 1 / u.s, speed, length_km * u.km, daughter_km * u.km))
+    factor = (column * 4 * speed * rho * u.km * u.s).decompose().value
     molecules = area_over_rho * factor / (4 * v)
-    return molecules.reshape(ny, sub, nx, sub).sum(axis=(1, 3))
+    image = molecules.reshape(ny, sub, nx, sub).sum(axis=(1, 3))
+    image.flags.writeable = False
+    return image
 
 
 def projected_coma_image(shape: tuple[int, int], x0: float, y0: float,
@@ -159,8 +177,9 @@ def line_cube_from_map(line_map: np.ndarray, velocity: np.ndarray, species: Spec
     sigma_th = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
     vel = np.asarray(velocity, dtype=float)
     prof = channel_fractions(vel - v_centre, v.to_value(u.km / u.s), sigma_th) / np.abs(np.median(np.diff(vel)))
-    cube = prof[:, None, None] * line_map[None, :, :]
-    return apply_spectral_response(cube, spectral_response) if spectral_response else cube
+    if spectral_response:     # the response acts along the spectral axis only: on the profile of a separable cube
+        prof = apply_spectral_response(prof, spectral_response)
+    return prof[:, None, None] * line_map[None, :, :]
 
 
 def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: float, velocity: np.ndarray,
@@ -191,7 +210,22 @@ def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix
     exactly as they enter the data. (The analytic circular-beam count of
     :func:`pipeline.coma.haser.convolved_aperture_count` is its external check.)
     """
-    img = coma_molecules_image(shape, x, y, pixel_km, speed, length, length_daughter)
+    daughter = None if length_daughter is None else float(u.Quantity(length_daughter).to_value(u.km))
+    beam = None if beam_pix is None else tuple(float(b) for b in beam_pix)
+    counts = _aperture_counts((int(shape[0]), int(shape[1])), float(x), float(y), tuple(float(r) for r in radii_pix),
+                              float(pixel_km), beam, float(u.Quantity(speed).to_value(u.km / u.s)),
+                              float(u.Quantity(length).to_value(u.km)), daughter)
+    return counts.copy()
+
+
+@functools.lru_cache(maxsize=256)
+def _aperture_counts(shape: tuple[int, int], x: float, y: float, radii_pix: tuple[float, ...], pixel_km: float,
+                     beam_pix: tuple[float, float, float] | None, v: float, length_km: float,
+                     daughter_km: float | None) -> np.ndarray:
+    """:func:`aperture_count_on_grid` with plain values, computed once per set of values (the response of every
+    line of a cube, and of each injection placement, counts the same coma)."""
+    img = coma_molecules_image(shape, x, y, pixel_km, v * u.km / u.s, length_km * u.km,
+                               None if daughter_km is None else daughter_km * u.km)
     if beam_pix is not None:
         img = _convolved(img, beam_kernel(*beam_pix))
     weights = [aperture_weights(shape, x, y, r) for r in radii_pix]

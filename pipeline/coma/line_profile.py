@@ -61,7 +61,11 @@ def channel_fractions(velocity: np.ndarray, v_out: float, sigma: float) -> np.nd
     """Fraction of the line flux falling in each channel (centres ``velocity``, equal widths), km/s."""
     velocity = np.asarray(velocity, dtype=float)
     dv = np.abs(np.median(np.diff(velocity)))
-    return interval_probability(velocity - dv / 2, velocity + dv / 2, v_out, sigma)
+    # only channels that can hold flux: |u| <= v + 8 sigma (Phi(-8) ~ 6e-16, the quadrature's own cut) is computed
+    near = np.abs(velocity) <= v_out + 8.0 * sigma + dv
+    out = np.zeros(velocity.shape)
+    out[near] = interval_probability(velocity[near] - dv / 2, velocity[near] + dv / 2, v_out, sigma)
+    return out
 
 
 def window_fraction(half_width: float, v_out: float, sigma: float) -> float:

@@ -190,12 +190,22 @@ class SubCube:
             raise named from exc
 
     def info(self) -> CubeInfo:
-        """The sub-cube described (and checked) as a cube: WCS, units, beam, pixel scale."""
+        """The sub-cube described (and checked) as a cube: WCS, units, beam, pixel scale.
+
+        Made once and kept while the header, the data's shape and the beams stay what they were (extraction and
+        injection ask for it once per placement and line).
+        """
+        key = (self.header.tostring(), None if self.data is None else self.data.shape, id(self.beams), self.name)
+        cached = self.__dict__.get("_info")
+        if cached is not None and cached[0] == key:
+            return cached[1]
         header = self.header.copy()
         header["NAXIS"] = 3
         for i, n in enumerate(self.data.shape[::-1], start=1):
             header[f"NAXIS{i}"] = n
-        return cube_info_from_header(header, self.name, beams=self.beams)
+        info = cube_info_from_header(header, self.name, beams=self.beams)
+        self.__dict__["_info"] = (key, info)
+        return info
 
     def to_fits(self) -> fits.HDUList:
         """The sub-cube file: primary HDU (data, standard and private cards), VELOCITY table when covered."""
