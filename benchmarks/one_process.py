@@ -36,8 +36,9 @@ import subprocess
 import sys
 import tempfile
 import time
+import warnings
 from collections import defaultdict
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
@@ -116,7 +117,8 @@ def small_campaign(n_epochs: int, folder: Path) -> Path:
     from pipeline.offline import future_time_tolerated
     from synthetic_cubes import write_scenario
 
-    with future_time_tolerated():           # the invented epochs lie beyond the bundled leap-second tables
+    with future_time_tolerated(), warnings.catch_warnings():  # the invented epochs lie beyond the leap-second table
+        warnings.filterwarnings("ignore", message=".*dubious year")
         return write_scenario(scenario_of(n_epochs), folder, results=str(folder / "results"), progress=lambda _: None)
 
 
@@ -286,17 +288,19 @@ def run_jobs(jobs_file: Path, workdir: Path, out: Path) -> int:
 # The workflow run and its accounting
 
 
-def benchmark_cpu(outdir: Path) -> dict[str, list[float]]:
-    """Per rule, the ``cpu_time`` of each job's Snakemake benchmark file below ``outdir/benchmarks``."""
+def benchmark_cpu(outdir: Path, rule_of: dict[str, str]) -> dict[str, list[float]]:
+    """Per rule, the ``cpu_time`` of each job's Snakemake benchmark file below ``outdir/benchmarks``; ``rule_of``
+    gives a file's rule from its path below ``outdir`` (else its first folder or its stem is taken as the rule)."""
     import csv
 
     per_rule: dict[str, list[float]] = defaultdict(list)
     for path in sorted((outdir / "benchmarks").rglob("*.tsv")):
-        rel = path.relative_to(outdir / "benchmarks")
+        rel = path.relative_to(outdir)
         with path.open(encoding="utf-8") as fh:
             rec = list(csv.DictReader(fh, delimiter="\t"))[-1]
         value = rec.get("cpu_time", "NA")
-        per_rule[rel.parts[0].removesuffix(".tsv")].append(float(value) if value not in ("NA", "") else 0.0)
+        rule = rule_of.get(str(rel), rel.parts[1].removesuffix(".tsv"))
+        per_rule[rule].append(float(value) if value not in ("NA", "") else 0.0)
     return dict(per_rule)
 
 
@@ -350,8 +354,12 @@ def compare_tables(a: Path, b: Path, names=MAIN_TABLES) -> list[str]:
     from astropy.table import Table
 
     def cells(column, folder: Path):
-        data = np.ma.getdata(column)
-        mask = np.ma.getmaskarray(column)
+        if hasattr(column, "jd1"):                       # a Time column: its two-part Julian dates, exactly
+            data = np.stack([np.asarray(column.jd1), np.asarray(column.jd2)], axis=-1)
+            mask = np.broadcast_to(np.asarray(getattr(column, "mask", False))[..., None], data.shape)
+            return data, mask
+        values = getattr(column, "value", column)          # a Quantity column: its numbers (units compared apart)
+        data, mask = np.ma.getdata(values), np.ma.getmaskarray(values)
         if data.dtype.kind in "US":
             data = np.array([str(v).replace(str(folder), "<outdir>") for v in data.ravel()]).reshape(data.shape)
         elif data.dtype.kind == "O":
@@ -364,7 +372,9 @@ def compare_tables(a: Path, b: Path, names=MAIN_TABLES) -> list[str]:
         if not (pa.is_file() and pb.is_file()):
             diffs.append(f"{name}: missing in {'one-process' if not pa.is_file() else 'workflow'} output")
             continue
-        ta, tb = Table.read(pa, format="ascii.ecsv"), Table.read(pb, format="ascii.ecsv")
+        with warnings.catch_warnings():                 # invented epochs beyond the leap-second table
+            warnings.filterwarnings("ignore", message=".*dubious year")
+            ta, tb = Table.read(pa, format="ascii.ecsv"), Table.read(pb, format="ascii.ecsv")
         if ta.colnames != tb.colnames:
             diffs.append(f"{name}: columns differ: {sorted(set(ta.colnames) ^ set(tb.colnames))}")
         if len(ta) != len(tb):
@@ -471,9 +481,13 @@ def measure_floor(config: str | Path, root: str | Path, directory: str | Path | 
         raise RuntimeError(f"the workflow run failed (exit status {code}):\n{tail}")
     script_rules = {Path(j["script"]).name: j["rule"] for j in graph["jobs"] if j["script"] is not None}
     result.workflow_cpu, result.workflow_wall = cpu, wall
-    result.tsv_per_rule = benchmark_cpu(wf_dir / "results")
+    one_results = one_dir / "results"
+    rule_of = {str(Path(j["benchmark"]).relative_to(one_results)): j["rule"] for j in graph["jobs"]
+               if j["benchmark"] is not None and Path(j["benchmark"]).is_relative_to(one_results)}
+    result.tsv_per_rule = benchmark_cpu(wf_dir / "results", rule_of)
     result.process_per_rule = process_cpu(root / "cpu_log", script_rules)
     result.differences = compare_tables(one_dir / "results", wf_dir / "results")
+    (root / "result.json").write_text(json.dumps(asdict(result), indent=1), encoding="utf-8")
     return result
 
 
@@ -508,20 +522,21 @@ def print_floor(r: FloorResult, out=None) -> None:
     say(f"    inside the jobs (per-job fixed cost):                             {share(tsv_jobs - r.one_cpu)}  "
         f"= {(tsv_jobs - r.one_cpu) / n_jobs:.2f} s per job")
     if r.process_per_rule:
-        rest = r.workflow_cpu - proc_jobs - sum(own.values())
-        say("  from every process's own rusage at its exit:")
+        jobs_all = r.workflow_cpu - sum(own.values())
+        say("  from every Python process's own rusage, recorded at its exit:")
         say(f"    Snakemake's own process:                                          "
             f"{share(own.get('(snakemake)', 0.0))}")
-        say(f"    the runner (gasledger run) and other Python processes:            "
+        say(f"    the runner (gasledger run) and any other Python process:          "
             f"{share(own.get('(runner)', 0.0) + own.get('(other)', 0.0))}")
-        say(f"    shells and other non-Python children:                             {share(rest)}")
-        say(f"    inside the jobs (per-job fixed cost):                             {share(proc_jobs - r.one_cpu)}  "
-            f"= {(proc_jobs - r.one_cpu) / n_jobs:.2f} s per job")
+        say(f"    inside the jobs (per-job fixed cost):                             {share(jobs_all - r.one_cpu)}  "
+            f"= {(jobs_all - r.one_cpu) / n_jobs:.2f} s per job")
+        say(f"      of which after the jobs' exit hook (interpreter teardown, shells): "
+            f"{jobs_all - proc_jobs:.1f} s = {(jobs_all - proc_jobs) / n_jobs:.2f} s per job")
 
     say()
     head = f"{'rule':16s} {'jobs':>5s} {'one-process s':>13s} {'workflow s (tsv)':>16s}"
     if r.process_per_rule:
-        head += f" {'workflow s (rusage)':>19s} {'extra per job s':>15s}"
+        head += f" {'workflow s (rusage at exit)':>27s} {'extra per job s':>15s}"
     say(head)
     rules = sorted(set(r.one_per_rule) | set(r.tsv_per_rule), key=lambda k: -sum(r.one_per_rule.get(k, [0.0])))
     for rule in rules:
@@ -530,14 +545,14 @@ def print_floor(r: FloorResult, out=None) -> None:
         if r.process_per_rule:
             proc = r.process_per_rule.get(rule, [])
             extra = (sum(proc) - sum(one)) / len(one) if one else float("nan")
-            line += f" {sum(proc):19.1f} {extra:15.2f}"
+            line += f" {sum(proc):27.1f} {extra:15.2f}"
         say(line)
     total = f"{'total':16s} {r.jobs:5d} {sum(sum(v) for v in r.one_per_rule.values()):13.1f} {tsv_jobs:16.1f}"
     if r.process_per_rule:
-        total += f" {proc_jobs:19.1f} {(proc_jobs - r.one_cpu) / r.jobs:15.2f}"
+        total += f" {proc_jobs:27.1f} {(proc_jobs - r.one_cpu) / r.jobs:15.2f}"
     say(total)
     for name in sorted(own):
-        say(f"{name:16s} {len(r.process_per_rule[name]):5d} {'':13s} {'':16s} {own[name]:19.1f}")
+        say(f"{name:16s} {len(r.process_per_rule[name]):5d} {'':13s} {'':16s} {own[name]:27.1f}")
 
     say()
     if r.differences:
