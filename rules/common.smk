@@ -34,6 +34,7 @@ CODE_VERSION = code_version()
 
 wildcard_constraints:
     cube="[A-Za-z0-9][A-Za-z0-9_.-]*",
+    epoch="[A-Za-z0-9][A-Za-z0-9_.-]*",
     line="[A-Za-z0-9][A-Za-z0-9_.+-]*",
     species="[A-Za-z0-9][A-Za-z0-9_+-]*",
 
@@ -78,13 +79,19 @@ def campaign_geometry_inputs():
     return [p for p in (SETTINGS.target.ephemeris, SETTINGS.observatory.states) if p is not None]
 
 
+def cubes_of(wildcards):
+    """The cubes a job reads from: all, or those of its ``epoch`` wildcard when the rule has one."""
+    epoch = getattr(wildcards, "epoch", None)
+    return [cid for cid in CUBES if epoch is None or CUBES[cid].epoch == epoch]
+
+
 def per_line_files(folder):
-    """Input function: every (cube, line) file of one species below OUT/folder."""
+    """Input function: every (cube, line) file of one species below OUT/folder (of the job's epoch, if any)."""
 
     def files(wildcards):
         return [
             f"{OUT}/{folder}/{cid}/{line}.fits"
-            for cid in CUBES
+            for cid in cubes_of(wildcards)
             for line in LINES[cid]
             if CATALOGUE.get_line(line).species == wildcards.species
         ]
@@ -93,19 +100,21 @@ def per_line_files(folder):
 
 
 def band_files_of_species(wildcards):
-    """Input function: the bands file of every infrared cube that covers a band of one species."""
+    """Input function: the bands file of every infrared cube that covers a band of one species (of the job's
+    epoch, if any)."""
     return [
         f"{OUT}/bands/{cid}.fits"
-        for cid in CUBES
+        for cid in cubes_of(wildcards)
         if any(CATALOGUE.get_band(b).species == wildcards.species for b in BANDS[cid])
     ]
 
 
 def ir_cubes_of_species(wildcards):
-    """Input function: the infrared cube files that cover a band of one species (the band injections read them)."""
+    """Input function: the infrared cube files that cover a band of one species (the band injections read them;
+    of the job's epoch, if any)."""
     return [
         CUBES[cid].path
-        for cid in CUBES
+        for cid in cubes_of(wildcards)
         if any(CATALOGUE.get_band(b).species == wildcards.species for b in BANDS[cid])
     ]
 
@@ -117,6 +126,22 @@ def bands_files():
 
 spectra_of_species = per_line_files("spectra")
 subcubes_of_species = per_line_files("comoving")
+
+
+def _covers(cid, species):
+    """Whether cube ``cid`` covers a line or a band of ``species``."""
+    return (any(CATALOGUE.get_line(line).species == species for line in LINES[cid])
+            or any(CATALOGUE.get_band(b).species == species for b in BANDS[cid]))
+
+
+def epochs_of_species(species):
+    """The epochs with a cube that covers a line or band of ``species``, in the campaign's order."""
+    return list(dict.fromkeys(CUBES[cid].epoch for cid in CUBES if _covers(cid, species)))
+
+
+def injection_epoch_files(wildcards):
+    """Input function: the per-epoch injection measurements of one species (epochs that cover it)."""
+    return [f"{OUT}/injection_epoch/{wildcards.species}/{e}.ecsv" for e in epochs_of_species(wildcards.species)]
 
 
 def geometry_files():

@@ -1,23 +1,43 @@
-rule injection:
-    """Model comae at the limit and at the rate the push needs, injected into the real sub-cubes and measured."""
+rule injection_epoch:
+    """One epoch's injection placements of one species measured: the data there and the model coma per unit Q."""
     input:
         subcubes=subcubes_of_species,
         bands=band_files_of_species,
         cubes=ir_cubes_of_species,
+        catalogue=catalogue_files(),
+    output:
+        f"{OUT}/injection_epoch/{{species}}/{{epoch}}.ecsv",
+    params:
+        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality"),
+        code=CODE_VERSION,
+    log:
+        f"{OUT}/logs/injection_epoch/{{species}}/{{epoch}}.log",
+    benchmark:
+        f"{OUT}/benchmarks/injection_epoch/{{species}}/{{epoch}}.tsv"
+    resources:
+        mem_mb=2000,
+        runtime=30,
+    script:
+        "scripts/injection_epoch.py"
+
+
+rule injection:
+    """Model comae at the limit and at the rate the push needs, recovered from every epoch's measurements."""
+    input:
+        epochs=injection_epoch_files,
         limits=f"{OUT}/limits.ecsv",
         budget=f"{OUT}/budget.ecsv",
-        catalogue=catalogue_files(),
     output:
         f"{OUT}/injection/{{species}}.ecsv",
     params:
-        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality"),
+        settings=settings_of("excitation"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/injection/{{species}}.log",
     benchmark:
         f"{OUT}/benchmarks/injection/{{species}}.tsv"
     resources:
-        mem_mb=2000,
-        runtime=30,
+        mem_mb=1000,
+        runtime=10,
     script:
         "scripts/injection.py"

@@ -177,6 +177,8 @@ COLUMNS: dict[str, tuple[str | None, str]] = {
     "velocity_slot": ("", "index of the velocity the coma was injected at, clear of every catalogue line"),
     "q_recovered": (_PER_S, "production rate measured from the injected coma"),
     "n_spectra": ("", "number of spectra or band measurements combined"),
+    "q_data": (_PER_S, "the data measured at the injection placement, in Q units (noise: no line is there)"),
+    "q_per_q": ("", "the model coma measured alone at the placement, per unit injected production rate"),
     # forecast
     "time": (None, "planned time (UTC, config planned[].time)"),
     "q_upper_forecast": (_PER_S, "upper limit expected for a measured Q of 0"),
@@ -218,6 +220,11 @@ TABLE_COLUMNS: dict[str, dict[str, tuple[str | None, str]]] = {
         "q_err": (_PER_S, "1-sigma error of q_recovered"),
         "snr": ("", "q_recovered over its 1-sigma error"),
     },
+    "injection_epoch": {
+        "t_kin_K": ("K", "temperature the model coma is made and measured at"),
+        "q_err": (_PER_S, "1-sigma noise of the data at the placement, in Q units"),
+        "line_id": (None, "the line or band injected"),
+    },
     "forecast": {
         "epoch": (None, "planned epoch (config planned[].label)"),
         "sigma_q": (_PER_S, "forecast 1-sigma error of Q for the planned noise (the measurement code on "
@@ -234,17 +241,20 @@ TABLE_COLUMNS: dict[str, dict[str, tuple[str | None, str]]] = {
 
 #: The table kinds, named after their files (results/<kind>.ecsv, or results/<kind>/<name>.ecsv).
 TABLE_KINDS = ("geometry", "limits", "activity", "temperature", "budget", "exclusion", "zeta", "water_inferred",
-               "dust", "afrho", "injection", "forecast")
+               "dust", "afrho", "injection", "injection_epoch", "forecast")
 
 
 def table_kind(path: str | Path) -> str | None:
-    """The kind of output table a path holds: its file name (``limits.ecsv``) or its folder's (``limits/CO.ecsv``).
+    """The kind of output table a path holds: its file name (``limits.ecsv``), its folder's (``limits/CO.ecsv``)
+    or its folder's folder's (``injection_epoch/CO/e1.ecsv``).
 
     >>> table_kind("results/demo/limits/CO.ecsv"), table_kind("out/budget.ecsv"), table_kind("x/y.ecsv")
     ('limits', 'budget', None)
+    >>> table_kind("out/injection_epoch/CO/e1.ecsv")
+    'injection_epoch'
     """
     path = Path(path)
-    for name in (path.stem, path.parent.name):
+    for name in (path.stem, path.parent.name, path.parent.parent.name):
         if name in TABLE_KINDS:
             return name
     return None

@@ -8,6 +8,14 @@ exactly as the real line is (same apertures, window, baseline and empirical
 noise), and the recovered Q and its significance are reported. The spread
 over placements shows how much the answer depends on where the noise happens
 to be.
+
+The measurement is linear in the data, so the recovered rate of an injection
+of rate q is a + q b: a the data measured at the placement (noise; no line is
+there), b the measurement of the model coma (with minus without it, so the
+data's blank voxels act on it as on the data) per unit rate. :func:`unit_injections` measures a, b and the data's
+noise once per placement and temperature, so that any rate (the limit or the
+rate the push needs, known only once every epoch is combined) costs nothing
+more.
 """
 
 from __future__ import annotations
@@ -24,7 +32,8 @@ from pipeline.io.products import LineSpectra, SubCube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from pipeline.coma.response import ComaModel
 
-__all__ = ["Placement", "placements", "inject_spectra", "placement_kind", "PLACEMENT_KINDS"]
+__all__ = ["Placement", "placements", "inject_spectra", "placement_kind", "PLACEMENT_KINDS", "Q_UNIT",
+           "UnitInjection", "unit_injections"]
 
 #: What each kind of placement is (index 0 is the nucleus, 1.. the ring), for tables and the report.
 PLACEMENT_KINDS = {"nucleus": "on the nucleus", "ring": "on a ring of sky positions around the nucleus"}
@@ -112,4 +121,68 @@ def inject_spectra(sub: SubCube, settings: ExtractionSettings, line: Line, speci
         spectra = extract_spectra(sub, settings, data=real + cube, centre=(p.x, p.y), v_centre=p.v_centre,
                                   offsource=False)
         out.append(spectra.injected(q, p.index))
+    return out
+
+
+#: The production rate [1/s] of the model injected to measure b (any rate: the measurement is linear).
+Q_UNIT = 1e27
+
+
+@dataclass(frozen=True)
+class UnitInjection:
+    """One placement in one line's sub-cube, measured in Q units at each temperature of the sweep.
+
+    Arrays (n_T, n_ap): ``q_data`` the data measured at the placement (no injection), ``q_per_q`` the measurement
+    of the model coma alone (made at that row's temperature) per unit injected rate, ``sigma_q`` the data's
+    noise there. The recovered rate of an injection of rate q at temperature index i is
+    ``q_data[i] + q * q_per_q[i]``, with error ``sigma_q[i]``.
+    """
+
+    placement: Placement
+    velocity_slot: int
+    q_data: np.ndarray
+    q_per_q: np.ndarray
+    sigma_q: np.ndarray
+    radius_km: np.ndarray
+    apertures: tuple[str, ...]
+
+
+def unit_injections(sub: SubCube, settings: ExtractionSettings, line: Line, species: Species, t_kin: u.Quantity,
+                    model: ComaModel, where: list[Placement], to_q_units, parent: Species | None = None
+                    ) -> list[UnitInjection]:
+    """Every placement of one line's sub-cube measured once: the data, and the model at each temperature.
+
+    ``to_q_units`` turns a :class:`LineSpectra` into a stack input in Q units at the sweep ``t_kin``
+    (:func:`pipeline.rates.q_units.stack_input` with the stage's settings). The model is the coma of rate
+    :data:`Q_UNIT` (as :func:`inject_spectra` makes it); its part is the measurement with it minus the
+    measurement without it (the data's noise checks need the data; the difference is the model's measurement,
+    blank voxels and all).
+    """
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    info = sub.info()
+    vel = sub.velocity
+    pix = info.pixel_scale.to_value(u.arcsec)
+    beam = (info.beam_major.to_value(u.arcsec), info.beam_minor.to_value(u.arcsec), info.beam_pa.to_value(u.deg))
+    per_pixel = (info.pixel_solid_angle() / info.beam_solid_angle()).decompose().value
+    to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(),
+                                               info.channel_beam_solid_angles(), info.frequencies)
+    real = np.asarray(sub.data, dtype=np.float64)
+    slots = sorted({p.v_centre for p in where})
+    out = []
+    for p in where:
+        data_inp, _ = to_q_units(extract_spectra(sub, settings, data=real, centre=(p.x, p.y), v_centre=p.v_centre,
+                                                 offsource=False))
+        per_q = np.full_like(data_inp.q, np.nan)
+        for i, t in enumerate(t_kin):
+            line_map = model_line_map(info.shape[1:], p.x, p.y, pix, line, species, t, sub.meta.r_h,
+                                      sub.meta.delta, beam, model, parent)
+            cube = line_cube_from_map(Q_UNIT * line_map, vel, species, t, sub.meta.r_h, model, v_centre=p.v_centre,
+                                      spectral_response=sub.meta.spectral_response)
+            cube = cube * to_cube_unit[:, None, None]
+            with_model, _ = to_q_units(extract_spectra(sub, settings, data=real + cube, centre=(p.x, p.y),
+                                                       v_centre=p.v_centre, offsource=False))
+            per_q[i] = (with_model.q[i] - data_inp.q[i]) / Q_UNIT
+        out.append(UnitInjection(placement=p, velocity_slot=slots.index(p.v_centre), q_data=data_inp.q,
+                                 q_per_q=per_q, sigma_q=data_inp.sigma_q, radius_km=data_inp.radius_km,
+                                 apertures=data_inp.labels))
     return out

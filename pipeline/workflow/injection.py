@@ -1,4 +1,11 @@
-"""Stage 'injection': would the gas the push needs (or gas at the limit) have been seen? Per species, ECSV."""
+"""Stage 'injection': would the gas the push needs (or gas at the limit) have been seen? Per species, ECSV.
+
+Two steps. :func:`run_epoch` measures, once per epoch and species, every injection placement of the epoch's
+cubes: the data there and the model coma per unit rate, at each temperature of the sweep (the measurement is
+linear: :mod:`pipeline.rates.line_injection`). :func:`run` reads those per-epoch tables and, for the rates known
+only once every epoch is combined (the limit, the rate the push needs), sums data + q x model and combines the
+cubes of each placement: a new epoch costs its own measurements and a combination of tables.
+"""
 
 from __future__ import annotations
 
@@ -6,12 +13,13 @@ import logging
 
 import astropy.units as u
 import numpy as np
-from astropy.table import QTable
+from astropy.table import QTable, vstack
 
 from pipeline.io.atomic import write_table
 from pipeline.rates.band_injection import inject_band, ring_positions
 from pipeline.io.cubes import open_data, read_cube_info
-from pipeline.rates.line_injection import inject_spectra, placement_kind, placements
+from pipeline.errors import CoverageError
+from pipeline.rates.line_injection import Q_UNIT, placement_kind, placements, unit_injections
 from pipeline.rates.stacking import StackInput, shared_apertures
 from pipeline.spectra.apertures import aperture_labels
 from pipeline.rates.statistics import inverse_variance_mean
@@ -25,7 +33,7 @@ from pipeline.settings import Settings
 from pipeline.spectra.line_spectra import extraction_settings
 from pipeline.io.tables import cell_float, read_table
 
-__all__ = ["run", "injection_levels"]
+__all__ = ["run", "run_epoch", "injection_levels", "EPOCH_COLUMNS"]
 
 log = logging.getLogger(__name__)
 
@@ -53,13 +61,22 @@ def injection_levels(species: str, limits: QTable, budget: QTable) -> tuple[list
     return levels, t_kin
 
 
-def band_groups(bands_paths: list[str], species: str, q: float, settings: Settings,
-                n_t: int) -> dict[tuple[int, int], list[StackInput]]:
-    """Band injections of rate ``q`` in every infrared cube of ``species``, grouped by placement (velocity slot 0)."""
+#: The per-epoch table: one row per cube, line or band, placement, temperature and aperture.
+EPOCH_COLUMNS = ("epoch", "cube_id", "line_id", "instrument", "placement", "velocity_slot", "t_kin_K", "aperture",
+                 "aperture_km", "q_data", "q_per_q", "q_err")
+
+
+def _band_rows(bands_paths: list[str], species: str, settings: Settings) -> list[dict]:
+    """Band injections of rate :data:`Q_UNIT` in every infrared cube of ``species``, per unit rate (rows).
+
+    The band measurement is differenced (with minus without the injection), so the data's own part is zero and
+    the result does not depend on the temperature: the same row is written at each temperature of the sweep.
+    """
     catalogue, model, ir = settings.catalogue(), settings.coma, settings.infrared
     sp = catalogue.get_species(species)
     entries = {c.cube_id: c for c in settings.cubes}
-    groups: dict[tuple[int, int], list[StackInput]] = {}
+    t_all = settings.t_kin.to_value(u.K)
+    rows = []
     for path in bands_paths:
         measured = BandMeasurements.from_fits(path)
         bands = measured.bands
@@ -69,6 +86,7 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
         obs = info.wavelengths
         radii_pix = list(np.asarray(measured.apertures["radius_pix"], dtype=float))
         radii_km = np.asarray(measured.apertures["radius_km"], dtype=float)
+        labels = aperture_labels(measured.apertures)
         ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
         windows = band_windows(obs, catalogue, ids, measured.doppler, measured.resolving_power, ir.margin_fwhm)
         with open_data(info.path) as data:               # where the cube holds data in every channel
@@ -77,66 +95,128 @@ def band_groups(bands_paths: list[str], species: str, q: float, settings: Settin
                                footprint=footprint)
         for band_id in ids:
             free, shape = band_setup(band_id, windows, obs, ir.continuum_factor, ir.continuum_shape)
-            results = inject_band(info, catalogue.get_band(band_id), sp, q / u.s, where, radii_pix,
+            results = inject_band(info, catalogue.get_band(band_id), sp, Q_UNIT / u.s, where, radii_pix,
                                   measured.r_h_au * u.au, measured.delta_au * u.au, measured.doppler,
                                   measured.resolving_power, windows[band_id][2:], free, measured.sigma * F_LAMBDA,
                                   model, ir.continuum_order, shape, dq_bad_bits=settings.quality.dq_bad_bits,
                                   max_masked_share=settings.quality.max_masked_share)
             for res in results:
-                groups.setdefault((res.index, 0), []).append(StackInput(
-                    epoch=measured.epoch, cube_id=measured.cube_id, line_id=band_id, velocity=None, density=None,
-                    q=np.tile(res.q_recovered, (n_t, 1)), sigma_q=np.tile(res.q_err, (n_t, 1)), radius_km=radii_km,
-                    apertures=aperture_labels(measured.apertures)))
-    return groups
+                for t in t_all:
+                    for j, label in enumerate(labels):
+                        rows.append({"epoch": measured.epoch, "cube_id": measured.cube_id, "line_id": band_id,
+                                     "instrument": "infrared", "placement": res.index, "velocity_slot": 0,
+                                     "t_kin_K": float(t), "aperture": label, "aperture_km": float(radii_km[j]),
+                                     "q_data": 0.0, "q_per_q": float(res.q_recovered[j]) / Q_UNIT,
+                                     "q_err": float(res.q_err[j])})
+    return rows
 
 
-def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: str, settings: Settings,
-        out_path: str, bands_paths: list[str] | None = None) -> None:
-    """Inject, extract, measure and combine; write the per-placement results.
+def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Settings, out_path: str,
+              bands_paths: list[str] | None = None) -> None:
+    """Measure every injection placement of one epoch's cubes of ``species``; write the per-epoch table.
 
     Millimetre lines are injected into their sub-cubes (``subcube_paths``) at velocities away from the real
     lines; infrared bands into their cubes (via ``bands_paths``) at sky positions, differenced
-    (:mod:`pipeline.rates.band_injection`). Members of one placement index are combined like the real stack.
+    (:mod:`pipeline.rates.band_injection`). Nothing here depends on other epochs or on the rates to inject.
     """
     catalogue = settings.catalogue()
     sp = catalogue.get_species(species)
+    parent = catalogue.get_species(sp.parent) if sp.parent else None
+    model = settings.coma
+    filtering = settings.interferometer
+
+    def to_q_units(spectra):
+        return stack_input(spectra, catalogue, settings.t_kin, model,
+                           filtering.shortest_baseline if filtering else None,
+                           filtering.correct if filtering else True, response_curve=False)
+
+    t_all = settings.t_kin.to_value(u.K)
+    rows = []
+    covered = [sub for sub in map(SubCube.from_fits, subcube_paths) if sub.meta.covered]
+    for sub in covered:
+        if sub.meta.epoch != epoch:
+            msg = (f"{sub.name}: the sub-cube belongs to epoch {sub.meta.epoch!r}, expected {epoch!r} (the "
+                   "injection of one epoch reads that epoch's sub-cubes only)")
+            raise CoverageError(msg)
+        line = catalogue.get_line(sub.meta.line_id)
+        v_out = outflow_speed(model, sub.meta.r_h)
+        radii = settings.apertures_of(settings.with_cube(sub.meta.cube_id).cube)
+        what = extraction_settings(line, catalogue, radii, settings.limits.window_factor * v_out,
+                                   settings.half_width, settings.quality.max_masked_share)
+        for unit in unit_injections(sub, what, line, sp, settings.t_kin, model, placements(sub, what), to_q_units,
+                                    parent):
+            for i, t in enumerate(t_all):
+                for j, label in enumerate(unit.apertures):
+                    rows.append({"epoch": epoch, "cube_id": sub.meta.cube_id, "line_id": line.line_id,
+                                 "instrument": "millimetre", "placement": unit.placement.index,
+                                 "velocity_slot": unit.velocity_slot, "t_kin_K": float(t), "aperture": label,
+                                 "aperture_km": float(unit.radius_km[j]), "q_data": float(unit.q_data[i, j]),
+                                 "q_per_q": float(unit.q_per_q[i, j]), "q_err": float(unit.sigma_q[i, j])})
+    rows.extend(_band_rows(list(bands_paths or []), species, settings))
+    table = QTable(rows=rows, names=EPOCH_COLUMNS) if rows else QTable(
+        names=EPOCH_COLUMNS, dtype=[str, str, str, str, int, int, float, str, float, float, float, float])
+    table["t_kin_K"].unit = u.K
+    table["aperture_km"].unit = u.km
+    for name in ("q_data", "q_err"):
+        table[name].unit = 1 / u.s
+    table.meta["species"] = species
+    table.meta["epoch"] = epoch
+    table.meta["provenance"] = provenance_record(settings, [*subcube_paths, *(bands_paths or [])], "injection")
+    log.info("%s, epoch %s: %d placements measured in %d sub-cubes and %d bands files", species, epoch,
+             len({(r["cube_id"], r["line_id"], r["placement"], r["velocity_slot"]) for r in rows}), len(covered),
+             len(bands_paths or []))
+    write_table(table, out_path)
+
+
+def _placement_inputs(table: QTable, q: float, t_kin: float) -> dict[tuple[str, int, int], list[StackInput]]:
+    """Per (instrument, placement, velocity slot): one input per epoch, cube and line, recovered at rate ``q``
+    (the data's measurement plus ``q`` times the model's), at the sweep temperature ``t_kin`` [K]."""
+    t = np.asarray(u.Quantity(table["t_kin_K"], u.K).value, dtype=float)
+    q_rec = (np.asarray(u.Quantity(table["q_data"], 1 / u.s).value, dtype=float)
+             + q * np.asarray(table["q_per_q"], dtype=float))
+    err = np.asarray(u.Quantity(table["q_err"], 1 / u.s).value, dtype=float)
+    radius = np.asarray(u.Quantity(table["aperture_km"], u.km).value, dtype=float)
+    columns = [np.asarray(table[c]).tolist() for c in ("instrument", "placement", "velocity_slot", "epoch",
+                                                         "cube_id", "line_id")]
+    members: dict[tuple, list[int]] = {}
+    for k in np.flatnonzero(np.isclose(t, t_kin)):
+        key = (str(columns[0][k]), int(columns[1][k]), int(columns[2][k]), str(columns[3][k]), str(columns[4][k]),
+               str(columns[5][k]))
+        members.setdefault(key, []).append(int(k))
+    groups: dict[tuple[str, int, int], list[StackInput]] = {}
+    for (instrument, index, slot, epoch, cube_id, line_id), rows in members.items():
+        groups.setdefault((instrument, index, slot), []).append(StackInput(
+            epoch=epoch, cube_id=cube_id, line_id=line_id, velocity=None, density=None, q=q_rec[rows][None, :],
+            sigma_q=err[rows][None, :], radius_km=radius[rows],
+            apertures=tuple(str(a) for a in table["aperture"][rows])))
+    return groups
+
+
+def run(epoch_paths: list[str], species: str, limits_path: str, budget_path: str, settings: Settings,
+        out_path: str) -> None:
+    """Recover the injections of the limit and of the rate the push needs from the per-epoch tables; combine.
+
+    Members of one placement (instrument, placement index, velocity slot) are combined over the cubes, lines and
+    epochs like the real stack; millimetre lines and infrared bands stay apart.
+    """
     limits = read_table(limits_path)
     budget = read_table(budget_path)
     levels, t_kin = injection_levels(species, limits, budget)
     t_all = settings.t_kin.to_value(u.K)
     it = int(np.argmin(np.abs(t_all - t_kin)))
-    model = settings.coma
-    filtering = settings.interferometer
+    tables = [read_table(p) for p in epoch_paths]
+    for t in tables:
+        t.meta.clear()
+    measured = vstack(tables) if tables else QTable()
     rows = []
     cubes: dict[str, set] = {}
-    covered = [sub for sub in map(SubCube.from_fits, subcube_paths) if sub.meta.covered]
     for level, q in levels:
-        groups: dict[tuple[str, int, int], list] = {}
-        for sub in covered:
-            line = catalogue.get_line(sub.meta.line_id)
-            v_out = outflow_speed(model, sub.meta.r_h)
-            radii = settings.apertures_of(settings.with_cube(sub.meta.cube_id).cube)
-            what = extraction_settings(line, catalogue, radii, settings.limits.window_factor * v_out,
-                                       settings.half_width, settings.quality.max_masked_share)
-            where = placements(sub, what)
-            parent = catalogue.get_species(sp.parent) if sp.parent else None
-            for k, spectra in enumerate(inject_spectra(sub, what, line, sp, q, t_kin * u.K, model, where,
-                                                       parent)):
-                inp, _ = stack_input(spectra, catalogue, settings.t_kin, model,
-                                     filtering.shortest_baseline if filtering else None,
-                                     filtering.correct if filtering else True, response_curve=False)
-                vrank = sorted({p.v_centre for p in where}).index(where[k].v_centre)
-                groups.setdefault(("millimetre", where[k].index, vrank), []).append(inp)
-        # instruments apart: a millimetre line moved in velocity and an infrared band differenced on the sky are
-        # different tests (and their noise differs by orders of magnitude), so their results are not combined
-        for (index, vrank), members in band_groups(list(bands_paths or []), species, q, settings,
-                                                   t_all.size).items():
-            groups.setdefault(("infrared", index, vrank), []).extend(members)
+        groups = _placement_inputs(measured, q, float(t_all[it])) if len(measured) else {}
         for (instrument, index, vrank), members in sorted(groups.items()):
             cubes.setdefault(instrument, set()).update(m.cube_id for m in members)
             members, _ = shared_apertures(members, f"injection of {species}")
-            q_rec, sig = inverse_variance_mean(np.array([m.q[it] for m in members]),          # (n, n_ap)
-                                               np.array([m.sigma_q[it] for m in members]), axis=0)
+            q_rec, sig = inverse_variance_mean(np.array([m.q[0] for m in members]),          # (n, n_ap)
+                                               np.array([m.sigma_q[0] for m in members]), axis=0)
             for j, radius in enumerate(members[0].radius_km):
                 rows.append({"level": level, "q_injected": q, "t_kin_K": float(t_all[it]), "instrument": instrument,
                              "placement_kind": placement_kind(index), "placement": index,
@@ -158,8 +238,10 @@ def run(subcube_paths: list[str], species: str, limits_path: str, budget_path: s
         table["aperture_km"] = table["aperture_km"] * u.km
     table.meta["species"] = species
     table.meta["instrument_cubes"] = {k: sorted(v) for k, v in sorted(cubes.items())}
-    table.meta["provenance"] = provenance_record(settings, [*subcube_paths, *(bands_paths or []), limits_path,
-                                                          budget_path], "injection")
+    table.meta["provenance"] = provenance_record(settings, [*epoch_paths, limits_path, budget_path], "injection")
     table.meta["bands"] = ("infrared bands: injected at the nucleus and on a ring of sky positions; recovered = "
                            "measurement with minus without the injection (the estimator is linear)")
+    table.meta["lines"] = ("millimetre lines: injected at velocities away from every line, on the nucleus and on a "
+                           "ring; recovered = the data measured there plus the rate times the model's measurement "
+                           "(the estimator is linear), with the data's noise")
     write_table(table, out_path)
