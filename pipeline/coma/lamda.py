@@ -265,6 +265,7 @@ class _Records:
         return item
 
     def fail(self, number: int, found: str, what: str):
+        found = " ".join(found.split())
         msg = f"molecular data file {str(self.path)!r}, line {number}: found {found!r}, expected {what}"
         raise CatalogueError(msg)
 
