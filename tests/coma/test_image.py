@@ -57,3 +57,17 @@ def test_channels_far_from_the_line_hold_nothing_and_the_rest_hold_it_all():
     assert np.sum(frac) == pytest.approx(1.0, abs=1e-12)
     assert np.all(frac[np.abs(vel) > 0.8 + 8 * 0.12 + 0.05] == 0.0)
     assert np.all(frac[np.abs(vel) < 0.8] > 0)
+
+
+@pytest.mark.parametrize("shape,beam", [((40, 50), (3.0, 2.0, 30.0)), ((7, 9), (12.0, 5.0, -10.0)),
+                                        ((33, 65), (4.0, 4.0, 0.0))])
+def test_beam_convolution_matches_scipy(shape, beam):
+    # reference library: scipy.signal.fftconvolve(mode='same'), also when the kernel is larger than the image
+    from scipy.signal import fftconvolve
+
+    from pipeline.coma.image import _convolved, beam_kernel
+
+    image = np.random.default_rng(5).random(shape)
+    kernel = beam_kernel(*beam)
+    np.testing.assert_allclose(_convolved(image, kernel), fftconvolve(image, kernel, mode="same"), rtol=0,
+                               atol=1e-14 * image.sum())
