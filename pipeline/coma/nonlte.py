@@ -295,12 +295,14 @@ class _Rates:
         self.ln_r = np.log(r)
         self.t_kin = model.temperature(r)
         q = u.Quantity(r, u.km)
-        self.ln_n_w = np.log(water_density(q, model.q_h2o, model.speed, model.r_h,
-                                           model.h2o_rate_1au).to_value(u.cm**-3))
+        # densities floored at 1e-300 cm^-3 so that water destroyed far out (exp(-r/L) underflows) stays finite in ln n
+        self.ln_n_w = np.log(np.maximum(water_density(q, model.q_h2o, model.speed, model.r_h,
+                                                      model.h2o_rate_1au).to_value(u.cm**-3), 1e-300))
         if self.born is not None:
             t_k = u.Quantity(self.t_kin, u.K)
-            self.ln_n_e = np.log(electron_density(q, model.q_h2o, model.speed, model.r_h, model.h2o_rate_1au, t_k,
-                                                  model.x_ne, model.x_re).to_value(u.cm**-3))
+            self.ln_n_e = np.log(np.maximum(electron_density(q, model.q_h2o, model.speed, model.r_h,
+                                                             model.h2o_rate_1au, t_k, model.x_ne,
+                                                             model.x_re).to_value(u.cm**-3), 1e-300))
             self.t_e = electron_temperature(q, model.q_h2o, t_k, model.x_re).to_value(u.K)
 
     def _water(self, t: u.Quantity) -> np.ndarray:
