@@ -45,6 +45,7 @@ __all__ = [
     "detailed_balance",
     "relative_speed",
     "neutral_rate_coefficients",
+    "NeutralRates",
     "table_rate_coefficients",
     "born_rate_coefficients",
     "BornRates",
@@ -164,24 +165,40 @@ def neutral_rate_coefficients(molecule: MolecularData, t_kin: u.Quantity, sigma:
 
     Upward coefficients follow by detailed balance (:func:`detailed_balance`).
     """
-    if rule not in NEUTRAL_RULES:
-        msg = f"collision rule must be one of {', '.join(NEUTRAL_RULES)}, found {rule!r}"
-        raise ConfigError(msg)
-    if not molecule.mass.to_value(u.u) > 0:
-        msg = (f"molecular data {molecule.source!r} has mass {molecule.mass}; expected a positive molecular mass "
-               "for the collision speed (give linear_rotor a mass)")
-        raise CatalogueError(msg)
-    s = float(checked_array(sigma, u.cm**2, "sigma", scalar=True, error=ConfigError))
-    k = s * relative_speed(t_kin, molecule.mass).to_value(u.cm / u.s)
-    g = molecule.weight
-    n = molecule.n_levels
-    down = np.zeros((n, n))
-    if rule == "dipole":
-        up, lo = molecule.upper, molecule.lower
-        down[up, lo] = k * g[lo] / (g[lo] + g[up])
-    else:
-        down[:] = k * g[None, :] / g.sum()
-    return u.Quantity(detailed_balance(down, molecule, t_kin), u.cm**3 / u.s)
+    return u.Quantity(NeutralRates(molecule, sigma, rule)(_temperature(t_kin)), u.cm**3 / u.s)
+
+
+class NeutralRates:
+    """Water rate coefficients of one molecule, cross-section and rule, evaluated at any temperature.
+
+    The constants of :func:`neutral_rate_coefficients` are computed once; calling the object with a
+    temperature in kelvin (a plain number) returns the (n, n) matrix in cm^3 s^-1 as an array. The
+    relative speed scales as sqrt(T) (:func:`relative_speed` at 1 K times sqrt(T)).
+    """
+
+    def __init__(self, molecule: MolecularData, sigma: u.Quantity = SIGMA_H2O, rule: str = "dipole"):
+        if rule not in NEUTRAL_RULES:
+            msg = f"collision rule must be one of {', '.join(NEUTRAL_RULES)}, found {rule!r}"
+            raise ConfigError(msg)
+        if not molecule.mass.to_value(u.u) > 0:
+            msg = (f"molecular data {molecule.source!r} has mass {molecule.mass}; expected a positive molecular "
+                   "mass for the collision speed (give linear_rotor a mass)")
+            raise CatalogueError(msg)
+        s = float(checked_array(sigma, u.cm**2, "sigma", scalar=True, error=ConfigError))
+        self.k_1k = s * relative_speed(1.0 * u.K, molecule.mass).to_value(u.cm / u.s)
+        g = molecule.weight
+        n = molecule.n_levels
+        self.shape = np.zeros((n, n))
+        if rule == "dipole":
+            up, lo = molecule.upper, molecule.lower
+            self.shape[up, lo] = g[lo] / (g[lo] + g[up])
+        else:
+            self.shape[:] = g[None, :] / g.sum()
+        self.e = molecule.energy.to_value(u.cm**-1) * HC_OVER_K
+        self.g = g
+
+    def __call__(self, t: float) -> np.ndarray:
+        return _balanced(self.k_1k * math.sqrt(t) * self.shape, self.e, self.g, t)
 
 
 def table_rate_coefficients(molecule: MolecularData, table: CollisionTable, t_kin: u.Quantity) -> u.Quantity:
