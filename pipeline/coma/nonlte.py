@@ -61,6 +61,8 @@ __all__ = [
     "rate_matrix",
     "solve_populations",
     "population_profile",
+    "line_lte_ratio",
+    "levels_needed",
 ]
 
 #: Radii on which the coma's densities and temperatures are tabulated for the rate matrix.
@@ -389,8 +391,9 @@ class PopulationProfile:
     def fraction(self, name: int, r: u.Quantity | None = None) -> np.ndarray:
         """x_i on the grid, or at distances ``r`` (interpolated linearly in ln r; held constant outside the grid).
 
-        Inside ``r_min`` the populations are the LTE ones the solution starts from (collisions
-        dominate there); beyond ``r_max`` they are frozen at their last value.
+        Inside ``r_min`` the populations are held at their value at ``r_min`` (LTE, where the
+        time-dependent solution starts; collisions dominate there), beyond ``r_max`` at their last
+        value (frozen, as radiative rates are slow against the remaining flight time).
         """
         x = self.populations[:, self.level(name)]
         if r is None:
@@ -494,3 +497,37 @@ def solve_populations(molecule: MolecularData, model: ExcitationModel) -> Popula
 def population_profile(molecule: MolecularData, model: ExcitationModel) -> PopulationProfile:
     """:func:`solve_populations`, cached on the (hashable) molecule and model."""
     return solve_populations(molecule, model)
+
+
+def line_lte_ratio(molecule: MolecularData, model: ExcitationModel, upper: int, lower: int,
+                   r: u.Quantity) -> np.ndarray:
+    """x_u(r) / x_u,LTE(T_kin(r)) of the line ``upper`` -> ``lower`` at distances ``r``, from the cached solution.
+
+    The factor that turns the LTE emissivity n(r) f_u(T_kin) into the non-LTE one n(r) x_u(r)
+    along a line of sight; levels are named by J (see :class:`PopulationProfile`).
+    """
+    return population_profile(molecule, model).lte_ratio(upper, lower, r)
+
+
+def levels_needed(molecule: MolecularData, t_max: u.Quantity, tail: float = 1e-4) -> int:
+    """The fewest lowest levels that hold all but ``tail`` of the molecules in LTE at ``t_max``.
+
+    Notes
+    -----
+    The smallest n with sum_{i >= n} g_i exp(-E_i / k T) / Q(T) < tail (Boltzmann distribution over
+    the molecule's levels), at least 2. Truncating there changes the LTE fractions of the kept
+    levels by about ``tail`` relative; the model needs the levels collisions and pumping reach, so
+    ``t_max`` should be the highest kinetic temperature of the model.
+    """
+    if not 0 < tail < 1:
+        msg = f"tail must lie between 0 and 1, found {tail!r}"
+        raise ConfigError(msg)
+    x = boltzmann_populations(molecule, t_max)
+    beyond = np.cumsum(x[::-1])[::-1]   # beyond[n] = sum_{i >= n} x_i
+    small = np.flatnonzero(beyond < tail)
+    if len(small) == 0:
+        msg = (f"molecular data {molecule.source!r}: its {molecule.n_levels} levels hold all but "
+               f"{beyond[-1]:.2g} of the molecules at {t_max}, more than tail = {tail:g}; expected more levels "
+               "(a larger j_max)")
+        raise CatalogueError(msg)
+    return max(2, int(small[0]))

@@ -19,6 +19,8 @@ from pipeline.coma.lamda import ROTOR_CONSTANTS, linear_rotor, read_lamda
 from pipeline.coma.nonlte import (
     ExcitationModel,
     band_pump_rate,
+    levels_needed,
+    line_lte_ratio,
     boltzmann_populations,
     population_profile,
     pumping_rates,
@@ -286,3 +288,21 @@ def test_refusals():
     # without pumping the same molecule is solved, its levels named by index
     prof = solve_populations(odd, model(n_r=5))
     assert prof.level(2) == 2
+
+
+def test_line_lte_ratio_is_the_cached_profile_ratio():
+    m = model(n_r=21, pump_rate_1au=3e-4 / u.s)
+    r = [20.0, 2e3, 2e5] * u.km
+    prof = population_profile(HCN, m)
+    expected = prof.fraction(3, r) / boltzmann_populations(HCN, 40 * u.K)[3]
+    assert_allclose(line_lte_ratio(HCN, m, 3, 2, r), expected, rtol=1e-12)
+
+
+def test_levels_needed_leaves_a_small_boltzmann_tail():
+    # closed-form Boltzmann: the population above the kept levels is below the tail, and one level fewer is not
+    big = linear_rotor("CO", 57635.968 * u.MHz, ROTOR_CONSTANTS["CO"].dipole, 40, mass=28.010 * u.u)
+    n = levels_needed(big, 50 * u.K, 1e-4)
+    x = _boltzmann(big, 50.0)
+    assert x[n:].sum() < 1e-4 <= x[n - 1:].sum()
+    with pytest.raises(CatalogueError, match="expected more levels"):
+        levels_needed(CO, 500 * u.K)
