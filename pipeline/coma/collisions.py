@@ -21,6 +21,9 @@ References
    Zakharov, V. et al. 2007, A&A 473, 303 (the cometary electron density scaled by x_ne and
    the electron temperature rising from T_kin at the contact surface to 1e4 K at twice its
    distance; from memory).
+.. [5] Bergman, P. et al. 2022, A&A 660, A118 (time-dependent HCN excitation with this electron
+   model; the caption of its Fig. A.2 states the rise of T_e from 90 K to 1e4 K between R_cs
+   and 2 R_cs; read).
 """
 
 from __future__ import annotations
@@ -323,7 +326,8 @@ def electron_temperature(r: u.Quantity, q_h2o: u.Quantity, t_kin: u.Quantity, x_
     Notes
     -----
     T_e = T_kin for r < R_cs, T_kin + (T_hot - T_kin)(r / R_cs - 1) for R_cs <= r <= 2 R_cs,
-    T_hot (1e4 K) beyond (Biver 1997; Zakharov et al. 2007, A&A 473, 303; from memory), with
+    T_hot (1e4 K) beyond (Biver 1997; Zakharov et al. 2007, A&A 473, 303, from memory; the rise
+    between R_cs and 2 R_cs as stated in Bergman et al. 2022, A&A 660, A118, Fig. A.2), with
     R_cs from :func:`contact_surface`.
     """
     rr = checked_array(r, u.km, "r", error=ConfigError)

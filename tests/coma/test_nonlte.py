@@ -199,6 +199,23 @@ def test_lte_breakdown_moves_outward_with_production_rate():
     assert_allclose(far, far[0], rtol=0.02)
 
 
+def test_time_dependent_effects_grow_as_the_production_rate_falls():
+    # Bergman et al. 2022 (A&A 660, A118, abstract; read): time-dependent effects on the HCN level populations
+    # are "of the order of 5-15 %" at Q(H2O) ~ 2e28 /s and may be stronger at lower Q. Their model differs
+    # (more pumping bands, its own electron profile), so this is an order-of-magnitude check: the largest
+    # departure of J=2 from statistical equilibrium within 1e5 km is between 3 % and 50 % at 2e28 /s
+    # (17 % here, measured; 35 % at 2e27 /s), and larger at 2e27 /s
+    worst = []
+    for q in (2e28, 2e27):
+        kw = dict(q_h2o=q / u.s, t_kin=60 * u.K, speed=0.8 * u.km / u.s, r_h=1.1 * u.au, pump_rate_1au=3e-4 / u.s,
+                  r_max=1e5 * u.km, n_r=101)
+        td = solve_populations(HCN, model(**kw))
+        ss = solve_populations(HCN, model(steady_state=True, **kw))
+        worst.append(np.max(np.abs(td.fraction(2) / ss.fraction(2) - 1)))
+    assert 0.03 < worst[0] < 0.5
+    assert worst[1] > worst[0]
+
+
 def test_rotational_temperature_near_the_nucleus_is_the_kinetic_one():
     # qualitative: T_rot(J=0,1) starts at T_kin and departs from it with distance (Bockelée-Morvan & Crovisier
     # 1985, A&A 151, 90, from memory)
