@@ -38,6 +38,7 @@ from scipy.integrate import solve_ivp
 
 from pipeline.catalogue.entries import Band
 from pipeline.coma.collisions import (
+    NEUTRAL_RULES,
     SIGMA_H2O,
     BornRates,
     NeutralRates,
@@ -138,7 +139,7 @@ class ExcitationModel:
     r_max: u.Quantity = 1e6 * u.km
     n_r: int = 121
     t_kin_profile: Callable[[u.Quantity], u.Quantity] | None = None
-    key: tuple = field(default=(), compare=False, repr=False)
+    key: tuple = field(default=(), init=False, compare=False, repr=False)
 
     def __post_init__(self):
         def one(value, unit, name, sign="positive"):
@@ -159,6 +160,9 @@ class ExcitationModel:
             raise ConfigError(msg)
         if self.n_levels is not None and (int(self.n_levels) != self.n_levels or self.n_levels < 2):
             msg = f"n_levels must be None or an integer >= 2, found {self.n_levels!r}"
+            raise ConfigError(msg)
+        if self.collision_rule not in NEUTRAL_RULES:
+            msg = f"collision_rule must be one of {', '.join(NEUTRAL_RULES)}, found {self.collision_rule!r}"
             raise ConfigError(msg)
         if self.t_kin_profile is not None and not callable(self.t_kin_profile):
             msg = f"t_kin_profile must be None or a callable r -> T, found {self.t_kin_profile!r}"

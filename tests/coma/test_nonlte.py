@@ -296,6 +296,8 @@ def test_refusals():
         model(q_h2o=0 / u.s)
     with pytest.raises(ConfigError, match="n_levels must be None or an integer >= 2"):
         model(n_levels=1)
+    with pytest.raises(ConfigError, match="collision_rule must be one of dipole, uniform"):
+        model(collision_rule="sudden")
     odd = linear_rotor("XY", 50 * u.GHz, 1 * u.D, 4, mass=30 * u.u).truncated(5)
     odd = type(odd)(**{**{f: getattr(odd, f) for f in ("name", "source", "mass", "energy", "weight", "upper",
                                                          "lower", "a_ul", "freq")},
