@@ -509,6 +509,21 @@ def line_lte_ratio(molecule: MolecularData, model: ExcitationModel, upper: int, 
 
     The factor that turns the LTE emissivity n(r) f_u(T_kin) into the non-LTE one n(r) x_u(r)
     along a line of sight; levels are named by J (see :class:`PopulationProfile`).
+
+    Examples
+    --------
+    HCN J=3-2 in a coma of Q(H2O) = 1e27 /s at 1.2 au: thermalised near the nucleus, below LTE
+    far out, where radiative decay and pumping win over collisions:
+
+    >>> import astropy.units as u
+    >>> from pipeline.catalogue.entries import load_catalogue
+    >>> from pipeline.coma.lamda import species_rotor
+    >>> hcn = species_rotor(load_catalogue().get_species("HCN"), j_max=9)
+    >>> model = ExcitationModel(q_h2o=1e27 / u.s, t_kin=40 * u.K, speed=0.6 * u.km / u.s, r_h=1.2 * u.au,
+    ...                         h2o_rate_1au=1.21e-5 / u.s, pump_rate_1au=3e-4 / u.s)
+    >>> ratio = line_lte_ratio(hcn, model, 3, 2, [10, 1e5] * u.km)
+    >>> print(f"{ratio[0]:.3f} {ratio[1]:.2f}")
+    1.000 0.37
     """
     return population_profile(molecule, model).lte_ratio(upper, lower, r)
 
