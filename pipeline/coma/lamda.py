@@ -413,6 +413,12 @@ ROTOR_CONSTANTS = {
     "HCN": RotorConstants(d=87.24 * u.kHz, dipole=2.9852 * u.D,
                           source="D: CDMS entry 027501; dipole: Ebenstein & Muenter 1984, J. Chem. Phys. 80, "
                                  "3989 (both from memory)"),
+    "CS": RotorConstants(d=40.25 * u.kHz, dipole=1.958 * u.D,
+                         source="D: CDMS entry 044501; dipole: Winnewisser & Cook 1968, J. Mol. Spectrosc. 28, 266 "
+                                "(both from memory)"),
+    "HNC": RotorConstants(d=100.7 * u.kHz, dipole=3.05 * u.D,
+                          source="D: CDMS entry 027502; dipole: Blackman et al. 1976, Nature 261, 395 "
+                                 "(both from memory)"),
 }
 
 
