@@ -36,7 +36,7 @@ import astropy.units as u
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from pipeline.catalogue.entries import Band
+from pipeline.catalogue.entries import Band, Species
 from pipeline.coma.collisions import (
     NEUTRAL_RULES,
     SIGMA_H2O,
@@ -48,7 +48,7 @@ from pipeline.coma.collisions import (
     water_density,
 )
 from pipeline.coma.excitation import T_CMB
-from pipeline.coma.lamda import MolecularData
+from pipeline.coma.lamda import MolecularData, species_rotor
 from pipeline.errors import CatalogueError, ConfigError
 from pipeline.quantities import checked_array
 
@@ -64,6 +64,7 @@ __all__ = [
     "population_profile",
     "line_lte_ratio",
     "levels_needed",
+    "molecule_for",
 ]
 
 #: Radii on which the coma's densities and temperatures are tabulated for the rate matrix.
@@ -550,3 +551,15 @@ def levels_needed(molecule: MolecularData, t_max: u.Quantity, tail: float = 1e-4
                "(a larger j_max)")
         raise CatalogueError(msg)
     return max(2, int(small[0]))
+
+
+def molecule_for(species: Species | MolecularData, t_max: u.Quantity, tail: float = 1e-4,
+                 j_cap: int = 60) -> MolecularData:
+    """The levels to model for a catalogue species (a linear rotor) or a molecule's data, cut by :func:`levels_needed`.
+
+    A :class:`~pipeline.catalogue.entries.Species` becomes
+    :func:`~pipeline.coma.lamda.species_rotor` (J up to ``j_cap``); either is then truncated to
+    the fewest levels that leave an LTE tail below ``tail`` at ``t_max``.
+    """
+    mol = species if isinstance(species, MolecularData) else species_rotor(species, j_cap)
+    return mol.truncated(levels_needed(mol, t_max, tail))

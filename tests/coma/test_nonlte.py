@@ -21,6 +21,7 @@ from pipeline.coma.nonlte import (
     band_pump_rate,
     levels_needed,
     line_lte_ratio,
+    molecule_for,
     boltzmann_populations,
     population_profile,
     pumping_rates,
@@ -325,3 +326,15 @@ def test_levels_needed_leaves_a_small_boltzmann_tail():
     assert x[n:].sum() < 1e-4 <= x[n - 1:].sum()
     with pytest.raises(CatalogueError, match="expected more levels"):
         levels_needed(CO, 500 * u.K)
+
+
+def test_molecule_for_a_catalogue_species():
+    cat = load_catalogue()
+    mol = molecule_for(cat.get_species("HCN"), 60 * u.K)
+    # closed-form Boltzmann tail beyond the kept levels below 1e-4 at 60 K, and the kept levels' weights 3(2J+1)
+    full = linear_rotor("HCN", cat.get_species("HCN").rot_b, ROTOR_CONSTANTS["HCN"].dipole, 60,
+                        d=ROTOR_CONSTANTS["HCN"].d, mass=27.026 * u.u, spin_weight=3.0)
+    x = _boltzmann(full, 60.0)
+    assert x[mol.n_levels:].sum() < 1e-4 <= x[mol.n_levels - 1:].sum()
+    assert_allclose(mol.weight, 3 * (2 * np.arange(mol.n_levels) + 1))
+    assert molecule_for(full, 60 * u.K) == mol   # the same levels from molecular data as from the species
