@@ -338,3 +338,30 @@ def test_molecule_for_a_catalogue_species():
     assert x[mol.n_levels:].sum() < 1e-4 <= x[mol.n_levels - 1:].sum()
     assert_allclose(mol.weight, 3 * (2 * np.arange(mol.n_levels) + 1))
     assert molecule_for(full, 60 * u.K) == mol   # the same levels from molecular data as from the species
+
+
+def test_two_level_relaxation_follows_the_closed_form():
+    # two levels, only the CMB: dx1/dt = -(R_10 + R_01) (x1 - x1_eq), R_10 = A (1 + n), R_01 = A (g1/g0) n, so
+    # x1(t) = x1_eq + (x1(0) - x1_eq) exp(-(R_10 + R_01) t), t = (r - r_min) / v (closed form)
+    mol = linear_rotor("XY", 44.0 * u.GHz, 3.0 * u.D, 1, mass=27.0 * u.u)
+    m = model(speed=0.5 * u.km / u.s, include_collisions=False, include_electrons=False, include_pumping=False,
+              r_max=1e6 * u.km, n_r=81)
+    prof = solve_populations(mol, m)
+    a = mol.a_ul[0].to_value(1 / u.s)
+    occ = 1.0 / np.expm1((const.h * mol.freq[0] / (const.k_B * T_CMB)).decompose().value)
+    rate = a * (1 + occ) + a * 3.0 * occ
+    x_eq = a * 3.0 * occ / rate
+    x_0 = _boltzmann(mol, 40.0)[1]
+    t = (prof.r - m.r_min).to_value(u.km) / 0.5
+    expected = x_eq + (x_0 - x_eq) * np.exp(-rate * t)
+    assert_allclose(prof.fraction(1), expected, rtol=2e-6, atol=1e-12)
+
+
+def test_steady_state_is_the_null_vector_of_the_rate_matrix():
+    # an independent linear-algebra route (scipy.linalg.null_space) to M x = 0, sum x = 1, with every process on
+    m = model(q_h2o=3e27 / u.s, pump_rate_1au=3e-4 / u.s, steady_state=True, n_r=9)
+    prof = solve_populations(HCN, m)
+    for k in (0, 4, 8):
+        mat = rate_matrix(HCN, m, prof.r[k]).to_value(1 / u.s)
+        x = linalg.null_space(mat)[:, 0]
+        assert_allclose(prof.populations[k], x / x.sum(), rtol=1e-5, atol=1e-14)
