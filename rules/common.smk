@@ -44,15 +44,20 @@ def canon(value):
     return json.dumps(value, sort_keys=True)
 
 
-def settings_of(*keys, cube=False):
+def settings_of(*keys, cube=False, epoch=False):
     """A rule's ``settings`` param: the config sections ``keys`` it reads (and, with ``cube``, its cube's entry).
 
-    The step parses exactly this into typed settings (pipeline.workflow.common.rule_settings) and cannot read
-    any other section, so what triggers a rerun and what the code reads are one list.
+    With ``epoch``, the ``cubes`` section holds only the entries of the job's epoch, so a per-epoch job is not
+    rerun when a cube of another epoch is added. The step parses exactly this into typed settings
+    (pipeline.workflow.common.rule_settings) and cannot read any other section, so what triggers a rerun and what
+    the code reads are one list.
     """
     sections = sections_record(config, keys)
     if cube:
         return lambda w: canon({"sections": sections, "cube": CUBE_ITEMS[w.cube]})
+    if epoch:
+        return lambda w: canon({"sections": {**sections, "cubes": [CUBE_ITEMS[cid] for cid in CUBES
+                                                                    if CUBES[cid].epoch == w.epoch]}})
     return canon({"sections": sections})
 
 
@@ -137,6 +142,11 @@ def _covers(cid, species):
 def epochs_of_species(species):
     """The epochs with a cube that covers a line or band of ``species``, in the campaign's order."""
     return list(dict.fromkeys(CUBES[cid].epoch for cid in CUBES if _covers(cid, species)))
+
+
+def stack_epoch_files(wildcards):
+    """Input function: the per-epoch stack inputs of one species (epochs that cover it)."""
+    return [f"{OUT}/stack_epoch/{wildcards.species}/{e}.fits" for e in epochs_of_species(wildcards.species)]
 
 
 def injection_epoch_files(wildcards):

@@ -25,9 +25,10 @@ from astropy.wcs import WCS
 from pipeline.errors import GasledgerError
 from pipeline.io import cards
 from pipeline.io.cubes import CubeInfo, cube_info_from_header, linear_axis, read_beam_table
+from pipeline.rates.stacking import StackInput
 
 __all__ = ["ProductMeta", "SubCube", "LineSpectra", "BandMeasurements", "BAND_COLUMN_UNITS", "StackedSpectrum", "SpeciesStack",
-           "STACK_COLUMN_UNITS"]
+           "STACK_COLUMN_UNITS", "EpochInputs"]
 
 _STANDARD = ("RESTFRQ", "BMAJ", "BMIN", "BPA")
 
@@ -582,3 +583,82 @@ class SpeciesStack:
             return cls(species=str(cards.get(hdul[0].header, "species", where=where)),
                        n_inputs=int(cards.get(hdul[0].header, "n_inputs", 0, where)), spectra=spectra,
                        inputs=tables["INPUTS"], summary=tables["SUMMARY"], curves=tables.get("CURVES"))
+
+
+@dataclass
+class EpochInputs:
+    """One species' spectra and band measurements of one epoch in Q units (the stack inputs), with their rows
+    for the stack's INPUTS table and the lines left out: what the stack combines, computed once per epoch.
+
+    The file keeps every array exactly (float64), so a stack made from these files equals one made from the
+    spectra directly.
+    """
+
+    species: str
+    epoch: str
+    inputs: list[StackInput]
+    rows: Table
+    skipped: list[str]
+
+    def to_fits(self) -> fits.HDUList:
+        """Primary (species, epoch), one INPUT table per input (a row per aperture), ROWS and SKIPPED tables."""
+        prim = fits.PrimaryHDU()
+        cards.put(prim.header, "species", self.species)
+        cards.put(prim.header, "epoch", self.epoch)
+        cards.put(prim.header, "n_inputs", len(self.inputs))
+        hdus = [prim]
+        for k, inp in enumerate(self.inputs, start=1):
+            columns = {"aperture": list(inp.labels), "radius_km": np.asarray(inp.radius_km, dtype=float),
+                       "q": np.asarray(inp.q, dtype=float).T, "sigma_q": np.asarray(inp.sigma_q, dtype=float).T}
+            if inp.density is not None:
+                columns["density"] = np.asarray(inp.density, dtype=float).transpose(1, 0, 2)
+                columns["velocity"] = np.tile(np.asarray(inp.velocity, dtype=float), (len(inp.labels), 1))
+            if inp.curve is not None:
+                columns["curve"] = np.asarray(inp.curve, dtype=float).T
+            if inp.distributed_ratio is not None:
+                columns["distributed_ratio"] = np.asarray(inp.distributed_ratio, dtype=float)
+            hdu = fits.table_to_hdu(Table(columns))
+            hdu.name, hdu.ver = "INPUT", k
+            cards.put(hdu.header, "epoch", inp.epoch)
+            cards.put(hdu.header, "cube_id", inp.cube_id)
+            cards.put(hdu.header, "line_id", inp.line_id)
+            if np.isfinite(inp.window):                  # bands have no integration window
+                cards.put(hdu.header, "window", float(inp.window))
+            hdus.append(hdu)
+        rows = fits.table_to_hdu(self.rows if len(self.rows.colnames) else Table(names=["epoch"], dtype=[str]))
+        rows.name = "ROWS"
+        skipped = fits.table_to_hdu(Table({"note": np.array(self.skipped, dtype=str)}))
+        skipped.name = "SKIPPED"
+        return fits.HDUList([*hdus, rows, skipped])
+
+    @classmethod
+    def from_fits(cls, source: str | Path) -> "EpochInputs":
+        """Read a file written by :meth:`to_fits` (the arrays as written, bit for bit)."""
+        where = str(source)
+        with fits.open(source) as hdul:
+            inputs = []
+            for hdu in hdul[1:]:
+                if hdu.name != "INPUT":
+                    continue
+                data, h = hdu.data, hdu.header
+                names = data.columns.names
+                density = (np.array(data["density"], dtype=float).transpose(1, 0, 2) if "density" in names
+                           else None)
+                inputs.append(StackInput(
+                    epoch=str(cards.get(h, "epoch", where=where)), cube_id=str(cards.get(h, "cube_id", where=where)),
+                    line_id=str(cards.get(h, "line_id", where=where)),
+                    velocity=np.array(data["velocity"][0], dtype=float) if "velocity" in names else None,
+                    density=density, q=np.array(data["q"], dtype=float).T,
+                    sigma_q=np.array(data["sigma_q"], dtype=float).T,
+                    radius_km=np.array(data["radius_km"], dtype=float),
+                    apertures=tuple(str(a) for a in data["aperture"]),
+                    curve=np.array(data["curve"], dtype=float).T if "curve" in names else None,
+                    window=float(cards.get(h, "window", float("nan"), where)),
+                    distributed_ratio=(np.array(data["distributed_ratio"], dtype=float)
+                                       if "distributed_ratio" in names else None)))
+            rows = Table.read(hdul["ROWS"], mask_invalid=False)     # NaN stays NaN, as the stack wrote it
+            rows.meta.clear()
+            skipped = [str(n) for n in hdul["SKIPPED"].data["note"]] if len(hdul["SKIPPED"].data) else []
+            return cls(species=str(cards.get(hdul[0].header, "species", where=where)),
+                       epoch=str(cards.get(hdul[0].header, "epoch", where=where)), inputs=inputs, rows=rows,
+                       skipped=skipped)

@@ -24,7 +24,7 @@ from pipeline.rates.stacking import StackInput, shared_apertures
 from pipeline.spectra.apertures import aperture_labels
 from pipeline.rates.statistics import inverse_variance_mean
 from pipeline.spectra.band_windows import band_setup, band_windows
-from pipeline.io.products import BandMeasurements, SubCube
+from pipeline.io.products import BandMeasurements, EpochInputs, SubCube
 from pipeline.io.provenance import provenance_record
 from pipeline.spectra.ir_spectra import F_LAMBDA
 from pipeline.coma.response import outflow_speed
@@ -66,7 +66,8 @@ EPOCH_COLUMNS = ("epoch", "cube_id", "line_id", "instrument", "placement", "velo
                  "aperture_km", "q_data", "q_per_q", "q_err")
 
 
-def _band_rows(bands_paths: list[str], species: str, settings: Settings) -> list[dict]:
+def _band_rows(bands_paths: list[str], species: str, settings: Settings,
+               stacked: set[tuple[str, str]] | None = None) -> list[dict]:
     """Band injections of rate :data:`Q_UNIT` in every infrared cube of ``species``, per unit rate (rows).
 
     The band measurement is differenced (with minus without the injection), so the data's own part is zero and
@@ -87,7 +88,10 @@ def _band_rows(bands_paths: list[str], species: str, settings: Settings) -> list
         radii_pix = list(np.asarray(measured.apertures["radius_pix"], dtype=float))
         radii_km = np.asarray(measured.apertures["radius_km"], dtype=float)
         labels = aperture_labels(measured.apertures)
-        ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])]
+        ids = [str(b) for b in dict.fromkeys(bands["band_id"][(bands["species"] == species) & bands["covered"]])
+               if stacked is None or (measured.cube_id, str(b)) in stacked]
+        if not ids:
+            continue
         windows = band_windows(obs, catalogue, ids, measured.doppler, measured.resolving_power, ir.margin_fwhm)
         with open_data(info.path) as data:               # where the cube holds data in every channel
             footprint = np.all(np.isfinite(data), axis=0)
@@ -112,13 +116,19 @@ def _band_rows(bands_paths: list[str], species: str, settings: Settings) -> list
 
 
 def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Settings, out_path: str,
-              bands_paths: list[str] | None = None) -> None:
+              bands_paths: list[str] | None = None, stack_inputs_path: str | None = None) -> None:
     """Measure every injection placement of one epoch's cubes of ``species``; write the per-epoch table.
 
     Millimetre lines are injected into their sub-cubes (``subcube_paths``) at velocities away from the real
     lines; infrared bands into their cubes (via ``bands_paths``) at sky positions, differenced
-    (:mod:`pipeline.rates.band_injection`). Nothing here depends on other epochs or on the rates to inject.
+    (:mod:`pipeline.rates.band_injection`). With the epoch's stack inputs (``stack_inputs_path``,
+    :func:`pipeline.workflow.stack.run_epoch`), only the lines and bands the stack combines are injected (not a
+    line left out for a window that overlaps another's, or for blank channels). Nothing here depends on other
+    epochs or on the rates to inject.
     """
+    stacked = None
+    if stack_inputs_path is not None:
+        stacked = {(i.cube_id, i.line_id) for i in EpochInputs.from_fits(stack_inputs_path).inputs}
     catalogue = settings.catalogue()
     sp = catalogue.get_species(species)
     parent = catalogue.get_species(sp.parent) if sp.parent else None
@@ -132,7 +142,8 @@ def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Sett
 
     t_all = settings.t_kin.to_value(u.K)
     rows = []
-    covered = [sub for sub in map(SubCube.from_fits, subcube_paths) if sub.meta.covered]
+    covered = [sub for sub in map(SubCube.from_fits, subcube_paths) if sub.meta.covered
+               and (stacked is None or (sub.meta.cube_id, sub.meta.line_id) in stacked)]
     for sub in covered:
         if sub.meta.epoch != epoch:
             msg = (f"{sub.name}: the sub-cube belongs to epoch {sub.meta.epoch!r}, expected {epoch!r} (the "
@@ -152,7 +163,7 @@ def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Sett
                                  "velocity_slot": unit.velocity_slot, "t_kin_K": float(t), "aperture": label,
                                  "aperture_km": float(unit.radius_km[j]), "q_data": float(unit.q_data[i, j]),
                                  "q_per_q": float(unit.q_per_q[i, j]), "q_err": float(unit.sigma_q[i, j])})
-    rows.extend(_band_rows(list(bands_paths or []), species, settings))
+    rows.extend(_band_rows(list(bands_paths or []), species, settings, stacked))
     table = QTable(rows=rows, names=EPOCH_COLUMNS) if rows else QTable(
         names=EPOCH_COLUMNS, dtype=[str, str, str, str, int, int, float, str, float, float, float, float])
     table["t_kin_K"].unit = u.K
@@ -161,7 +172,9 @@ def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Sett
         table[name].unit = 1 / u.s
     table.meta["species"] = species
     table.meta["epoch"] = epoch
-    table.meta["provenance"] = provenance_record(settings, [*subcube_paths, *(bands_paths or [])], "injection")
+    table.meta["provenance"] = provenance_record(settings, [*subcube_paths, *(bands_paths or []),
+                                                          *([stack_inputs_path] if stack_inputs_path else [])],
+                                                 "injection")
     log.info("%s, epoch %s: %d placements measured in %d sub-cubes and %d bands files", species, epoch,
              len({(r["cube_id"], r["line_id"], r["placement"], r["velocity_slot"]) for r in rows}), len(covered),
              len(bands_paths or []))

@@ -7,25 +7,28 @@ import logging
 import astropy.units as u
 import numpy as np
 from astropy.io import fits
-from astropy.table import Table
+from astropy.table import Table, vstack
 
 from pipeline.io.atomic import write_fits
-from pipeline.io.products import BandMeasurements, LineSpectra, SpeciesStack, StackedSpectrum
+from pipeline.errors import CoverageError
+from pipeline.io.products import BandMeasurements, EpochInputs, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
 from pipeline.rates.q_units import band_inputs, stack_input
 from pipeline.rates.stacking import combine, combine_distributed, distinct_windows, shared_apertures, velocity_grid
 from pipeline.settings import Settings
 
-__all__ = ["run", "ALL"]
+__all__ = ["run", "run_epoch", "ALL"]
 
 log = logging.getLogger(__name__)
 ALL = "all"
 
 
-def run(spectra_paths: list[str], species: str, settings: Settings, out_path: str) -> None:
-    """Stack every covered spectrum (and infrared band measurement) of ``species`` and write the stack file.
+def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Settings, out_path: str) -> None:
+    """One epoch's spectra (and infrared band measurements) of ``species`` in Q units: the stack's inputs, kept.
 
-    ``spectra_paths`` holds spectra files of millimetre lines and bands files of infrared cubes.
+    ``spectra_paths`` holds spectra files of millimetre lines and bands files of infrared cubes of one epoch. The
+    conversion (each line's response on its own grid, window capture, blends) is what a stack costs per input;
+    done here once per epoch, adding an epoch later does not redo it.
     """
     catalogue = settings.catalogue()
     catalogue.get_species(species)
@@ -54,13 +57,43 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
             continue
         inputs.append(inp)
         rows.extend(r)
-    inputs, overlapping = distinct_windows(inputs, catalogue)
+    inputs, overlapping = distinct_windows(inputs, catalogue)      # one of overlapping windows per cube
     for note in overlapping:
         log.warning("%s: %s", species, note)
     skipped.extend(overlapping)
-    rows = [r for r in rows if (r["cube_id"], r["line_id"]) in {(i.cube_id, i.line_id) for i in inputs}]
+    kept = {(i.cube_id, i.line_id) for i in inputs}
+    rows = [r for r in rows if (r["cube_id"], r["line_id"]) in kept]
+    for inp in inputs:
+        if inp.epoch != epoch:
+            msg = (f"{inp.cube_id}: its {inp.line_id} measurement belongs to epoch {inp.epoch!r}, expected {epoch!r} "
+                   "(the stack inputs of one epoch read that epoch's spectra only)")
+            raise CoverageError(msg)
+    log.info("%s, epoch %s: %d inputs in Q units, %d left out", species, epoch, len(inputs), len(skipped))
+    product = EpochInputs(species=species, epoch=epoch, inputs=inputs,
+                          rows=Table(rows=rows) if rows else Table(names=["epoch"], dtype=[str]), skipped=skipped)
+    hdul = product.to_fits()
+    add_to_header(hdul[0].header, provenance_record(settings, spectra_paths, "stack"))
+    write_fits(hdul, out_path)
+
+
+def run(epoch_paths: list[str], species: str, settings: Settings, out_path: str) -> None:
+    """Combine the per-epoch inputs of ``species`` (:func:`run_epoch`) per epoch and over all epochs; write the
+    stack file."""
+    catalogue = settings.catalogue()
+    catalogue.get_species(species)
+    inputs, tables, skipped = [], [], []
+    for path in epoch_paths:
+        part = EpochInputs.from_fits(path)
+        inputs.extend(part.inputs)
+        if len(part.rows) and "cube_id" in part.rows.colnames:
+            tables.append(part.rows)
+        skipped.extend(part.skipped)
+    rows = vstack(tables) if tables else Table(names=["epoch"], dtype=[str])
+    if len(rows):
+        kept = {(i.cube_id, i.line_id) for i in inputs}
+        rows = rows[[(str(c), str(k)) in kept for c, k in zip(rows["cube_id"], rows["line_id"])]]
     for r in rows:
-        if r.get("blend_other"):
+        if "blend_other" in rows.colnames and r["blend_other"]:
             log.warning("%s: the window of %s in cube %s also holds %s (other species, not modelled)", species,
                         r["line_id"], r["cube_id"], r["blend_other"])
             break
@@ -99,9 +132,9 @@ def run(spectra_paths: list[str], species: str, settings: Settings, out_path: st
     curves = [{"epoch": i.epoch, "cube_id": i.cube_id, "line_id": i.line_id, "aperture": label,
                "scale": i.curve[:, j]} for i in inputs if i.curve is not None for j, label in enumerate(i.labels)]
     stack = SpeciesStack(species=species, n_inputs=len(inputs), spectra=spectra,
-                         inputs=Table(rows=rows) if rows else Table(names=["epoch"], dtype=[str]),
+                         inputs=rows if len(rows) else Table(names=["epoch"], dtype=[str]),
                          summary=Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]),
                          curves=Table(rows=curves) if curves else None)
     hdul = stack.to_fits()
-    add_to_header(hdul[0].header, provenance_record(settings, spectra_paths, "stack"))
+    add_to_header(hdul[0].header, provenance_record(settings, epoch_paths, "stack"))
     write_fits(hdul, out_path)

@@ -7,5 +7,4 @@ from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
-    stack.run(list(snakemake.input.spectra) + list(snakemake.input.bands), snakemake.wildcards.species, settings,
-              snakemake.output[0])
+    stack.run(list(snakemake.input.epochs), snakemake.wildcards.species, settings, snakemake.output[0])

@@ -183,10 +183,15 @@ def run_workflow(config: dict) -> Path:
             _stage("comoving", sub, comoving.run, str(geo), line, settings.with_cube(cid), str(sub))
             spec = out / "spectra" / cid / f"{line}.fits"
             _stage("extract", spec, extract.run, str(sub), settings.with_cube(cid), str(spec))
-            spectra.setdefault(catalogue.get_line(line).species, []).append(str(spec))
+            spectra.setdefault(catalogue.get_line(line).species, {}).setdefault(c.epoch, []).append(str(spec))
     for species in config["species"]:
+        parts = []
+        for epoch, paths in spectra.get(species, {}).items():
+            part = out / "stack_epoch" / species / f"{epoch}.fits"
+            _stage("stack_epoch", part, stack.run_epoch, paths, species, epoch, settings, str(part))
+            parts.append(str(part))
         stk = out / "stack" / f"{species}.fits"
-        _stage("stack", stk, stack.run, spectra.get(species, []), species, settings, str(stk))
+        _stage("stack", stk, stack.run, parts, species, settings, str(stk))
         lim = out / "limits" / f"{species}.ecsv"
         _stage("limits", lim, limits.run_species, str(stk), settings, str(lim))
     return out
