@@ -11,9 +11,13 @@ and prints, measured in the same run:
   cube images: the sum of their run times); the target is a ratio of at most 2;
 - the append's wall time at size N against that at the first size (the target is at most 1.5: the cost of an
   epoch should not grow with the campaign's history);
-- the dry-run time of the finished campaign (nothing to do), against Snakemake's own start on an empty workflow.
+- the dry-run time of the finished campaign (nothing to do), against Snakemake's own start on an empty workflow;
+- what the append ran, per rule (jobs and summed run time), and how many jobs of the earlier epochs (per cube or
+  per epoch: geometry ... cube_images, stack_epoch, injection_epoch) reran (the target is none);
+- with ``--floor``, the workflow's total CPU against the same jobs run in one process (benchmarks/one_process.py)
+  for the first size's campaign.
 
-    .venv/bin/python benchmarks/campaign.py [--sizes 3 12 36] [--cores 2] [--keep DIR]
+    .venv/bin/python benchmarks/campaign.py [--sizes 3 12 36] [--cores 2] [--keep DIR] [--floor]
 
 Sizes of 12 and 36 epochs take tens of minutes each on a 2-core machine.
 """
@@ -36,6 +40,7 @@ from astropy.time import Time
 
 REPO = Path(__file__).resolve().parents[1]
 PER_CUBE_RULES = ("geometry", "comoving", "extract", "bands", "cube_images")
+PER_EPOCH_RULES = ("stack_epoch", "injection_epoch")
 
 
 def scenario_of(n_epochs: int):
@@ -105,12 +110,17 @@ def measure(n: int, root: Path, cores: int) -> dict[str, float]:
     before = {r[1]: r[2] for r in benchmark_rows(results)}
     t_append = snakemake(work, full_config, cores)
     new_ids = {c["id"] for c in config["cubes"] if c["epoch"] == new_label}
-    own = sum(s for rule, stem, s, _ in benchmark_rows(results)
-              if rule in PER_CUBE_RULES and stem.split("/")[1] in new_ids)
-    rerun_old = [stem for rule, stem, s, _ in benchmark_rows(results)
-                 if rule in PER_CUBE_RULES and stem in before and before[stem] != s]
-    return {"full": t_full, "cpu": cpu_full, "dry": t_dry, "append": t_append, "own": own,
-            "old_per_cube_rerun": float(len(rerun_old))}
+    after = benchmark_rows(results)
+    own = sum(s for rule, stem, s, _ in after if rule in PER_CUBE_RULES and stem.split("/")[1] in new_ids)
+    own_epoch = sum(s for rule, stem, s, _ in after if rule in PER_EPOCH_RULES and stem.split("/")[-1] == new_label)
+    rerun_old = [stem for rule, stem, s, _ in after
+                 if rule in PER_CUBE_RULES + PER_EPOCH_RULES and stem in before and before[stem] != s]
+    ran: dict[str, list[float]] = {}
+    for rule, stem, s, _ in after:
+        if stem not in before or before[stem] != s:
+            ran.setdefault(rule, []).append(s)
+    return {"full": t_full, "cpu": cpu_full, "dry": t_dry, "append": t_append, "own": own, "own_epoch": own_epoch,
+            "old_rerun": float(len(rerun_old)), "ran": ran, "config": config_n}
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -118,22 +128,39 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--sizes", type=int, nargs="+", default=[3, 12, 36])
     parser.add_argument("--cores", type=int, default=2)
     parser.add_argument("--keep", help="keep the campaigns in this folder")
+    parser.add_argument("--floor", action="store_true",
+                        help="also run the first size's campaign in one process (benchmarks/one_process.py)")
     args = parser.parse_args(argv)
     root = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="gasledger_campaign_"))
     root.mkdir(parents=True, exist_ok=True)
     try:
         base_start = empty_snakemake_start(root)
         print(f"Snakemake's own start and dry run of a one-rule workflow: {base_start:.2f} s")
-        print(f"{'epochs':>6} {'full s':>8} {'CPU/wall':>8} {'dry-run s':>9} {'dry/own start':>13} "
-              f"{'append s':>9} {'its own jobs s':>14} {'append/own':>10} {'append/first':>12} {'old cube jobs rerun':>19}")
-        first_append = None
+        header = (f"{'epochs':>6} {'full s':>8} {'CPU/wall':>8} {'dry-run s':>9} {'dry/own start':>13} "
+                  f"{'append s':>9} {'its cube jobs s':>15} {'its epoch jobs s':>16} {'append/own':>10} "
+                  f"{'append/first':>12} {'old jobs rerun':>14}")
+        print(header)
+        first_append, measured = None, []
         for n in args.sizes:
             m = measure(n, root, args.cores)
+            measured.append((n, m))
             first_append = first_append or m["append"]
             print(f"{n:6d} {m['full']:8.1f} {m['cpu'] / m['full']:8.2f} {m['dry']:9.2f} "
-                  f"{m['dry'] / base_start:13.2f} {m['append']:9.1f} {m['own']:14.1f} "
+                  f"{m['dry'] / base_start:13.2f} {m['append']:9.1f} {m['own']:15.1f} {m['own_epoch']:16.1f} "
                   f"{m['append'] / m['own']:10.2f} {m['append'] / first_append:12.2f} "
-                  f"{int(m['old_per_cube_rerun']):19d}", flush=True)
+                  f"{int(m['old_rerun']):14d}", flush=True)
+        print("\nWhat each append ran (jobs, summed run time s, per rule):")
+        for n, m in measured:
+            parts = ", ".join(f"{rule} {len(t)} / {sum(t):.1f}" for rule, t in
+                              sorted(m["ran"].items(), key=lambda kv: -sum(kv[1])))
+            print(f"  {n} epochs: {parts}")
+        if args.floor:
+            sys.path.insert(0, str(REPO / "benchmarks"))
+            from one_process import measure_floor, print_floor
+
+            n, m = measured[0]
+            print(f"\nOne-process floor of the {n}-epoch campaign (the workflow with --cores 1):")
+            print_floor(measure_floor(m["config"], root / "floor", directory=root))
     finally:
         if not args.keep:
             shutil.rmtree(root, ignore_errors=True)
