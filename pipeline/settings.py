@@ -794,10 +794,47 @@ def _limits(config: dict[str, Any]) -> LimitsSettings:
 
 
 def _coma(config: dict[str, Any]):
-    from pipeline.coma.response import ComaModel
+    from pipeline.coma.response import EXCITATION_NOT_GIVEN, ComaModel
 
     coma = config["coma"]
-    return ComaModel(outflow=coma["outflow_km_s"], solar_activity=coma["solar_activity"])
+    exc = config.get("excitation")
+    excitation = (EXCITATION_NOT_GIVEN if exc is None or "model" not in exc
+                  else _nonlte(exc, coma["solar_activity"]))
+    return ComaModel(outflow=coma["outflow_km_s"], solar_activity=coma["solar_activity"], excitation=excitation)
+
+
+def _nonlte(exc: dict[str, Any], solar_activity: str):
+    """The ``excitation`` section's non-LTE settings (None for model lte); water's photodestruction rate and the
+    species' pumping rates from the built-in catalogue (H2O's rate under ``solar_activity``; the sum of each
+    species' band fluorescence rates, unless ``pump_rate_1au_per_s`` gives it)."""
+    from pipeline.coma.departure import NonLteSettings
+    from pipeline.coma.nonlte import band_pump_rate
+
+    if exc["model"] == "lte":
+        return None
+    if "q_h2o_per_s" not in exc:
+        msg = ("config: excitation.model is nonlte but excitation.q_h2o_per_s is missing; expected the water "
+               "production rate [1/s] whose collisions excite the lines (set excitation.q_h2o_per_s, or "
+               "excitation.model: lte)")
+        raise ConfigError(msg)
+    files = []
+    for name, paths in sorted(exc["molecular_data"].items()):
+        paths = (paths,) if isinstance(paths, str) else tuple(paths)
+        for path in paths:
+            if not Path(path).is_file():
+                msg = (f"config: excitation.molecular_data.{name} names the file {path!r}, which does not exist; "
+                       "expected a LAMDA-format molecular data file")
+                raise ConfigError(msg)
+        files.append((str(name), tuple(str(x) for x in paths)))
+    builtin = _load_catalogue(None)
+    pumps = {name: float(band_pump_rate(builtin.bands_of(name)).to_value(1 / u.s)) for name in builtin.species}
+    pumps.update({str(k): float(v) for k, v in exc["pump_rate_1au_per_s"].items()})
+    return NonLteSettings(q_h2o_per_s=float(exc["q_h2o_per_s"]),
+                          h2o_rate_1au_per_s=float(builtin.get_species("H2O").photo_rate(solar_activity)
+                                                   .to_value(1 / u.s)),
+                          x_ne=float(exc["x_ne"]), sigma_cm2=float(exc["collision_cross_section_cm2"]),
+                          steady_state=bool(exc["steady_state"]), molecular_data=tuple(files),
+                          pump_rates_1au_per_s=tuple(sorted((k, v) for k, v in pumps.items() if v > 0)))
 
 
 def _budget(config: dict[str, Any]) -> BudgetSettings:

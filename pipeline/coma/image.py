@@ -17,10 +17,11 @@ import numpy as np
 
 from pipeline.spectra.apertures import aperture_spectra, aperture_weights
 from pipeline.catalogue.entries import Line, Species
+from pipeline.coma.departure import ColumnWeight
 from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.haser import daughter_column_density, parent_column_density
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
-from pipeline.coma.response import SPECTRAL_RESPONSES, ComaModel, outflow_speed, scale_lengths
+from pipeline.coma.response import SPECTRAL_RESPONSES, ComaModel, line_column_weight_of, outflow_speed, scale_lengths
 
 __all__ = ["pixel_column_integral", "coma_molecules_image", "projected_coma_image", "beam_kernel",
            "apply_spectral_response", "model_line_map", "line_cube_from_map", "model_line_cube",
@@ -76,12 +77,15 @@ def pixel_column_integral(x_lo, x_hi, y_lo, y_hi) -> np.ndarray:
 
 
 def coma_molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km: float, speed: u.Quantity,
-                         length: u.Quantity, length_daughter: u.Quantity | None = None, sub: int = 3) -> np.ndarray:
+                         length: u.Quantity, length_daughter: u.Quantity | None = None, sub: int = 3,
+                         weight: ColumnWeight | None = None) -> np.ndarray:
     """Molecules per pixel (line-of-sight column integrated over the pixel) for Q = 1/s.
 
     Haser distribution centred on pixel (x0, y0), 0-based; ``pixel_km`` is the
     pixel side at the target. With ``length_daughter`` the molecules are a
-    daughter produced by a parent of scale length ``length``.
+    daughter produced by a parent of scale length ``length``. With ``weight`` (a line's non-LTE column
+    factor f(rho), :func:`pipeline.coma.departure.line_column_weight`) each sub-pixel's molecules are multiplied
+    by f at its centre's projected distance: the molecules an LTE flux per molecule turns into the non-LTE flux.
 
     The image is read-only and shared: one process asks for the same coma many times (every line of a cube,
     every injection level, the response at each placement), so the last images made are kept
@@ -90,13 +94,29 @@ def coma_molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km:
     daughter = None if length_daughter is None else float(u.Quantity(length_daughter).to_value(u.km))
     return _molecules_image((int(shape[0]), int(shape[1])), float(x0), float(y0), float(pixel_km),
                             float(u.Quantity(speed).to_value(u.km / u.s)), float(u.Quantity(length).to_value(u.km)),
-                            daughter, int(sub))
+                            daughter, int(sub), weight)
 
 
 @functools.lru_cache(maxsize=64)
 def _molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km: float, v: float, length_km: float,
-                     daughter_km: float | None, sub: int) -> np.ndarray:
+                     daughter_km: float | None, sub: int, weight: ColumnWeight | None = None) -> np.ndarray:
     """:func:`coma_molecules_image` with plain values (speed km/s, lengths km), computed once per set of values."""
+    ny, nx = shape
+    if weight is None:       # LTE: the sub-pixels are not kept (as many per-cube jobs ask for one image only)
+        molecules, _ = _sub_pixel_molecules.__wrapped__(shape, x0, y0, pixel_km, v, length_km, daughter_km, sub)
+    else:
+        molecules, rho = _sub_pixel_molecules(shape, x0, y0, pixel_km, v, length_km, daughter_km, sub)
+        molecules = molecules * weight(rho)
+    image = molecules.reshape(ny, sub, nx, sub).sum(axis=(1, 3))
+    image.flags.writeable = False
+    return image
+
+
+@functools.lru_cache(maxsize=2)
+def _sub_pixel_molecules(shape: tuple[int, int], x0: float, y0: float, pixel_km: float, v: float, length_km: float,
+                         daughter_km: float | None, sub: int) -> tuple[np.ndarray, np.ndarray]:
+    """Molecules per sub-pixel (Q = 1/s) and the sub-pixel centres' projected distances [km], read-only (kept: the
+    non-LTE images of every line and temperature weight the same sub-pixels)."""
     ny, nx = shape
     speed = v * u.km / u.s
     xi = (np.arange(nx * sub) + 0.5) / sub - 0.5
@@ -111,9 +131,9 @@ def _molecules_image(shape: tuple[int, int], x0: float, y0: float, pixel_km: flo
               else daughter_column_density(rho * u.km, 1 / u.s, speed, length_km * u.km, daughter_km * u.km))
     factor = (column * 4 * speed * rho * u.km * u.s).decompose().value
     molecules = area_over_rho * factor / (4 * v)
-    image = molecules.reshape(ny, sub, nx, sub).sum(axis=(1, 3))
-    image.flags.writeable = False
-    return image
+    molecules.flags.writeable = False
+    rho.flags.writeable = False
+    return molecules, rho
 
 
 def projected_coma_image(shape: tuple[int, int], x0: float, y0: float,
@@ -166,7 +186,8 @@ def model_line_map(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: f
     v = outflow_speed(model, r_h)
     length, daughter = scale_lengths(species, parent, model, r_h, v)
     pix_km = (pixel_arcsec * u.arcsec).to_value(u.rad) * u.Quantity(delta).to_value(u.km)
-    molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length, daughter)
+    weight = line_column_weight_of(line, species, parent, t_kin, r_h, model)      # None under LTE
+    molecules = coma_molecules_image(shape, x0, y0, pix_km, v, length, daughter, weight=weight)
     flux_img = molecules * flux_per_molecule(line, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
     bmaj, bmin, bpa = beam_arcsec
     sky = _convolved(flux_img, beam_kernel(bmaj / pixel_arcsec, bmin / pixel_arcsec, bpa))
@@ -206,7 +227,8 @@ def model_line_cube(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: 
 
 def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix: list[float], pixel_km: float,
                            beam_pix: tuple[float, float, float] | None, speed: u.Quantity,
-                           length: u.Quantity, length_daughter: u.Quantity | None = None) -> np.ndarray:
+                           length: u.Quantity, length_daughter: u.Quantity | None = None,
+                           weight: ColumnWeight | None = None) -> np.ndarray:
     """Molecules (for Q = 1/s) that each aperture counts on the actual pixel grid of the data.
 
     The model image of :func:`coma_molecules_image` is convolved with the
@@ -214,24 +236,25 @@ def aperture_count_on_grid(shape: tuple[int, int], x: float, y: float, radii_pix
     and summed with the same exact-overlap weights the extraction uses, so
     pixelisation, the beam's ellipticity and the field edge enter the response
     exactly as they enter the data. (The analytic circular-beam count of
-    :func:`pipeline.coma.haser.convolved_aperture_count` is its external check.)
+    :func:`pipeline.coma.haser.convolved_aperture_count` is its external check.) ``weight`` as in
+    :func:`coma_molecules_image` (a line's non-LTE column factor; None: the molecules themselves).
     """
     daughter = None if length_daughter is None else float(u.Quantity(length_daughter).to_value(u.km))
     beam = None if beam_pix is None else tuple(float(b) for b in beam_pix)
     counts = _aperture_counts((int(shape[0]), int(shape[1])), float(x), float(y), tuple(float(r) for r in radii_pix),
                               float(pixel_km), beam, float(u.Quantity(speed).to_value(u.km / u.s)),
-                              float(u.Quantity(length).to_value(u.km)), daughter)
+                              float(u.Quantity(length).to_value(u.km)), daughter, weight)
     return counts.copy()
 
 
 @functools.lru_cache(maxsize=256)
 def _aperture_counts(shape: tuple[int, int], x: float, y: float, radii_pix: tuple[float, ...], pixel_km: float,
                      beam_pix: tuple[float, float, float] | None, v: float, length_km: float,
-                     daughter_km: float | None) -> np.ndarray:
+                     daughter_km: float | None, weight: ColumnWeight | None = None) -> np.ndarray:
     """:func:`aperture_count_on_grid` with plain values, computed once per set of values (the response of every
     line of a cube, and of each injection placement, counts the same coma)."""
     img = coma_molecules_image(shape, x, y, pixel_km, v * u.km / u.s, length_km * u.km,
-                               None if daughter_km is None else daughter_km * u.km)
+                               None if daughter_km is None else daughter_km * u.km, weight=weight)
     if beam_pix is not None:
         img = _convolved(img, beam_kernel(*beam_pix))
     weights = [aperture_weights(shape, x, y, r) for r in radii_pix]

@@ -4,6 +4,11 @@ R(T, ρ) = [∫S dv per molecule](T, Δ) × N_ap(ρ; Q = 1 s⁻¹, v, L, beam), 
 measured integrated flux F in the aperture gives Q = F / R. N_ap counts the
 molecules a circular aperture sees on an image convolved with the beam (Haser
 parent distribution, :func:`pipeline.coma.haser.convolved_aperture_count`).
+
+Under the non-LTE excitation model (``ComaModel.excitation`` a
+:class:`~pipeline.coma.departure.NonLteSettings`) the flux per molecule stays the LTE one at the swept
+T_kin and each molecule is weighted by its line's departure from LTE along the line of sight
+(:mod:`pipeline.coma.departure`): R becomes R_LTE × D(T, ρ), D the weighted over the plain count.
 """
 
 from __future__ import annotations
@@ -15,11 +20,18 @@ import numpy as np
 
 from pipeline.catalogue.entries import Band, Line, Species
 from pipeline.errors import CatalogueError, ConfigError
+from pipeline.coma.departure import ColumnWeight, NonLteSettings, line_column_weight
 from pipeline.coma.excitation import flux_per_molecule
-from pipeline.coma.haser import convolved_aperture_count, outflow_speed_law, scale_length
+from pipeline.coma.haser import (convolved_aperture_count, daughter_column_density, outflow_speed_law,
+                                 parent_column_density, scale_length)
 from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 
-__all__ = ["ComaModel", "outflow_speed", "scale_lengths", "line_response", "window_capture", "SPECTRAL_RESPONSES", "GridGeometry", "line_response_on_grid", "band_response_on_grid"]
+__all__ = ["ComaModel", "EXCITATION_NOT_GIVEN", "nonlte_settings", "line_column_weight_of", "outflow_speed",
+           "scale_lengths", "line_response", "line_departure", "window_capture", "SPECTRAL_RESPONSES", "GridGeometry",
+           "line_response_on_grid", "line_departure_on_grid", "band_response_on_grid"]
+
+#: ``ComaModel.excitation`` of a step that was not given the config's ``excitation`` section (reading it raises).
+EXCITATION_NOT_GIVEN = "not given"
 
 
 @dataclass(frozen=True)
@@ -29,11 +41,40 @@ class ComaModel:
     ``source`` 'nucleus' releases every parent species at the nucleus (Haser parent); 'distributed' releases a
     species that the catalogue gives a distributed source (``Species.distributed_scale``, e.g. H2CO) as a Haser
     daughter of that source (its scale length at 1 au times r_h^2).
+
+    ``excitation`` is how the millimetre lines are excited: None for LTE at the swept kinetic temperature, a
+    :class:`~pipeline.coma.departure.NonLteSettings` for level populations along the outflow
+    (:func:`nonlte_settings` reads it; :data:`EXCITATION_NOT_GIVEN` when the step was not given the section).
     """
 
     outflow: str | float = "law"      # 'law' (0.85 r_h^-0.5 km/s) or a speed in km/s
     solar_activity: str = "quiet"
     source: str = "nucleus"
+    excitation: NonLteSettings | str | None = None
+
+
+def nonlte_settings(model: ComaModel) -> NonLteSettings | None:
+    """The model's non-LTE settings, None under LTE; ConfigError for a step that was not given ``excitation``."""
+    if isinstance(model.excitation, str):
+        msg = ("settings: this step was not given the config key 'excitation' (the coma model's line excitation); "
+               "expected it in the rule's settings params (rules/*.smk, settings_of)")
+        raise ConfigError(msg)
+    return model.excitation
+
+
+def line_column_weight_of(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,
+                          r_h: u.Quantity, model: ComaModel) -> ColumnWeight | None:
+    """The line's non-LTE column factor f(rho) at one kinetic temperature under ``model`` (None under LTE).
+
+    :func:`pipeline.coma.departure.line_column_weight` with the model's outflow speed and scale lengths.
+    """
+    nonlte = nonlte_settings(model)
+    if nonlte is None:
+        return None
+    r_h = u.Quantity(r_h, u.au)
+    v = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v)
+    return line_column_weight(line, species, u.Quantity(t_kin, u.K).reshape(()), r_h, v, length, daughter, nonlte)
 
 
 def outflow_speed(model: ComaModel, r_h: u.Quantity) -> u.Quantity:
@@ -98,8 +139,55 @@ def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quan
     length, daughter = scale_lengths(species, parent, model, r_h, v)
     per_molecule = flux_per_molecule(line, species, t_kin, delta)          # (n_T,)
     count = convolved_aperture_count(radii, u.Quantity(beam_fwhm, u.km), 1.0 / u.s, v, length, daughter)  # (n_r,)
-    return (per_molecule[:, None] * u.Quantity(count, u.dimensionless_unscaled)[None, :] * u.s).to(
+    resp = (per_molecule[:, None] * u.Quantity(count, u.dimensionless_unscaled)[None, :] * u.s).to(
         u.Jy * u.km / u.s * u.s)
+    if nonlte_settings(model) is None:
+        return resp
+    return resp * line_departure(line, species, t_kin, radii, r_h, beam_fwhm, model, parent)
+
+
+#: Nodes per unit ln r of the closed-form departure's integral over the sky.
+_SKY_NODES_PER_E = 200
+
+
+def line_departure(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quantity, r_h: u.Quantity,
+                   beam_fwhm: u.Quantity, model: ComaModel, parent: Species | None = None) -> np.ndarray:
+    """D(T, ρ) of :func:`line_response`: the non-LTE over the LTE count of a circular aperture on a
+    circular-Gaussian-convolved image (ones under LTE), shape (n_T, n_radii).
+
+    Notes
+    -----
+    D = ∫ r N(r) f(r) W(r) dr / ∫ r N(r) W(r) dr over projected distances r, with N the Haser column
+    (:func:`pipeline.coma.haser.parent_column_density`, or the daughter's), f the line's column factor
+    (:func:`line_column_weight_of`) and W(r) = 1 - Q_1(r/σ, ρ/σ) the chance that the beam (σ = FWHM /
+    sqrt(8 ln 2)) moves a molecule at r into the aperture (Marcum Q function, 1 - Q_1(a, b) the
+    non-central chi-square distribution function with 2 degrees of freedom, non-centrality a², at b²:
+    scipy.stats.ncx2; a step at ρ without a beam). Trapezoidal rule in ln r from 1e-7 ρ to ρ + 12σ.
+    """
+    from scipy.stats import ncx2
+
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    radii = np.atleast_1d(u.Quantity(radii, u.km)).to_value(u.km)
+    out = np.ones((t_kin.size, radii.size))
+    if nonlte_settings(model) is None:
+        return out
+    r_h = u.Quantity(r_h, u.au)
+    v = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v)
+    sigma = u.Quantity(beam_fwhm, u.km).to_value(u.km) / np.sqrt(8 * np.log(2))
+    weights = [line_column_weight_of(line, species, parent, t, r_h, model) for t in t_kin]
+    for j, rho in enumerate(radii):
+        hi = rho + 12.0 * sigma
+        n = int(_SKY_NODES_PER_E * np.log(hi / (1e-7 * rho))) + 1
+        r = np.geomspace(1e-7 * rho, hi, n)
+        col = (parent_column_density(r * u.km, 1 / u.s, v, length) if daughter is None
+               else daughter_column_density(r * u.km, 1 / u.s, v, length, daughter)).to_value(u.cm**-2)
+        inside = (ncx2.cdf((rho / sigma) ** 2, 2, (r / sigma) ** 2) if sigma > 0 else (r <= rho).astype(float))
+        base = r * r * col * inside                         # r N W dr = r² N W d(ln r)
+        plain = np.trapezoid(base, np.log(r))
+        for i, weight in enumerate(weights):
+            out[i, j] = np.trapezoid(base * weight(r), np.log(r)) / plain
+    return out
 
 
 @dataclass(frozen=True)
@@ -159,6 +247,8 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
     count = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
                                    length, daughter)
     resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
+    if nonlte_settings(model) is not None:
+        resp = resp * line_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid, model)
     surviving = np.ones(len(grid.radii_pix))
     if shortest_baseline is not None:
         q_min = min_spatial_frequency(shortest_baseline, line.freq)
@@ -167,6 +257,36 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
         if correct_filtering:
             resp = resp * surviving[None, :]
     return resp * (u.Jy * u.km / u.s * u.s), surviving
+
+
+def line_departure_on_grid(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,
+                           r_h: u.Quantity, delta: u.Quantity, grid: GridGeometry, model: ComaModel) -> np.ndarray:
+    """D(T, aperture): the molecules each aperture counts weighted by the line's non-LTE column factor, over the
+    plain count, on the data's own grid (ones under LTE), shape (n_T, n_apertures).
+
+    The weighted count is :func:`pipeline.coma.image.aperture_count_on_grid` with each sub-pixel's molecules
+    multiplied by f(ρ) at its centre (:func:`line_column_weight_of`), beam-convolved and summed with the
+    extraction's weights like the plain count; the LTE flux per molecule times the weighted count is the line's
+    non-LTE flux (the background term of f is taken at the local excitation temperature).
+    """
+    from pipeline.coma.image import aperture_count_on_grid
+
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    out = np.ones((t_kin.size, len(grid.radii_pix)))
+    if nonlte_settings(model) is None:
+        return out
+    r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
+    v_out = outflow_speed(model, r_h)
+    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
+    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
+    plain = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
+                                   length, daughter)
+    for i, t in enumerate(t_kin):
+        weight = line_column_weight_of(line, species, parent, t, r_h, model)
+        weighted = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix,
+                                          v_out, length, daughter, weight=weight)
+        out[i] = np.where(plain > 0, weighted / np.where(plain > 0, plain, 1.0), 1.0)
+    return out
 
 
 def band_response_on_grid(band: Band, species: Species, parent: Species | None, r_h: u.Quantity, delta: u.Quantity,

@@ -31,7 +31,8 @@ import numpy as np
 
 from pipeline.catalogue import Catalogue, Line
 from pipeline.coma.excitation import flux_per_molecule
-from pipeline.coma.response import ComaModel, GridGeometry, line_response_on_grid, outflow_speed, window_capture
+from pipeline.coma.response import (ComaModel, GridGeometry, line_departure_on_grid, line_response_on_grid,
+                                    nonlte_settings, outflow_speed, window_capture)
 from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.rates.stacking import StackInput
 from pipeline.rates.temperature import TEMPERATURE_GRID
@@ -79,7 +80,10 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     t_kin : Quantity [temperature], shape (n_T,)
         The kinetic temperatures of the sweep.
     model : ComaModel
-        Outflow and photodestruction assumptions.
+        Outflow, photodestruction and excitation assumptions. Under non-LTE excitation every line's response (the
+        line's, its blended partners', the response curve's) carries that line's departure from LTE on the grid
+        (:func:`pipeline.coma.response.line_departure_on_grid`; on the curve's temperatures interpolated in log T
+        from the 13 temperatures of the captures).
     shortest_baseline : Quantity [length], optional
         An interferometer's shortest projected baseline: the fraction of the model flux that survives
         spatial filtering is computed per aperture and recorded.
@@ -114,7 +118,16 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     frac = window_capture(species, t_kin, rel, wts, v_out, meta.spectral_response)                # (T,)
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
     # the coma's molecules per unit Q seen in each aperture (times the surviving fraction): resp / flux per molecule
-    count = resp[0] / flux_per_molecule(line, species, t_kin[:1], delta).to_value(u.Jy * u.km / u.s)[0]
+    nonlte = nonlte_settings(model) is not None
+    if nonlte:          # and over the line's departure from LTE, which the response carries
+
+        def departure(member: Line, temperatures: u.Quantity) -> np.ndarray:
+            return line_departure_on_grid(member, species, parent, temperatures, r_h, delta, grid_geometry, model)
+
+        count = resp[0] / (flux_per_molecule(line, species, t_kin[:1], delta).to_value(u.Jy * u.km / u.s)[0]
+                           * departure(line, t_kin[:1])[0])
+    else:
+        count = resp[0] / flux_per_molecule(line, species, t_kin[:1], delta).to_value(u.Jy * u.km / u.s)[0]
     partners, others = blend_partners(line, catalogue, float(spectra.window) * u.km / u.s
                                       + BLEND_REACH_OUTFLOWS * v_out)
     members = [(line, 0.0)] + partners
@@ -124,13 +137,21 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         if member is not line:
             f_p = flux_per_molecule(member, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
             frac_p = window_capture(species, t_kin, rel - v_p, wts, v_out, meta.spectral_response)
-            scale = scale + count[None, :] * (f_p * frac_p)[:, None]
+            if nonlte:
+                scale = scale + count[None, :] * (f_p * frac_p)[:, None] * departure(member, t_kin)
+            else:
+                scale = scale + count[None, :] * (f_p * frac_p)[:, None]
         if curve is None:
             continue
         cap = window_capture(species, _CAPTURE_GRID * u.K, rel - v_p, wts, v_out, meta.spectral_response)
         cap_grid = np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), cap)
         f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)
-        curve += count[None, :] * (f_grid * cap_grid)[:, None]
+        if nonlte:
+            dep = departure(member, _CAPTURE_GRID * u.K)
+            dep_grid = np.stack([np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), d) for d in dep.T], axis=1)
+            curve += count[None, :] * (f_grid * cap_grid)[:, None] * dep_grid
+        else:
+            curve += count[None, :] * (f_grid * cap_grid)[:, None]
     share = 1.0 - resp * frac[:, None] / scale                                                    # (T, ap)
     # a species the catalogue gives a distributed source: the response under that hypothesis over the nucleus one
     # (the coma's count changes, the excitation does not, so the ratio holds at every temperature)
