@@ -7,7 +7,9 @@ The images and their geometry are computed in :mod:`pipeline.spectra.cube_images
 from __future__ import annotations
 
 import base64
+import hashlib
 import html
+import pickle
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -236,14 +238,40 @@ def cube_images_html(entries: list[tuple[str, bytes, str, bytes | None]]) -> str
     return "".join(parts)
 
 
+def _drawn(title: str, panels: list[SpectrumPanel], notes: list[str], cache: Path | None, used: set[Path]) -> bytes:
+    """The PNG of one cube's spectra figure, from ``cache`` when the same figure (same title, panels, notes and
+    code) was drawn before; drawn and kept there otherwise. ``used`` collects the cache files of this report."""
+    if cache is None:
+        return to_png(plot_cube_spectra(title, panels, notes))
+    from pipeline.io.atomic import atomic_path
+    from pipeline.io.provenance import code_version
+
+    key = hashlib.sha256(pickle.dumps((code_version(), matplotlib.__version__, title, panels, notes),
+                                      protocol=5)).hexdigest()
+    path = cache / f"{key}.png"
+    used.add(path)
+    if path.is_file():
+        return path.read_bytes()
+    png = to_png(plot_cube_spectra(title, panels, notes))
+    cache.mkdir(parents=True, exist_ok=True)
+    with atomic_path(path) as tmp:
+        tmp.write_bytes(png)
+    return png
+
+
 def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
-                  limits: QTable) -> str:
+                  limits: QTable, cache: str | Path | None = None) -> str:
     """The report's "Cubes" section: each cube's image (made by its cube_images job, read from ``image_paths``,
     named ``<cube>.png``) and its spectra figure, drawn here because it needs the campaign's limits.
 
     ``settings`` is the run's :class:`pipeline.settings.Settings`; ``spectra_paths`` the extract step's files,
     ``bands_paths`` the bands files (each names its cube); ``limits`` the limits table (its ``adopted`` rows).
+    With ``cache`` (a folder), a cube's spectra figure whose content has not changed since an earlier report (a
+    new epoch leaves the earlier epochs' quoted rows as they were) is read back instead of drawn again; the
+    folder keeps only this report's figures.
     """
+    cache = None if cache is None else Path(cache)
+    used: set[Path] = set()
     catalogue = settings.catalogue()
     images = {Path(p).stem: Path(p).read_bytes() for p in image_paths}
     spectra: dict[str, list[LineSpectra]] = {}
@@ -264,8 +292,11 @@ def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: l
             panels, notes = line_spectrum_panels(spectra.get(cube.cube_id, []), limits, catalogue, settings.coma,
                                                  kelvin, filtering.shortest_baseline if filtering else None,
                                                  filtering.correct if filtering else True)
-        figure = to_png(plot_cube_spectra(title, panels, notes))
+        figure = _drawn(title, panels, notes, cache, used)
         caption = (f"Cube {cube.cube_id} (epoch {cube.epoch}): images of the integration window around the "
                    "target's predicted position.")
         entries.append((cube.cube_id, images[cube.cube_id], caption, figure))
+    if cache is not None and cache.is_dir():
+        for stale in set(cache.glob("*.png")) - used:
+            stale.unlink()
     return cube_images_html(entries)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import html
 import json
+from pathlib import Path
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
@@ -109,7 +110,8 @@ def run(inputs, outputs, settings: Settings) -> None:
                      conservative_section(limits, catalogue, float(settings.limits.nsigma))))
     sections.append(("Infrared bands and dust", infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
     sections.append(("Cubes", cubes_section(settings, list(inputs.cube_images), list(inputs.line_spectra),
-                                            list(inputs.bands), limits)))
+                                            list(inputs.bands), limits,
+                                            cache=Path(outputs.html).parent / ".cache" / "cube_spectra")))
     sections.append(("Injection–recovery", injection_section(
         list(inputs.injection), limits, {str(g["cube_id"]): str(g["observer"]) for g in geometry})))
     sections.append(("All epochs in one test", joint_section(inputs.exclusion, inputs.activity)))

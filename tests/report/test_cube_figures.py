@@ -154,3 +154,23 @@ def test_band_model_is_continuum_plus_q_times_response_times_template():
     # closed form: the band template integrates to one (pipeline.spectra.band_measure.band_template), so the
     # band's integral over wavelength is Q x response when the axis spans the whole band
     assert np.trapezoid(band_part, p.x) == pytest.approx(q * response, rel=1e-3)
+
+
+def test_a_cube_spectra_figure_is_drawn_once_and_read_back(tmp_path, monkeypatch):
+    # the same figure content (title, panels, notes, code) gives the same PNG bytes from the cache without
+    # drawing; other content is drawn; the folder keeps only what the last report used (cubes_section prunes)
+    import pipeline.report.cube_figures as cf
+
+    cache = tmp_path / "cache"
+    used: set = set()
+    first = cf._drawn("c1 · epoch e1", [], ["no line"], cache, used)
+    assert first[:8] == b"\x89PNG\r\n\x1a\n" and len(list(cache.glob("*.png"))) == 1
+
+    def no_drawing(*args):
+        raise AssertionError("drawn again although the figure is in the cache")
+
+    monkeypatch.setattr(cf, "plot_cube_spectra", no_drawing)
+    assert cf._drawn("c1 · epoch e1", [], ["no line"], cache, used) == first
+    with pytest.raises(AssertionError):
+        cf._drawn("c1 · epoch e2", [], ["no line"], cache, used)
+    assert len(used) == 2
