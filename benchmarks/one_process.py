@@ -8,10 +8,14 @@ the runner, Snakemake's own process and every job's interpreter. This prints, me
 
 - jobs run, the one-process loop's CPU and wall (imports happen once, on first use, and count), the workflow's CPU
   and wall, and the ratio workflow CPU / one-process CPU (the target for the demo is at most 1.3);
-- where the gap lies: Snakemake's own process (and the runner) against the jobs' extra cost, both from the jobs'
-  benchmark files (their ``cpu_time``, which Snakemake samples at most once a second and so misses a job's last
-  moments) and from every process's own rusage recorded at its exit (a ``sitecustomize`` hook on PYTHONPATH);
-- a table per rule: jobs, one-process CPU, workflow CPU (benchmark files, and the jobs' own rusage), extra per job;
+- where the gap lies: Snakemake's own process (and the runner) against the jobs' extra cost (the per-job fixed
+  cost: interpreter start, imports, settings and catalogue read again, teardown), both from the jobs' benchmark
+  files (their ``cpu_time``, which Snakemake samples with psutil, once a second at best, so it misses a job's last
+  moments and more on a busy machine) and from every Python process's own rusage recorded at its exit (a
+  ``sitecustomize`` hook put first on the workflow's PYTHONPATH; what a job spends after that hook, its
+  interpreter's teardown, is the workflow's CPU minus everything recorded, and is shown apart);
+- a table per rule: jobs, one-process CPU, workflow CPU (benchmark files, and the jobs' own rusage at exit), extra
+  per job;
 - whether the two runs agree: limits.ecsv and budget.ecsv compared value by value (table metadata ignored, each
   run's output folder written the same in text cells), "identical" or the differences.
 
@@ -22,7 +26,10 @@ The one-process loop runs in a second, fresh child so that no module imported be
     .venv/bin/python benchmarks/one_process.py [--config config/config.yaml] [--directory DIR] [--small N]
         [--skip-workflow] [--keep DIR]
 
-The demo (config/config.yaml, cubes from 'make demo') takes about 2 x 5 minutes on a 2-core machine.
+The demo (config/config.yaml, cubes from 'make demo') takes about 1 + 7 minutes on a 2-core machine. Both runs
+use the code of the tree this file is in (its folder is put first on the children's PYTHONPATH): run a copy of a
+commit (git archive) to measure it while the working tree changes. From another script: ``measure_floor(config,
+folder)`` returns the numbers (``.ratio``), ``print_floor(result)`` prints them.
 """
 
 from __future__ import annotations
@@ -146,7 +153,7 @@ def _params(params) -> dict:
     return out
 
 
-def dump_jobs(config: Path, workdir: Path, out: Path) -> None:
+def dump_jobs(config: Path, workdir: Path, out: Path, cores: int = 1) -> None:
     """Build the job graph of the project's Snakefile for ``config`` (every job, as with --forceall) with Snakemake's
     Python API and write each job, in topological order, as JSON to ``out``.
 
@@ -158,7 +165,7 @@ def dump_jobs(config: Path, workdir: Path, out: Path) -> None:
 
     t0 = time.perf_counter()
     with SnakemakeApi(OutputSettings(quiet={Quietness.ALL})) as api:
-        workflow_api = api.workflow(resource_settings=ResourceSettings(cores=1),
+        workflow_api = api.workflow(resource_settings=ResourceSettings(cores=cores),
                                     config_settings=ConfigSettings(configfiles=[config]),
                                     snakefile=REPO / "Snakefile", workdir=workdir)
         workflow_api.dag(DAGSettings(targets={"all"}, forceall=True))
@@ -324,7 +331,8 @@ def process_cpu(folder: Path, script_rules: dict[str, str]) -> dict[str, list[fl
     return dict(per)
 
 
-def run_workflow(config: Path, workdir: Path, cpu_log: Path, log: Path, cores: int = 1) -> tuple[float, float, int]:
+def run_through_workflow(config: Path, workdir: Path, cpu_log: Path, log: Path,
+                         cores: int = 1) -> tuple[float, float, int]:
     """CPU (children's rusage) and wall of ``gasledger run`` on ``config``, and its exit status."""
     hook = cpu_log.parent / "hook"
     hook.mkdir(parents=True, exist_ok=True)
@@ -416,6 +424,7 @@ class FloorResult:
     one_cpu: float
     one_wall: float
     one_per_rule: dict[str, list[float]]
+    cores: int = 1
     workflow_cpu: float | None = None
     workflow_wall: float | None = None
     tsv_per_rule: dict[str, list[float]] = field(default_factory=dict)
@@ -455,7 +464,8 @@ def measure_floor(config: str | Path, root: str | Path, directory: str | Path | 
     one_config = campaign_copy(config, one_dir / "results", one_dir / "campaign.yaml", directory)
 
     jobs_file, loop_file = root / "jobs.json", root / "one_process.json"
-    _child(["--dump-jobs", str(jobs_file), "--config", str(one_config), "--workdir", str(one_dir)],
+    _child(["--dump-jobs", str(jobs_file), "--config", str(one_config), "--workdir", str(one_dir),
+            "--cores", str(cores)],
            "building the job graph")
     graph = json.loads(jobs_file.read_text(encoding="utf-8"))
     try:
@@ -470,12 +480,12 @@ def measure_floor(config: str | Path, root: str | Path, directory: str | Path | 
     for rec in loop["jobs"]:
         one_per_rule[rec["rule"]].append(rec["cpu"])
     result = FloorResult(jobs=len(loop["jobs"]), graph_cpu=graph["cpu"], graph_wall=graph["seconds"],
-                         one_cpu=loop["cpu"], one_wall=loop["wall"], one_per_rule=dict(one_per_rule))
+                         one_cpu=loop["cpu"], one_wall=loop["wall"], one_per_rule=dict(one_per_rule), cores=cores)
     if skip_workflow:
         return result
 
     wf_config = campaign_copy(config, wf_dir / "results", wf_dir / "campaign.yaml", directory)
-    cpu, wall, code = run_workflow(wf_config, wf_dir, root / "cpu_log", root / "workflow.log", cores)
+    cpu, wall, code = run_through_workflow(wf_config, wf_dir, root / "cpu_log", root / "workflow.log", cores)
     if code != 0:
         tail = "\n".join((root / "workflow.log").read_text().strip().splitlines()[-25:])
         raise RuntimeError(f"the workflow run failed (exit status {code}):\n{tail}")
@@ -503,7 +513,7 @@ def print_floor(r: FloorResult, out=None) -> None:
     say(f"one process:  CPU {r.one_cpu:8.1f} s   wall {r.one_wall:8.1f} s")
     if r.workflow_cpu is None:
         return
-    say(f"workflow:     CPU {r.workflow_cpu:8.1f} s   wall {r.workflow_wall:8.1f} s  (gasledger run --cores 1, "
+    say(f"workflow:     CPU {r.workflow_cpu:8.1f} s   wall {r.workflow_wall:8.1f} s  (gasledger run --cores {r.cores}, "
         f"children's rusage)")
     say(f"ratio workflow CPU / one-process CPU: {r.ratio:.2f}  (target <= 1.3)")
 
@@ -581,7 +591,7 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
 
     if args.dump_jobs:                      # child process 1
-        dump_jobs(Path(args.config), Path(args.workdir), Path(args.dump_jobs))
+        dump_jobs(Path(args.config), Path(args.workdir), Path(args.dump_jobs), args.cores)
         return 0
     if args.run_jobs:                       # child process 2
         return run_jobs(Path(args.run_jobs), Path(args.workdir), Path(args.out))
