@@ -43,14 +43,17 @@ import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
+from typing import TYPE_CHECKING
+
 from pipeline.catalogue.entries import Line, Species
 from pipeline.coma.excitation import T_CMB
 from pipeline.coma.haser import daughter_density, parent_density
-from pipeline.coma.lamda import MolecularData, read_lamda, species_rotor
-from pipeline.coma.nonlte import (ExcitationModel, PopulationProfile, boltzmann_populations, levels_needed,
-                                  population_profile)
 from pipeline.errors import CatalogueError, ConfigError
 from pipeline.quantities import checked_array
+
+if TYPE_CHECKING:   # the population solver (scipy.integrate) loads where used: every job imports the responses
+    from pipeline.coma.lamda import MolecularData
+    from pipeline.coma.nonlte import ExcitationModel, PopulationProfile
 
 __all__ = ["NonLteSettings", "ColumnWeight", "molecule_of", "line_levels", "excitation_model_of",
            "emission_departure", "weighted_column_density", "column_ratio", "line_column_weight"]
@@ -142,6 +145,8 @@ class ColumnWeight:
 
 @lru_cache(maxsize=16)
 def _read(path: str) -> MolecularData:
+    from pipeline.coma.lamda import read_lamda
+
     return read_lamda(path)
 
 
@@ -153,6 +158,9 @@ def molecule_of(species: Species, settings: NonLteSettings, t_kin: u.Quantity,
     (:func:`pipeline.coma.nonlte.levels_needed`), and never below the levels up to energy ``upper_needed`` [K]
     plus two (the line's upper level must be modelled with the levels above it).
     """
+    from pipeline.coma.lamda import species_rotor
+    from pipeline.coma.nonlte import boltzmann_populations, levels_needed
+
     files = dict(settings.molecular_data).get(species.name)
     if files:
         full = [_read(p) for p in files]
@@ -202,6 +210,8 @@ def excitation_model_of(settings: NonLteSettings, species: Species, molecule: Mo
 
     Infrared pumping is modelled (as Sigma-Sigma bands) only for a ladder J = 0, 1, 2, ... with a pumping rate.
     """
+    from pipeline.coma.nonlte import ExcitationModel
+
     ladder = molecule.j is not None and np.array_equal(molecule.j, np.arange(molecule.n_levels))
     pump = settings.pump_rate(species.name) if ladder else 0.0
     return ExcitationModel(q_h2o=settings.q_h2o_per_s / u.s, t_kin=u.Quantity(t_kin, u.K),
@@ -224,6 +234,8 @@ def emission_departure(profile: PopulationProfile, upper: int, lower: int,
     Lightman 1979, eqs. 1.72-1.73; from memory); the LTE value is the same with the Boltzmann
     fractions at T_kin(r) over the same levels.
     """
+    from pipeline.coma.nonlte import boltzmann_populations
+
     mol = profile.molecule
     k = mol.line_index(upper, lower)
     tb = float(checked_array(t_bg, u.K, "t_bg", sign="non-negative", scalar=True, error=ConfigError))
@@ -301,6 +313,8 @@ def line_column_weight(line: Line, species: Species, t_kin: u.Quantity, r_h: u.Q
     Populations from :func:`pipeline.coma.nonlte.population_profile` (cached per molecule and model); the result is
     kept per (line, species, temperature, geometry, settings) in this process.
     """
+    from pipeline.coma.nonlte import population_profile
+
     t = float(checked_array(t_kin, u.K, "t_kin", scalar=True, error=ConfigError))
     rh = float(checked_array(r_h, u.au, "r_h", scalar=True, error=ConfigError))
     v = float(checked_array(speed, u.km / u.s, "speed", scalar=True, error=ConfigError))

@@ -9,6 +9,7 @@ import numpy as np
 from astropy.table import QTable
 from astropy.time import Time
 
+from pipeline.coma.response import nonlte_settings
 from pipeline.io.atomic import write_json, write_table
 from pipeline.io.columns import described
 from pipeline.io.products import SpeciesStack
@@ -166,7 +167,8 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
     if left_out:   # species -> epoch group -> the apertures of which cubes a combination left out
         table.meta["apertures_left_out"] = left_out
     table.meta["assumptions"] = {
-        "excitation": "LTE at T_kin, optically thin, cosmic background 2.725 K",
+        "excitation": ("LTE at T_kin, optically thin, cosmic background 2.725 K" if nonlte_settings(settings.coma)
+                       is None else nonlte_settings(settings.coma).describe() + "; T_kin is the gas kinetic temperature"),
         "coma": "Haser parent distribution, isotropic uniform outflow",
         "outflow_km_s": settings.coma.outflow,
         "photodestruction": f"{settings.coma.solar_activity} Sun, lifetimes scaled as r_h^2",
