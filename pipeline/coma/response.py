@@ -130,6 +130,8 @@ def line_response(line: Line, species: Species, t_kin: u.Quantity, radii: u.Quan
     r_h, delta : Quantity [length], heliocentric and observer distances
     beam_fwhm : Quantity [length], beam FWHM at the target (0 for no beam)
     model : ComaModel
+        Under non-LTE excitation the LTE response is multiplied by the line's departure D(T, ρ)
+        (:func:`line_departure`).
     parent : Species, optional
         The parent's entry, needed when ``species`` is a daughter (Haser parent-daughter model).
     """
@@ -215,7 +217,10 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
     R(T, ρ) = [∫S dv per molecule](T, Δ) × N_ap, with N_ap the molecules (for Q = 1/s) that each aperture
     counts on the model coma image convolved with the beam and summed with the extraction's exact-overlap
     weights (:func:`pipeline.coma.image.aperture_count_on_grid`); :func:`line_response` is its closed form
-    for a circular Gaussian beam on an infinite grid, the check of this one.
+    for a circular Gaussian beam on an infinite grid, the check of this one. Under non-LTE excitation the response
+    is multiplied by the line's departure on the same grid (:func:`line_departure_on_grid`); the surviving
+    fraction of an interferometer's filtering is still that of the plain Haser image (not weighted by the
+    departure: an approximation, its size not measured).
 
     Parameters
     ----------
