@@ -15,6 +15,7 @@ from __future__ import annotations
 import contextlib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import astropy.units as u
 import numpy as np
@@ -25,7 +26,9 @@ from astropy.wcs import WCS
 from pipeline.errors import GasledgerError
 from pipeline.io import cards
 from pipeline.io.cubes import CubeInfo, cube_info_from_header, linear_axis, read_beam_table
-from pipeline.rates.stacking import StackInput
+
+if TYPE_CHECKING:      # the stacking module loads scipy.special: only the stack steps need it
+    from pipeline.rates.stacking import StackInput
 
 __all__ = ["ProductMeta", "SubCube", "LineSpectra", "BandMeasurements", "BAND_COLUMN_UNITS", "StackedSpectrum", "SpeciesStack",
            "STACK_COLUMN_UNITS", "EpochInputs"]
@@ -634,6 +637,8 @@ class EpochInputs:
     @classmethod
     def from_fits(cls, source: str | Path) -> "EpochInputs":
         """Read a file written by :meth:`to_fits` (the arrays as written, bit for bit)."""
+        from pipeline.rates.stacking import StackInput
+
         where = str(source)
         with fits.open(source) as hdul:
             inputs = []
