@@ -251,3 +251,26 @@ def test_a_species_that_is_not_a_linear_rotor_needs_molecular_data():
     with pytest.raises(CatalogueError, match=r"excitation\.molecular_data\.CH3OH"):
         line_response(line, CAT.get_species("CH3OH"), 40 * u.K, 1000 * u.km, 1.2 * u.au, 0.8 * u.au, 0 * u.km,
                       ComaModel(excitation=settings))
+
+
+def test_a_lamda_file_gives_the_response_of_the_rotor_from_the_catalogue_constants():
+    # astroquery's copy of the LAMDA CO file (Schoeier et al. 2005), whose levels and A values agree with the CDMS
+    # entry behind the catalogue (tests/coma/test_lamda.py): the populations, and so the responses, agree with those
+    # of the linear rotor built from the catalogue's constants
+    import dataclasses
+    import importlib.util
+    from pathlib import Path
+
+    spec = importlib.util.find_spec("astroquery")
+    assert spec is not None and spec.origin is not None, "astroquery is a test dependency (pip install -e '.[test]')"
+    co_file = Path(spec.origin).parent / "lamda" / "tests" / "data" / "co.txt"
+    co, co21 = CAT.get_species("CO"), CAT.get_line("CO_230538")
+    rotor = dataclasses.replace(_nonlte(3e26), pump_rates_1au_per_s=(("CO", 2.46e-4),))
+    filed = dataclasses.replace(rotor, molecular_data=(("CO", (str(co_file),)),))
+    assert str(co_file) in molecule_of(co, filed, 40 * u.K)[0].source
+    args = (co21, co, T_SWEEP, [1e3, 1e4] * u.km, 1.2 * u.au, 0.8 * u.au, 0 * u.km)
+    from_file = line_response(*args, ComaModel(excitation=filed))
+    from_rotor = line_response(*args, ComaModel(excitation=rotor))
+    assert_allclose(from_file.value, from_rotor.value, rtol=1e-3)
+    # and they do depart from LTE (otherwise the comparison would say nothing)
+    assert np.max(np.abs(from_rotor.value / line_response(*args, ComaModel()).value - 1)) > 0.1
