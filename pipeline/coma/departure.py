@@ -63,6 +63,8 @@ _H_OVER_K_GHZ = (const.h * u.GHz / const.k_B).to_value(u.K)
 _J_CAP = 60
 #: LTE tail left out when the levels are cut (:func:`pipeline.coma.nonlte.levels_needed`).
 _TAIL = 1e-4
+#: Added to T_kin for the LTE tail that decides which levels are modelled.
+_T_MARGIN = 30.0 * u.K
 #: Relative frequency difference within which a catalogue line is a transition of the molecular data.
 _FREQ_TOLERANCE = 2e-5
 _N_NODES = 4097
@@ -154,9 +156,12 @@ def molecule_of(species: Species, settings: NonLteSettings, t_kin: u.Quantity,
                 upper_needed: float = 0.0) -> list[MolecularData]:
     """The level structures that model ``species``: its LAMDA files, or a linear rotor from the catalogue.
 
-    Each is cut to the fewest levels that hold all but 1e-4 of the molecules in LTE at ``t_kin``
-    (:func:`pipeline.coma.nonlte.levels_needed`), and never below the levels up to energy ``upper_needed`` [K]
-    plus two (the line's upper level must be modelled with the levels above it).
+    Each is cut to the fewest levels that hold all but 1e-4 of the molecules in LTE at ``t_kin`` + 30 K
+    (:func:`pipeline.coma.nonlte.levels_needed`; the margin keeps the levels that hot electrons and pumping
+    reach above the LTE tail: for HCN, Q(H2O) = 1e25 and 1e29 /s, T_kin = 5 to 150 K, the J = 3-2 departure
+    at 1e3 to 1e5 km changes by at most 2e-5 with the cut at 3 T_kin + 100 K instead, measured), and never
+    below the levels up to energy ``upper_needed`` [K] plus two (the line's upper level must be modelled with
+    the levels above it).
     """
     from pipeline.coma.lamda import species_rotor
     from pipeline.coma.nonlte import boltzmann_populations, levels_needed
@@ -172,8 +177,9 @@ def molecule_of(species: Species, settings: NonLteSettings, t_kin: u.Quantity,
                    "the path of a LAMDA-format file, or excitation.model: lte")
             raise CatalogueError(msg) from None
     out = []
+    t_cut = u.Quantity(t_kin, u.K) + _T_MARGIN
     for mol in full:
-        n = levels_needed(mol, t_kin, _TAIL) if boltzmann_populations(mol, t_kin)[-1] < _TAIL else mol.n_levels
+        n = levels_needed(mol, t_cut, _TAIL) if boltzmann_populations(mol, t_cut)[-1] < _TAIL else mol.n_levels
         e = mol.energy_k.to_value(u.K)
         n = max(n, min(mol.n_levels, int(np.searchsorted(e, upper_needed + 1e-6)) + 2))
         out.append(mol.truncated(min(n, mol.n_levels)))
