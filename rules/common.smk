@@ -67,6 +67,15 @@ def catalogue_files():
     return [cat[k] for k in ("species_file", "lines_file", "bands_file") if k in cat]
 
 
+def molecular_data_files():
+    """The user's LAMDA-format files of excitation.molecular_data (inputs of the rules that model lines under
+    non-LTE excitation, so that editing one reruns what read it); none without."""
+    files = []
+    for paths in ((config.get("excitation") or {}).get("molecular_data") or {}).values():
+        files.extend([paths] if isinstance(paths, str) else list(paths))
+    return files
+
+
 def cube_path(wildcards):
     return CUBES[wildcards.cube].path
 

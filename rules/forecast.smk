@@ -4,6 +4,7 @@ rule forecast:
         budget=f"{OUT}/budget.ecsv",
         ephemeris=campaign_geometry_inputs(),
         catalogue=catalogue_files(),
+        molecular_data=molecular_data_files(),
     output:
         f"{OUT}/forecast.ecsv",
     params:

@@ -6,6 +6,7 @@ rule injection_epoch:
         cubes=ir_cubes_of_species,
         stack_inputs=f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
         catalogue=catalogue_files(),
+        molecular_data=molecular_data_files(),
     output:
         f"{OUT}/injection_epoch/{{species}}/{{epoch}}.ecsv",
     params:

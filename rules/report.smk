@@ -16,6 +16,7 @@ rule report:
         bands=bands_files(),
         dust=f"{OUT}/dust.ecsv",
         catalogue=catalogue_files(),
+        molecular_data=molecular_data_files(),
         cube_images=[f"{OUT}/figures/cubes/{cid}.png" for cid in CUBES],
         line_spectra=[f"{OUT}/spectra/{cid}/{line}.fits" for cid in CUBES for line in LINES[cid]],
     output:

@@ -4,6 +4,7 @@ rule stack_epoch:
         spectra=spectra_of_species,
         bands=band_files_of_species,
         catalogue=catalogue_files(),
+        molecular_data=molecular_data_files(),
     output:
         f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
     params:
