@@ -296,7 +296,11 @@ def campaign_config(sc: Scenario, outdir: str | Path, results: str = "results/de
         "apertures_km": list(sc.apertures_km),
         "comoving": {"half_width_km_s": sc.half_width_km_s},
         "limits": {"nsigma": 3},
-        "excitation": {"t_kin_K": [10, 20, 40, 80]},
+        # the scenario's own water production rate: the collisions of the non-LTE comparison the report shows
+        # beside the LTE sweep (excitation.model stays lte)
+        "excitation": {"t_kin_K": [10, 20, 40, 80],
+                       **({"q_h2o_per_s": float(sc.production_rates["H2O"])} if sc.production_rates.get("H2O")
+                          else {})},
         "coma": {"outflow_km_s": "law", "solar_activity": "quiet"},
         "infrared": {"margin_fwhm": 1.5, "continuum_factor": 1.0, "continuum_order": 1,
                      "continuum_shape": "solar"},
