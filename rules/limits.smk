@@ -30,7 +30,7 @@ rule limits:
         json=f"{OUT}/limits.json",
         activity=f"{OUT}/activity.ecsv",
     params:
-        settings=settings_of("limits.nsigma", "limits.activity_slope", "coma"),
+        settings=settings_of("limits.nsigma", "limits.activity_slope", "coma", "excitation"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/limits.log",
