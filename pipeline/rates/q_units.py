@@ -23,7 +23,9 @@ which the temperature fit and Q at any temperature are computed.
 
 from __future__ import annotations
 
+import logging
 from dataclasses import replace
+from typing import TYPE_CHECKING
 
 import astropy.constants as const
 import astropy.units as u
@@ -33,16 +35,24 @@ from pipeline.catalogue import Catalogue, Line
 from pipeline.coma.excitation import flux_per_molecule
 from pipeline.coma.response import (ComaModel, GridGeometry, line_departure_on_grid, line_response_on_grid,
                                     nonlte_settings, outflow_speed, window_capture)
+from pipeline.coma.departure import NonLteSettings
+from pipeline.errors import CatalogueError
 from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.rates.stacking import StackInput
 from pipeline.rates.temperature import TEMPERATURE_GRID
 from pipeline.spectra.apertures import aperture_labels
 
-__all__ = ["stack_input", "band_inputs", "blend_partners", "BLEND_REACH_OUTFLOWS"]
+if TYPE_CHECKING:
+    from pipeline.settings import Settings
+
+__all__ = ["stack_input", "nonlte_comparison", "band_inputs", "blend_partners", "BLEND_REACH_OUTFLOWS"]
+
+log = logging.getLogger(__name__)
 
 #: A line blends with another when their separation is below the window half-width plus this many outflow speeds.
 BLEND_REACH_OUTFLOWS = 1.5
 _CAPTURE_GRID = np.geomspace(TEMPERATURE_GRID[0], TEMPERATURE_GRID[-1], 13)
+_NOT_COMPARED: set[str] = set()
 
 
 def blend_partners(line: Line, catalogue: Catalogue, reach: u.Quantity) -> tuple[list[tuple[Line, float]], list[str]]:
@@ -63,9 +73,24 @@ def blend_partners(line: Line, catalogue: Catalogue, reach: u.Quantity) -> tuple
     return same, other
 
 
+def nonlte_comparison(settings: Settings) -> NonLteSettings | None:
+    """The non-LTE settings of the comparison beside the LTE sweep: under ``excitation.model: lte`` with
+    ``excitation.q_h2o_per_s`` given, the settings model nonlte would have (parsed by
+    :meth:`pipeline.settings.Settings.from_config` from the step's own ``excitation`` and ``coma`` sections); None
+    otherwise (no comparison, or model nonlte, whose responses are already non-LTE)."""
+    if nonlte_settings(settings.coma) is not None:
+        return None
+    given = settings.record
+    if "q_h2o_per_s" not in given["excitation"]:
+        return None
+    sections = {"coma": given["coma"], "excitation": {**given["excitation"], "model": "nonlte"}}
+    return type(settings).from_config(sections, sections=tuple(sections)).coma.excitation
+
+
 def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, model: ComaModel,
                 shortest_baseline: u.Quantity | None = None,
-                correct_filtering: bool = True, response_curve: bool = True) -> tuple[StackInput, list[dict]]:
+                correct_filtering: bool = True, response_curve: bool = True,
+                comparison: NonLteSettings | None = None) -> tuple[StackInput, list[dict]]:
     """Rescale one line's aperture spectra to Q units; also return its rows for the stack's INPUTS table.
 
     Each spectrum is divided by the model response, the line flux per unit Q in each aperture on the
@@ -92,6 +117,22 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     response_curve : bool
         Compute the response curve S(T) on :data:`TEMPERATURE_GRID` (what the temperature fit needs); a caller that
         reads only Q and σ at the sweep's temperatures (injection, forecasts) leaves it out (``curve`` None).
+    comparison : NonLteSettings, optional
+        Under LTE (``model.excitation`` None): also the window's response under these non-LTE settings, recorded
+        as the rows' ``nonlte_ratio`` (NaN without it, under model nonlte, and for a species the non-LTE model
+        cannot describe: logged). The LTE numbers are unchanged.
+
+    Notes
+    -----
+    The non-LTE window response is the LTE one with every member of the blend weighted by its departure D(T, ρ)
+    on the grid (:func:`pipeline.coma.response.line_departure_on_grid`, which is what
+    :func:`pipeline.coma.response.line_response_on_grid` multiplies by under non-LTE excitation):
+
+        S_nonLTE = R D_line c + sum_p N f_p c_p D_p,   nonlte_ratio = S_nonLTE / S_LTE,
+
+    R the line's response, c its window capture, N the molecules each aperture counts, f_p and c_p a blended
+    partner's flux per molecule and capture. The window's Q under non-LTE is then q / nonlte_ratio, its σ
+    sigma_q / nonlte_ratio.
     """
     meta = spectra.meta
     line = catalogue.get_line(meta.line_id)
@@ -117,6 +158,7 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     rel = vel - float(spectra.v_centre)
     frac = window_capture(species, t_kin, rel, wts, v_out, meta.spectral_response)                # (T,)
     scale = resp * frac[:, None]                                                                   # Jy km/s per (1/s)
+    blended = []                    # (partner, its flux per molecule times window capture (T,)) for the comparison
     # the coma's molecules per unit Q seen in each aperture (times the surviving fraction): resp / flux per molecule
     nonlte = nonlte_settings(model) is not None
     if nonlte:          # and over the line's departure from LTE, which the response carries
@@ -141,6 +183,7 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                 scale = scale + count[None, :] * (f_p * frac_p)[:, None] * departure(member, t_kin)
             else:
                 scale = scale + count[None, :] * (f_p * frac_p)[:, None]
+            blended.append((member, f_p * frac_p))
         if curve is None:
             continue
         cap = window_capture(species, _CAPTURE_GRID * u.K, rel - v_p, wts, v_out, meta.spectral_response)
@@ -160,6 +203,10 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         alt, _ = line_response_on_grid(line, species, None, t_kin[:1], r_h, delta, grid_geometry,
                                        replace(model, source="distributed"), shortest_baseline, correct_filtering)
         ratio = alt.to_value(u.Jy * u.km / u.s * u.s)[0] / resp[0]
+    compare = np.full(scale.shape, np.nan)
+    if comparison is not None and not nonlte:
+        compare = _nonlte_ratio(line, species, parent, t_kin, r_h, delta, grid_geometry,
+                                replace(model, excitation=comparison), resp * frac[:, None], count, blended, scale)
     flux = np.asarray(spectra.flux, dtype=float)                                                  # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
     # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
@@ -181,8 +228,27 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                          "window": float(spectra.window), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
                          "spectral_response": meta.spectral_response, "response_model": "grid",
-                         "surviving_fraction": float(surviving[j]), "kind": "line"})
+                         "surviving_fraction": float(surviving[j]), "kind": "line",
+                         "nonlte_ratio": compare[i, j]})
     return inp, rows
+
+
+def _nonlte_ratio(line: Line, species, parent, t_kin: u.Quantity, r_h: u.Quantity, delta: u.Quantity,
+                  grid: GridGeometry, model: ComaModel, own: np.ndarray, count: np.ndarray,
+                  blended: list[tuple[Line, np.ndarray]], scale: np.ndarray) -> np.ndarray:
+    """The window's response under the non-LTE ``model`` over the LTE ``scale`` (T, ap); NaN, logged, for a species
+    the non-LTE model cannot describe (no rotor constants and no molecular-data file)."""
+    try:
+        total = own * line_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid, model)
+        for member, f_c in blended:
+            total = total + count[None, :] * f_c[:, None] * line_departure_on_grid(member, species, parent, t_kin,
+                                                                                   r_h, delta, grid, model)
+    except CatalogueError as err:
+        if species.name not in _NOT_COMPARED:          # one note per species and process
+            _NOT_COMPARED.add(species.name)
+            log.info("%s: no non-LTE comparison beside the LTE sweep (line %s: %s)", species.name, line.line_id, err)
+        return np.full(scale.shape, np.nan)
+    return total / scale
 
 
 def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tuple[list[StackInput], list[dict], list[str]]:
@@ -218,5 +284,6 @@ def band_inputs(bands: BandMeasurements, species: str, t_kin: u.Quantity) -> tup
                              "blend_other": "", "distributed_ratio": np.nan, "window": np.nan, "q": float(r["q"]),
                              "sigma_q": float(r["sigma_q"]), "r_h": float(r["r_h"]), "delta": float(r["delta"]),
                              "outflow": float(r["outflow"]), "spectral_response": "band",
-                             "response_model": "grid", "surviving_fraction": 1.0, "kind": "band"})
+                             "response_model": "grid", "surviving_fraction": 1.0, "kind": "band",
+                             "nonlte_ratio": np.nan})
     return inputs, rows, skipped

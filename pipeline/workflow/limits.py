@@ -18,6 +18,7 @@ from pipeline.io.tables import cell_float, table_as_json, read_table
 from pipeline.rates.activity import activity_table
 from pipeline.rates.detections import add_fit_columns, filtering_columns, fit_detections, mark_opacity, opacity_columns
 from pipeline.rates.limits_table import join_limits, limit_rows, mark_adopted, mark_conservative
+from pipeline.rates.statistics import bayesian_upper_limit, inverse_variance_mean
 from pipeline.rates.temperature import adopted_temperature, q_at_temperature, temperature_systematic, window_measures
 from pipeline.settings import Settings
 
@@ -74,6 +75,8 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
         rows["q_distributed"] = [q_d] / u.s
         rows["q_distributed_err"] = [s_d] / u.s
         rows["adopted"] = [bool(rows["detected"][0])]
+        for name in ("q_nonlte", "q_nonlte_err", "q_nonlte_upper"):      # on the sweep's rows only
+            rows[name] = [np.nan] / u.s
         out.append(rows)
     return out
 
@@ -89,6 +92,47 @@ def _distributed_columns(rows: QTable, sel, t: np.ndarray) -> None:
             q_d[k], s_d[k] = cell_float(row["q_distributed"]), cell_float(row["sigma_q_distributed"])
     rows["q_distributed"] = q_d / u.s
     rows["q_distributed_err"] = s_d / u.s
+
+
+def _nonlte_columns(rows: QTable, sel, t: np.ndarray, inputs, group: str) -> None:
+    """Q, its error and upper limit under non-LTE excitation beside the LTE sweep (``q_nonlte``, ...), in the order
+    limit_rows gives (T outer, aperture inner); NaN without the comparison (no ``nonlte_ratio`` in the inputs).
+
+    At each sweep T_kin and aperture: the inverse-variance mean of the group's inputs' q / r and sigma_q / r, r the
+    input's ``nonlte_ratio`` (:func:`pipeline.rates.q_units.stack_input`; bands 1), the combination the stack makes
+    of q and sigma_q (:func:`pipeline.rates.stacking.combine`); NaN if any line of the group has no ratio.
+    """
+    q_n = np.full(len(rows), np.nan)
+    s_n = np.full(len(rows), np.nan)
+    if len(inputs) and "nonlte_ratio" in inputs.colnames:
+        n_ap = len(rows) // max(len(t), 1)
+        epoch = np.asarray(inputs["epoch"], dtype=str)
+        t_in = np.asarray(inputs["t_kin"], dtype=float)
+        label = np.asarray(inputs["aperture"], dtype=str)
+        band = np.asarray(inputs["kind"], dtype=str) == "band"
+        ratio = np.where(band, 1.0, np.asarray(inputs["nonlte_ratio"], dtype=float))
+        q_in = np.asarray(inputs["q"], dtype=float)
+        s_in = np.asarray(inputs["sigma_q"], dtype=float)
+        if not np.all(band):                      # a comparison was made for at least one line
+            for row in sel:
+                k = int(np.searchsorted(t, row["t_kin"])) * n_ap + int(row["aperture_index"])
+                pick = (((epoch == group) | (group == ALL_GROUP)) & (label == str(row["aperture"]))
+                        & np.isclose(t_in, float(row["t_kin"]), rtol=1e-12, atol=0.0))
+                if np.any(pick):
+                    q_n[k], s_n[k] = inverse_variance_mean(q_in[pick] / ratio[pick], s_in[pick] / ratio[pick])
+    rows["q_nonlte"] = q_n / u.s
+    rows["q_nonlte_err"] = s_n / u.s
+    rows["q_nonlte_upper"] = _nonlte_upper(q_n, s_n, rows)
+
+
+def _nonlte_upper(q_n: np.ndarray, s_n: np.ndarray, rows: QTable) -> u.Quantity:
+    """The Bayesian upper limit of q_nonlte at the rows' confidence (NaN where q_nonlte is)."""
+    out = np.full(len(rows), np.nan)
+    ok = np.isfinite(q_n) & np.isfinite(s_n) & (s_n > 0)
+    if np.any(ok):
+        cl = float(np.asarray(rows["confidence"], dtype=float)[0])
+        out[ok] = np.asarray(bayesian_upper_limit(q_n[ok], s_n[ok], cl), dtype=float)
+    return out / u.s
 
 
 def run_species(stack_path: str, settings: Settings, out_path: str, temperature_path: str | None = None) -> None:
@@ -123,6 +167,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
             rows = limit_rows(species, str(group), t * u.K, ap * u.km, q / u.s, s / u.s, nsigma,
                               str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
             _distributed_columns(rows, sel, t)
+            _nonlte_columns(rows, sel, t, inputs, str(group))
             add_fit_columns(rows)
             fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass)
             opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
@@ -140,6 +185,8 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
         table["surviving_fraction"] = np.zeros(0)
         table["q_distributed"] = np.zeros(0) / u.s
         table["q_distributed_err"] = np.zeros(0) / u.s
+        for name in ("q_nonlte", "q_nonlte_err", "q_nonlte_upper"):
+            table[name] = np.zeros(0) / u.s
         table = _with_adoption_columns(table)
     if len(table):
         table = mark_adopted(table, any(m.kind == "line" for m in measures))
