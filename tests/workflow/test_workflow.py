@@ -187,7 +187,7 @@ def test_outputs_contract_and_provenance(campaign):
     assert prov["software"] == "gasledger" and prov["inputs"]
     assert all(v.startswith("sha256:") for v in prov["inputs"].values())
     # the record holds the config keys the limits rule declares (rules/limits.smk), nothing else, and the code digest
-    assert set(prov["config"]) == {"outdir", "limits", "coma"}
+    assert set(prov["config"]) == {"outdir", "limits", "coma", "excitation"}
     assert set(prov["config"]["limits"]) == {"nsigma", "activity_slope"}
     assert prov["config"]["limits"]["nsigma"] == yaml.safe_load(config.read_text()).get("limits", {}).get("nsigma", 3)
     assert len(prov["code"]) == 16
