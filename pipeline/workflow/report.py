@@ -6,34 +6,38 @@ import html
 import json
 from pathlib import Path
 
+import astropy.units as u
+
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
 from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams, plot_stacked_spectra,
                                      plot_temperature_sweep, to_png)
 from pipeline.report.campaign_figure import IMG_ID, campaign_figures, plot_note
 from pipeline.report.cube_figures import cubes_section
+from pipeline.report.excitation import SECTION_TITLE, excitation_caution, excitation_section
 from pipeline.report.html import anchored_figure_html, figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
                                       injection_section, joint_section, quoted_section, rotational_diagrams,
                                       spectrum_panels, sweep_curves, temperature_section, water_section,
                                       zeta_section, conservative_section, assumptions_section, provenance_section)
 from pipeline.report.verdicts import assumption_sets_table, defaulted_html, driver_verdicts, no_verdict_html, verdict_section
+from pipeline.coma.response import nonlte_settings, outflow_speed
+from pipeline.rates.q_units import nonlte_comparison
 from pipeline.settings import Settings
 from pipeline.io.tables import read_table
 
 __all__ = ["run"]
 
-CAUTION = ("These production rates and limits rest on model assumptions: LTE excitation at the kinetic "
-           "temperatures listed, optically thin lines, a Haser parent distribution with isotropic uniform outflow, "
-           "the photodestruction rates of the catalogue, for infrared bands optically thin solar fluorescence with "
-           "the catalogue's g-factors scaled as r_h^-2, for the dust a single grain size, density, speed and albedo, "
-           "and, for the budget, momentum balance with the stated "
-           "efficiency and ejection speed with all mass loss in one species at a time. Change an assumption and "
+CAUTION = ("These production rates and limits rest on model assumptions: {excitation}, optically thin lines, "
+           "a Haser parent distribution with isotropic uniform outflow, the photodestruction rates of the catalogue, "
+           "for infrared bands optically thin solar fluorescence with the catalogue's g-factors scaled as r_h^-2, "
+           "for the dust a single grain size, density, speed and albedo, and, for the budget, momentum balance with "
+           "the stated efficiency and ejection speed with all mass loss in one species at a time. Change an assumption and "
            "the numbers change. gasledger reports numbers; whether outgassing can or cannot drive the push is a "
            "conclusion that belongs to peer review, not to this tool.")
 
-SHORT_CAUTION = ("Numbers under stated model assumptions, not a conclusion about the push: read the caution below the "
-                 "verdict.")
+SHORT_CAUTION = ("Numbers under stated model assumptions ({excitation}), not a conclusion about the push: read the "
+                 "caution below the verdict.")
 
 
 def _write_png(data: bytes, path: str) -> None:
@@ -70,7 +74,9 @@ def run(inputs, outputs, settings: Settings) -> None:
     _write_png(fig_budget, outputs.budget)
     _write_png(fig_sweep, outputs.sweep)
 
-    sections = [("", f'<p class="caution">{html.escape(SHORT_CAUTION)}</p>'),
+    nonlte, comparison = nonlte_settings(settings.coma), nonlte_comparison(settings)
+    short = SHORT_CAUTION.format(excitation=excitation_caution(nonlte, comparison, short=True))
+    sections = [("", f'<p class="caution">{html.escape(short)}</p>'),
                 ("", anchored_figure_html(campaign.drivers_png, campaign.drivers_caption, campaign.drivers_alt,
                                           IMG_ID))]
     if sets:
@@ -86,7 +92,8 @@ def run(inputs, outputs, settings: Settings) -> None:
     else:
         sections.append(("Verdict", no_verdict_html(missing or ["budget.ecsv has no rows"])
                          + defaulted_html(defaulted)))
-    sections.append(("", f'<div class="caution" id="caution"><b>Read this first.</b> {html.escape(CAUTION)}</div>'))
+    caution = CAUTION.format(excitation=excitation_caution(nonlte, comparison))
+    sections.append(("", f'<div class="caution" id="caution"><b>Read this first.</b> {html.escape(caution)}</div>'))
     if campaign.tracers_png is not None:
         sections.append(("Tracers", figure_html(campaign.tracers_png, campaign.tracers_caption,
                                                 campaign.tracers_alt)))
@@ -117,6 +124,10 @@ def run(inputs, outputs, settings: Settings) -> None:
     sections.append(("All epochs in one test", joint_section(inputs.exclusion, inputs.activity)))
     sections.append(("Forecast for planned epochs, beside the measurements", forecast_section(inputs.forecast,
                                                                                               limits)))
+    r_h = u.Quantity([g["r_h"] for g in geometry], u.au).mean() if geometry else None
+    sections.append((SECTION_TITLE, excitation_section(
+        limits, catalogue, settings.t_kin, float(settings.limits.nsigma), nonlte, comparison, r_h,
+        outflow_speed(settings.coma, r_h) if r_h is not None else None, to_png)))
     sections.append(("Temperature sweep", figure_html(
         fig_sweep, "Upper limit (all epochs, smallest aperture) against the assumed kinetic temperature; the circled "
                    "point is the most conservative value, the one reported.", "temperature sweep")))
