@@ -13,7 +13,7 @@ from pipeline.io.atomic import write_fits
 from pipeline.errors import CoverageError
 from pipeline.io.products import BandMeasurements, EpochInputs, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
-from pipeline.rates.q_units import band_inputs, stack_input
+from pipeline.rates.q_units import band_inputs, nonlte_comparison, stack_input
 from pipeline.rates.stacking import combine, combine_distributed, distinct_windows, shared_apertures, velocity_grid
 from pipeline.settings import Settings
 
@@ -33,6 +33,7 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
     catalogue = settings.catalogue()
     catalogue.get_species(species)
     filtering = settings.interferometer
+    comparison = nonlte_comparison(settings)     # non-LTE settings beside an LTE run (excitation.q_h2o_per_s), or None
     inputs, rows, skipped = [], [], []
     for path in spectra_paths:
         with fits.open(path) as spectra:
@@ -49,7 +50,7 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
                 continue
             inp, r = stack_input(line_spectra, catalogue, settings.t_kin, settings.coma,
                                   filtering.shortest_baseline if filtering else None,
-                                  filtering.correct if filtering else True)
+                                  filtering.correct if filtering else True, comparison=comparison)
         if not np.all(np.isfinite(inp.q)):
             log.warning("%s: line %s in cube %s has blank channels inside the integration window; left out",
                         species, inp.line_id, inp.cube_id)
