@@ -78,9 +78,8 @@ COLUMNS: dict[str, tuple[str | None, str]] = {
     "q_distributed": (_PER_S, "Q if the species is a Haser daughter of a distributed source (catalogue "
                               "distributed_scale_km); NaN where the catalogue gives none"),
     "q_distributed_err": (_PER_S, "1-sigma error of q_distributed"),
-    "q_nonlte": (_PER_S, "Q under non-LTE excitation at t_kin_K as the gas kinetic temperature (the comparison "
-                         "beside the LTE sweep: excitation.q_h2o_per_s under model lte); NaN without it, on "
-                         "adopted rows and where a line's species has no non-LTE model"),
+    "q_nonlte": (_PER_S, "Q under non-LTE excitation with t_kin_K as the gas temperature (the comparison set by "
+                         "excitation.q_h2o_per_s); NaN without it and on adopted rows"),
     "q_nonlte_err": (_PER_S, "1-sigma statistical error of q_nonlte"),
     "q_nonlte_upper": (_PER_S, "upper limit on q_nonlte at the confidence of q_upper (Bayesian, flat prior)"),
     "q_fit": (_PER_S, "Q from a fit of the line profile (detections only, else NaN)"),
