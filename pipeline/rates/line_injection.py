@@ -95,33 +95,46 @@ def placements(sub: SubCube, settings: ExtractionSettings, n_ring: int = 4,
     return [Placement(i, px, py, v) for i, (px, py) in enumerate(sky) for v in vels]
 
 
+class _ModelComae:
+    """Model comae of one line in one sub-cube, in the cube's unit, placed anywhere (the conversion made once).
+
+    The model is in Jy/beam: Jy per pixel = Jy/beam x pixel/beam area; the cube unit per pixel from
+    flux_conversion (the model is convolved with the cube's one, or median, beam; the cube's unit may refer to
+    each channel's beam). The coma's map is made once per sky position and temperature and spread at each velocity.
+    """
+
+    def __init__(self, sub: SubCube, line: Line, species: Species, model: ComaModel, parent: Species | None):
+        info = sub.info()
+        self.sub, self.line, self.species, self.model, self.parent = sub, line, species, model, parent
+        self.shape = info.shape[1:]
+        self.pix = info.pixel_scale.to_value(u.arcsec)
+        self.beam = (info.beam_major.to_value(u.arcsec), info.beam_minor.to_value(u.arcsec),
+                     info.beam_pa.to_value(u.deg))
+        per_pixel = (info.pixel_solid_angle() / info.beam_solid_angle()).decompose().value
+        self.to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(),
+                                                        info.channel_beam_solid_angles(), info.frequencies)
+        self._maps: dict[tuple[float, float, float], np.ndarray] = {}
+
+    def cube(self, q: float, t_kin: u.Quantity, p: Placement) -> np.ndarray:
+        """The coma of rate ``q`` [1/s] at ``t_kin``, centred on placement ``p``, in the cube's unit."""
+        meta = self.sub.meta
+        key = (p.x, p.y, float(u.Quantity(t_kin, u.K).value))
+        if key not in self._maps:
+            self._maps[key] = model_line_map(self.shape, p.x, p.y, self.pix, self.line, self.species, t_kin,
+                                             meta.r_h, meta.delta, self.beam, self.model, self.parent)
+        cube = line_cube_from_map(q * self._maps[key], self.sub.velocity, self.species, t_kin, meta.r_h, self.model,
+                                  v_centre=p.v_centre, spectral_response=meta.spectral_response)
+        return cube * self.to_cube_unit[:, None, None]
+
+
 def inject_spectra(sub: SubCube, settings: ExtractionSettings, line: Line, species: Species, q: float,
                    t_kin: u.Quantity, model: ComaModel, where: list[Placement],
                    parent: Species | None = None) -> list[LineSpectra]:
     """Aperture spectra (as :func:`extract_spectra` makes them) of the sub-cube with a coma of ``q`` injected."""
-    info = sub.info()
-    vel = sub.velocity
-    pix = info.pixel_scale.to_value(u.arcsec)
-    beam = (info.beam_major.to_value(u.arcsec), info.beam_minor.to_value(u.arcsec), info.beam_pa.to_value(u.deg))
-    # the model is in Jy/beam: Jy per pixel = Jy/beam x pixel/beam area; the cube unit per pixel from flux_conversion
-    # (the model is convolved with the cube's one, or median, beam; the cube's unit may refer to each channel's beam)
-    per_pixel = (info.pixel_solid_angle() / info.beam_solid_angle()).decompose().value
-    to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(),
-                                               info.channel_beam_solid_angles(), info.frequencies)
-    out = []
+    comae = _ModelComae(sub, line, species, model, parent)
     real = np.asarray(sub.data, dtype=np.float64)
-    maps: dict[tuple[float, float], np.ndarray] = {}     # one coma map per sky position, spread at each velocity
-    for p in where:
-        if (p.x, p.y) not in maps:
-            maps[(p.x, p.y)] = model_line_map(info.shape[1:], p.x, p.y, pix, line, species, t_kin, sub.meta.r_h,
-                                              sub.meta.delta, beam, model, parent)
-        cube = line_cube_from_map(q * maps[(p.x, p.y)], vel, species, t_kin, sub.meta.r_h, model,
-                                  v_centre=p.v_centre, spectral_response=sub.meta.spectral_response)
-        cube = cube * to_cube_unit[:, None, None]
-        spectra = extract_spectra(sub, settings, data=real + cube, centre=(p.x, p.y), v_centre=p.v_centre,
-                                  offsource=False)
-        out.append(spectra.injected(q, p.index))
-    return out
+    return [extract_spectra(sub, settings, data=real + comae.cube(q, t_kin, p), centre=(p.x, p.y),
+                            v_centre=p.v_centre, offsource=False).injected(q, p.index) for p in where]
 
 
 #: The production rate [1/s] of the model injected to measure b (any rate: the measurement is linear).
@@ -159,13 +172,7 @@ def unit_injections(sub: SubCube, settings: ExtractionSettings, line: Line, spec
     blank voxels and all).
     """
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
-    info = sub.info()
-    vel = sub.velocity
-    pix = info.pixel_scale.to_value(u.arcsec)
-    beam = (info.beam_major.to_value(u.arcsec), info.beam_minor.to_value(u.arcsec), info.beam_pa.to_value(u.deg))
-    per_pixel = (info.pixel_solid_angle() / info.beam_solid_angle()).decompose().value
-    to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(),
-                                               info.channel_beam_solid_angles(), info.frequencies)
+    comae = _ModelComae(sub, line, species, model, parent)
     real = np.asarray(sub.data, dtype=np.float64)
     slots = sorted({p.v_centre for p in where})
     out = []
@@ -174,13 +181,8 @@ def unit_injections(sub: SubCube, settings: ExtractionSettings, line: Line, spec
                                                  offsource=False))
         per_q = np.full_like(data_inp.q, np.nan)
         for i, t in enumerate(t_kin):
-            line_map = model_line_map(info.shape[1:], p.x, p.y, pix, line, species, t, sub.meta.r_h,
-                                      sub.meta.delta, beam, model, parent)
-            cube = line_cube_from_map(Q_UNIT * line_map, vel, species, t, sub.meta.r_h, model, v_centre=p.v_centre,
-                                      spectral_response=sub.meta.spectral_response)
-            cube = cube * to_cube_unit[:, None, None]
-            with_model, _ = to_q_units(extract_spectra(sub, settings, data=real + cube, centre=(p.x, p.y),
-                                                       v_centre=p.v_centre, offsource=False))
+            with_model, _ = to_q_units(extract_spectra(sub, settings, data=real + comae.cube(Q_UNIT, t, p),
+                                                       centre=(p.x, p.y), v_centre=p.v_centre, offsource=False))
             per_q[i] = (with_model.q[i] - data_inp.q[i]) / Q_UNIT
         out.append(UnitInjection(placement=p, velocity_slot=slots.index(p.v_centre), q_data=data_inp.q,
                                  q_per_q=per_q, sigma_q=data_inp.sigma_q, radius_km=data_inp.radius_km,
