@@ -208,6 +208,21 @@ class GridGeometry:
     beam_pix: tuple[float, float, float] | None
 
 
+def _grid_count(grid: GridGeometry, species: Species, parent: Species | None, model: ComaModel, r_h: u.Quantity,
+                delta: u.Quantity, weight=None) -> tuple[np.ndarray, u.Quantity, u.Quantity, u.Quantity | None]:
+    """The molecules (Q = 1/s) each aperture counts on the data's grid (:func:`pipeline.coma.image.
+    aperture_count_on_grid`, optionally with a column ``weight``), and the outflow speed and scale lengths used."""
+    from pipeline.coma.image import aperture_count_on_grid
+
+    v_out = outflow_speed(model, r_h)
+    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * u.Quantity(delta, u.au).to_value(u.km)
+    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
+    extra = {} if weight is None else {"weight": weight}
+    count = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
+                                   length, daughter, **extra)
+    return count, v_out, length, daughter
+
+
 def line_response_on_grid(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,
                           r_h: u.Quantity, delta: u.Quantity, grid: GridGeometry, model: ComaModel,
                           shortest_baseline: u.Quantity | None = None,
@@ -242,15 +257,10 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
         1 without an interferometer.
     """
     from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
-    from pipeline.coma.image import aperture_count_on_grid
 
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
-    v_out = outflow_speed(model, r_h)
-    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
-    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
-    count = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
-                                   length, daughter)
+    count, v_out, length, daughter = _grid_count(grid, species, parent, model, r_h, delta)
     resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
     if nonlte_settings(model) is not None:
         resp = resp * line_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid, model)
@@ -274,22 +284,16 @@ def line_departure_on_grid(line: Line, species: Species, parent: Species | None,
     extraction's weights like the plain count; the LTE flux per molecule times the weighted count is the line's
     non-LTE flux (the background term of f is taken at the local excitation temperature).
     """
-    from pipeline.coma.image import aperture_count_on_grid
 
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     out = np.ones((t_kin.size, len(grid.radii_pix)))
     if nonlte_settings(model) is None:
         return out
     r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
-    v_out = outflow_speed(model, r_h)
-    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
-    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
-    plain = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
-                                   length, daughter)
+    plain, _, _, _ = _grid_count(grid, species, parent, model, r_h, delta)
     for i, t in enumerate(t_kin):
         weight = line_column_weight_of(line, species, parent, t, r_h, model)
-        weighted = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix,
-                                          v_out, length, daughter, weight=weight)
+        weighted, _, _, _ = _grid_count(grid, species, parent, model, r_h, delta, weight=weight)
         out[i] = np.where(plain > 0, weighted / np.where(plain > 0, plain, 1.0), 1.0)
     return out
 
@@ -307,14 +311,9 @@ def band_response_on_grid(band: Band, species: Species, parent: Species | None, 
     Quantity, shape (n_apertures,), in W m-2 s (band flux per molecule/s)
     """
     from pipeline.coma.conversion import band_flux_from_molecules
-    from pipeline.coma.image import aperture_count_on_grid
 
     r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
-    v_out = outflow_speed(model, r_h)
-    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
-    pix_km = (grid.pixel_arcsec * u.arcsec).to_value(u.rad) * delta.to_value(u.km)
-    count = aperture_count_on_grid(grid.shape, grid.x, grid.y, list(grid.radii_pix), pix_km, grid.beam_pix, v_out,
-                                   length, daughter)
+    count, _, _, _ = _grid_count(grid, species, parent, model, r_h, delta)
     per_molecule = band_flux_from_molecules(1.0 * u.one, band.wavelength, band.g_1au, r_h, delta)
     return u.Quantity([(per_molecule * c).to_value(u.W / u.m**2) for c in count], u.W / u.m**2 * u.s)
 
