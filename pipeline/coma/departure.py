@@ -38,6 +38,8 @@ The interferometric surviving fraction is not weighted (see
 
 from __future__ import annotations
 
+import logging
+
 import math
 from collections import OrderedDict
 from dataclasses import dataclass
@@ -61,6 +63,9 @@ if TYPE_CHECKING:   # the population solver (scipy.integrate) loads where used: 
 
 __all__ = ["NonLteSettings", "ColumnWeight", "molecule_of", "line_levels", "excitation_model_of",
            "emission_departure", "weighted_column_density", "column_ratio", "line_column_weight"]
+
+_log = logging.getLogger(__name__)
+_UNPUMPED: set[str] = set()
 
 _H_OVER_K_GHZ = (const.h * u.GHz / const.k_B).to_value(u.K)
 #: Highest J of a linear rotor built from the catalogue's constants (then cut by the LTE tail).
@@ -224,6 +229,10 @@ def excitation_model_of(settings: NonLteSettings, species: Species, molecule: Mo
 
     ladder = molecule.j is not None and np.array_equal(molecule.j, np.arange(molecule.n_levels))
     pump = settings.pump_rate(species.name) if ladder else 0.0
+    if not ladder and settings.pump_rate(species.name) > 0 and species.name not in _UNPUMPED:
+        _UNPUMPED.add(species.name)                     # said once per species and process
+        _log.warning("%s: its levels (%s...) are not a J ladder, so its infrared pumping is left out of the non-LTE "
+                     "populations", species.name, ", ".join(molecule.labels[:3]))
     return ExcitationModel(q_h2o=settings.q_h2o_per_s / u.s, t_kin=u.Quantity(t_kin, u.K),
                            speed=u.Quantity(speed, u.km / u.s), r_h=u.Quantity(r_h, u.au),
                            h2o_rate_1au=settings.h2o_rate_1au_per_s / u.s, pump_rate_1au=pump / u.s,
