@@ -499,7 +499,8 @@ class BandMeasurements:
 #: Units of the columns of a stack file's INPUTS and SUMMARY tables ('response' mixes line and band units).
 STACK_COLUMN_UNITS = {"t_kin": "K", "aperture_km": "km", "window": "km s-1", "q": "s-1", "sigma_q": "s-1",
                       "r_h": "AU", "delta": "AU", "outflow": "km s-1", "response": "Jy km s-1 s",
-                      "scale": "Jy km s-1 s", "q_distributed": "s-1", "sigma_q_distributed": "s-1"}
+                      "scale": "Jy km s-1 s", "nonlte_scale": "Jy km s-1 s", "q_distributed": "s-1",
+                      "sigma_q_distributed": "s-1"}
 
 
 @dataclass
@@ -527,7 +528,8 @@ class SpeciesStack:
     ``inputs`` has one row per line or band, cube, temperature and aperture (its response, window capture,
     Q and sigma_Q); ``summary`` one row per group, temperature and aperture (the combined Q and sigma_Q, the
     lines and cubes that went in); ``curves`` one row per line input and aperture with its response curve S(T)
-    (the window flux per unit Q, Jy km/s s) on :data:`pipeline.rates.temperature.TEMPERATURE_GRID`. Table
+    (the window flux per unit Q, Jy km/s s) on :data:`pipeline.rates.temperature.TEMPERATURE_GRID`, and with the
+    non-LTE comparison also 'nonlte_scale', the same under the comparison's non-LTE excitation. Table
     columns carry units (:data:`STACK_COLUMN_UNITS`).
     """
 
@@ -536,7 +538,7 @@ class SpeciesStack:
     spectra: dict[str, StackedSpectrum]
     inputs: Table
     summary: Table
-    curves: Table | None = None      # per line input and aperture: 'scale', S(T) on the temperature grid
+    curves: Table | None = None      # per line input and aperture: 'scale' (and 'nonlte_scale'), S(T) on the grid
 
     def to_fits(self) -> fits.HDUList:
         """The stack file: primary (species), one STACK_<group> image per group, INPUTS and SUMMARY tables."""
@@ -618,6 +620,8 @@ class EpochInputs:
                 columns["velocity"] = np.tile(np.asarray(inp.velocity, dtype=float), (len(inp.labels), 1))
             if inp.curve is not None:
                 columns["curve"] = np.asarray(inp.curve, dtype=float).T
+            if inp.nonlte_curve is not None:
+                columns["nonlte_curve"] = np.asarray(inp.nonlte_curve, dtype=float).T
             if inp.distributed_ratio is not None:
                 columns["distributed_ratio"] = np.asarray(inp.distributed_ratio, dtype=float)
             hdu = fits.table_to_hdu(Table(columns))
@@ -658,6 +662,8 @@ class EpochInputs:
                     radius_km=np.array(data["radius_km"], dtype=float),
                     apertures=tuple(str(a) for a in data["aperture"]),
                     curve=np.array(data["curve"], dtype=float).T if "curve" in names else None,
+                    nonlte_curve=(np.array(data["nonlte_curve"], dtype=float).T if "nonlte_curve" in names
+                                  else None),
                     window=float(cards.get(h, "window", float("nan"), where)),
                     distributed_ratio=(np.array(data["distributed_ratio"], dtype=float)
                                        if "distributed_ratio" in names else None)))

@@ -175,6 +175,11 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     members = [(line, 0.0)] + partners
     grid = TEMPERATURE_GRID * u.K
     curve = np.zeros((grid.size, count.size)) if response_curve else None
+    # the comparison's non-LTE S(T) beside the LTE one, so Q under non-LTE can be read at any temperature (the
+    # measured one included), as the LTE curve allows
+    compared = (replace(model, excitation=comparison) if comparison is not None and not nonlte and response_curve
+                else None)
+    nonlte_curve = np.zeros((grid.size, count.size)) if compared is not None else None
     for member, v_p in members:
         if member is not line:
             f_p = flux_per_molecule(member, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
@@ -190,11 +195,16 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         cap_grid = np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), cap)
         f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)
         if nonlte:
-            dep = departure(member, _CAPTURE_GRID * u.K)
-            dep_grid = np.stack([np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), d) for d in dep.T], axis=1)
-            curve += count[None, :] * (f_grid * cap_grid)[:, None] * dep_grid
+            curve += count[None, :] * (f_grid * cap_grid)[:, None] * _departure_on_temperature_grid(
+                member, species, parent, r_h, delta, grid_geometry, model)
         else:
             curve += count[None, :] * (f_grid * cap_grid)[:, None]
+        if nonlte_curve is not None:
+            try:
+                nonlte_curve += count[None, :] * (f_grid * cap_grid)[:, None] * _departure_on_temperature_grid(
+                    member, species, parent, r_h, delta, grid_geometry, compared)
+            except CatalogueError:
+                nonlte_curve = None         # the species the non-LTE model cannot describe (_nonlte_ratio says so)
     share = 1.0 - resp * frac[:, None] / scale                                                    # (T, ap)
     # a species the catalogue gives a distributed source: the response under that hypothesis over the nucleus one
     # (the coma's count changes, the excitation does not, so the ratio holds at every temperature)
@@ -216,7 +226,8 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     labels = aperture_labels(aps)
     inp = StackInput(epoch=meta.epoch, cube_id=meta.cube_id, line_id=line.line_id, velocity=vel,
                      density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km), apertures=labels,
-                     curve=curve, window=float(spectra.window), distributed_ratio=ratio)
+                     curve=curve, window=float(spectra.window), distributed_ratio=ratio,
+                     nonlte_curve=nonlte_curve if np.all(np.isfinite(compare)) else None)
     rows = []
     for i, t in enumerate(t_kin.to_value(u.K)):
         for j, r in enumerate(radii.to_value(u.km)):
@@ -231,6 +242,14 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                          "surviving_fraction": float(surviving[j]), "kind": "line",
                          "nonlte_ratio": compare[i, j]})
     return inp, rows
+
+
+def _departure_on_temperature_grid(member: Line, species, parent, r_h: u.Quantity, delta: u.Quantity,
+                                   grid: GridGeometry, model: ComaModel) -> np.ndarray:
+    """A line's departure from LTE on the grid (:func:`pipeline.coma.response.line_departure_on_grid`) at the 13
+    capture temperatures, interpolated in log T onto :data:`TEMPERATURE_GRID`: shape (n_grid, n_ap)."""
+    dep = line_departure_on_grid(member, species, parent, _CAPTURE_GRID * u.K, r_h, delta, grid, model)
+    return np.stack([np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), d) for d in dep.T], axis=1)
 
 
 def _nonlte_ratio(line: Line, species, parent, t_kin: u.Quantity, r_h: u.Quantity, delta: u.Quantity,

@@ -48,6 +48,7 @@ class StackInput:
     curve: np.ndarray | None = None   # (n_grid, n_ap) window flux per unit Q on the temperature grid (lines only)
     window: float = float("nan")      # half-width of the integration window [km/s] (lines only)
     distributed_ratio: np.ndarray | None = None   # (n_ap,) response under a distributed source / nucleus source
+    nonlte_curve: np.ndarray | None = None   # (n_grid, n_ap) as ``curve`` under the non-LTE comparison's excitation
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -88,6 +89,7 @@ def shared_apertures(inputs: list[StackInput], what: str = "stack") -> tuple[lis
         out.append(replace(inp, q=inp.q[:, idx], sigma_q=inp.sigma_q[:, idx], radius_km=inp.radius_km[idx],
                            density=None if inp.density is None else inp.density[:, idx, :],
                            curve=None if inp.curve is None else inp.curve[:, idx], apertures=tuple(common),
+                           nonlte_curve=None if inp.nonlte_curve is None else inp.nonlte_curve[:, idx],
                            distributed_ratio=None if inp.distributed_ratio is None else inp.distributed_ratio[idx]))
     return out, [f"{', '.join(a)} of {cube}" for cube, a in notes.items() if a]
 

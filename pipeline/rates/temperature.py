@@ -66,13 +66,18 @@ class WindowMeasure:
     sigma: float
     curve: np.ndarray | None
     distributed_ratio: float = float("nan")    # response under a distributed source over the nucleus one
+    nonlte_curve: np.ndarray | None = None     # S(T) under the non-LTE comparison's excitation (None without it)
 
-    def scale(self, t: np.ndarray) -> np.ndarray:
-        """S(T) at the temperatures ``t`` [K] (log-log interpolation on the grid; 1 for a band)."""
+    def scale(self, t: np.ndarray, nonlte: bool = False) -> np.ndarray:
+        """S(T) at the temperatures ``t`` [K] (log-log interpolation on the grid; 1 for a band); with ``nonlte``
+        the comparison's non-LTE S(T) (NaN for a line without it)."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        if self.kind == "band" or self.curve is None:
+        if self.kind == "band":
             return np.ones_like(t)
-        return np.exp(np.interp(np.log(t), np.log(TEMPERATURE_GRID), np.log(self.curve)))
+        curve = self.nonlte_curve if nonlte else self.curve
+        if curve is None:
+            return np.full_like(t, np.nan) if nonlte else np.ones_like(t)
+        return np.exp(np.interp(np.log(t), np.log(TEMPERATURE_GRID), np.log(curve)))
 
 
 def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
@@ -80,11 +85,13 @@ def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
     out: list[WindowMeasure] = []
     if "q" not in inputs.colnames or not len(inputs):
         return out
-    found = {}
+    found, found_nonlte = {}, {}
     if curves is not None and len(curves):
         for r in curves:
-            found[(str(r["epoch"]), str(r["cube_id"]), str(r["line_id"]), str(r["aperture"]))] = np.asarray(
-                r["scale"], dtype=float)
+            key = (str(r["epoch"]), str(r["cube_id"]), str(r["line_id"]), str(r["aperture"]))
+            found[key] = np.asarray(r["scale"], dtype=float)
+            if "nonlte_scale" in curves.colnames and np.all(np.isfinite(r["nonlte_scale"])):
+                found_nonlte[key] = np.asarray(r["nonlte_scale"], dtype=float)
     first: dict[tuple[str, str, str, str], int] = {}        # each input's row at the lowest temperature, one pass
     t_kin = np.asarray(inputs["t_kin"], dtype=float)
     for i, key in enumerate(zip(*(np.asarray(inputs[c], dtype=str) for c in ("epoch", "cube_id", "line_id",
@@ -106,7 +113,8 @@ def window_measures(inputs: Table, curves: Table | None) -> list[WindowMeasure]:
         ratio = cell_float(row["distributed_ratio"]) if "distributed_ratio" in row.colnames else float("nan")
         out.append(WindowMeasure(epoch=epoch, cube_id=cube_id, line_id=line_id, aperture=aperture,
                                  aperture_km=float(row["aperture_km"]), kind=kind, flux=flux, sigma=sigma,
-                                 curve=curve, distributed_ratio=ratio))
+                                 curve=curve, distributed_ratio=ratio,
+                                 nonlte_curve=found_nonlte.get((epoch, cube_id, line_id, aperture))))
     return out
 
 
@@ -191,16 +199,17 @@ def fit_temperature(measures: list[WindowMeasure], catalogue: Catalogue,
                           e_up_min=float(e_up.min()), e_up_max=float(e_up.max()))
 
 
-def q_at_temperature(measures: list[WindowMeasure], t: float,
-                     distributed: bool = False) -> tuple[float, float, list[float], list[float]]:
+def q_at_temperature(measures: list[WindowMeasure], t: float, distributed: bool = False,
+                     nonlte: bool = False) -> tuple[float, float, list[float], list[float]]:
     """Every measure's Q estimate at ``t`` [K] and their inverse-variance mean: (Q, sigma_Q, q_i, sigma_i).
 
     With ``distributed`` the estimates are under the distributed-source hypothesis (each divided by its
-    ``distributed_ratio``; NaN when a measure has none).
+    ``distributed_ratio``; NaN when a measure has none). With ``nonlte`` they are under the non-LTE comparison's
+    excitation at gas kinetic temperature ``t`` (each line's ``nonlte_curve``; NaN when a line has none).
     """
     ratio = [m.distributed_ratio if distributed else 1.0 for m in measures]
-    q_i = [m.flux / float(m.scale(np.array([t]))[0]) / r for m, r in zip(measures, ratio)]
-    s_i = [m.sigma / float(m.scale(np.array([t]))[0]) / r for m, r in zip(measures, ratio)]
+    q_i = [m.flux / float(m.scale(np.array([t]), nonlte)[0]) / r for m, r in zip(measures, ratio)]
+    s_i = [m.sigma / float(m.scale(np.array([t]), nonlte)[0]) / r for m, r in zip(measures, ratio)]
     w = 1.0 / np.square(s_i)
     return float(np.sum(w * np.array(q_i)) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w))), q_i, s_i
 

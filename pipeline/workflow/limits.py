@@ -75,8 +75,12 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
         rows["q_distributed"] = [q_d] / u.s
         rows["q_distributed_err"] = [s_d] / u.s
         rows["adopted"] = [bool(rows["detected"][0])]
-        for name in ("q_nonlte", "q_nonlte_err", "q_nonlte_upper"):      # on the sweep's rows only
-            rows[name] = [np.nan] / u.s
+        # under non-LTE at T_kin = the adopted temperature (the measured rotational temperature taken as the gas
+        # kinetic temperature), from each line's non-LTE S(T); NaN without the comparison
+        q_n, s_n, _, _ = q_at_temperature(members, t, nonlte=True)
+        rows["q_nonlte"] = [q_n] / u.s
+        rows["q_nonlte_err"] = [s_n] / u.s
+        rows["q_nonlte_upper"] = _nonlte_upper(np.array([q_n]), np.array([s_n]), rows)
         out.append(rows)
     return out
 

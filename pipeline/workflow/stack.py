@@ -130,8 +130,12 @@ def run(epoch_paths: list[str], species: str, settings: Settings, out_path: str)
                                 "sigma_q_distributed": alt[1][i, j] if alt is not None else np.nan})
         log.info("%s %s: %d spectra (%s) -> Q(T=%g K, first aperture) = %.3g +- %.3g /s", species, group,
                  len(members), ", ".join(lines), t_kin[0], res["q"][0, 0], res["sigma_q"][0, 0])
+    compared = any(i.nonlte_curve is not None for i in inputs)       # 'nonlte_scale': NaN where one has none
     curves = [{"epoch": i.epoch, "cube_id": i.cube_id, "line_id": i.line_id, "aperture": label,
-               "scale": i.curve[:, j]} for i in inputs if i.curve is not None for j, label in enumerate(i.labels)]
+               "scale": i.curve[:, j],
+               **({"nonlte_scale": i.nonlte_curve[:, j] if i.nonlte_curve is not None
+                   else np.full(i.curve.shape[0], np.nan)} if compared else {})}
+              for i in inputs if i.curve is not None for j, label in enumerate(i.labels)]
     stack = SpeciesStack(species=species, n_inputs=len(inputs), spectra=spectra,
                          inputs=rows if len(rows) else Table(names=["epoch"], dtype=[str]),
                          summary=Table(rows=summary) if summary else Table(names=["epoch"], dtype=[str]),

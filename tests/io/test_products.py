@@ -130,7 +130,8 @@ def test_epoch_inputs_round_trip_bit_for_bit(tmp_path):
     line = StackInput(epoch="e1", cube_id="c1", line_id="HCN_265886", velocity=np.linspace(-5, 5, 21),
                       density=rng.normal(size=(3, 2, 21)), q=rng.normal(size=(3, 2)), sigma_q=rng.random((3, 2)),
                       radius_km=np.array([1000.0, 3000.0]), apertures=("1000 km", "3000 km"),
-                      curve=rng.random((7, 2)), window=1.25, distributed_ratio=np.array([0.5, 0.7]))
+                      curve=rng.random((7, 2)), nonlte_curve=rng.random((7, 2)), window=1.25,
+                      distributed_ratio=np.array([0.5, 0.7]))
     band = StackInput(epoch="e1", cube_id="c2", line_id="CO_v1-0", velocity=None, density=None,
                       q=rng.normal(size=(3, 1)), sigma_q=rng.random((3, 1)), radius_km=np.array([500.0]),
                       apertures=("0.4 arcsec",))
@@ -141,10 +142,11 @@ def test_epoch_inputs_round_trip_bit_for_bit(tmp_path):
     back = EpochInputs.from_fits(path)
     assert (back.species, back.epoch, back.skipped) == ("HCN", "e1", ["c3:HCN_354505"])
     got_line, got_band = back.inputs
-    for name in ("velocity", "density", "q", "sigma_q", "radius_km", "curve", "distributed_ratio"):
+    for name in ("velocity", "density", "q", "sigma_q", "radius_km", "curve", "nonlte_curve", "distributed_ratio"):
         np.testing.assert_array_equal(getattr(got_line, name), getattr(line, name))
     assert (got_line.apertures, got_line.window, got_line.cube_id) == (line.apertures, 1.25, "c1")
     assert got_band.velocity is None and got_band.density is None and got_band.curve is None
+    assert got_band.nonlte_curve is None
     assert np.isnan(got_band.window)
     np.testing.assert_array_equal(got_band.q, band.q)
     assert np.isnan(back.rows["scale"][1]) and not hasattr(back.rows["scale"], "mask")

@@ -9,6 +9,7 @@ common value of Gaussian estimates, textbook, from memory).
 """
 
 import logging
+from dataclasses import replace
 from pathlib import Path
 
 import astropy.units as u
@@ -27,6 +28,7 @@ from pipeline.io.products import LineSpectra, SubCube
 from pipeline.rates import q_units
 from pipeline.rates.limits_table import limit_rows
 from pipeline.rates.q_units import nonlte_comparison, stack_input
+from pipeline.rates.temperature import TEMPERATURE_GRID, WindowMeasure, q_at_temperature
 from pipeline.settings import Settings, validate_config
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
 from pipeline.workflow.limits import _nonlte_columns
@@ -91,6 +93,40 @@ def test_the_ratio_is_the_responses_under_both_models_and_the_lte_numbers_do_not
     _, rows_nlte = stack_input(spectra, CAT, T_SWEEP, ComaModel(excitation=_nonlte()), response_curve=False,
                                comparison=_nonlte())
     assert all(np.isnan(r["nonlte_ratio"]) for r in rows_nlte)
+
+
+def test_the_non_lte_curve_gives_q_at_a_temperature_off_the_sweep(tmp_path):
+    """T_kin taken from a measured rotational temperature lies between the sweep's temperatures: Q under non-LTE
+    there comes from the input's non-LTE S(T). Reference: at the temperatures where the curve is computed (every
+    20th point of TEMPERATURE_GRID, the 13 capture temperatures) it must equal the response computed separately
+    under the non-LTE model, line_response_on_grid times the window capture (the ratio test above checks that
+    against the closed forms), and Q there must be flux / S_nonLTE exactly as at a sweep temperature."""
+    spectra = _spectra(tmp_path, "HCN_265886", 2e25)
+    capture = TEMPERATURE_GRID[::20]
+    np.testing.assert_allclose(capture, np.geomspace(5.0, 300.0, 13), rtol=1e-14)   # the grids' construction
+    t_on = capture[[4, 7]] * u.K                                           # 19.6 K and 55.3 K
+    inp, rows = stack_input(spectra, CAT, t_on, ComaModel(), comparison=_nonlte())
+    assert inp.nonlte_curve is not None and inp.nonlte_curve.shape == inp.curve.shape
+    want = np.array([r["scale"] * r["nonlte_ratio"] for r in rows]).reshape(2, -1)
+    np.testing.assert_allclose(inp.nonlte_curve[[80, 140]], want, rtol=1e-9)
+    # without the comparison there is no curve, and under model nonlte neither (its curve already is non-LTE)
+    assert stack_input(spectra, CAT, t_on, ComaModel())[0].nonlte_curve is None
+    assert stack_input(spectra, CAT, t_on, ComaModel(excitation=_nonlte()), comparison=_nonlte())[0].nonlte_curve \
+        is None
+    # Q under non-LTE at a temperature between the two: each measure's flux over its non-LTE S(T), combined by
+    # inverse variance (here one measure per aperture)
+    flux = np.array([r["q"] * r["scale"] for r in rows]).reshape(2, -1)
+    for j, label in enumerate(inp.labels):
+        measure = WindowMeasure(epoch="e1", cube_id="c", line_id="HCN_265886", aperture=label, aperture_km=1.0,
+                                kind="line", flux=flux[0, j], sigma=1.0, curve=inp.curve[:, j],
+                                nonlte_curve=inp.nonlte_curve[:, j])
+        q_on = q_at_temperature([measure], float(t_on[0].value), nonlte=True)[0]
+        assert q_on == pytest.approx(rows[j]["q"] / rows[j]["nonlte_ratio"], rel=1e-9)
+        t_mid = 33.0                                                         # between capture temperatures
+        k = np.searchsorted(TEMPERATURE_GRID, t_mid)
+        lo, hi = sorted(flux[0, j] / inp.nonlte_curve[[k - 1, k], j])
+        assert lo <= q_at_temperature([measure], t_mid, nonlte=True)[0] <= hi
+        assert np.isnan(q_at_temperature([replace(measure, nonlte_curve=None)], t_mid, nonlte=True)[0])
 
 
 def test_a_species_without_a_non_lte_model_is_left_out_with_a_note(tmp_path, caplog, monkeypatch):
