@@ -158,6 +158,17 @@ def stack_epoch_files(wildcards):
     return [f"{OUT}/stack_epoch/{wildcards.species}/{e}.fits" for e in epochs_of_species(wildcards.species)]
 
 
+def water_of_epoch(wildcards):
+    """Input function: the epoch's H2O stack inputs, whose measured water production rate excites the lines under
+    non-LTE (excitation.q_h2o_from: measured), for a species other than H2O at an epoch whose cubes cover a water
+    band; none otherwise."""
+    excitation = config.get("excitation") or {}
+    if (wildcards.species == "H2O" or "H2O" not in SPECIES or excitation.get("q_h2o_from", "measured") != "measured"
+            or wildcards.epoch not in epochs_of_species("H2O")):
+        return []
+    return [f"{OUT}/stack_epoch/H2O/{wildcards.epoch}.fits"]
+
+
 def injection_epoch_files(wildcards):
     """Input function: the per-epoch injection measurements of one species (epochs that cover it)."""
     return [f"{OUT}/injection_epoch/{wildcards.species}/{e}.ecsv" for e in epochs_of_species(wildcards.species)]

@@ -3,12 +3,13 @@ rule stack_epoch:
     input:
         spectra=spectra_of_species,
         bands=band_files_of_species,
+        water=water_of_epoch,
         catalogue=catalogue_files(),
         molecular_data=molecular_data_files(),
     output:
         f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
     params:
-        settings=settings_of("catalogue", "coma", "excitation", "comoving", "interferometer"),
+        settings=settings_of("catalogue", "coma", "excitation", "limits.nsigma", "comoving", "interferometer"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/stack_epoch/{{species}}/{{epoch}}.log",

@@ -78,10 +78,14 @@ COLUMNS: dict[str, tuple[str | None, str]] = {
     "q_distributed": (_PER_S, "Q if the species is a Haser daughter of a distributed source (catalogue "
                               "distributed_scale_km); NaN where the catalogue gives none"),
     "q_distributed_err": (_PER_S, "1-sigma error of q_distributed"),
-    "q_nonlte": (_PER_S, "Q under non-LTE excitation with t_kin_K as the gas temperature (the comparison set by "
-                         "excitation.q_h2o_per_s); NaN without it and on adopted rows"),
+    "q_nonlte": (_PER_S, "Q under non-LTE excitation at gas temperature t_kin_K and water rate q_h2o_excitation "
+                         "(the comparison); NaN without it"),
     "q_nonlte_err": (_PER_S, "1-sigma statistical error of q_nonlte"),
     "q_nonlte_upper": (_PER_S, "upper limit on q_nonlte at the confidence of q_upper (Bayesian, flat prior)"),
+    "q_h2o_excitation": (_PER_S, "Q(H2O) of the non-LTE excitation at this epoch; NaN without it, or for 'all' "
+                                 "when the epochs differ"),
+    "q_h2o_from": (None, "where q_h2o_excitation comes from: the epoch's own H2O measurement, or "
+                         "excitation.q_h2o_per_s and why"),
     "q_fit": (_PER_S, "Q from a fit of the line profile (detections only, else NaN)"),
     "q_fit_err": (_PER_S, "1-sigma error of q_fit"),
     "v_offset": ("km / s", "velocity offset of the fitted line profile in the target's rest frame"),

@@ -38,6 +38,7 @@ from pipeline.coma.response import (ComaModel, GridGeometry, line_departure_on_g
 from pipeline.coma.departure import NonLteSettings
 from pipeline.errors import CatalogueError
 from pipeline.io.products import BandMeasurements, LineSpectra
+from pipeline.rates.excitation_water import ExcitationWater
 from pipeline.rates.stacking import StackInput
 from pipeline.rates.temperature import TEMPERATURE_GRID
 from pipeline.spectra.apertures import aperture_labels
@@ -73,17 +74,21 @@ def blend_partners(line: Line, catalogue: Catalogue, reach: u.Quantity) -> tuple
     return same, other
 
 
-def nonlte_comparison(settings: Settings) -> NonLteSettings | None:
-    """The non-LTE settings of the comparison beside the LTE sweep: under ``excitation.model: lte`` with
-    ``excitation.q_h2o_per_s`` given, the settings model nonlte would have (parsed by
+def nonlte_comparison(settings: Settings, water: ExcitationWater | None = None) -> NonLteSettings | None:
+    """The non-LTE settings of the comparison beside the LTE sweep: under ``excitation.model: lte`` with a water
+    production rate (the epoch's ``water``, :func:`pipeline.rates.excitation_water.epoch_water`, or else
+    ``excitation.q_h2o_per_s``), the settings model nonlte would have (parsed by
     :meth:`pipeline.settings.Settings.from_config` from the step's own ``excitation`` and ``coma`` sections); None
     otherwise (no comparison, or model nonlte, whose responses are already non-LTE)."""
     if nonlte_settings(settings.coma) is not None:
         return None
     given = settings.record
-    if "q_h2o_per_s" not in given["excitation"]:
+    excitation = dict(given["excitation"])
+    if water is not None:
+        excitation["q_h2o_per_s"] = water.q_h2o_per_s
+    if "q_h2o_per_s" not in excitation:
         return None
-    sections = {"coma": given["coma"], "excitation": {**given["excitation"], "model": "nonlte"}}
+    sections = {"coma": given["coma"], "excitation": {**excitation, "model": "nonlte"}}
     return type(settings).from_config(sections, sections=tuple(sections)).coma.excitation
 
 

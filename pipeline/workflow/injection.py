@@ -27,7 +27,8 @@ from pipeline.spectra.band_windows import band_setup, band_windows
 from pipeline.io.products import BandMeasurements, EpochInputs, SubCube
 from pipeline.io.provenance import provenance_record
 from pipeline.spectra.ir_spectra import F_LAMBDA
-from pipeline.coma.response import outflow_speed
+from pipeline.coma.response import nonlte_settings, outflow_speed
+from pipeline.rates.excitation_water import epoch_water, model_with_water
 from pipeline.rates.q_units import stack_input
 from pipeline.settings import Settings
 from pipeline.spectra.line_spectra import extraction_settings
@@ -116,7 +117,8 @@ def _band_rows(bands_paths: list[str], species: str, settings: Settings,
 
 
 def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Settings, out_path: str,
-              bands_paths: list[str] | None = None, stack_inputs_path: str | None = None) -> None:
+              bands_paths: list[str] | None = None, stack_inputs_path: str | None = None,
+              water_path: str | None = None) -> None:
     """Measure every injection placement of one epoch's cubes of ``species``; write the per-epoch table.
 
     Millimetre lines are injected into their sub-cubes (``subcube_paths``) at velocities away from the real
@@ -124,7 +126,9 @@ def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Sett
     (:mod:`pipeline.rates.band_injection`). With the epoch's stack inputs (``stack_inputs_path``,
     :func:`pipeline.workflow.stack.run_epoch`), only the lines and bands the stack combines are injected (not a
     line left out for a window that overlaps another's, or for blank channels). Nothing here depends on other
-    epochs or on the rates to inject.
+    epochs or on the rates to inject. Under model nonlte the model comae are excited at the epoch's water
+    production rate, measured (``water_path``, the epoch's H2O stack inputs) or configured, as the stack's are
+    (:func:`pipeline.rates.excitation_water.epoch_water`).
     """
     stacked = None
     if stack_inputs_path is not None:
@@ -133,6 +137,8 @@ def run_epoch(subcube_paths: list[str], species: str, epoch: str, settings: Sett
     sp = catalogue.get_species(species)
     parent = catalogue.get_species(sp.parent) if sp.parent else None
     model = settings.coma
+    if nonlte_settings(model) is not None:
+        model = model_with_water(model, epoch_water(settings, species, epoch, water_path))
     filtering = settings.interferometer
 
     def to_q_units(spectra):

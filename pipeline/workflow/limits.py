@@ -81,6 +81,7 @@ def _adopted_rows(species: str, group: str, sel, measures, fits, settings: Setti
         rows["q_nonlte"] = [q_n] / u.s
         rows["q_nonlte_err"] = [s_n] / u.s
         rows["q_nonlte_upper"] = _nonlte_upper(np.array([q_n]), np.array([s_n]), rows)
+        _water_columns(rows, inputs, str(group))
         out.append(rows)
     return out
 
@@ -129,6 +130,26 @@ def _nonlte_columns(rows: QTable, sel, t: np.ndarray, inputs, group: str) -> Non
     rows["q_nonlte_upper"] = _nonlte_upper(q_n, s_n, rows)
 
 
+def _water_columns(rows: QTable, inputs, group: str) -> None:
+    """The water production rate of the non-LTE excitation behind the group's inputs, and where it comes from
+    (``q_h2o_excitation``, ``q_h2o_from``, as each epoch's stack inputs recorded them): one epoch's value, or for
+    'all' the value its epochs share (NaN and the epochs' values in words when they differ)."""
+    value, source = np.nan, ""
+    if len(inputs) and "q_h2o_excitation" in inputs.colnames:
+        epoch = np.asarray(inputs["epoch"], dtype=str)
+        q = np.asarray(inputs["q_h2o_excitation"], dtype=float)
+        text = np.asarray(inputs["q_h2o_from"], dtype=str)
+        pick = ((epoch == group) | (group == ALL_GROUP)) & np.isfinite(q)
+        found = dict.fromkeys(zip(epoch[pick], q[pick], text[pick]))
+        if len({(v, t) for _, v, t in found}) == 1:
+            _, value, source = next(iter(found))
+        elif found:
+            source = "per epoch: " + "; ".join(f"{e}: {v:.3g} /s ({'measured' if t.startswith('H2O') else 'config'})"
+                                               for e, v, t in found)
+    rows["q_h2o_excitation"] = np.full(len(rows), value) / u.s
+    rows["q_h2o_from"] = np.array([source] * len(rows), dtype=str)
+
+
 def _nonlte_upper(q_n: np.ndarray, s_n: np.ndarray, rows: QTable) -> u.Quantity:
     """The Bayesian upper limit of q_nonlte at the rows' confidence (NaN where q_nonlte is)."""
     out = np.full(len(rows), np.nan)
@@ -172,6 +193,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
                               str(sel["lines"][0]).split(","), str(sel["cubes"][0]).split(","))
             _distributed_columns(rows, sel, t)
             _nonlte_columns(rows, sel, t, inputs, str(group))
+            _water_columns(rows, inputs, str(group))
             add_fit_columns(rows)
             fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass)
             opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
@@ -189,8 +211,9 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
         table["surviving_fraction"] = np.zeros(0)
         table["q_distributed"] = np.zeros(0) / u.s
         table["q_distributed_err"] = np.zeros(0) / u.s
-        for name in ("q_nonlte", "q_nonlte_err", "q_nonlte_upper"):
+        for name in ("q_nonlte", "q_nonlte_err", "q_nonlte_upper", "q_h2o_excitation"):
             table[name] = np.zeros(0) / u.s
+        table["q_h2o_from"] = np.zeros(0, dtype=str)
         table = _with_adoption_columns(table)
     if len(table):
         table = mark_adopted(table, any(m.kind == "line" for m in measures))
@@ -219,7 +242,8 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
         table.meta["apertures_left_out"] = left_out
     table.meta["assumptions"] = {
         "excitation": ("LTE at T_kin, optically thin, cosmic background 2.725 K" if nonlte_settings(settings.coma)
-                       is None else nonlte_settings(settings.coma).describe() + "; T_kin is the gas kinetic temperature"),
+                       is None else nonlte_settings(settings.coma).describe() + "; T_kin is the gas kinetic temperature"
+                       "; Q(H2O) of each epoch in q_h2o_excitation, its source in q_h2o_from"),
         "coma": "Haser parent distribution, isotropic uniform outflow",
         "outflow_km_s": settings.coma.outflow,
         "photodestruction": f"{settings.coma.solar_activity} Sun, lifetimes scaled as r_h^2",

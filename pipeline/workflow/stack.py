@@ -13,6 +13,8 @@ from pipeline.io.atomic import write_fits
 from pipeline.errors import CoverageError
 from pipeline.io.products import BandMeasurements, EpochInputs, LineSpectra, SpeciesStack, StackedSpectrum
 from pipeline.io.provenance import add_to_header, provenance_record
+from pipeline.coma.response import nonlte_settings
+from pipeline.rates.excitation_water import epoch_water, model_with_water
 from pipeline.rates.q_units import band_inputs, nonlte_comparison, stack_input
 from pipeline.rates.stacking import combine, combine_distributed, distinct_windows, shared_apertures, velocity_grid
 from pipeline.settings import Settings
@@ -23,17 +25,27 @@ log = logging.getLogger(__name__)
 ALL = "all"
 
 
-def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Settings, out_path: str) -> None:
+def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Settings, out_path: str,
+              water_path: str | None = None) -> None:
     """One epoch's spectra (and infrared band measurements) of ``species`` in Q units: the stack's inputs, kept.
 
     ``spectra_paths`` holds spectra files of millimetre lines and bands files of infrared cubes of one epoch. The
     conversion (each line's response on its own grid, window capture, blends) is what a stack costs per input;
-    done here once per epoch, adding an epoch later does not redo it.
+    done here once per epoch, adding an epoch later does not redo it. ``water_path``, the epoch's H2O stack
+    inputs, gives the water production rate of the non-LTE excitation
+    (:func:`pipeline.rates.excitation_water.epoch_water`); every row records the rate used and its source.
     """
     catalogue = settings.catalogue()
     catalogue.get_species(species)
     filtering = settings.interferometer
-    comparison = nonlte_comparison(settings)     # non-LTE settings beside an LTE run (excitation.q_h2o_per_s), or None
+    water = epoch_water(settings, species, epoch, water_path)
+    model = model_with_water(settings.coma, water)            # model nonlte at the epoch's water rate
+    comparison = nonlte_comparison(settings, water)  # non-LTE settings beside an LTE run, or None
+    compared = nonlte_settings(model) is not None or comparison is not None
+    if compared:
+        log.info("%s, epoch %s: non-LTE excitation at Q(H2O) = %.3g /s: %s", species, epoch,
+                 water.q_h2o_per_s if water is not None else float("nan"),
+                 water.source if water is not None else "excitation.q_h2o_per_s")
     inputs, rows, skipped = [], [], []
     for path in spectra_paths:
         with fits.open(path) as spectra:
@@ -48,7 +60,7 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
             if not line_spectra.meta.covered or line_spectra.flux is None:
                 skipped.append(f"{line_spectra.meta.cube_id}:{line_spectra.meta.line_id}")
                 continue
-            inp, r = stack_input(line_spectra, catalogue, settings.t_kin, settings.coma,
+            inp, r = stack_input(line_spectra, catalogue, settings.t_kin, model,
                                   filtering.shortest_baseline if filtering else None,
                                   filtering.correct if filtering else True, comparison=comparison)
         if not np.all(np.isfinite(inp.q)):
@@ -63,7 +75,9 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
         log.warning("%s: %s", species, note)
     skipped.extend(overlapping)
     kept = {(i.cube_id, i.line_id) for i in inputs}
-    rows = [r for r in rows if (r["cube_id"], r["line_id"]) in kept]
+    rows = [{**r, "q_h2o_excitation": water.q_h2o_per_s if compared and water is not None else np.nan,
+             "q_h2o_from": water.source if compared and water is not None else ""}
+            for r in rows if (r["cube_id"], r["line_id"]) in kept]
     for inp in inputs:
         if inp.epoch != epoch:
             msg = (f"{inp.cube_id}: its {inp.line_id} measurement belongs to epoch {inp.epoch!r}, expected {epoch!r} "

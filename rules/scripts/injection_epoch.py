@@ -8,4 +8,5 @@ log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
     injection.run_epoch(list(snakemake.input.subcubes), snakemake.wildcards.species, snakemake.wildcards.epoch,
-                        settings, snakemake.output[0], list(snakemake.input.bands), snakemake.input.stack_inputs)
+                        settings, snakemake.output[0], list(snakemake.input.bands), snakemake.input.stack_inputs,
+                        water_path=snakemake.input.water[0] if snakemake.input.water else None)

@@ -8,4 +8,5 @@ log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
     stack.run_epoch(list(snakemake.input.spectra) + list(snakemake.input.bands), snakemake.wildcards.species,
-                    snakemake.wildcards.epoch, settings, snakemake.output[0])
+                    snakemake.wildcards.epoch, settings, snakemake.output[0],
+                    water_path=snakemake.input.water[0] if snakemake.input.water else None)
