@@ -76,7 +76,7 @@ def measured_water(rows, epoch: str, nsigma: float) -> tuple[u.Quantity, u.Quant
             bands = ", ".join(dict.fromkeys(f"{c}:{b}" for c, b in zip(pick["cube_id"], pick["line_id"])))
             best = (float(q), float(s), label, float(snr), bands)
     q, s, label, snr, bands = best
-    text = (f"H2O measured at {epoch}: Q = {q:.3g} ± {s:.2g} /s, S/N {snr:.1f} (detection threshold {nsigma:g}), "
+    text = (f"H2O measured at {epoch}: Q = {q:.3g} +/- {s:.2g} /s, S/N {snr:.1f} (detection threshold {nsigma:g}), "
             f"{label} aperture, bands {bands}")
     return q / u.s, s / u.s, text
 
