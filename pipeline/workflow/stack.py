@@ -75,8 +75,9 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
         log.warning("%s: %s", species, note)
     skipped.extend(overlapping)
     kept = {(i.cube_id, i.line_id) for i in inputs}
-    rows = [{**r, "q_h2o_excitation": water.q_h2o_per_s if compared and water is not None else np.nan,
-             "q_h2o_from": water.source if compared and water is not None else ""}
+    excited = compared and water is not None         # lines only: a band's Q does not depend on the excitation
+    rows = [{**r, "q_h2o_excitation": water.q_h2o_per_s if excited and r["kind"] == "line" else np.nan,
+             "q_h2o_from": water.source if excited and r["kind"] == "line" else ""}
             for r in rows if (r["cube_id"], r["line_id"]) in kept]
     for inp in inputs:
         if inp.epoch != epoch:
