@@ -30,7 +30,7 @@ from pipeline.errors import CatalogueError  # noqa: E402
 from pipeline.io.tables import cell_float  # noqa: E402
 from pipeline.report.html import figure_html, table_html  # noqa: E402
 
-__all__ = ["RotationalProfile", "excitation_caution", "main_lines", "rotational_profiles", "off_axis",
+__all__ = ["RotationalProfile", "EpochWater", "water_per_epoch", "water_text", "excitation_caution", "main_lines", "rotational_profiles", "off_axis",
            "plot_rotational_temperature", "excitation_section", "SECTION_TITLE"]
 
 #: The heading of the section (the caution box points to it).
@@ -54,23 +54,66 @@ class RotationalProfile:
     t_rot: np.ndarray                # K
 
 
-def excitation_caution(nonlte: NonLteSettings | None, comparison: NonLteSettings | None, short: bool = False) -> str:
+@dataclass(frozen=True)
+class EpochWater:
+    """The water production rate the non-LTE excitation used at one epoch, and where it comes from."""
+
+    epoch: str
+    q_h2o_per_s: float
+    source: str
+
+    @property
+    def measured(self) -> bool:
+        return self.source.startswith("H2O measured")
+
+
+def water_per_epoch(limits: QTable) -> list[EpochWater]:
+    """Each epoch's Q(H2O) of the non-LTE excitation, as the limits table records it (``q_h2o_excitation``,
+    ``q_h2o_from`` of the epoch's line rows); empty without non-LTE."""
+    if not len(limits) or "q_h2o_excitation" not in limits.colnames:
+        return []
+    found: dict[str, EpochWater] = {}
+    for r in limits:
+        q = cell_float(r["q_h2o_excitation"], 1 / u.s)
+        if str(r["epoch"]) != "all" and np.isfinite(q) and str(r["epoch"]) not in found:
+            found[str(r["epoch"])] = EpochWater(epoch=str(r["epoch"]), q_h2o_per_s=q, source=str(r["q_h2o_from"]))
+    return list(found.values())
+
+
+def water_text(waters: list[EpochWater], fallback: float | None = None) -> str:
+    """Q(H2O) in words: which epochs took the campaign's own water measurement, which the config key."""
+    measured = [w for w in waters if w.measured]
+    configured = [w for w in waters if not w.measured]
+    parts = []
+    if measured:
+        parts.append("Q(H2O) measured by the campaign at " + ", ".join(f"{w.epoch} ({w.q_h2o_per_s:.3g} /s)"
+                                                                      for w in measured))
+    if configured:
+        parts.append(f"excitation.q_h2o_per_s ({configured[0].q_h2o_per_s:.3g} /s) at "
+                     + ", ".join(w.epoch for w in configured))
+    if not parts and fallback is not None:
+        parts.append(f"Q(H2O) = {fallback:.3g} /s (excitation.q_h2o_per_s)")
+    return "; ".join(parts)
+
+
+def excitation_caution(nonlte: NonLteSettings | None, comparison: NonLteSettings | None, short: bool = False,
+                       waters: list[EpochWater] | None = None) -> str:
     """The excitation clause of the report's caution: what the quoted numbers assume and where the other model is
-    (``short``: a few words for the line at the top)."""
+    (``short``: a few words for the line at the top); ``waters`` the epochs' Q(H2O) (:func:`water_per_epoch`)."""
+    waters = waters or []
     if short:
         if nonlte is not None:
-            return f"non-LTE line excitation at Q(H2O) = {nonlte.q_h2o_per_s:.3g} /s"
+            return "non-LTE line excitation at " + water_text(waters, nonlte.q_h2o_per_s)
         return "LTE line excitation" + (f"; non-LTE beside it in '{SECTION_TITLE}'" if comparison is not None else "")
     if nonlte is not None:
-        return (f"non-LTE excitation of the millimetre lines (level populations along the outflow at Q(H2O) = "
-                f"{nonlte.q_h2o_per_s:.3g} /s, the campaign's excitation.q_h2o_per_s, not its own water "
-                f"measurement; x_ne = {nonlte.x_ne:g}, water cross-section {nonlte.sigma_cm2:.3g} cm^2), the kinetic "
-                "temperatures listed being the gas temperature")
+        return (f"non-LTE excitation of the millimetre lines (level populations along the outflow at "
+                f"{water_text(waters, nonlte.q_h2o_per_s)}; x_ne = {nonlte.x_ne:g}, water cross-section "
+                f"{nonlte.sigma_cm2:.3g} cm^2), the kinetic temperatures listed being the gas temperature")
     if comparison is not None:
         return ("LTE excitation at the kinetic temperatures listed (the section '" + SECTION_TITLE + "' gives Q "
-                f"under non-LTE excitation at Q(H2O) = {comparison.q_h2o_per_s:.3g} /s beside them)")
-    return ("LTE excitation at the kinetic temperatures listed (no non-LTE comparison: excitation.q_h2o_per_s is "
-            "not set)")
+                f"under non-LTE excitation at {water_text(waters, comparison.q_h2o_per_s)} beside them)")
+    return ("LTE excitation at the kinetic temperatures listed (no non-LTE comparison: the campaign measured no "
+            "water and excitation.q_h2o_per_s is not set)")
 
 
 def main_lines(limits: QTable, catalogue: Catalogue) -> dict[str, str | None]:
@@ -171,9 +214,11 @@ def _value_text(q: float, err: float, upper: float, nsigma: float) -> str:
 
 
 def _sweep_rows(limits: QTable, name: str) -> QTable:
-    """The species' rows of the LTE sweep for all epochs combined at its smallest aperture, by temperature."""
+    """The species' rows of the sweep, and at the measured or configured temperature, for all epochs combined at
+    its smallest aperture, by temperature."""
     sel = limits[(np.asarray(limits["species"], dtype=str) == name) & (np.asarray(limits["epoch"], dtype=str) == "all")
-                 & np.isin(np.asarray(limits["t_origin"], dtype=str), ("sweep", "conservative"))]
+                 & np.isin(np.asarray(limits["t_origin"], dtype=str), ("sweep", "conservative", "measured",
+                                                                        "configured"))]
     if not len(sel):
         return sel
     ap = u.Quantity(sel["aperture_km"], u.km).value
@@ -194,6 +239,9 @@ def _comparison_table(limits: QTable, names: list[str], nsigma: float, nonlte_mo
         for r in sel:
             q, err, up = (cell_float(r[c], 1 / u.s) for c in ("q", "q_err", "q_upper"))
             t = cell_float(r["t_kin_K"], u.K)
+            origin = str(r["t_origin"])
+            if origin in ("measured", "configured"):       # T_kin from the measured rotational temperature
+                t = f"{t:.3g} ({origin}" + (f", {r['t_source']})" if origin == "measured" else ")")
             ap = cell_float(r["aperture_km"], u.km)
             if nonlte_model:
                 rows.append([name, ap, t, _value_text(q, err, up, nsigma)])
@@ -212,6 +260,14 @@ def _comparison_table(limits: QTable, names: list[str], nsigma: float, nonlte_mo
                        "non-LTE / LTE"], rows, left=1), missing
 
 
+def _water_table(waters: list[EpochWater]) -> str:
+    return ("<p>The water production rate whose collisions (and electrons) excite the lines, per epoch "
+            "(excitation.q_h2o_from: the campaign's own H2O band measurement where it is a detection, else "
+            "excitation.q_h2o_per_s):</p>"
+            + table_html(["epoch", "Q(H2O) [1/s]", "from"], [[w.epoch, w.q_h2o_per_s, w.source] for w in waters],
+                         left=1))
+
+
 def excitation_section(limits: QTable, catalogue: Catalogue, t_kin: u.Quantity, nsigma: float,
                        nonlte: NonLteSettings | None, comparison: NonLteSettings | None, r_h: u.Quantity | None,
                        speed: u.Quantity | None, to_png) -> str:
@@ -225,20 +281,30 @@ def excitation_section(limits: QTable, catalogue: Catalogue, t_kin: u.Quantity, 
     shown = nonlte if nonlte is not None else comparison
     lines = main_lines(limits, catalogue) if len(limits) else {}
     if shown is None:
-        return ("<p>The limits assume LTE at each swept kinetic temperature. No non-LTE comparison was made: set "
-                "excitation.q_h2o_per_s (the water production rate whose collisions excite the lines) to see Q "
-                "under non-LTE excitation beside the LTE sweep, or excitation.model: nonlte to quote it.</p>")
+        return ("<p>The limits assume LTE at each swept kinetic temperature. No non-LTE comparison was made: the "
+                "campaign measured no water and excitation.q_h2o_per_s is not set (the water production rate whose "
+                "collisions excite the lines); set it to see Q under non-LTE excitation beside the LTE sweep, or "
+                "excitation.model: nonlte to quote it.</p>")
+    waters = water_per_epoch(limits)
+    figure_water = (f"{shown.q_h2o_per_s:.3g} /s (the median over the epochs above)" if waters
+                    else f"{shown.q_h2o_per_s:.3g} /s (excitation.q_h2o_per_s)")
     parts = []
     if nonlte is not None:
         parts.append("<p>The quoted Q are those of the non-LTE model (" + html.escape(nonlte.describe()) + "), each "
                      "swept temperature being the gas kinetic temperature. All epochs combined, smallest "
                      "aperture:</p>")
+        if waters:
+            parts.append(_water_table(waters))
     else:
         parts.append("<p>The limits assume LTE at each swept kinetic temperature. Beside them, Q under the non-LTE "
                      "model (" + html.escape(comparison.describe()) + ") with that temperature as the gas kinetic "
                      "temperature; the same spectra, only each line's response changes (the quoted results stay "
                      "the LTE ones). All epochs combined, smallest aperture; the ratio is of Q where both are "
-                     "detections, else of the upper limits.</p>")
+                     "detections, else of the upper limits. A row at a measured temperature takes the rotational "
+                     "temperature measured from a species' lines as the gas kinetic temperature (common practice, "
+                     "exact only where collisions thermalise the levels).</p>")
+    if waters:
+        parts.append(_water_table(waters))
     if lines:
         table, missing = _comparison_table(limits, list(lines), nsigma, nonlte is not None)
         parts.append(table)
@@ -260,8 +326,8 @@ def excitation_section(limits: QTable, catalogue: Catalogue, t_kin: u.Quantity, 
             caption = (f"Rotational temperature along the outflow under the non-LTE model ({which}) at each swept "
                        f"gas kinetic temperature (solid) and that temperature, LTE (dashed); dotted: the 2.725 K "
                        f"cosmic background. At the campaign's mean r_h = {r_h.to_value(u.au):.3g} au, outflow "
-                       f"{speed.to_value(u.km / u.s):.3g} km/s, Q(H2O) = {shown.q_h2o_per_s:.3g} /s "
-                       f"(excitation.q_h2o_per_s), x_ne = {shown.x_ne:g}, water cross-section "
+                       f"{speed.to_value(u.km / u.s):.3g} km/s, Q(H2O) = {figure_water}, x_ne = {shown.x_ne:g}, "
+                       "water cross-section "
                        f"{shown.sigma_cm2:.3g} cm², infrared pumping at 1 au (scaled as r_h^-2): {pumped}; "
                        f"{'steady-state' if shown.steady_state else 'time-dependent'} populations, LTE inside "
                        "10 km. Near the nucleus collisions hold T_rot at T_kin; far out the levels relax toward the "

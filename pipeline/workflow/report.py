@@ -7,6 +7,7 @@ import json
 from pathlib import Path
 
 import astropy.units as u
+import numpy as np
 
 from pipeline import __version__
 from pipeline.io.atomic import atomic_path, write_text
@@ -14,7 +15,8 @@ from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams
                                      plot_temperature_sweep, to_png)
 from pipeline.report.campaign_figure import IMG_ID, campaign_figures, plot_note
 from pipeline.report.cube_figures import cubes_section
-from pipeline.report.excitation import SECTION_TITLE, excitation_caution, excitation_section
+from pipeline.rates.excitation_water import ExcitationWater, with_water
+from pipeline.report.excitation import SECTION_TITLE, excitation_caution, excitation_section, water_per_epoch
 from pipeline.report.html import anchored_figure_html, figure_html, page, table_html
 from pipeline.report.sections import (afrho_points, band_panels, budget_figure, forecast_section, infrared_section,
                                       injection_section, joint_section, quoted_section, rotational_diagrams,
@@ -74,8 +76,14 @@ def run(inputs, outputs, settings: Settings) -> None:
     _write_png(fig_budget, outputs.budget)
     _write_png(fig_sweep, outputs.sweep)
 
-    nonlte, comparison = nonlte_settings(settings.coma), nonlte_comparison(settings)
-    short = SHORT_CAUTION.format(excitation=excitation_caution(nonlte, comparison, short=True))
+    # the non-LTE settings shown: at the median of the epochs' water rates when the run recorded them
+    waters = water_per_epoch(limits)
+    water = (ExcitationWater(q_h2o=float(np.median([w.q_h2o_per_s for w in waters])) / u.s, origin="epochs",
+                             source="the median of the epochs' values") if waters else None)
+    nonlte, comparison = nonlte_settings(settings.coma), nonlte_comparison(settings, water)
+    if nonlte is not None and water is not None:
+        nonlte = with_water(nonlte, water)
+    short = SHORT_CAUTION.format(excitation=excitation_caution(nonlte, comparison, short=True, waters=waters))
     sections = [("", f'<p class="caution">{html.escape(short)}</p>'),
                 ("", anchored_figure_html(campaign.drivers_png, campaign.drivers_caption, campaign.drivers_alt,
                                           IMG_ID))]
@@ -92,7 +100,7 @@ def run(inputs, outputs, settings: Settings) -> None:
     else:
         sections.append(("Verdict", no_verdict_html(missing or ["budget.ecsv has no rows"])
                          + defaulted_html(defaulted)))
-    caution = CAUTION.format(excitation=excitation_caution(nonlte, comparison))
+    caution = CAUTION.format(excitation=excitation_caution(nonlte, comparison, waters=waters))
     sections.append(("", f'<div class="caution" id="caution"><b>Read this first.</b> {html.escape(caution)}</div>'))
     if campaign.tracers_png is not None:
         sections.append(("Tracers", figure_html(campaign.tracers_png, campaign.tracers_caption,

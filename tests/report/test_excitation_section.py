@@ -18,7 +18,7 @@ from pipeline.catalogue.entries import load_catalogue
 from pipeline.coma.departure import NonLteSettings
 from pipeline.rates.limits_table import limit_rows, mark_conservative
 from pipeline.report.excitation import (SECTION_TITLE, excitation_caution, excitation_section, main_lines,
-                                        rotational_profiles)
+                                        rotational_profiles, water_per_epoch)
 from pipeline.report.figures import to_png
 
 CAT = load_catalogue()
@@ -92,6 +92,36 @@ def test_the_caution_names_the_excitation():
     nonlte = excitation_caution(_settings(3e27), None)
     assert nonlte.startswith("non-LTE excitation") and "Q(H2O) = 3e+27 /s" in nonlte
     assert "3e+27" in excitation_caution(_settings(3e27), None, short=True)
+
+
+def test_the_water_of_each_epoch_and_the_measured_temperature_are_shown():
+    """The rows' recorded Q(H2O) per epoch (measured or configured) reach the section's table and the caution, and a
+    row at the measured temperature sits in the comparison table with its source."""
+    from astropy.table import vstack
+
+    limits = _limits(True)
+    measured = limits[(limits["species"] == "HCN")][:1]
+    measured["t_kin_K"][0] = 27.5                          # K, the column's unit
+    measured["t_origin"] = "measured"
+    measured["t_source"] = "CH3OH (all, 300 km)"
+    epochs = vstack([limits[:1], limits[:1]])
+    epochs["epoch"] = ["e1", "e2"]
+    table = vstack([limits, measured, epochs])
+    table["t_source"] = np.asarray(table["t_source"], dtype="U64")
+    table["q_h2o_excitation"] = np.where(table["epoch"] == "e1", 3.9e26,
+                                         np.where(table["epoch"] == "e2", 4e26, np.nan)) / u.s
+    table["q_h2o_from"] = np.where(table["epoch"] == "e1", "H2O measured at e1: Q = 3.9e+26 +/- 5e+24 /s",
+                                   np.where(table["epoch"] == "e2", "excitation.q_h2o_per_s = 4e+26 /s (no H2O band "
+                                            "measured at e2)", ""))
+    waters = water_per_epoch(table)
+    assert [(w.epoch, w.q_h2o_per_s, w.measured) for w in waters] == [("e1", 3.9e26, True), ("e2", 4e26, False)]
+    text = _text(excitation_section(table, CAT, T_SWEEP, 3.0, None, _settings(3.95e26), 1.3 * u.au,
+                                    0.75 * u.km / u.s, to_png))
+    assert "H2O measured at e1" in text and "no H2O band measured at e2" in text
+    assert "27.5 (measured, CH3OH (all, 300 km))" in text
+    assert "Q(H2O) = 3.95e+26 /s (the median over the epochs above)" in text
+    caution = excitation_caution(None, _settings(), waters=waters)
+    assert "measured by the campaign at e1 (3.9e+26 /s)" in caution and "(4e+26 /s) at e2" in caution
 
 
 def test_main_lines_are_the_observed_ones():
