@@ -129,11 +129,12 @@ def model_with_water(model: "ComaModel", water: ExcitationWater | None) -> "Coma
 def epoch_water(settings: "Settings", species: str, epoch: str, water_inputs_path: str | None) -> ExcitationWater | None:
     """:func:`excitation_water` for a step of ``species`` at ``epoch``, from its settings (``excitation``,
     ``limits``) and the H2O stack inputs of the epoch (``stack_epoch/H2O/<epoch>.fits``, None without). The water
-    itself takes ``excitation.q_h2o_per_s`` (its own measurement is not an input of its own stack)."""
+    itself takes ``excitation.q_h2o_per_s`` (its own measurement is not an input of its own stack). ``limits.nsigma``
+    is read only with the water's inputs (a step without them is not given it)."""
     from pipeline.io.products import EpochInputs
 
     exc = settings.record["excitation"]
     rows = (EpochInputs.from_fits(water_inputs_path).rows if water_inputs_path and species != WATER else None)
     return excitation_water(epoch, rows, str(exc.get("q_h2o_from", "measured")),
                             float(exc["q_h2o_per_s"]) if "q_h2o_per_s" in exc else None,
-                            float(settings.limits.nsigma))
+                            float(settings.limits.nsigma) if rows is not None else float("inf"))
