@@ -333,9 +333,11 @@ def excitation_section(limits: QTable, catalogue: Catalogue, t_kin: u.Quantity, 
                        "10 km. Near the nucleus collisions hold T_rot at T_kin; far out the levels relax toward the "
                        "equilibrium of the background and the pumping.")
             if off_axis(profiles):
-                caption += (f" Above {T_AXIS[1]:g} times the highest T_kin the curves leave the axis: where "
-                            "collisions with hot electrons (or pumping) bring the two levels near equal populations "
-                            "per statistical weight, T_rot grows without bound (negative for an inversion).")
+                caption += (f" Above {T_AXIS[1]:g} times the highest T_kin the curves leave the axis: where the "
+                            "two levels come near equal populations per statistical weight, T_rot grows without "
+                            "bound (negative for an inversion). From a warm start this is mostly the cascade: once "
+                            "collisions stop, molecules falling from the higher levels feed the upper level faster "
+                            "than it decays (hot electrons and pumping add to it).")
             parts.append(figure_html(to_png(plot_rotational_temperature(profiles)), caption,
                                      "rotational temperature against distance from the nucleus"))
         if notes:

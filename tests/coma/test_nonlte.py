@@ -365,3 +365,35 @@ def test_steady_state_is_the_null_vector_of_the_rate_matrix():
         mat = rate_matrix(HCN, m, prof.r[k]).to_value(1 / u.s)
         x = linalg.null_space(mat)[:, 0]
         assert_allclose(prof.populations[k], x / x.sum(), rtol=1e-5, atol=1e-14)
+
+
+def test_the_cascade_from_a_warm_start_inverts_j3_over_j2_as_an_independent_solution_does():
+    """Why T_rot(3/2) of HCN leaves the report's axis some hundred km out at T_kin = 80 K: once collisions stop,
+    molecules cascade down from the levels a warm LTE start fills (A grows as J^3), and J=3 is fed faster than it
+    decays into J=2, so x_3/g_3 passes x_2/g_2 (T_rot infinite, then negative: an inversion) before everything
+    relaxes to the background. Independent reference: with only spontaneous emission and the 2.725 K background,
+    the populations are x(t) = expm(G t) x(0), G built here from the Einstein relations (scipy.linalg.expm),
+    x(0) the Boltzmann distribution at 80 K, t = (r - r_min) / v."""
+    m = model(t_kin=80 * u.K, speed=0.75 * u.km / u.s, include_collisions=False, include_electrons=False,
+              include_pumping=False, r_max=1e5 * u.km, n_r=121)
+    prof = solve_populations(HCN, m)
+    n = HCN.n_levels
+    gen = np.zeros((n, n))
+    h_k = (const.h / const.k_B).to_value(u.K / u.GHz)
+    for k in range(len(HCN.a_ul)):
+        up, lo = HCN.upper[k], HCN.lower[k]
+        a = HCN.a_ul[k].to_value(1 / u.s)
+        occ = 1.0 / np.expm1(h_k * HCN.freq[k].to_value(u.GHz) / T_CMB.to_value(u.K))
+        for src, dst, rate in ((up, lo, a * (1 + occ)), (lo, up, a * HCN.weight[up] / HCN.weight[lo] * occ)):
+            gen[dst, src] += rate
+            gen[src, src] -= rate
+    x0 = _boltzmann(HCN, 80.0)
+    t = (prof.r - m.r_min).to_value(u.km) / 0.75
+    want = np.array([linalg.expm(gen * tk) @ x0 for tk in t])
+    assert_allclose(prof.populations, want, rtol=1e-5, atol=1e-10)
+    # the inversion: x_3 g_2 / (x_2 g_3) rises above 1 and falls back below it, in both solutions
+    per_g = want[:, 3] * HCN.weight[2] / (want[:, 2] * HCN.weight[3])
+    assert per_g[0] < 1 and per_g.max() > 1 and per_g[-1] < 1
+    inverted = prof.r[per_g > 1].to_value(u.km)
+    assert 50 < inverted.min() < inverted.max() < 5000                  # a few hundred km at 0.75 km/s
+    assert np.all(prof.rotational_temperature(2, 3)[per_g > 1] < 0 * u.K)
