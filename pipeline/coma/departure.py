@@ -28,8 +28,8 @@ outside (inside r_min the populations are held at LTE, beyond r_max they are fro
 columns share the nodes, so w = 1 gives f = 1 exactly; the unweighted column agrees with the
 closed form of :func:`pipeline.coma.haser.parent_column_density` to 1e-9 (tests).
 
-The water production rate drives the collisions (``NonLteSettings.q_h2o_per_s``, given by the
-campaign; taking it from the campaign's own water measurement is not done). The populations are
+The water production rate drives the collisions (``NonLteSettings.q_h2o_per_s``: the configured value, or the
+epoch's own water measurement put in by :func:`pipeline.rates.excitation_water.model_with_water`). The populations are
 those of molecules that left the nucleus: a daughter (or a species from a distributed source) made
 farther out is given them too, as the population model has no production term (an approximation).
 The interferometric surviving fraction is not weighted (see
