@@ -53,19 +53,20 @@ def inverse_radius_fraction(radius_rad: float, q_min: float) -> float:
 def surviving_fraction(shape: tuple[int, int], x: float, y: float, pixel_arcsec: float, radii_pix: list[float],
                        beam_pix: tuple[float, float, float] | None, speed: u.Quantity, length: u.Quantity,
                        q_min: float, delta: u.Quantity, length_daughter: u.Quantity | None = None,
-                       pad: int = 4) -> np.ndarray:
+                       pad: int = 4, weight=None) -> np.ndarray:
     """Fraction of the model coma flux in each aperture that survives the loss of spatial frequencies < q_min.
 
     The model is computed on a grid ``pad`` times larger than ``shape`` (the coma extends past the field and
     its large scales matter), filtered in the Fourier domain, convolved with the beam, and summed with the
-    extraction's aperture weights.
+    extraction's aperture weights. With ``weight`` (a line's non-LTE column factor f(rho),
+    :func:`pipeline.coma.response.line_column_weight_of`) the model is the line's non-LTE brightness.
     """
     ny, nx = shape
     big = (ny * pad, nx * pad)
     ox, oy = (big[1] - nx) // 2, (big[0] - ny) // 2
     pixel_rad = (pixel_arcsec * u.arcsec).to_value(u.rad)
     pixel_km = pixel_rad * u.Quantity(delta).to_value(u.km)
-    img = coma_molecules_image(big, x + ox, y + oy, pixel_km, speed, length, length_daughter)
+    img = coma_molecules_image(big, x + ox, y + oy, pixel_km, speed, length, length_daughter, weight=weight)
     kernel = None if beam_pix is None else beam_kernel(*beam_pix)
     fy = np.fft.fftfreq(big[0], d=pixel_rad)
     fx = np.fft.fftfreq(big[1], d=pixel_rad)

@@ -28,7 +28,7 @@ from pipeline.coma.line_profile import channel_fractions, thermal_dispersion
 
 __all__ = ["ComaModel", "EXCITATION_NOT_GIVEN", "nonlte_settings", "line_column_weight_of", "outflow_speed",
            "scale_lengths", "line_response", "line_departure", "window_capture", "SPECTRAL_RESPONSES", "GridGeometry",
-           "line_response_on_grid", "line_departure_on_grid", "band_response_on_grid"]
+           "line_response_on_grid", "line_departure_on_grid", "filtering_departure_on_grid", "band_response_on_grid"]
 
 #: ``ComaModel.excitation`` of a step that was not given the config's ``excitation`` section (reading it raises).
 EXCITATION_NOT_GIVEN = "not given"
@@ -233,9 +233,10 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
     counts on the model coma image convolved with the beam and summed with the extraction's exact-overlap
     weights (:func:`pipeline.coma.image.aperture_count_on_grid`); :func:`line_response` is its closed form
     for a circular Gaussian beam on an infinite grid, the check of this one. Under non-LTE excitation the response
-    is multiplied by the line's departure on the same grid (:func:`line_departure_on_grid`); the surviving
-    fraction of an interferometer's filtering is still that of the plain Haser image (not weighted by the
-    departure: an approximation, its size not measured).
+    is multiplied by the line's departure on the same grid (:func:`line_departure_on_grid`), and the surviving
+    fraction of an interferometer's filtering is that of the line's non-LTE brightness
+    (:func:`filtering_departure_on_grid`: emission concentrated nearer the nucleus loses less to the missing short
+    spacings, by 20-40 % in the tested cases).
 
     Parameters
     ----------
@@ -253,8 +254,8 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
     Returns
     -------
     response : Quantity, shape (n_T, n_apertures), in Jy km/s s
-    surviving : ndarray, shape (n_apertures,)
-        1 without an interferometer.
+    surviving : ndarray, shape (n_T, n_apertures)
+        1 without an interferometer; the same at every temperature under LTE.
     """
     from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
 
@@ -264,14 +265,41 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
     resp = (flux_per_molecule(line, species, t_kin, delta)[:, None] * count[None, :]).to_value(u.Jy * u.km / u.s)
     if nonlte_settings(model) is not None:
         resp = resp * line_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid, model)
-    surviving = np.ones(len(grid.radii_pix))
+    surviving = np.ones((t_kin.size, len(grid.radii_pix)))
     if shortest_baseline is not None:
         q_min = min_spatial_frequency(shortest_baseline, line.freq)
-        surviving = surviving_fraction(grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix),
-                                       grid.beam_pix, v_out, length, q_min, delta, daughter)
+        plain = surviving_fraction(grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix),
+                                   grid.beam_pix, v_out, length, q_min, delta, daughter)
+        surviving = plain[None, :] * filtering_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid,
+                                                                 model, shortest_baseline)
         if correct_filtering:
-            resp = resp * surviving[None, :]
+            resp = resp * surviving
     return resp * (u.Jy * u.km / u.s * u.s), surviving
+
+
+def filtering_departure_on_grid(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,
+                                r_h: u.Quantity, delta: u.Quantity, grid: GridGeometry, model: ComaModel,
+                                shortest_baseline: u.Quantity | None) -> np.ndarray:
+    """The fraction of the line's non-LTE brightness that survives an interferometer's filtering over that of the
+    plain Haser image (:func:`pipeline.coma.filtering.surviving_fraction` with and without the line's column
+    factor f(rho)), shape (n_T, n_apertures); ones under LTE or without a baseline."""
+    from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
+
+    t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
+    out = np.ones((t_kin.size, len(grid.radii_pix)))
+    if shortest_baseline is None or nonlte_settings(model) is None:
+        return out
+    r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
+    v_out = outflow_speed(model, r_h)
+    length, daughter = scale_lengths(species, parent, model, r_h, v_out)
+    q_min = min_spatial_frequency(shortest_baseline, line.freq)
+    args = (grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix), grid.beam_pix, v_out, length,
+            q_min, delta, daughter)
+    plain = surviving_fraction(*args)
+    for i, t in enumerate(t_kin):
+        weighted = surviving_fraction(*args, weight=line_column_weight_of(line, species, parent, t, r_h, model))
+        out[i] = np.where(plain != 0, weighted / np.where(plain != 0, plain, 1.0), 1.0)
+    return out
 
 
 def line_departure_on_grid(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,

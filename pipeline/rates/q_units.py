@@ -33,8 +33,8 @@ import numpy as np
 
 from pipeline.catalogue import Catalogue, Line
 from pipeline.coma.excitation import flux_per_molecule
-from pipeline.coma.response import (ComaModel, GridGeometry, line_departure_on_grid, line_response_on_grid,
-                                    nonlte_settings, outflow_speed, window_capture)
+from pipeline.coma.response import (ComaModel, GridGeometry, filtering_departure_on_grid, line_departure_on_grid,
+                                    line_response_on_grid, nonlte_settings, outflow_speed, window_capture)
 from pipeline.coma.departure import NonLteSettings
 from pipeline.errors import CatalogueError
 from pipeline.io.products import BandMeasurements, LineSpectra
@@ -166,10 +166,12 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     blended = []                    # (partner, its flux per molecule times window capture (T,)) for the comparison
     # the coma's molecules per unit Q seen in each aperture (times the surviving fraction): resp / flux per molecule
     nonlte = nonlte_settings(model) is not None
+    baseline = shortest_baseline if correct_filtering else None      # filtering the response is scaled by
     if nonlte:          # and over the line's departure from LTE, which the response carries
 
         def departure(member: Line, temperatures: u.Quantity) -> np.ndarray:
-            return line_departure_on_grid(member, species, parent, temperatures, r_h, delta, grid_geometry, model)
+            return _line_departure(member, species, parent, temperatures, r_h, delta, grid_geometry, model,
+                                   baseline)
 
         count = resp[0] / (flux_per_molecule(line, species, t_kin[:1], delta).to_value(u.Jy * u.km / u.s)[0]
                            * departure(line, t_kin[:1])[0])
@@ -201,13 +203,13 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)
         if nonlte:
             curve += count[None, :] * (f_grid * cap_grid)[:, None] * _departure_on_temperature_grid(
-                member, species, parent, r_h, delta, grid_geometry, model)
+                member, species, parent, r_h, delta, grid_geometry, model, baseline)
         else:
             curve += count[None, :] * (f_grid * cap_grid)[:, None]
         if nonlte_curve is not None:
             try:
                 nonlte_curve += count[None, :] * (f_grid * cap_grid)[:, None] * _departure_on_temperature_grid(
-                    member, species, parent, r_h, delta, grid_geometry, compared)
+                    member, species, parent, r_h, delta, grid_geometry, compared, baseline)
             except CatalogueError:
                 nonlte_curve = None         # the species the non-LTE model cannot describe (_nonlte_ratio says so)
     share = 1.0 - resp * frac[:, None] / scale                                                    # (T, ap)
@@ -221,7 +223,8 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     compare = np.full(scale.shape, np.nan)
     if comparison is not None and not nonlte:
         compare = _nonlte_ratio(line, species, parent, t_kin, r_h, delta, grid_geometry,
-                                replace(model, excitation=comparison), resp * frac[:, None], count, blended, scale)
+                                replace(model, excitation=comparison), resp * frac[:, None], count, blended, scale,
+                                baseline)
     flux = np.asarray(spectra.flux, dtype=float)                                                  # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
     # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
@@ -244,29 +247,41 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                          "window": float(spectra.window), "q": q[i, j], "sigma_q": sigma[i, j],
                          "r_h": r_h.value, "delta": delta.value, "outflow": v_out.to_value(u.km / u.s),
                          "spectral_response": meta.spectral_response, "response_model": "grid",
-                         "surviving_fraction": float(surviving[j]), "kind": "line",
+                         "surviving_fraction": float(surviving[i, j]), "kind": "line",
                          "nonlte_ratio": compare[i, j]})
     return inp, rows
 
 
+def _line_departure(member: Line, species, parent, t_kin: u.Quantity, r_h: u.Quantity, delta: u.Quantity,
+                    grid: GridGeometry, model: ComaModel, baseline: u.Quantity | None) -> np.ndarray:
+    """A line's departure from LTE on the grid, (n_T, n_ap): the non-LTE over the LTE count
+    (:func:`pipeline.coma.response.line_departure_on_grid`) times, with an interferometer's ``baseline``, the
+    non-LTE over the LTE surviving fraction (:func:`pipeline.coma.response.filtering_departure_on_grid`)."""
+    dep = line_departure_on_grid(member, species, parent, t_kin, r_h, delta, grid, model)
+    if baseline is not None:
+        dep = dep * filtering_departure_on_grid(member, species, parent, t_kin, r_h, delta, grid, model, baseline)
+    return dep
+
+
 def _departure_on_temperature_grid(member: Line, species, parent, r_h: u.Quantity, delta: u.Quantity,
-                                   grid: GridGeometry, model: ComaModel) -> np.ndarray:
-    """A line's departure from LTE on the grid (:func:`pipeline.coma.response.line_departure_on_grid`) at the 13
-    capture temperatures, interpolated in log T onto :data:`TEMPERATURE_GRID`: shape (n_grid, n_ap)."""
-    dep = line_departure_on_grid(member, species, parent, _CAPTURE_GRID * u.K, r_h, delta, grid, model)
+                                   grid: GridGeometry, model: ComaModel, baseline: u.Quantity | None) -> np.ndarray:
+    """A line's departure from LTE on the grid (:func:`_line_departure`) at the 13 capture temperatures,
+    interpolated in log T onto :data:`TEMPERATURE_GRID`: shape (n_grid, n_ap)."""
+    dep = _line_departure(member, species, parent, _CAPTURE_GRID * u.K, r_h, delta, grid, model, baseline)
     return np.stack([np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), d) for d in dep.T], axis=1)
 
 
 def _nonlte_ratio(line: Line, species, parent, t_kin: u.Quantity, r_h: u.Quantity, delta: u.Quantity,
                   grid: GridGeometry, model: ComaModel, own: np.ndarray, count: np.ndarray,
-                  blended: list[tuple[Line, np.ndarray]], scale: np.ndarray) -> np.ndarray:
+                  blended: list[tuple[Line, np.ndarray]], scale: np.ndarray,
+                  baseline: u.Quantity | None = None) -> np.ndarray:
     """The window's response under the non-LTE ``model`` over the LTE ``scale`` (T, ap); NaN, logged, for a species
     the non-LTE model cannot describe (no rotor constants and no molecular-data file)."""
     try:
-        total = own * line_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid, model)
+        total = own * _line_departure(line, species, parent, t_kin, r_h, delta, grid, model, baseline)
         for member, f_c in blended:
-            total = total + count[None, :] * f_c[:, None] * line_departure_on_grid(member, species, parent, t_kin,
-                                                                                   r_h, delta, grid, model)
+            total = total + count[None, :] * f_c[:, None] * _line_departure(member, species, parent, t_kin, r_h,
+                                                                            delta, grid, model, baseline)
     except CatalogueError as err:
         if species.name not in _NOT_COMPARED:          # one note per species and process
             _NOT_COMPARED.add(species.name)

@@ -81,3 +81,33 @@ def test_stack_input_corrects_for_the_surviving_fraction(tmp_path):
     frac = rows[0]["surviving_fraction"]
     assert 0 < frac < 1
     assert filt.q[0, 0] == pytest.approx(plain.q[0, 0] / frac, rel=1e-12)
+
+
+def test_a_weighted_brightness_survives_as_its_hankel_transform_says():
+    """Under non-LTE the filtered image is the line's brightness, the Haser column times the line's factor f(rho)
+    (surviving_fraction's ``weight``). With L >> field and f = exp(-rho / rho_1) the brightness is
+    exp(-a theta) / theta, whose visibility is V(q) = 2 pi / sqrt(a^2 + (2 pi q)^2) (the Laplace transform of J0,
+    Abramowitz & Stegun 29.3.60, from memory; checked with quad above). The aperture flux is
+    F = int_0^inf V(q) 2 pi R J1(2 pi q R) dq, whole (2 pi / a)(1 - exp(-a R), closed form) less the removed part
+    int_0^q_min of the same (scipy quad): the surviving fraction 1 - removed / whole."""
+    pix_arcsec, delta = 0.3, 1 * u.au
+    pix_rad = (pix_arcsec * u.arcsec).to_value(u.rad)
+    km_per_rad = delta.to_value(u.km)
+    rho_1 = 8 * pix_rad * km_per_rad                        # the factor's scale: 8 pixels
+    a = km_per_rad / rho_1                                  # per radian
+    q_min = 1 / (40 * pix_rad)
+
+    def weight(rho_km):
+        return np.exp(-np.asarray(rho_km) / rho_1)
+
+    for radius_pix in (6.0, 15.0):
+        big_r = radius_pix * pix_rad
+        got = surviving_fraction((64, 64), 31.5, 31.5, pix_arcsec, [radius_pix], None, 1 * u.km / u.s,
+                                 1e12 * u.km, q_min, delta, weight=weight)[0]
+        removed, _ = integrate.quad(lambda q: 2 * np.pi / np.hypot(a, 2 * np.pi * q) * 2 * np.pi * big_r
+                                    * special.j1(2 * np.pi * q * big_r), 0, q_min, limit=200)
+        whole = 2 * np.pi / a * (1 - np.exp(-a * big_r))
+        assert got == pytest.approx(1 - removed / whole, abs=0.01)
+        plain = surviving_fraction((64, 64), 31.5, 31.5, pix_arcsec, [radius_pix], None, 1 * u.km / u.s,
+                                   1e12 * u.km, q_min, delta)[0]
+        assert got > plain                 # the more compact brightness loses less to the missing short spacings

@@ -95,6 +95,33 @@ def test_the_ratio_is_the_responses_under_both_models_and_the_lte_numbers_do_not
     assert all(np.isnan(r["nonlte_ratio"]) for r in rows_nlte)
 
 
+def test_with_an_interferometer_the_ratio_includes_the_filtering_of_the_non_lte_brightness(tmp_path):
+    """The non-LTE brightness is more compact than the Haser column, so more of it survives the missing short
+    spacings; the comparison's ratio is then that of the filtered responses under each model (line_response_on_grid
+    with the baseline; the weighted surviving fraction itself is checked against a Hankel-transform closed form in
+    tests/coma/test_filtering.py)."""
+    spectra = _spectra(tmp_path, "HCN_265886", 2e25)
+    baseline = 15 * u.m
+    _, rows = stack_input(spectra, CAT, T_SWEEP, ComaModel(), shortest_baseline=baseline, response_curve=False,
+                          comparison=_nonlte())
+    _, rows_open = stack_input(spectra, CAT, T_SWEEP, ComaModel(), response_curve=False, comparison=_nonlte())
+    line, species = CAT.get_line("HCN_265886"), CAT.get_species("HCN")
+    pixel = spectra.pixel_scale_arcsec
+    grid = GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1], pixel_arcsec=pixel,
+                        radii_pix=list(np.asarray(spectra.apertures["radius_pix"], dtype=float)),
+                        beam_pix=(spectra.beam_deg[0] * 3600 / pixel, spectra.beam_deg[1] * 3600 / pixel,
+                                  spectra.beam_deg[2]))
+    args = (line, species, None, T_SWEEP, spectra.meta.r_h, spectra.meta.delta, grid)
+    lte, s_lte = line_response_on_grid(*args, ComaModel(), baseline)
+    nlte, s_nlte = line_response_on_grid(*args, ComaModel(excitation=_nonlte()), baseline)
+    want = (nlte / lte).decompose().value
+    got = np.array([r["nonlte_ratio"] for r in rows]).reshape(want.shape)
+    np.testing.assert_allclose(got, want, rtol=1e-12)
+    assert np.all(s_nlte[:, 0] > s_lte[:, 0])                     # the inner aperture keeps more of it
+    open_ratio = np.array([r["nonlte_ratio"] for r in rows_open]).reshape(want.shape)
+    assert np.all(np.abs(got / open_ratio - 1) > 1e-3)            # the filtering changes the comparison
+
+
 def test_the_non_lte_curve_gives_q_at_a_temperature_off_the_sweep(tmp_path):
     """T_kin taken from a measured rotational temperature lies between the sweep's temperatures: Q under non-LTE
     there comes from the input's non-LTE S(T). Reference: at the temperatures where the curve is computed (every
