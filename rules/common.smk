@@ -44,24 +44,24 @@ def canon(value):
     return json.dumps(value, sort_keys=True)
 
 
-def settings_of(*keys, cube=False, epoch=False, water=False):
+def settings_of(*keys, cube=False, epoch=False, water=None):
     """A rule's ``settings`` param: the config sections ``keys`` it reads (and, with ``cube``, its cube's entry).
 
     With ``epoch``, the ``cubes`` section holds only the entries of the job's epoch, so a per-epoch job is not
-    rerun when a cube of another epoch is added. With ``water``, a job that reads the epoch's measured water
-    (``water_of_epoch``) also gets ``limits.nsigma``, the threshold its detection must reach; the others do not
-    rerun when it changes. The step parses exactly this into typed settings
+    rerun when a cube of another epoch is added. With ``water`` (the rule's input function of the epoch's
+    measured water, ``water_of_epoch``), a job that reads it also gets ``limits.nsigma``, the threshold its
+    detection must reach; the others do not rerun when it changes. The step parses exactly this into typed settings
     (pipeline.workflow.common.rule_settings) and cannot read any other section, so what triggers a rerun and what
     the code reads are one list.
     """
     sections = sections_record(config, keys)
     if cube:
         return lambda w: canon({"sections": sections, "cube": CUBE_ITEMS[w.cube]})
-    if epoch or water:
+    if epoch or water is not None:
         with_nsigma = sections_record(config, (*keys, "limits.nsigma"))
 
         def per_job(w):
-            given = dict(with_nsigma if water and water_of_epoch(w) else sections)
+            given = dict(with_nsigma if water is not None and water(w) else sections)
             if epoch:
                 given["cubes"] = [CUBE_ITEMS[cid] for cid in CUBES if CUBES[cid].epoch == w.epoch]
             return canon({"sections": given})
@@ -176,6 +176,14 @@ def water_of_epoch(wildcards):
             or wildcards.epoch not in epochs_of_species("H2O")):
         return []
     return [f"{OUT}/stack_epoch/H2O/{wildcards.epoch}.fits"]
+
+
+def water_of_epoch_nonlte(wildcards):
+    """Input function: ``water_of_epoch`` for a step that uses the water only under excitation.model nonlte (the
+    injection's model comae; under lte its numbers do not depend on the water)."""
+    if (config.get("excitation") or {}).get("model", "lte") != "nonlte":
+        return []
+    return water_of_epoch(wildcards)
 
 
 def injection_epoch_files(wildcards):

@@ -5,13 +5,13 @@ rule injection_epoch:
         bands=band_files_of_species,
         cubes=ir_cubes_of_species,
         stack_inputs=f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
-        water=water_of_epoch,
+        water=water_of_epoch_nonlte,
         catalogue=catalogue_files(),
         molecular_data=molecular_data_files(),
     output:
         f"{OUT}/injection_epoch/{{species}}/{{epoch}}.ecsv",
     params:
-        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality", epoch=True, water=True),
+        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality", epoch=True, water=water_of_epoch_nonlte),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/injection_epoch/{{species}}/{{epoch}}.log",

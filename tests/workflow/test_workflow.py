@@ -409,9 +409,11 @@ def test_changing_one_value_reruns_only_what_uses_it(campaign, tmp_path):
     cfg = yaml.safe_load(config.read_text())
     cfg["limits"]["nsigma"] = 2.5
     jobs = _dry_run_jobs(root, cfg, tmp_path / "nsigma.yaml")
-    # limits.nsigma is a param of limits_species, injection and forecast: those rerun, with the tables after them
-    assert jobs == {"limits_species": 5, "limits": 1, "budget": 1, "injection": 5, "forecast": 1, "report": 1,
-                    "all": 1}, jobs
+    # limits.nsigma is a param of limits_species, injection and forecast: those rerun, with the tables after them;
+    # and of the stack inputs of the 4 other species at the 2 epochs with a water measurement (whether the water is
+    # a detection there decides the Q(H2O) of the non-LTE comparison), with the stacks and the temperature after them
+    assert jobs == {"stack_epoch": 8, "stack": 4, "temperature": 1, "limits_species": 5, "limits": 1, "budget": 1,
+                    "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
 
 
 def test_infrared_rates_limits_and_dust(campaign):
@@ -441,6 +443,31 @@ def test_infrared_rates_limits_and_dust(campaign):
     injection = QTable.read(root / "results" / "injection" / "H2O.ecsv", format="ascii.ecsv")
     ratio = (injection["q_recovered"] / injection["q_injected"]).decompose().value
     assert len(ratio) and np.allclose(ratio, 1.0, rtol=1e-3)   # differenced injection: the chain's self-consistency
+
+
+def test_the_non_lte_comparison_takes_the_campaigns_own_water(campaign):
+    """At e1 and e3 the infrared cubes measure H2O: the millimetre lines' non-LTE comparison there uses that Q(H2O)
+    (the inverse-variance mean of the epoch's water bands, which is also the H2O limits row of that epoch and its
+    only aperture), and says so; e2 has no water band and takes excitation.q_h2o_per_s, saying why."""
+    root, config = campaign
+    configured = yaml.safe_load(config.read_text())["excitation"]["q_h2o_per_s"]
+    table = _limits(root)
+    for epoch in ("e1", "e3"):
+        water = table[(table["species"] == "H2O") & (table["epoch"] == epoch) & (table["t_origin"] == "sweep")]
+        hcn = table[(table["species"] == "HCN") & (table["epoch"] == epoch)]
+        assert len(water) and len(hcn)
+        q_water = water["q"][0].to_value(1 / u.s)
+        np.testing.assert_allclose(hcn["q_h2o_excitation"].to_value(1 / u.s), q_water, rtol=1e-12)
+        assert all(str(x).startswith(f"H2O measured at {epoch}") for x in hcn["q_h2o_from"])
+        assert np.all(np.isfinite(hcn["q_nonlte"][hcn["t_origin"] != "not needed"]))
+    e2 = table[(table["species"] == "HCN") & (table["epoch"] == "e2")]
+    np.testing.assert_allclose(e2["q_h2o_excitation"].to_value(1 / u.s), configured, rtol=1e-12)
+    assert all("no H2O band measured at e2" in str(x) for x in e2["q_h2o_from"])
+    every = table[(table["species"] == "HCN") & (table["epoch"] == "all")]
+    assert np.all(np.isnan(every["q_h2o_excitation"])) and all(str(x).startswith("per epoch:")
+                                                                for x in every["q_h2o_from"])
+    report = (root / "results" / "report.html").read_text()
+    assert "H2O measured at e1" in report and "measured by the campaign at e1" in report
 
 
 def test_infrared_geometry_is_the_spacecraft_s(campaign):
