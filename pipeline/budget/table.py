@@ -254,9 +254,8 @@ def joint_exclusion(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Bud
     return table
 
 
-def epoch_distances(geometry_paths: list[str]) -> dict[str, u.Quantity]:
-    """Mean heliocentric distance of each epoch group and of all cubes ('all')."""
-    rows = [read_table(p)[0] for p in geometry_paths]
+def epoch_distances(rows: list) -> dict[str, u.Quantity]:
+    """Mean heliocentric distance of each epoch group and of all cubes ('all'), from the cubes' geometry rows."""
     groups: dict[str, list[float]] = {}
     for r in rows:
         groups.setdefault(str(r["epoch"]), []).append(float(r["r_h"].to_value(u.au)))

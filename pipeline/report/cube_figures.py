@@ -243,7 +243,6 @@ def _drawn(title: str, panels: list[SpectrumPanel], notes: list[str], cache: Pat
     code) was drawn before; drawn and kept there otherwise. ``used`` collects the cache files of this report."""
     if cache is None:
         return to_png(plot_cube_spectra(title, panels, notes))
-    from pipeline.io.atomic import atomic_path
     from pipeline.io.provenance import code_version
 
     key = hashlib.sha256(pickle.dumps((code_version(), matplotlib.__version__, title, panels, notes),
@@ -253,10 +252,50 @@ def _drawn(title: str, panels: list[SpectrumPanel], notes: list[str], cache: Pat
     if path.is_file():
         return path.read_bytes()
     png = to_png(plot_cube_spectra(title, panels, notes))
-    cache.mkdir(parents=True, exist_ok=True)
+    _keep(path, png)
+    return png
+
+
+def _keep(path: Path, png: bytes) -> None:
+    """Write a figure into the cache folder (atomically)."""
+    from pipeline.io.atomic import atomic_path
+
+    path.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(path) as tmp:
         tmp.write_bytes(png)
-    return png
+
+
+def _spectra_by_cube(cube_ids: list[str], spectra_paths: list[str]) -> dict[str, list[Path]] | None:
+    """Each cube's spectra files by the workflow's layout (``spectra/<cube>/<line>.fits``); None when a file does
+    not follow it (then nothing is keyed on the files)."""
+    out: dict[str, list[Path]] = {c: [] for c in cube_ids}
+    for path in map(Path, spectra_paths):
+        if path.parent.name not in out:
+            return None
+        out[path.parent.name].append(path)
+    return out
+
+
+def _input_key(settings: "Settings", cube, title: str, files: list[Path], limits: QTable) -> str:
+    """A digest of everything one cube's spectra figure is drawn from: the code and matplotlib versions, the
+    settings (the cube's own entry and every section but the list of cubes), the bytes of the cube's spectra or
+    bands files, the cube file's size and modification time (its unit), and the quoted rows of its epoch in
+    ``limits``. Equal digests give the same figure, so it can be read back without reading the spectra."""
+    from pipeline.io.provenance import code_version
+
+    digest = hashlib.sha256()
+    record = {k: v for k, v in settings.record.items() if k != "cubes"}
+    cube_file = Path(cube.path)
+    stat = cube_file.stat() if cube_file.is_file() else None
+    digest.update(pickle.dumps((code_version(), matplotlib.__version__, title, repr(cube), repr(record),
+                                (stat.st_size, stat.st_mtime_ns) if stat else None), protocol=5))
+    for path in sorted(files):
+        digest.update(path.name.encode())
+        digest.update(hashlib.sha256(path.read_bytes()).digest())
+    rows = limits[(np.asarray(limits["epoch"], dtype=str) == cube.epoch) & np.asarray(limits["adopted"], dtype=bool)]
+    for row in rows:
+        digest.update(repr(tuple(str(row[c]) for c in rows.colnames)).encode())
+    return digest.hexdigest()
 
 
 def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
@@ -266,35 +305,57 @@ def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: l
 
     ``settings`` is the run's :class:`pipeline.settings.Settings`; ``spectra_paths`` the extract step's files,
     ``bands_paths`` the bands files (each names its cube); ``limits`` the limits table (its ``adopted`` rows).
-    With ``cache`` (a folder), a cube's spectra figure whose content has not changed since an earlier report (a
-    new epoch leaves the earlier epochs' quoted rows as they were) is read back instead of drawn again; the
-    folder keeps only this report's figures.
+    With ``cache`` (a folder), a cube's spectra figure drawn by an earlier report from the same inputs (the
+    digest of :func:`_input_key`: a new epoch leaves the earlier epochs' files and quoted rows as they were) is
+    read back without reading its spectra; failing that, one whose drawn content has not changed (same title,
+    panels, notes and code) is read back instead of drawn again. The folder keeps only this report's figures.
     """
     cache = None if cache is None else Path(cache)
     used: set[Path] = set()
     catalogue = settings.catalogue()
     images = {Path(p).stem: Path(p).read_bytes() for p in image_paths}
-    spectra: dict[str, list[LineSpectra]] = {}
-    for path in spectra_paths:
-        s = LineSpectra.from_fits(path)
-        spectra.setdefault(s.meta.cube_id, []).append(s)
-    bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
+    ids = [c.cube_id for c in settings.cubes]
+    by_cube = _spectra_by_cube(ids, spectra_paths) if cache is not None else None
+    bands_files = {Path(p).stem: Path(p) for p in bands_paths}
+    if by_cube is not None and not set(bands_files) <= set(ids):
+        by_cube = None                                      # a bands file not named after its cube
+    if by_cube is None:                                     # no layout to go by: read every file, once
+        read: dict[str, list[LineSpectra]] = {}
+        for path in spectra_paths:
+            s = LineSpectra.from_fits(path)
+            read.setdefault(s.meta.cube_id, []).append(s)
+        bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
     filtering = settings.interferometer
     entries = []
     for cube in settings.cubes:
         if cube.cube_id not in images:
             continue
         title = f"{cube.cube_id}  ·  epoch {cube.epoch}  ·  aperture spectra"
-        if cube.cube_id in bands:
-            panels, notes = band_spectrum_panels(bands[cube.cube_id], limits, catalogue)
+        caption = (f"Cube {cube.cube_id} (epoch {cube.epoch}): images of the integration window around the "
+                   "target's predicted position.")
+        keyed = None
+        if by_cube is not None:
+            files = by_cube[cube.cube_id] + ([bands_files[cube.cube_id]] if cube.cube_id in bands_files else [])
+            keyed = cache / f"in-{_input_key(settings, cube, title, files, limits)}.png"
+            used.add(keyed)
+            if keyed.is_file():
+                entries.append((cube.cube_id, images[cube.cube_id], caption, keyed.read_bytes()))
+                continue
+            spectra = [LineSpectra.from_fits(p) for p in by_cube[cube.cube_id]]
+            measured = (BandMeasurements.from_fits(bands_files[cube.cube_id]) if cube.cube_id in bands_files
+                        else None)
+        else:
+            spectra, measured = read.get(cube.cube_id, []), bands.get(cube.cube_id)
+        if measured is not None:
+            panels, notes = band_spectrum_panels(measured, limits, catalogue)
         else:
             kelvin = read_cube_info(cube.path, cube.beam_arcsec).bunit.is_equivalent(u.K)
-            panels, notes = line_spectrum_panels(spectra.get(cube.cube_id, []), limits, catalogue, settings.coma,
+            panels, notes = line_spectrum_panels(spectra, limits, catalogue, settings.coma,
                                                  kelvin, filtering.shortest_baseline if filtering else None,
                                                  filtering.correct if filtering else True)
         figure = _drawn(title, panels, notes, cache, used)
-        caption = (f"Cube {cube.cube_id} (epoch {cube.epoch}): images of the integration window around the "
-                   "target's predicted position.")
+        if keyed is not None:
+            _keep(keyed, figure)
         entries.append((cube.cube_id, images[cube.cube_id], caption, figure))
     if cache is not None and cache.is_dir():
         for stale in set(cache.glob("*.png")) - used:

@@ -13,7 +13,7 @@ from pipeline.budget.line_shift import offered_zeta, zeta_table
 from pipeline.budget.tracers import inferred_water
 from pipeline.io.provenance import provenance_record
 from pipeline.settings import Settings
-from pipeline.io.tables import read_table
+from pipeline.io.tables import read_table, table_cache
 
 __all__ = ["run"]
 
@@ -40,10 +40,10 @@ def run(limits_path: str, geometry_paths: list[str], settings: Settings, out_ecs
         log.info("budget: %s", sentence)
     for sentence in defaulted:
         log.info("budget: %s", sentence)
-    rh = epoch_distances(geometry_paths)
+    geometry = [read_table(p, table_cache(settings.outdir))[0] for p in geometry_paths]
+    rh = epoch_distances(geometry)
     judged = {} if missing else rh           # the epochs a verdict is computed for: none without the push
     catalogue = settings.catalogue()
-    geometry = [read_table(p)[0] for p in geometry_paths]
     zeta = zeta_table(limits, geometry, settings.target.elements, assume, catalogue, rh)
     offered = offered_zeta(zeta, assume) if not missing else None
     if offered is not None:

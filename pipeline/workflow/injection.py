@@ -32,7 +32,7 @@ from pipeline.rates.excitation_water import epoch_water, model_with_water
 from pipeline.rates.q_units import stack_input
 from pipeline.settings import Settings
 from pipeline.spectra.line_spectra import extraction_settings
-from pipeline.io.tables import cell_float, read_table
+from pipeline.io.tables import cell_float, read_table, table_cache
 
 __all__ = ["run", "run_epoch", "injection_levels", "EPOCH_COLUMNS"]
 
@@ -223,7 +223,7 @@ def run(epoch_paths: list[str], species: str, limits_path: str, budget_path: str
     levels, t_kin = injection_levels(species, limits, budget)
     t_all = settings.t_kin.to_value(u.K)
     it = int(np.argmin(np.abs(t_all - t_kin)))
-    tables = [read_table(p) for p in epoch_paths]
+    tables = [read_table(p, table_cache(settings.outdir)) for p in epoch_paths]
     for t in tables:
         t.meta.clear()
     measured = vstack(tables) if tables else QTable()

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+from pathlib import Path
 
 import astropy.units as u
 import numpy as np
@@ -14,7 +15,7 @@ from pipeline.io.atomic import write_json, write_table
 from pipeline.io.columns import described
 from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
-from pipeline.io.tables import cell_float, table_as_json, read_table
+from pipeline.io.tables import cell_float, table_as_json, read_table, table_cache
 from pipeline.rates.activity import activity_table
 from pipeline.rates.detections import add_fit_columns, filtering_columns, fit_detections, mark_opacity, opacity_columns
 from pipeline.rates.limits_table import join_limits, limit_rows, mark_adopted, mark_conservative
@@ -261,7 +262,7 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
         "nsigma": settings.limits.nsigma,
         "epoch 'all'": "constant Q over the epochs combined",
     }
-    epochs = epoch_geometry(geometry_paths or [])
+    epochs = epoch_geometry(geometry_paths or [], table_cache(settings.outdir))
     if epochs:
         _with_epoch_geometry(table, epochs)
     table = described(table, "limits")
@@ -276,7 +277,7 @@ def run_join(species_paths: list[str], settings: Settings, out_path: str, json_p
         write_table(act, activity_path)
 
 
-def epoch_geometry(geometry_paths: list[str]) -> dict[str, tuple[float, float, float]]:
+def epoch_geometry(geometry_paths: list[str], cache: str | Path | None = None) -> dict[str, tuple[float, float, float]]:
     """Per epoch group: the mean mid-exposure time (MJD, UTC), r_h [au] and Delta [au] of its cubes.
 
     The mean over the epoch's cubes, whatever their species: the cubes of one epoch lie hours apart, over which
@@ -285,7 +286,7 @@ def epoch_geometry(geometry_paths: list[str]) -> dict[str, tuple[float, float, f
     """
     groups: dict[str, list] = {}
     for path in geometry_paths:
-        g = read_table(path)[0]
+        g = read_table(path, cache)[0]
         groups.setdefault(str(g["epoch"]), []).append((g["time_mid"].utc.mjd, g["r_h"].to_value(u.au),
                                                        g["delta"].to_value(u.au)))
     return {e: tuple(float(np.mean([v[i] for v in vals])) for i in range(3)) for e, vals in sorted(groups.items())}

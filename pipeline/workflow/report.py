@@ -26,7 +26,7 @@ from pipeline.report.verdicts import assumption_sets_table, defaulted_html, driv
 from pipeline.coma.response import nonlte_settings, outflow_speed
 from pipeline.rates.q_units import nonlte_comparison
 from pipeline.settings import Settings
-from pipeline.io.tables import read_table
+from pipeline.io.tables import read_table, table_cache
 
 __all__ = ["run"]
 
@@ -54,7 +54,7 @@ def run(inputs, outputs, settings: Settings) -> None:
     budget = read_table(inputs.budget_ecsv)
     with open(inputs.budget_json, encoding="utf-8") as fh:
         summary = json.load(fh)
-    geometry = [read_table(p)[0] for p in inputs.geometry]
+    geometry = [read_table(p, table_cache(settings.outdir))[0] for p in inputs.geometry]
 
     fig_spec = to_png(plot_stacked_spectra(spectrum_panels(list(inputs.stacks), limits, catalogue)))
     missing = [str(x) for x in summary.get("missing", [])]

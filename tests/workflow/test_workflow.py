@@ -470,6 +470,43 @@ def test_the_non_lte_comparison_takes_the_campaigns_own_water(campaign):
     assert "H2O measured at e1" in report and "measured by the campaign at e1" in report
 
 
+def test_cube_figures_are_read_back_without_their_spectra_when_nothing_they_show_changed(campaign, tmp_path,
+                                                                                          monkeypatch):
+    """The report's per-cube spectra figures, keyed on their inputs (files, the epoch's quoted rows, settings,
+    code): a second report reads no spectra file and gives the same HTML; a changed quoted row of one epoch redraws
+    that epoch's cubes only, to the figure an uncached report draws."""
+    from pipeline.io import products
+    from pipeline.report import cube_figures
+    from pipeline.settings import Settings, validate_config
+
+    root, config = campaign
+    settings = Settings.from_config(validate_config(yaml.safe_load(config.read_text()), source=str(config)))
+    results = root / "results"
+    images = sorted(str(p) for p in (results / "figures" / "cubes").glob("*.png"))
+    spectra = sorted(str(p) for p in (results / "spectra").glob("*/*.fits"))
+    bands = sorted(str(p) for p in (results / "bands").glob("*.fits"))
+    limits = _limits(root)
+    cache = tmp_path / "cache"
+    first = cube_figures.cubes_section(settings, images, spectra, bands, limits, cache=cache)
+    read = []
+    original = products.LineSpectra.from_fits.__func__
+
+    def counting(cls, source):
+        read.append(str(source))
+        return original(cls, source)
+
+    monkeypatch.setattr(cube_figures.LineSpectra, "from_fits", classmethod(counting))
+    assert cube_figures.cubes_section(settings, images, spectra, bands, limits, cache=cache) == first
+    assert read == []
+    changed = limits.copy()
+    pick = (changed["epoch"] == "e2") & changed["adopted"] & (changed["species"] == "HCN")
+    changed["q"][pick] = changed["q"][pick] * 1.5
+    redrawn = cube_figures.cubes_section(settings, images, spectra, bands, changed, cache=cache)
+    assert read and all("/e2_" in p for p in read)
+    assert redrawn != first
+    assert redrawn == cube_figures.cubes_section(settings, images, spectra, bands, changed)      # no cache
+
+
 def test_infrared_geometry_is_the_spacecraft_s(campaign):
     """The infrared cubes' geometry comes from the spacecraft's ephemeris (about 1.5 million km from the ground
     site's), their mid-time from the space IFU's explicit EXPMID with its begin/end pair."""
