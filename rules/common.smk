@@ -44,29 +44,20 @@ def canon(value):
     return json.dumps(value, sort_keys=True)
 
 
-def settings_of(*keys, cube=False, epoch=False, water=None):
+def settings_of(*keys, cube=False, epoch=False):
     """A rule's ``settings`` param: the config sections ``keys`` it reads (and, with ``cube``, its cube's entry).
 
     With ``epoch``, the ``cubes`` section holds only the entries of the job's epoch, so a per-epoch job is not
-    rerun when a cube of another epoch is added. With ``water`` (the rule's input function of the epoch's
-    measured water, ``water_of_epoch``), a job that reads it also gets ``limits.nsigma``, the threshold its
-    detection must reach; the others do not rerun when it changes. The step parses exactly this into typed settings
+    rerun when a cube of another epoch is added. The step parses exactly this into typed settings
     (pipeline.workflow.common.rule_settings) and cannot read any other section, so what triggers a rerun and what
     the code reads are one list.
     """
     sections = sections_record(config, keys)
     if cube:
         return lambda w: canon({"sections": sections, "cube": CUBE_ITEMS[w.cube]})
-    if epoch or water is not None:
-        with_nsigma = sections_record(config, (*keys, "limits.nsigma"))
-
-        def per_job(w):
-            given = dict(with_nsigma if water is not None and water(w) else sections)
-            if epoch:
-                given["cubes"] = [CUBE_ITEMS[cid] for cid in CUBES if CUBES[cid].epoch == w.epoch]
-            return canon({"sections": given})
-
-        return per_job
+    if epoch:
+        return lambda w: canon({"sections": {**sections, "cubes": [CUBE_ITEMS[cid] for cid in CUBES
+                                                                    if CUBES[cid].epoch == w.epoch]}})
     return canon({"sections": sections})
 
 

@@ -11,7 +11,7 @@ rule injection_epoch:
     output:
         f"{OUT}/injection_epoch/{{species}}/{{epoch}}.ecsv",
     params:
-        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality", epoch=True, water=water_of_epoch_nonlte),
+        settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality", epoch=True),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/injection_epoch/{{species}}/{{epoch}}.log",

@@ -9,7 +9,7 @@ rule stack_epoch:
     output:
         f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
     params:
-        settings=settings_of("catalogue", "coma", "excitation", "comoving", "interferometer", water=water_of_epoch),
+        settings=settings_of("catalogue", "coma", "excitation", "comoving", "interferometer"),
         code=CODE_VERSION,
     log:
         f"{OUT}/logs/stack_epoch/{{species}}/{{epoch}}.log",

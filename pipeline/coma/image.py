@@ -195,17 +195,26 @@ def model_line_map(shape: tuple[int, int], x0: float, y0: float, pixel_arcsec: f
     return sky * beam_over_pix
 
 
-def line_cube_from_map(line_map: np.ndarray, velocity: np.ndarray, species: Species, t_kin: u.Quantity,
-                       r_h: u.Quantity, model: ComaModel, v_centre: float = 0.0,
-                       spectral_response: str | None = "hanning") -> np.ndarray:
-    """``line_map`` (:func:`model_line_map` times Q) spread over the channels with the outflow and thermal profile
-    centred at ``v_centre`` [km/s], and the channel response applied (None leaves it out)."""
+def line_profile_on_channels(velocity: np.ndarray, species: Species, t_kin: u.Quantity, r_h: u.Quantity,
+                             model: ComaModel, v_centre: float = 0.0,
+                             spectral_response: str | None = "hanning") -> np.ndarray:
+    """The line's outflow and thermal profile on the channels [per km/s], centred at ``v_centre`` [km/s], with the
+    channel response applied (None leaves it out): the spectral factor of a separable model cube."""
     v = outflow_speed(model, r_h)
     sigma_th = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
     vel = np.asarray(velocity, dtype=float)
     prof = channel_fractions(vel - v_centre, v.to_value(u.km / u.s), sigma_th) / np.abs(np.median(np.diff(vel)))
     if spectral_response:     # the response acts along the spectral axis only: on the profile of a separable cube
         prof = apply_spectral_response(prof, spectral_response)
+    return prof
+
+
+def line_cube_from_map(line_map: np.ndarray, velocity: np.ndarray, species: Species, t_kin: u.Quantity,
+                       r_h: u.Quantity, model: ComaModel, v_centre: float = 0.0,
+                       spectral_response: str | None = "hanning") -> np.ndarray:
+    """``line_map`` (:func:`model_line_map` times Q) spread over the channels with the outflow and thermal profile
+    centred at ``v_centre`` [km/s], and the channel response applied (None leaves it out)."""
+    prof = line_profile_on_channels(velocity, species, t_kin, r_h, model, v_centre, spectral_response)
     return prof[:, None, None] * line_map[None, :, :]
 
 

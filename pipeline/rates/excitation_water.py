@@ -4,8 +4,10 @@ Collisions with water (and the electrons its ionisation feeds) set the rotationa
 (:mod:`pipeline.coma.nonlte`), so the non-LTE model and the comparison beside the LTE sweep need Q(H2O) at each
 epoch. With ``excitation.q_h2o_from: measured`` (the default) an epoch whose cubes cover a water band takes the
 campaign's own measurement there: the inverse-variance mean of the epoch's H2O band measurements in the aperture
-where it is best measured, if it is a detection at ``limits.nsigma``. Bands are used because their Q does not
-depend on the swept kinetic temperature (fluorescence); a millimetre water line's would. An epoch without a water
+where it is best measured, if its S/N reaches ``excitation.q_h2o_min_snr`` (3 by default; a key apart from
+``limits.nsigma``, so that changing the limits' significance does not redo every epoch's stack inputs). Bands are
+used because their Q does not depend on the swept kinetic temperature (fluorescence); a millimetre water line's
+would. An epoch without a water
 band, or whose water is not detected, takes ``excitation.q_h2o_per_s``; without that, it has no non-LTE model (the
 comparison is left out; model nonlte already requires the key). ``q_h2o_from: config`` always takes the key.
 
@@ -32,6 +34,8 @@ __all__ = ["ExcitationWater", "measured_water", "excitation_water", "epoch_water
 
 #: The species whose measurement gives the collisions' water production rate.
 WATER = "H2O"
+#: The S/N a water measurement needs to set the excitation (``excitation.q_h2o_min_snr``'s default).
+DEFAULT_MIN_SNR = 3.0
 
 
 @dataclass(frozen=True)
@@ -76,7 +80,7 @@ def measured_water(rows, epoch: str, nsigma: float) -> tuple[u.Quantity, u.Quant
             bands = ", ".join(dict.fromkeys(f"{c}:{b}" for c, b in zip(pick["cube_id"], pick["line_id"])))
             best = (float(q), float(s), label, float(snr), bands)
     q, s, label, snr, bands = best
-    text = (f"H2O measured at {epoch}: Q = {q:.3g} +/- {s:.2g} /s, S/N {snr:.1f} (detection threshold {nsigma:g}), "
+    text = (f"H2O measured at {epoch}: Q = {q:.3g} +/- {s:.2g} /s, S/N {snr:.1f} (threshold {nsigma:g}), "
             f"{label} aperture, bands {bands}")
     return q / u.s, s / u.s, text
 
@@ -96,7 +100,7 @@ def excitation_water(epoch: str, water_rows, q_from: str, configured: float | No
     configured : float or None
         ``excitation.q_h2o_per_s`` [1/s], if given.
     nsigma : float
-        ``limits.nsigma``: the measurement is used if Q / sigma_Q reaches it.
+        ``excitation.q_h2o_min_snr``: the measurement is used if Q / sigma_Q reaches it.
 
     Returns the value and its source; None when neither a detection nor the key gives one.
     """
@@ -129,12 +133,11 @@ def model_with_water(model: "ComaModel", water: ExcitationWater | None) -> "Coma
 def epoch_water(settings: "Settings", species: str, epoch: str, water_inputs_path: str | None) -> ExcitationWater | None:
     """:func:`excitation_water` for a step of ``species`` at ``epoch``, from its settings (``excitation``,
     ``limits``) and the H2O stack inputs of the epoch (``stack_epoch/H2O/<epoch>.fits``, None without). The water
-    itself takes ``excitation.q_h2o_per_s`` (its own measurement is not an input of its own stack). ``limits.nsigma``
-    is read only with the water's inputs (a step without them is not given it)."""
+    itself takes ``excitation.q_h2o_per_s`` (its own measurement is not an input of its own stack)."""
     from pipeline.io.products import EpochInputs
 
     exc = settings.record["excitation"]
     rows = (EpochInputs.from_fits(water_inputs_path).rows if water_inputs_path and species != WATER else None)
     return excitation_water(epoch, rows, str(exc.get("q_h2o_from", "measured")),
                             float(exc["q_h2o_per_s"]) if "q_h2o_per_s" in exc else None,
-                            float(settings.limits.nsigma) if rows is not None else float("inf"))
+                            float(exc.get("q_h2o_min_snr", DEFAULT_MIN_SNR)))

@@ -27,9 +27,9 @@ import numpy as np
 
 from pipeline.spectra.apertures import flux_conversion, offsource_positions, radius_in_pixels
 from pipeline.catalogue.entries import Line, Species
-from pipeline.coma.image import line_cube_from_map, model_line_map
+from pipeline.coma.image import line_cube_from_map, line_profile_on_channels, model_line_map
 from pipeline.io.products import LineSpectra, SubCube
-from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra
+from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra, separable_spectra
 from pipeline.coma.response import ComaModel
 
 __all__ = ["Placement", "placements", "inject_spectra", "placement_kind", "PLACEMENT_KINDS", "Q_UNIT",
@@ -95,6 +95,15 @@ def placements(sub: SubCube, settings: ExtractionSettings, n_ring: int = 4,
     return [Placement(i, px, py, v) for i, (px, py) in enumerate(sky) for v in vels]
 
 
+def _no_blank_in_apertures(spectra: LineSpectra, finite: np.ndarray) -> bool:
+    """Whether every pixel of the placement's largest aperture is finite in every channel."""
+    radius = float(np.max(np.asarray(spectra.apertures["radius_pix"], dtype=float)))
+    x, y = spectra.centre
+    yy, xx = np.mgrid[0:finite.shape[0], 0:finite.shape[1]]
+    near = np.hypot(xx - x, yy - y) <= radius + 1.0              # every pixel the aperture overlaps, and a margin
+    return bool(np.all(finite[near]))
+
+
 class _ModelComae:
     """Model comae of one line in one sub-cube, in the cube's unit, placed anywhere (the conversion made once).
 
@@ -115,15 +124,27 @@ class _ModelComae:
                                                         info.channel_beam_solid_angles(), info.frequencies)
         self._maps: dict[tuple[float, float, float], np.ndarray] = {}
 
-    def cube(self, q: float, t_kin: u.Quantity, p: Placement) -> np.ndarray:
-        """The coma of rate ``q`` [1/s] at ``t_kin``, centred on placement ``p``, in the cube's unit."""
+    def map(self, t_kin: u.Quantity, p: Placement) -> np.ndarray:
+        """The coma's map for Q = 1/s at ``t_kin`` centred on placement ``p`` (Jy/beam km/s per pixel)."""
         meta = self.sub.meta
         key = (p.x, p.y, float(u.Quantity(t_kin, u.K).value))
         if key not in self._maps:
             self._maps[key] = model_line_map(self.shape, p.x, p.y, self.pix, self.line, self.species, t_kin,
                                              meta.r_h, meta.delta, self.beam, self.model, self.parent)
-        cube = line_cube_from_map(q * self._maps[key], self.sub.velocity, self.species, t_kin, meta.r_h, self.model,
-                                  v_centre=p.v_centre, spectral_response=meta.spectral_response)
+        return self._maps[key]
+
+    def profile(self, t_kin: u.Quantity, p: Placement) -> np.ndarray:
+        """The coma's spectral factor at placement ``p`` in the cube's unit per unit map (the cube is
+        ``q * profile[:, None, None] * map[None]``)."""
+        prof = line_profile_on_channels(self.sub.velocity, self.species, t_kin, self.sub.meta.r_h, self.model,
+                                        v_centre=p.v_centre, spectral_response=self.sub.meta.spectral_response)
+        return prof * self.to_cube_unit
+
+    def cube(self, q: float, t_kin: u.Quantity, p: Placement) -> np.ndarray:
+        """The coma of rate ``q`` [1/s] at ``t_kin``, centred on placement ``p``, in the cube's unit."""
+        meta = self.sub.meta
+        cube = line_cube_from_map(q * self.map(t_kin, p), self.sub.velocity, self.species, t_kin, meta.r_h,
+                                  self.model, v_centre=p.v_centre, spectral_response=meta.spectral_response)
         return cube * self.to_cube_unit[:, None, None]
 
 
@@ -174,16 +195,28 @@ def unit_injections(sub: SubCube, settings: ExtractionSettings, line: Line, spec
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     comae = _ModelComae(sub, line, species, model, parent)
     real = np.asarray(sub.data, dtype=np.float64)
+    finite = np.isfinite(real).all(axis=0)             # pixels never blank: where the separable route is exact
     slots = sorted({p.v_centre for p in where})
     out = []
     for p in where:
-        data_inp, _ = to_q_units(extract_spectra(sub, settings, data=real, centre=(p.x, p.y), v_centre=p.v_centre,
-                                                 offsource=False))
+        spectra = extract_spectra(sub, settings, data=real, centre=(p.x, p.y), v_centre=p.v_centre, offsource=False)
+        data_inp, rows = to_q_units(spectra)
         per_q = np.full_like(data_inp.q, np.nan)
-        for i, t in enumerate(t_kin):
-            with_model, _ = to_q_units(extract_spectra(sub, settings, data=real + comae.cube(Q_UNIT, t, p),
-                                                       centre=(p.x, p.y), v_centre=p.v_centre, offsource=False))
-            per_q[i] = (with_model.q[i] - data_inp.q[i]) / Q_UNIT
+        if _no_blank_in_apertures(spectra, finite):
+            # the extraction is linear and the model cube separable: the model's own measurement, per temperature
+            wts = np.asarray(spectra.channels["window_weight"], dtype=float)
+            dv = float(np.abs(np.median(np.diff(spectra.velocity))))
+            scale = np.array([r["scale"] for r in rows], dtype=float).reshape(per_q.shape)
+            for i, t in enumerate(t_kin):
+                flux = separable_spectra(sub, settings, Q_UNIT * comae.map(t, p), comae.profile(t, p),
+                                         (p.x, p.y), np.asarray(spectra.channels["line_free"], dtype=bool))[0]
+                window = np.sum(np.where(wts[None, :] > 0, flux, 0.0) * wts[None, :], axis=1) * dv
+                per_q[i] = window / scale[i] / Q_UNIT
+        else:
+            for i, t in enumerate(t_kin):       # with blank pixels: the data with and without the model, measured
+                with_model, _ = to_q_units(extract_spectra(sub, settings, data=real + comae.cube(Q_UNIT, t, p),
+                                                           centre=(p.x, p.y), v_centre=p.v_centre, offsource=False))
+                per_q[i] = (with_model.q[i] - data_inp.q[i]) / Q_UNIT
         out.append(UnitInjection(placement=p, velocity_slot=slots.index(p.v_centre), q_data=data_inp.q,
                                  q_per_q=per_q, sigma_q=data_inp.sigma_q, radius_km=data_inp.radius_km,
                                  apertures=data_inp.labels))

@@ -16,7 +16,7 @@ import numpy as np
 
 from pipeline.errors import CoverageError, CubeError, NoiseWarning
 
-__all__ = ["line_free_mask", "fit_baseline", "channel_sigma", "WindowNoise", "window_sum_noise",
+__all__ = ["line_free_mask", "fit_baseline", "baseline_polynomial", "channel_sigma", "WindowNoise", "window_sum_noise",
            "window_weights", "CONSTANT_RTOL"]
 
 
@@ -76,8 +76,15 @@ def fit_baseline(velocity: np.ndarray, spectrum: np.ndarray, free: np.ndarray, o
                "are constant and carry no noise to measure; expected noisy data (a blank, zero-filled or "
                "noise-free cube cannot give a noise estimate or a limit)")
         raise CubeError(msg)
+    return baseline_polynomial(velocity, spectrum, ok, order)
+
+
+def baseline_polynomial(velocity: np.ndarray, spectrum: np.ndarray, ok: np.ndarray, order: int = 1) -> np.ndarray:
+    """The least-squares polynomial of :func:`fit_baseline` through the channels ``ok``, without its checks of the
+    data: a linear map of ``spectrum``, so also the baseline a noise-free model contributes to data it is added to
+    (injection-recovery)."""
     x = (velocity - velocity[ok].mean()) / max(np.ptp(velocity[ok]), 1e-30)
-    coef = np.polyfit(x[ok], spectrum[ok], order)
+    coef = np.polyfit(x[ok], np.asarray(spectrum, dtype=float)[ok], order)
     return np.polyval(coef, x)
 
 
