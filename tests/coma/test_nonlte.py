@@ -102,6 +102,20 @@ def test_no_collisions_no_pumping_time_dependent_relaxes_to_the_cmb():
     assert_allclose(prof.populations[-1], _boltzmann(HCN, T_CMB.to_value(u.K)), rtol=1e-6, atol=1e-12)
 
 
+def _radiative_rates(mol, t_bg):
+    """rates[i, j] from level i to level j [1/s] of spontaneous emission and the background at t_bg, written out
+    here from the Einstein relations: A (1 + n) down, A (g_u/g_l) n up, n = 1/(exp(h nu / k T_bg) - 1)."""
+    rates = np.zeros((mol.n_levels, mol.n_levels))
+    h_k = (const.h / const.k_B).to_value(u.K / u.GHz)
+    for k in range(len(mol.a_ul)):
+        up, lo = mol.upper[k], mol.lower[k]
+        a = mol.a_ul[k].to_value(1 / u.s)
+        occ = 1.0 / np.expm1(h_k * mol.freq[k].to_value(u.GHz) / t_bg)
+        rates[up, lo] += a * (1 + occ)
+        rates[lo, up] += a * mol.weight[up] / mol.weight[lo] * occ
+    return rates
+
+
 def _independent_fluorescence(mol, g_pump, t_bg):
     """Fluorescence equilibrium from rates written out here, not with the module's builders.
 
@@ -112,14 +126,7 @@ def _independent_fluorescence(mol, g_pump, t_bg):
     The equilibrium is the null vector of the rate matrix (scipy.linalg.null_space).
     """
     n = mol.n_levels
-    rates = np.zeros((n, n))
-    h_k = (const.h / const.k_B).to_value(u.K / u.GHz)
-    for k in range(len(mol.a_ul)):
-        up, lo = mol.upper[k], mol.lower[k]
-        a = mol.a_ul[k].to_value(1 / u.s)
-        occ = 1.0 / np.expm1(h_k * mol.freq[k].to_value(u.GHz) / t_bg)
-        rates[up, lo] += a * (1 + occ)
-        rates[lo, up] += a * mol.weight[up] / mol.weight[lo] * occ
+    rates = _radiative_rates(mol, t_bg)
     for j in range(n):
         for jp, p_abs in ((j + 1, (j + 1) / (2 * j + 1)), (j - 1, j / (2 * j + 1))):
             if jp < 0:
@@ -377,16 +384,8 @@ def test_the_cascade_from_a_warm_start_inverts_j3_over_j2_as_an_independent_solu
     m = model(t_kin=80 * u.K, speed=0.75 * u.km / u.s, include_collisions=False, include_electrons=False,
               include_pumping=False, r_max=1e5 * u.km, n_r=121)
     prof = solve_populations(HCN, m)
-    n = HCN.n_levels
-    gen = np.zeros((n, n))
-    h_k = (const.h / const.k_B).to_value(u.K / u.GHz)
-    for k in range(len(HCN.a_ul)):
-        up, lo = HCN.upper[k], HCN.lower[k]
-        a = HCN.a_ul[k].to_value(1 / u.s)
-        occ = 1.0 / np.expm1(h_k * HCN.freq[k].to_value(u.GHz) / T_CMB.to_value(u.K))
-        for src, dst, rate in ((up, lo, a * (1 + occ)), (lo, up, a * HCN.weight[up] / HCN.weight[lo] * occ)):
-            gen[dst, src] += rate
-            gen[src, src] -= rate
+    rates = _radiative_rates(HCN, T_CMB.to_value(u.K))
+    gen = rates.T - np.diag(rates.sum(axis=1))                  # dx/dt = gen @ x
     x0 = _boltzmann(HCN, 80.0)
     t = (prof.r - m.r_min).to_value(u.km) / 0.75
     want = np.array([linalg.expm(gen * tk) @ x0 for tk in t])

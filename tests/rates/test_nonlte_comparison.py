@@ -64,6 +64,15 @@ def _spectra(tmp_path, line_id: str, q: float) -> LineSpectra:
     return LineSpectra.from_fits(spectra.to_fits())
 
 
+def _grid(spectra: LineSpectra) -> GridGeometry:
+    """The extraction's grid of ``spectra`` (pixels, apertures, beam), as stack_input builds it."""
+    pixel = spectra.pixel_scale_arcsec
+    return GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1], pixel_arcsec=pixel,
+                        radii_pix=list(np.asarray(spectra.apertures["radius_pix"], dtype=float)),
+                        beam_pix=(spectra.beam_deg[0] * 3600 / pixel, spectra.beam_deg[1] * 3600 / pixel,
+                                  spectra.beam_deg[2]))
+
+
 def test_the_ratio_is_the_responses_under_both_models_and_the_lte_numbers_do_not_move(tmp_path):
     spectra = _spectra(tmp_path, "HCN_265886", 2e25)
     off, rows_off = stack_input(spectra, CAT, T_SWEEP, ComaModel())
@@ -76,11 +85,7 @@ def test_the_ratio_is_the_responses_under_both_models_and_the_lte_numbers_do_not
     # the reference: the response of the same grid computed by line_response_on_grid under each model (HCN J=3-2
     # has no blended partner, so the window's ratio is the line's)
     line, species = CAT.get_line("HCN_265886"), CAT.get_species("HCN")
-    pixel = spectra.pixel_scale_arcsec
-    grid = GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1], pixel_arcsec=pixel,
-                        radii_pix=list(np.asarray(spectra.apertures["radius_pix"], dtype=float)),
-                        beam_pix=(spectra.beam_deg[0] * 3600 / pixel, spectra.beam_deg[1] * 3600 / pixel,
-                                  spectra.beam_deg[2]))
+    grid = _grid(spectra)
     lte, _ = line_response_on_grid(line, species, None, T_SWEEP, spectra.meta.r_h, spectra.meta.delta, grid,
                                    ComaModel())
     nlte, _ = line_response_on_grid(line, species, None, T_SWEEP, spectra.meta.r_h, spectra.meta.delta, grid,
@@ -106,11 +111,7 @@ def test_with_an_interferometer_the_ratio_includes_the_filtering_of_the_non_lte_
                           comparison=_nonlte())
     _, rows_open = stack_input(spectra, CAT, T_SWEEP, ComaModel(), response_curve=False, comparison=_nonlte())
     line, species = CAT.get_line("HCN_265886"), CAT.get_species("HCN")
-    pixel = spectra.pixel_scale_arcsec
-    grid = GridGeometry(shape=spectra.grid_shape, x=spectra.centre[0], y=spectra.centre[1], pixel_arcsec=pixel,
-                        radii_pix=list(np.asarray(spectra.apertures["radius_pix"], dtype=float)),
-                        beam_pix=(spectra.beam_deg[0] * 3600 / pixel, spectra.beam_deg[1] * 3600 / pixel,
-                                  spectra.beam_deg[2]))
+    grid = _grid(spectra)
     args = (line, species, None, T_SWEEP, spectra.meta.r_h, spectra.meta.delta, grid)
     lte, s_lte = line_response_on_grid(*args, ComaModel(), baseline)
     nlte, s_nlte = line_response_on_grid(*args, ComaModel(excitation=_nonlte()), baseline)
