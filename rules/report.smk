@@ -34,6 +34,7 @@ rule report:
         f"{OUT}/logs/report.log",
     benchmark:
         f"{OUT}/benchmarks/report.tsv"
+    threads: 2          # the cubes' spectra figures that changed are drawn on two processes
     resources:
         mem_mb=1000,
         runtime=10,

@@ -47,8 +47,9 @@ def _write_png(data: bytes, path: str) -> None:
         tmp.write_bytes(data)
 
 
-def run(inputs, outputs, settings: Settings) -> None:
-    """Build the report from the run's tables and stacks."""
+def run(inputs, outputs, settings: Settings, workers: int = 1) -> None:
+    """Build the report from the run's tables and stacks (the cubes' spectra figures to draw on ``workers``
+    processes)."""
     catalogue = settings.catalogue()
     limits = read_table(inputs.limits)
     budget = read_table(inputs.budget_ecsv)
@@ -126,7 +127,8 @@ def run(inputs, outputs, settings: Settings) -> None:
     sections.append(("Infrared bands and dust", infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
     sections.append(("Cubes", cubes_section(settings, list(inputs.cube_images), list(inputs.line_spectra),
                                             list(inputs.bands), limits,
-                                            cache=Path(outputs.html).parent / ".cache" / "cube_spectra")))
+                                            cache=Path(outputs.html).parent / ".cache" / "cube_spectra",
+                                            workers=workers)))
     sections.append(("Injection–recovery", injection_section(
         list(inputs.injection), limits, {str(g["cube_id"]): str(g["observer"]) for g in geometry})))
     sections.append(("All epochs in one test", joint_section(inputs.exclusion, inputs.activity)))

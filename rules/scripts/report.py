@@ -7,4 +7,4 @@ from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
-    report.run(snakemake.input, snakemake.output, settings)
+    report.run(snakemake.input, snakemake.output, settings, workers=snakemake.threads)

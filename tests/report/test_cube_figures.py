@@ -156,21 +156,16 @@ def test_band_model_is_continuum_plus_q_times_response_times_template():
     assert np.trapezoid(band_part, p.x) == pytest.approx(q * response, rel=1e-3)
 
 
-def test_a_cube_spectra_figure_is_drawn_once_and_read_back(tmp_path, monkeypatch):
-    # the same figure content (title, panels, notes, code) gives the same PNG bytes from the cache without
-    # drawing; other content is drawn; the folder keeps only what the last report used (cubes_section prunes)
+def test_cube_spectra_figures_drawn_on_workers_are_the_serial_ones_and_keyed_by_content(tmp_path):
+    # the figures are independent, so drawing them on two worker processes gives the bytes drawing them in turn
+    # gives (to_png writes fixed metadata); the cache path depends on the content only
     import pipeline.report.cube_figures as cf
 
+    figures = [(f"c{k} · epoch e1", [], [f"note {k}"]) for k in range(3)]
+    serial = cf._draw_all(figures, workers=1)
+    assert all(png[:8] == b"\x89PNG\r\n\x1a\n" for png in serial)
+    assert cf._draw_all(figures, workers=2) == serial
     cache = tmp_path / "cache"
-    used: set = set()
-    first = cf._drawn("c1 · epoch e1", [], ["no line"], cache, used)
-    assert first[:8] == b"\x89PNG\r\n\x1a\n" and len(list(cache.glob("*.png"))) == 1
-
-    def no_drawing(*args):
-        raise AssertionError("drawn again although the figure is in the cache")
-
-    monkeypatch.setattr(cf, "plot_cube_spectra", no_drawing)
-    assert cf._drawn("c1 · epoch e1", [], ["no line"], cache, used) == first
-    with pytest.raises(AssertionError):
-        cf._drawn("c1 · epoch e2", [], ["no line"], cache, used)
-    assert len(used) == 2
+    assert cf._content_path(*figures[0], cache) == cf._content_path(*figures[0], cache)
+    assert cf._content_path(*figures[0], cache) != cf._content_path(*figures[1], cache)
+    assert cf._content_path(*figures[0], cache).parent == cache
