@@ -17,26 +17,88 @@ def read_table(path: str | Path, cache: str | Path | None = None) -> QTable:
 
     With ``cache`` (a folder), the parsed table is kept there under the SHA-256 of the file's bytes and read back
     from it while the file is unchanged: parsing an ECSV header is pure-Python YAML (~50 ms for a small table),
-    loading the kept table ~1 ms, which matters to the steps that read one small table per cube of a long
-    campaign. The table is the same either way (a copy per call).
+    loading the kept table a few ms, which matters to the steps that read one small table per cube of a long
+    campaign. The kept form is plain arrays (numpy's .npz, read without pickle) and a JSON description, so reading
+    it back evaluates nothing; a table it cannot hold exactly (object columns, masked times) is not kept. The
+    table is the same either way.
     """
     if cache is None:
         return QTable.read(path, format="ascii.ecsv")
     import hashlib
-    import pickle
+
+    kept = Path(cache) / f"{hashlib.sha256(Path(path).read_bytes()).hexdigest()}.npz"
+    try:
+        return _from_kept(kept)
+    except (OSError, ValueError, KeyError, TypeError):
+        pass
+    table = QTable.read(path, format="ascii.ecsv")
+    _keep_table(table, kept)
+    return table
+
+
+def _keep_table(table: QTable, kept: Path) -> None:
+    """Write ``table`` as .npz arrays plus a JSON description (atomically); nothing if it cannot be held exactly."""
+    import io
+    import json
 
     from pipeline.io.atomic import atomic_path
 
-    data = Path(path).read_bytes()
-    kept = Path(cache) / f"{hashlib.sha256(data).hexdigest()}.pickle"
+    arrays: dict[str, np.ndarray] = {}
+    columns = []
+    for k, name in enumerate(table.colnames):
+        col = table[name]
+        spec = {"name": name, "description": col.info.description, "format": col.info.format}
+        if isinstance(col, Time):
+            if col.location is not None or np.any(getattr(col, "mask", False)):
+                return
+            spec.update(kind="time", scale=col.scale, time_format=col.format)
+            arrays[f"c{k}_jd1"], arrays[f"c{k}_jd2"] = np.asarray(col.jd1), np.asarray(col.jd2)
+        elif isinstance(col, u.Quantity):
+            spec.update(kind="quantity", unit=col.unit.to_string())
+            arrays[f"c{k}"] = np.asarray(col.value)
+        elif col.__class__.__name__ in ("Column", "MaskedColumn"):
+            spec.update(kind="column", unit=None if col.unit is None else col.unit.to_string())
+            arrays[f"c{k}"] = np.asarray(col)
+            if hasattr(col, "mask") and np.any(col.mask):
+                arrays[f"c{k}_mask"] = np.asarray(col.mask)
+        else:
+            return
+        if arrays[f"c{k}" if f"c{k}" in arrays else f"c{k}_jd1"].dtype.kind == "O":
+            return
+        columns.append(spec)
     try:
-        return pickle.loads(kept.read_bytes())
-    except (OSError, pickle.UnpicklingError, EOFError, AttributeError, ImportError):
-        pass
-    table = QTable.read(path, format="ascii.ecsv")
+        description = json.dumps({"columns": columns, "meta": dict(table.meta)})
+    except (TypeError, ValueError):
+        return
+    buf = io.BytesIO()
+    np.savez(buf, description=np.array(description), **arrays)
     kept.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(kept) as tmp:
-        tmp.write_bytes(pickle.dumps(table, protocol=5))
+        tmp.write_bytes(buf.getvalue())
+
+
+def _from_kept(kept: Path) -> QTable:
+    """The table :func:`_keep_table` wrote (ValueError or KeyError for anything else)."""
+    import json
+
+    from astropy.table import Column, MaskedColumn
+
+    with np.load(kept, allow_pickle=False) as data:
+        described = json.loads(str(data["description"]))
+        table = QTable(meta=described["meta"])
+        for k, spec in enumerate(described["columns"]):
+            if spec["kind"] == "time":
+                col = Time(data[f"c{k}_jd1"], data[f"c{k}_jd2"], format="jd", scale=spec["scale"])
+                col.format = spec["time_format"]
+            elif spec["kind"] == "quantity":
+                col = u.Quantity(data[f"c{k}"], spec["unit"], copy=False)
+            elif f"c{k}_mask" in data:
+                col = MaskedColumn(data[f"c{k}"], mask=data[f"c{k}_mask"], unit=spec["unit"])
+            else:
+                col = Column(data[f"c{k}"], unit=spec["unit"])
+            table[spec["name"]] = col
+            table[spec["name"]].info.description = spec["description"]
+            table[spec["name"]].info.format = spec["format"]
     return table
 
 

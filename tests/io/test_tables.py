@@ -1,5 +1,6 @@
 """pipeline.io.tables.read_table with its cache of parsed tables: the same table as astropy's own ECSV reader
-(the reference), reparsed when the file's bytes change, and a damaged cache entry never trusted."""
+(the reference), reparsed when the file's bytes change, a damaged cache entry never trusted, and nothing in it
+evaluated (numpy .npz read without pickle, JSON)."""
 
 import astropy.units as u
 import numpy as np
@@ -10,13 +11,16 @@ from pipeline.io.tables import read_table, table_cache
 
 
 def _write(path, r_h: float) -> None:
-    table = QTable({"cube_id": ["c1"], "r_h": [r_h] * u.au, "time_mid": Time(["2031-03-10T04:00:00"], scale="utc")})
+    table = QTable({"cube_id": ["c1"], "r_h": [r_h] * u.au, "time_mid": Time(["2031-03-10T04:00:00"], scale="utc"),
+                    "n": [3]})
+    table["r_h"].info.description = "heliocentric distance"
     table.meta["provenance"] = {"stage": "geometry"}
     table.write(path, format="ascii.ecsv", overwrite=True)
 
 
 def _same(a: QTable, b: QTable) -> None:
     assert a.colnames == b.colnames and a.meta == b.meta
+    assert [a[c].info.description for c in a.colnames] == [b[c].info.description for c in b.colnames]
     assert a["cube_id"][0] == b["cube_id"][0] and a["r_h"].unit == b["r_h"].unit
     assert np.array_equal(a["r_h"].value, b["r_h"].value)
     assert a["time_mid"][0].isot == b["time_mid"][0].isot and a["time_mid"].scale == b["time_mid"].scale
@@ -28,7 +32,7 @@ def test_the_cached_table_is_astropys_and_follows_the_file(tmp_path):
     _write(path, 1.25)
     reference = QTable.read(path, format="ascii.ecsv")
     first = read_table(path, cache)
-    assert len(list(cache.glob("*.pickle"))) == 1
+    assert len(list(cache.glob("*.npz"))) == 1
     second = read_table(path, cache)
     _same(first, reference)
     _same(second, reference)
@@ -36,7 +40,7 @@ def test_the_cached_table_is_astropys_and_follows_the_file(tmp_path):
     _same(read_table(path, cache), reference)
     _write(path, 1.5)                              # new bytes: parsed again
     assert read_table(path, cache)["r_h"][0] == 1.5 * u.au
-    assert len(list(cache.glob("*.pickle"))) == 2
+    assert len(list(cache.glob("*.npz"))) == 2
 
 
 def test_a_damaged_entry_is_parsed_again(tmp_path):
@@ -44,6 +48,6 @@ def test_a_damaged_entry_is_parsed_again(tmp_path):
     cache = table_cache(tmp_path / "out")
     _write(path, 1.25)
     read_table(path, cache)
-    (entry,) = cache.glob("*.pickle")
-    entry.write_bytes(b"not a pickle")
+    (entry,) = cache.glob("*.npz")
+    entry.write_bytes(b"not an archive")
     _same(read_table(path, cache), QTable.read(path, format="ascii.ecsv"))
