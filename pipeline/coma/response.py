@@ -257,7 +257,7 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
     surviving : ndarray, shape (n_T, n_apertures)
         1 without an interferometer; the same at every temperature under LTE.
     """
-    from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
+    from pipeline.coma.filtering import surviving_fraction
 
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
@@ -267,14 +267,25 @@ def line_response_on_grid(line: Line, species: Species, parent: Species | None, 
         resp = resp * line_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid, model)
     surviving = np.ones((t_kin.size, len(grid.radii_pix)))
     if shortest_baseline is not None:
-        q_min = min_spatial_frequency(shortest_baseline, line.freq)
-        plain = surviving_fraction(grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix),
-                                   grid.beam_pix, v_out, length, q_min, delta, daughter)
-        surviving = plain[None, :] * filtering_departure_on_grid(line, species, parent, t_kin, r_h, delta, grid,
-                                                                 model, shortest_baseline)
+        args = _filtering_args(line, grid, v_out, length, daughter, delta, shortest_baseline)
+        if nonlte_settings(model) is not None:      # the line's non-LTE brightness, at each temperature
+            surviving = np.array([surviving_fraction(*args, weight=line_column_weight_of(line, species, parent, t,
+                                                                                         r_h, model))
+                                  for t in t_kin])
+        else:
+            surviving = np.tile(surviving_fraction(*args), (t_kin.size, 1))
         if correct_filtering:
             resp = resp * surviving
     return resp * (u.Jy * u.km / u.s * u.s), surviving
+
+
+def _filtering_args(line: Line, grid: GridGeometry, v_out: u.Quantity, length: u.Quantity,
+                    daughter: u.Quantity | None, delta: u.Quantity, shortest_baseline: u.Quantity) -> tuple:
+    """The positional arguments of :func:`pipeline.coma.filtering.surviving_fraction` for one line on the grid."""
+    from pipeline.coma.filtering import min_spatial_frequency
+
+    return (grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix), grid.beam_pix, v_out, length,
+            min_spatial_frequency(shortest_baseline, line.freq), delta, daughter)
 
 
 def filtering_departure_on_grid(line: Line, species: Species, parent: Species | None, t_kin: u.Quantity,
@@ -283,7 +294,7 @@ def filtering_departure_on_grid(line: Line, species: Species, parent: Species | 
     """The fraction of the line's non-LTE brightness that survives an interferometer's filtering over that of the
     plain Haser image (:func:`pipeline.coma.filtering.surviving_fraction` with and without the line's column
     factor f(rho)), shape (n_T, n_apertures); ones under LTE or without a baseline."""
-    from pipeline.coma.filtering import min_spatial_frequency, surviving_fraction
+    from pipeline.coma.filtering import surviving_fraction
 
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     out = np.ones((t_kin.size, len(grid.radii_pix)))
@@ -292,9 +303,7 @@ def filtering_departure_on_grid(line: Line, species: Species, parent: Species | 
     r_h, delta = u.Quantity(r_h, u.au), u.Quantity(delta, u.au)
     v_out = outflow_speed(model, r_h)
     length, daughter = scale_lengths(species, parent, model, r_h, v_out)
-    q_min = min_spatial_frequency(shortest_baseline, line.freq)
-    args = (grid.shape, grid.x, grid.y, grid.pixel_arcsec, list(grid.radii_pix), grid.beam_pix, v_out, length,
-            q_min, delta, daughter)
+    args = _filtering_args(line, grid, v_out, length, daughter, delta, shortest_baseline)
     plain = surviving_fraction(*args)
     for i, t in enumerate(t_kin):
         weighted = surviving_fraction(*args, weight=line_column_weight_of(line, species, parent, t, r_h, model))

@@ -30,6 +30,7 @@ from pipeline.catalogue.entries import Line, Species
 from pipeline.coma.image import line_cube_from_map, line_profile_on_channels, model_line_map
 from pipeline.io.products import LineSpectra, SubCube
 from pipeline.spectra.line_spectra import ExtractionSettings, extract_spectra, separable_spectra
+from pipeline.spectra.noise import window_sums
 from pipeline.coma.response import ComaModel
 
 __all__ = ["Placement", "placements", "inject_spectra", "placement_kind", "PLACEMENT_KINDS", "Q_UNIT",
@@ -203,15 +204,14 @@ def unit_injections(sub: SubCube, settings: ExtractionSettings, line: Line, spec
         data_inp, rows = to_q_units(spectra)
         per_q = np.full_like(data_inp.q, np.nan)
         if _no_blank_in_apertures(spectra, finite):
-            # the extraction is linear and the model cube separable: the model's own measurement, per temperature
-            wts = np.asarray(spectra.channels["window_weight"], dtype=float)
-            dv = float(np.abs(np.median(np.diff(spectra.velocity))))
+            # the extraction is linear and the model cube separable: the model's own measurement, all temperatures
+            flux = separable_spectra(sub, settings, [Q_UNIT * comae.map(t, p) for t in t_kin],
+                                     [comae.profile(t, p) for t in t_kin], (p.x, p.y),
+                                     np.asarray(spectra.channels["line_free"], dtype=bool))     # (n_T, n_ap, n_chan)
+            window = window_sums(flux, np.asarray(spectra.channels["window_weight"], dtype=float),
+                                 float(np.abs(np.median(np.diff(spectra.velocity)))))
             scale = np.array([r["scale"] for r in rows], dtype=float).reshape(per_q.shape)
-            for i, t in enumerate(t_kin):
-                flux = separable_spectra(sub, settings, Q_UNIT * comae.map(t, p), comae.profile(t, p),
-                                         (p.x, p.y), np.asarray(spectra.channels["line_free"], dtype=bool))[0]
-                window = np.sum(np.where(wts[None, :] > 0, flux, 0.0) * wts[None, :], axis=1) * dv
-                per_q[i] = window / scale[i] / Q_UNIT
+            per_q = window / scale / Q_UNIT
         else:
             for i, t in enumerate(t_kin):       # with blank pixels: the data with and without the model, measured
                 with_model, _ = to_q_units(extract_spectra(sub, settings, data=real + comae.cube(Q_UNIT, t, p),

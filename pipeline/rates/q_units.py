@@ -42,6 +42,7 @@ from pipeline.rates.excitation_water import ExcitationWater
 from pipeline.rates.stacking import StackInput
 from pipeline.rates.temperature import TEMPERATURE_GRID
 from pipeline.spectra.apertures import aperture_labels
+from pipeline.spectra.noise import window_sums
 
 if TYPE_CHECKING:
     from pipeline.settings import Settings
@@ -182,11 +183,7 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
     members = [(line, 0.0)] + partners
     grid = TEMPERATURE_GRID * u.K
     curve = np.zeros((grid.size, count.size)) if response_curve else None
-    # the comparison's non-LTE S(T) beside the LTE one, so Q under non-LTE can be read at any temperature (the
-    # measured one included), as the LTE curve allows
-    compared = (replace(model, excitation=comparison) if comparison is not None and not nonlte and response_curve
-                else None)
-    nonlte_curve = np.zeros((grid.size, count.size)) if compared is not None else None
+    on_grid = []                    # (member, its flux per molecule times window capture on the grid)
     for member, v_p in members:
         if member is not line:
             f_p = flux_per_molecule(member, species, t_kin, delta).to_value(u.Jy * u.km / u.s)
@@ -201,17 +198,12 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
         cap = window_capture(species, _CAPTURE_GRID * u.K, rel - v_p, wts, v_out, meta.spectral_response)
         cap_grid = np.interp(np.log(TEMPERATURE_GRID), np.log(_CAPTURE_GRID), cap)
         f_grid = flux_per_molecule(member, species, grid, delta).to_value(u.Jy * u.km / u.s)
+        on_grid.append((member, f_grid * cap_grid))
         if nonlte:
             curve += count[None, :] * (f_grid * cap_grid)[:, None] * _departure_on_temperature_grid(
                 member, species, parent, r_h, delta, grid_geometry, model, baseline)
         else:
             curve += count[None, :] * (f_grid * cap_grid)[:, None]
-        if nonlte_curve is not None:
-            try:
-                nonlte_curve += count[None, :] * (f_grid * cap_grid)[:, None] * _departure_on_temperature_grid(
-                    member, species, parent, r_h, delta, grid_geometry, compared, baseline)
-            except CatalogueError:
-                nonlte_curve = None         # the species the non-LTE model cannot describe (_nonlte_ratio says so)
     share = 1.0 - resp * frac[:, None] / scale                                                    # (T, ap)
     # a species the catalogue gives a distributed source: the response under that hypothesis over the nucleus one
     # (the coma's count changes, the excitation does not, so the ratio holds at every temperature)
@@ -221,21 +213,26 @@ def stack_input(spectra: LineSpectra, catalogue: Catalogue, t_kin: u.Quantity, m
                                        replace(model, source="distributed"), shortest_baseline, correct_filtering)
         ratio = alt.to_value(u.Jy * u.km / u.s * u.s)[0] / resp[0]
     compare = np.full(scale.shape, np.nan)
+    nonlte_curve = None
     if comparison is not None and not nonlte:
-        compare = _nonlte_ratio(line, species, parent, t_kin, r_h, delta, grid_geometry,
-                                replace(model, excitation=comparison), resp * frac[:, None], count, blended, scale,
-                                baseline)
+        compared = replace(model, excitation=comparison)
+        compare = _nonlte_ratio(line, species, parent, t_kin, r_h, delta, grid_geometry, compared,
+                                resp * frac[:, None], count, blended, scale, baseline)
+        if curve is not None and np.all(np.isfinite(compare)):
+            # the comparison's S(T) beside the LTE one, so Q under non-LTE can be read at any temperature (the
+            # measured one included), as the LTE curve allows
+            nonlte_curve = sum(count[None, :] * fc[:, None] * _departure_on_temperature_grid(
+                member, species, parent, r_h, delta, grid_geometry, compared, baseline) for member, fc in on_grid)
     flux = np.asarray(spectra.flux, dtype=float)                                                  # (ap, chan)
     density = flux[None, :, :] / scale[:, :, None]
     # a blank channel inside the window makes that aperture's sum NaN (never silently counted as zero)
-    window_sum = np.sum(np.where(wts[None, :] > 0, flux, 0.0) * wts[None, :], axis=1) * dv          # (ap,)
+    window_sum = window_sums(flux, wts, dv)                                                       # (ap,)
     q = window_sum[None, :] / scale
     sigma = np.asarray(aps["sigma_window"], dtype=float)[None, :] / scale
     labels = aperture_labels(aps)
     inp = StackInput(epoch=meta.epoch, cube_id=meta.cube_id, line_id=line.line_id, velocity=vel,
                      density=density, q=q, sigma_q=sigma, radius_km=radii.to_value(u.km), apertures=labels,
-                     curve=curve, window=float(spectra.window), distributed_ratio=ratio,
-                     nonlte_curve=nonlte_curve if np.all(np.isfinite(compare)) else None)
+                     curve=curve, window=float(spectra.window), distributed_ratio=ratio, nonlte_curve=nonlte_curve)
     rows = []
     for i, t in enumerate(t_kin.to_value(u.K)):
         for j, r in enumerate(radii.to_value(u.km)):

@@ -143,10 +143,10 @@ def _apertures(sub: SubCube, settings: ExtractionSettings, x: float, y: float) -
     return radii_pix, aps
 
 
-def separable_spectra(sub: SubCube, settings: ExtractionSettings, image: np.ndarray, profiles: np.ndarray,
+def separable_spectra(sub: SubCube, settings: ExtractionSettings, images: np.ndarray, profiles: np.ndarray,
                       centre: tuple[float, float], line_free: np.ndarray) -> np.ndarray:
     """The baseline-subtracted aperture spectra [Jy] that :func:`extract_spectra` gives for separable cubes
-    ``profiles[k][:, None, None] * image[None]`` (the cube's unit), without building them.
+    ``profiles[k][:, None, None] * images[k][None]`` (the cube's unit), without building them.
 
     For such a cube each aperture's sum is the image's aperture sum times the profile, and the extraction is
     linear from there (flux conversion, the baseline fitted on the ``line_free`` channels, which are those of the
@@ -159,10 +159,11 @@ def separable_spectra(sub: SubCube, settings: ExtractionSettings, image: np.ndar
     """
     vel = np.asarray(sub.velocity, dtype=float)
     _, aps = _apertures(sub, settings, *centre)
-    sums, _ = aperture_spectra(np.asarray(image, dtype=np.float64)[None], aps)            # (n_ap, 1)
+    images = np.asarray(images, dtype=np.float64).reshape(-1, *sub.info().shape[1:])
+    sums, _ = aperture_spectra(images, aps)                                                 # (n_ap, n_prof)
     factor = _flux_factor(sub.info())
     profiles = np.atleast_2d(np.asarray(profiles, dtype=np.float64))
-    flux = sums[None, :, :] * (profiles * factor[None, :])[:, None, :]                      # (n_prof, n_ap, n_chan)
+    flux = sums.T[:, :, None] * (profiles * factor[None, :])[:, None, :]                    # (n_prof, n_ap, n_chan)
     for k in range(flux.shape[0]):
         for i in range(flux.shape[1]):
             flux[k, i] = flux[k, i] - baseline_polynomial(vel, flux[k, i], line_free & np.isfinite(flux[k, i]),

@@ -16,7 +16,7 @@ import numpy as np
 
 from pipeline.errors import CoverageError, CubeError, NoiseWarning
 
-__all__ = ["line_free_mask", "fit_baseline", "baseline_polynomial", "channel_sigma", "WindowNoise", "window_sum_noise",
+__all__ = ["line_free_mask", "fit_baseline", "baseline_polynomial", "window_sums", "channel_sigma", "WindowNoise", "window_sum_noise",
            "window_weights", "CONSTANT_RTOL"]
 
 
@@ -77,6 +77,13 @@ def fit_baseline(velocity: np.ndarray, spectrum: np.ndarray, free: np.ndarray, o
                "noise-free cube cannot give a noise estimate or a limit)")
         raise CubeError(msg)
     return baseline_polynomial(velocity, spectrum, ok, order)
+
+
+def window_sums(flux: np.ndarray, weights: np.ndarray, dv: float) -> np.ndarray:
+    """The weighted window sum, sum w F dv over the channels (last axis) where w > 0; a blank channel inside the
+    window makes that sum NaN (never counted as zero), one outside it does not count."""
+    weights = np.asarray(weights, dtype=float)
+    return np.sum(np.where(weights > 0, flux, 0.0) * weights, axis=-1) * dv
 
 
 def baseline_polynomial(velocity: np.ndarray, spectrum: np.ndarray, ok: np.ndarray, order: int = 1) -> np.ndarray:
