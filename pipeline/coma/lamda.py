@@ -393,10 +393,10 @@ def _integer_labels(labels) -> np.ndarray | None:
     """The levels' J when every label is a plain integer, else None: the file's levels are then not a J ladder
     (e.g. J_Ka_Kc); :meth:`MolecularData.level_of` refuses a lookup by J and the pumping scheme, which needs a
     ladder, refuses (nonlte.pumping_rates) or leaves the molecule unpumped with a logged warning (departure)."""
-    try:
-        return np.array([int(s) for s in labels], dtype=int)
-    except ValueError:
-        return None
+    text = [str(s).strip() for s in labels]
+    if not all(s.lstrip("+-").isdigit() for s in text):
+        return None                              # a label like 1_0_1: not a J ladder (a signal, not an error)
+    return np.array([int(s) for s in text], dtype=int)
 
 
 # ----------------------------------------------------------------------------- linear rotor

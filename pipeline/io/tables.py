@@ -63,9 +63,9 @@ def _keep_table(table: QTable, kept: Path) -> None:
                 arrays[f"c{k}_mask"] = np.asarray(col.mask)
         else:
             return
-        if arrays[f"c{k}" if f"c{k}" in arrays else f"c{k}_jd1"].dtype.kind == "O":
-            return
         columns.append(spec)
+    if any(a.dtype.kind == "O" for a in arrays.values()):      # .npz holds no objects without pickle
+        return
     try:
         description = json.dumps({"columns": columns, "meta": dict(table.meta)})
     except (TypeError, ValueError):

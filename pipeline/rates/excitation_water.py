@@ -42,7 +42,8 @@ DEFAULT_MIN_SNR = 3.0
 class ExcitationWater:
     """Q(H2O) for the non-LTE excitation of one epoch, and where it comes from.
 
-    ``origin`` is 'measured' or 'config'; ``source`` says it in words (the measurement, or the config key and why).
+    ``origin`` is 'measured' or 'config' (or, for the report's figure, 'epochs': a value summarising several);
+    ``source`` says it in words (the measurement, or the config key and why).
     """
 
     q_h2o: u.Quantity

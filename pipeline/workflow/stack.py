@@ -41,11 +41,11 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
     water = epoch_water(settings, species, epoch, water_path)
     model = model_with_water(settings.coma, water)            # model nonlte at the epoch's water rate
     comparison = nonlte_comparison(settings, water)  # non-LTE settings beside an LTE run, or None
-    compared = nonlte_settings(model) is not None or comparison is not None
-    if compared:
-        log.info("%s, epoch %s: non-LTE excitation at Q(H2O) = %.3g /s: %s", species, epoch,
-                 water.q_h2o_per_s if water is not None else float("nan"),
-                 water.source if water is not None else "excitation.q_h2o_per_s")
+    # the water is recorded where it excites something (model nonlte or the comparison; either needs a rate)
+    excited = water is not None and (nonlte_settings(model) is not None or comparison is not None)
+    if excited:
+        log.info("%s, epoch %s: non-LTE excitation at Q(H2O) = %.3g /s: %s", species, epoch, water.q_h2o_per_s,
+                 water.source)
     inputs, rows, skipped = [], [], []
     for path in spectra_paths:
         with fits.open(path) as spectra:
@@ -75,8 +75,8 @@ def run_epoch(spectra_paths: list[str], species: str, epoch: str, settings: Sett
         log.warning("%s: %s", species, note)
     skipped.extend(overlapping)
     kept = {(i.cube_id, i.line_id) for i in inputs}
-    excited = compared and water is not None         # lines only: a band's Q does not depend on the excitation
-    rows = [{**r, "q_h2o_excitation": water.q_h2o_per_s if excited and r["kind"] == "line" else np.nan,
+    rows = [                                          # lines only: a band's Q does not depend on the excitation
+            {**r, "q_h2o_excitation": water.q_h2o_per_s if excited and r["kind"] == "line" else np.nan,
              "q_h2o_from": water.source if excited and r["kind"] == "line" else ""}
             for r in rows if (r["cube_id"], r["line_id"]) in kept]
     for inp in inputs:
