@@ -15,12 +15,8 @@ report: "report/workflow.rst"
 
 
 include: "rules/common.smk"
-include: "rules/geometry.smk"
-include: "rules/comoving.smk"
-include: "rules/bands.smk"
-include: "rules/cube_images.smk"
+include: "rules/cube.smk"
 include: "rules/dust.smk"
-include: "rules/extract.smk"
 include: "rules/stack.smk"
 include: "rules/temperature.smk"
 include: "rules/limits.smk"

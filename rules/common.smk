@@ -1,5 +1,6 @@
 # Config validation, wildcard constraints and the helpers that build input lists.
 import json
+import re
 import sys
 
 from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
@@ -99,18 +100,34 @@ def cubes_of(wildcards):
     return [cid for cid in CUBES if epoch is None or CUBES[cid].epoch == epoch]
 
 
+def cube_id_pattern(infrared):
+    """The cube wildcard's pattern for the infrared (or the millimetre) cubes' step: exactly their ids (a pattern
+    that matches nothing when there are none), so each cube's products have one maker."""
+    ids = [re.escape(cid) for cid in CUBES if IR_CUBES[cid] == infrared]
+    return "|".join(ids) if ids else "(?!)"
+
+
+def _line_cubes(wildcards):
+    """The cubes of the job's species (and epoch, if any) with a line of it: (cube, its lines of the species)."""
+    out = []
+    for cid in cubes_of(wildcards):
+        lines = [line for line in LINES[cid] if CATALOGUE.get_line(line).species == wildcards.species]
+        if lines:
+            out.append((cid, lines))
+    return out
+
+
+def per_line_folders(folder):
+    """Input function: the folders below OUT/folder (one per cube, made by its cube_lines job) that hold a line of
+    the job's species (of its epoch, if any)."""
+    return lambda wildcards: [f"{OUT}/{folder}/{cid}" for cid, _ in _line_cubes(wildcards)]
+
+
 def per_line_files(folder):
-    """Input function: every (cube, line) file of one species below OUT/folder (of the job's epoch, if any)."""
-
-    def files(wildcards):
-        return [
-            f"{OUT}/{folder}/{cid}/{line}.fits"
-            for cid in cubes_of(wildcards)
-            for line in LINES[cid]
-            if CATALOGUE.get_line(line).species == wildcards.species
-        ]
-
-    return files
+    """Params function: every (cube, line) file of the job's species inside those folders
+    (``OUT/folder/<cube>/<line>.fits``), in the campaign's cube order and each cube's line order."""
+    return lambda wildcards: [f"{OUT}/{folder}/{cid}/{line}.fits" for cid, lines in _line_cubes(wildcards)
+                              for line in lines]
 
 
 def band_files_of_species(wildcards):
@@ -138,7 +155,9 @@ def bands_files():
     return [f"{OUT}/bands/{cid}.fits" for cid in CUBES if IR_CUBES[cid]]
 
 
+spectra_folders_of_species = per_line_folders("spectra")
 spectra_of_species = per_line_files("spectra")
+subcube_folders_of_species = per_line_folders("comoving")
 subcubes_of_species = per_line_files("comoving")
 
 
@@ -184,6 +203,16 @@ def injection_epoch_files(wildcards):
 
 def geometry_files():
     return [f"{OUT}/geometry/{cid}.ecsv" for cid in CUBES]
+
+
+def spectra_folders():
+    """Every millimetre cube's folder of aperture spectra (``spectra/<cube>``)."""
+    return [f"{OUT}/spectra/{cid}" for cid in CUBES if not IR_CUBES[cid]]
+
+
+def spectra_files():
+    """Every line's aperture spectra file (``spectra/<cube>/<line>.fits``), in the campaign's order."""
+    return [f"{OUT}/spectra/{cid}/{line}.fits" for cid in CUBES for line in LINES[cid]]
 
 
 def stack_files():

@@ -1,7 +1,7 @@
 rule injection_epoch:
     """One epoch's injection placements of one species measured: the data there and the model coma per unit Q."""
     input:
-        subcubes=subcubes_of_species,
+        subcubes=subcube_folders_of_species,
         bands=band_files_of_species,
         cubes=ir_cubes_of_species,
         stack_inputs=f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
@@ -11,6 +11,7 @@ rule injection_epoch:
     output:
         f"{OUT}/injection_epoch/{{species}}/{{epoch}}.ecsv",
     params:
+        subcubes=subcubes_of_species,
         settings=settings_of("catalogue", "coma", "excitation", "limits.window_factor", "comoving", "apertures_km", "apertures_arcsec", "infrared", "interferometer", "cubes", "quality", epoch=True),
         code=CODE_VERSION,
     log:

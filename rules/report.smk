@@ -18,7 +18,7 @@ rule report:
         catalogue=catalogue_files(),
         molecular_data=molecular_data_files(),
         cube_images=[f"{OUT}/figures/cubes/{cid}.png" for cid in CUBES],
-        line_spectra=[f"{OUT}/spectra/{cid}/{line}.fits" for cid in CUBES for line in LINES[cid]],
+        line_spectra=spectra_folders(),
     output:
         html=f"{OUT}/report.html",
         spectra=report(f"{OUT}/figures/stacked_spectra.png", caption="../report/spectra.rst", category="Figures"),
@@ -28,6 +28,7 @@ rule report:
         campaign=report(f"{OUT}/figures/campaign.png", caption="../report/campaign.rst", category="Figures"),
         tracers=report(f"{OUT}/figures/tracers.png", caption="../report/tracers.rst", category="Figures"),
     params:
+        line_spectra=spectra_files(),
         settings=settings_of(*CONFIG_KEYS),
         code=CODE_VERSION,
     log:

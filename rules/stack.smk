@@ -1,7 +1,7 @@
 rule stack_epoch:
     """One epoch's spectra of one species in Q units (the stack's inputs), kept so a new epoch does not redo them."""
     input:
-        spectra=spectra_of_species,
+        spectra=spectra_folders_of_species,
         bands=band_files_of_species,
         water=water_of_epoch,
         catalogue=catalogue_files(),
@@ -9,6 +9,7 @@ rule stack_epoch:
     output:
         f"{OUT}/stack_epoch/{{species}}/{{epoch}}.fits",
     params:
+        spectra=spectra_of_species,
         settings=settings_of("catalogue", "coma", "excitation", "comoving", "interferometer"),
         code=CODE_VERSION,
     log:

@@ -47,9 +47,10 @@ def _write_png(data: bytes, path: str) -> None:
         tmp.write_bytes(data)
 
 
-def run(inputs, outputs, settings: Settings, workers: int = 1) -> None:
+def run(inputs, outputs, settings: Settings, line_spectra: list[str], workers: int = 1) -> None:
     """Build the report from the run's tables and stacks (the cubes' spectra figures to draw on ``workers``
-    processes)."""
+    processes). ``line_spectra`` are the lines' spectra files (``spectra/<cube>/<line>.fits``, inside the cubes'
+    folders the inputs name)."""
     catalogue = settings.catalogue()
     limits = read_table(inputs.limits)
     budget = read_table(inputs.budget_ecsv)
@@ -125,7 +126,8 @@ def run(inputs, outputs, settings: Settings, workers: int = 1) -> None:
     sections.append(("Production rates and upper limits (conservative temperature)",
                      conservative_section(limits, catalogue, float(settings.limits.nsigma))))
     sections.append(("Infrared bands and dust", infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
-    sections.append(("Cubes", cubes_section(settings, list(inputs.cube_images), list(inputs.line_spectra),
+    sections.append(("Cubes", cubes_section(settings, list(inputs.cube_images),
+                                            list(line_spectra),
                                             list(inputs.bands), limits,
                                             cache=Path(outputs.html).parent / ".cache" / "cube_spectra",
                                             workers=workers)))

@@ -7,4 +7,5 @@ from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
-    report.run(snakemake.input, snakemake.output, settings, workers=snakemake.threads)
+    report.run(snakemake.input, snakemake.output, settings, list(snakemake.params.line_spectra),
+               workers=snakemake.threads)

@@ -101,7 +101,7 @@ def test_new_check_run_without_and_with_a_budget(folder):
     run = gasledger("run", "campaign.yaml", "--cores", "2", cwd=folder)
     assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
     assert run.stdout.splitlines()[-1] == f"Report: {report}" and python_warnings(folder) == []
-    assert not any("geometry" in ln or "extract" in ln for ln in run.stdout.splitlines())   # only what the budget feeds
+    assert not any("cube_lines" in ln or "cube_bands" in ln for ln in run.stdout.splitlines())   # only what the budget feeds
     summary = json.loads((folder / "results" / "budget.json").read_text())
     assert summary["missing"] == [] and summary["defaulted"] == []
     budget = read_table(folder / "results" / "budget.ecsv")

@@ -293,18 +293,18 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     dry = snakemake(root, path, "--dry-run")
     assert dry.returncode == 0, dry.stderr[-2000:]
     jobs = _jobs(dry.stdout)
-    # the new cube's own jobs (one HCN line) and the new epoch's stack inputs and injection measurements; the HCN
+    # the new cube's own job (geometry, its HCN line, images) and the new epoch's stack inputs and injection measurements; the HCN
     # combination, the temperature (a new cube may change what the lines measure) and so every species' limits,
     # the campaign tables, and the combination of the injections, which depend on the campaign tables for every
     # species
-    assert jobs == {"geometry": 1, "comoving": 1, "extract": 1, "cube_images": 1, "stack_epoch": 1,
+    assert jobs == {"cube_lines": 1, "stack_epoch": 1,
                     "injection_epoch": 1, "stack": 1, "temperature": 1, "limits_species": 5, "limits": 1, "budget": 1,
                     "injection": 5, "forecast": 1, "report": 1, "all": 1}, jobs
     # every job with a cube or an epoch is the new one's: the earlier epochs' per-cube jobs and their injection
     # measurements (cached per epoch) are reused, not rerun
     wildcards = re.findall(r"wildcards: (.*)", dry.stdout)
     per_cube = [w for w in wildcards if "cube=" in w or "epoch=" in w]
-    assert len(per_cube) == 6, wildcards
+    assert len(per_cube) == 3, wildcards
     assert all("cube=e4_hcn" in w or "epoch=e4" in w for w in per_cube), per_cube
 
 

@@ -1,10 +1,11 @@
-"""Rule 'bands': thin wrapper around pipeline.workflow.bands.run."""
+"""Rule 'cube_bands': thin wrapper around pipeline.workflow.cube.run_bands."""
 # snakemake is injected by Snakemake
 # ruff: noqa: F821
-from pipeline.workflow import bands
+from pipeline.workflow import cube
 from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
-    bands.run(snakemake.input.geometry, list(snakemake.params.bands), settings, snakemake.output[0])
+    out = snakemake.output
+    cube.run_bands(settings, list(snakemake.params.bands), out.geometry, out.bands, out.image)
