@@ -7,13 +7,14 @@ and prints, measured in the same run:
 
 - the full run's wall time for N epochs, and the workflow's CPU time (sum of its jobs' cpu_time, Snakemake's
   benchmark files) against that wall time;
-- the wall time of the append, against the new epoch's own per-cube jobs (geometry, comoving, extract, bands,
-  cube images: the sum of their run times); the target is a ratio of at most 2;
+- the wall time of the append, against the new epoch's own per-cube jobs (cube_lines, cube_bands: each cube's
+  geometry, sub-cubes and spectra or bands, and images; the sum of their run times); the target is a ratio of at
+  most 2;
 - the append's wall time at size N against that at the first size (the target is at most 1.5: the cost of an
   epoch should not grow with the campaign's history);
 - the dry-run time of the finished campaign (nothing to do), against Snakemake's own start on an empty workflow;
 - what the append ran, per rule (jobs and summed run time), and how many jobs of the earlier epochs (per cube or
-  per epoch: geometry ... cube_images, stack_epoch, injection_epoch) reran (the target is none);
+  per epoch: cube_lines, cube_bands, stack_epoch, injection_epoch) reran (the target is none);
 - with ``--floor``, the workflow's total CPU against the same jobs run in one process (benchmarks/one_process.py)
   for the first size's campaign.
 
@@ -39,7 +40,7 @@ import yaml
 from astropy.time import Time
 
 REPO = Path(__file__).resolve().parents[1]
-PER_CUBE_RULES = ("geometry", "comoving", "extract", "bands", "cube_images")
+PER_CUBE_RULES = ("cube_lines", "cube_bands")
 PER_EPOCH_RULES = ("stack_epoch", "injection_epoch")
 
 

@@ -172,9 +172,9 @@ def epochs_of_species(species):
     return list(dict.fromkeys(CUBES[cid].epoch for cid in CUBES if _covers(cid, species)))
 
 
-def stack_epoch_files(wildcards):
-    """Input function: the per-epoch stack inputs of one species (epochs that cover it)."""
-    return [f"{OUT}/stack_epoch/{wildcards.species}/{e}.fits" for e in epochs_of_species(wildcards.species)]
+def stack_epoch_files():
+    """Each species' per-epoch stack inputs (epochs that cover it), by species in the config's order."""
+    return {s: [f"{OUT}/stack_epoch/{s}/{e}.fits" for e in epochs_of_species(s)] for s in SPECIES}
 
 
 def water_of_epoch(wildcards):
@@ -196,9 +196,14 @@ def water_of_epoch_nonlte(wildcards):
     return water_of_epoch(wildcards)
 
 
-def injection_epoch_files(wildcards):
-    """Input function: the per-epoch injection measurements of one species (epochs that cover it)."""
-    return [f"{OUT}/injection_epoch/{wildcards.species}/{e}.ecsv" for e in epochs_of_species(wildcards.species)]
+def injection_epoch_files():
+    """Each species' per-epoch injection measurements (epochs that cover it), by species in the config's order."""
+    return {s: [f"{OUT}/injection_epoch/{s}/{e}.ecsv" for e in epochs_of_species(s)] for s in SPECIES}
+
+
+def flat(by_species):
+    """The files of a by-species mapping in one list (a rule's input)."""
+    return [path for paths in by_species.values() for path in paths]
 
 
 def geometry_files():

@@ -26,20 +26,22 @@ rule injection_epoch:
 
 
 rule injection:
-    """Model comae at the limit and at the rate the push needs, recovered from every epoch's measurements."""
+    """Model comae at the limit and at the rate the push needs, recovered from every epoch's measurements (every
+    species in one job)."""
     input:
-        epochs=injection_epoch_files,
+        epochs=flat(injection_epoch_files()),
         limits=f"{OUT}/limits.ecsv",
         budget=f"{OUT}/budget.ecsv",
     output:
-        f"{OUT}/injection/{{species}}.ecsv",
+        injection_files(),
     params:
+        epochs=injection_epoch_files(),
         settings=settings_of("excitation"),
         code=CODE_VERSION,
     log:
-        f"{OUT}/logs/injection/{{species}}.log",
+        f"{OUT}/logs/injection.log",
     benchmark:
-        f"{OUT}/benchmarks/injection/{{species}}.tsv"
+        f"{OUT}/benchmarks/injection.tsv"
     resources:
         mem_mb=1000,
         runtime=10,

@@ -322,7 +322,7 @@ def _input_key(settings: "Settings", cube, title: str, files: list[Path], limits
 
 def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
                   limits: QTable, cache: str | Path | None = None, workers: int = 1) -> str:
-    """The report's "Cubes" section: each cube's image (made by its cube_images job, read from ``image_paths``,
+    """The report's "Cubes" section: each cube's image (made by its cube job, read from ``image_paths``,
     named ``<cube>.png``) and its spectra figure, drawn here because it needs the campaign's limits.
 
     ``settings`` is the run's :class:`pipeline.settings.Settings`; ``spectra_paths`` the extract step's files,

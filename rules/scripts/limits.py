@@ -1,11 +1,13 @@
-"""Rule 'limits': thin wrapper around pipeline.workflow.limits.run_join."""
+"""Rule 'limits': thin wrapper around pipeline.workflow.campaign.run_limits."""
 # snakemake is injected by Snakemake
 # ruff: noqa: F821
-from pipeline.workflow import limits
+from pipeline.workflow import campaign
 from pipeline.workflow.common import rule_settings, setup_logging, stage_errors
 
 log = setup_logging(snakemake.log[0])
 with stage_errors(log):
     settings = rule_settings(snakemake)
-    limits.run_join(list(snakemake.input.species), settings, snakemake.output.ecsv, snakemake.output.json,
-                    list(snakemake.input.geometry), snakemake.output.activity)
+    out, species = snakemake.output, list(snakemake.params.species)
+    campaign.run_limits(dict(snakemake.params.epochs), settings, dict(zip(species, out.stacks)), out.temperature,
+                        dict(zip(species, out.species)), out.ecsv, out.json, list(snakemake.input.geometry),
+                        out.activity)
