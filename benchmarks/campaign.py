@@ -14,7 +14,7 @@ and prints, measured in the same run:
   epoch should not grow with the campaign's history);
 - the dry-run time of the finished campaign (nothing to do), against Snakemake's own start on an empty workflow;
 - what the append ran, per rule (jobs and summed run time), and how many jobs of the earlier epochs (per cube or
-  per epoch: cube_lines, cube_bands, stack_epoch, injection_epoch) reran (the target is none);
+  per epoch: cube_lines, cube_bands, epoch) reran (the target is none);
 - with ``--floor``, the workflow's total CPU against the same jobs run in one process (benchmarks/one_process.py)
   for the first size's campaign.
 
@@ -41,7 +41,7 @@ from astropy.time import Time
 
 REPO = Path(__file__).resolve().parents[1]
 PER_CUBE_RULES = ("cube_lines", "cube_bands")
-PER_EPOCH_RULES = ("stack_epoch", "injection_epoch")
+PER_EPOCH_RULES = ("epoch",)
 
 
 def scenario_of(n_epochs: int):

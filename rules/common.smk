@@ -2,6 +2,7 @@
 import json
 import re
 import sys
+from types import SimpleNamespace
 
 from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 from pipeline.errors import GasledgerError
@@ -172,38 +173,60 @@ def epochs_of_species(species):
     return list(dict.fromkeys(CUBES[cid].epoch for cid in CUBES if _covers(cid, species)))
 
 
+def epoch_folders(kind):
+    """The per-epoch folders below OUT/kind (``stack_epoch`` or ``injection_epoch``) of every epoch that covers a
+    configured species (each made by its epoch job)."""
+    covered = dict.fromkeys(e for s in SPECIES for e in epochs_of_species(s))
+    return [f"{OUT}/{kind}/{e}" for e in covered]
+
+
 def stack_epoch_files():
     """Each species' per-epoch stack inputs (epochs that cover it), by species in the config's order."""
-    return {s: [f"{OUT}/stack_epoch/{s}/{e}.fits" for e in epochs_of_species(s)] for s in SPECIES}
-
-
-def water_of_epoch(wildcards):
-    """Input function: the epoch's H2O stack inputs, whose measured water production rate excites the lines under
-    non-LTE (excitation.q_h2o_from: measured), for a species other than H2O at an epoch whose cubes cover a water
-    band; none otherwise."""
-    excitation = config.get("excitation") or {}
-    if (wildcards.species == "H2O" or "H2O" not in SPECIES or excitation.get("q_h2o_from", "measured") != "measured"
-            or wildcards.epoch not in epochs_of_species("H2O")):
-        return []
-    return [f"{OUT}/stack_epoch/H2O/{wildcards.epoch}.fits"]
-
-
-def water_of_epoch_nonlte(wildcards):
-    """Input function: ``water_of_epoch`` for a step that uses the water only under excitation.model nonlte (the
-    injection's model comae; under lte its numbers do not depend on the water)."""
-    if (config.get("excitation") or {}).get("model", "lte") != "nonlte":
-        return []
-    return water_of_epoch(wildcards)
+    return {s: [f"{OUT}/stack_epoch/{e}/{s}.fits" for e in epochs_of_species(s)] for s in SPECIES}
 
 
 def injection_epoch_files():
     """Each species' per-epoch injection measurements (epochs that cover it), by species in the config's order."""
-    return {s: [f"{OUT}/injection_epoch/{s}/{e}.ecsv" for e in epochs_of_species(s)] for s in SPECIES}
+    return {s: [f"{OUT}/injection_epoch/{e}/{s}.ecsv" for e in epochs_of_species(s)] for s in SPECIES}
 
 
-def flat(by_species):
-    """The files of a by-species mapping in one list (a rule's input)."""
-    return [path for paths in by_species.values() for path in paths]
+def _epoch_species(epoch):
+    """The configured species an epoch's cubes cover, H2O first (its measured water excites the others' lines
+    under non-LTE), the others in the config's order."""
+    return sorted((s for s in SPECIES if epoch in epochs_of_species(s)), key=lambda s: s != "H2O")
+
+
+def epoch_plan(wildcards):
+    """Params function: what the epoch's job does, per species it covers (H2O first): the spectra, bands and
+    sub-cube files it reads, the files it writes, and the epoch's H2O stack inputs whose measured water production
+    rate excites the lines under non-LTE (excitation.q_h2o_from: measured; for the injection's model comae only
+    under excitation.model nonlte, since under lte its numbers do not depend on the water), or None."""
+    excitation = config.get("excitation") or {}
+    species = _epoch_species(wildcards.epoch)
+    water = (f"{OUT}/stack_epoch/{wildcards.epoch}/H2O.fits"
+             if "H2O" in species and excitation.get("q_h2o_from", "measured") == "measured" else None)
+    nonlte = excitation.get("model", "lte") == "nonlte"
+    plan = []
+    for name in species:
+        w = SimpleNamespace(species=name, epoch=wildcards.epoch)
+        plan.append({"species": name, "spectra": spectra_of_species(w), "bands": band_files_of_species(w),
+                     "subcubes": subcubes_of_species(w),
+                     "stack": f"{OUT}/stack_epoch/{wildcards.epoch}/{name}.fits",
+                     "injection": f"{OUT}/injection_epoch/{wildcards.epoch}/{name}.ecsv",
+                     "water": water if name != "H2O" else None,
+                     "water_injection": water if name != "H2O" and nonlte else None})
+    return plan
+
+
+def epoch_inputs(wildcards):
+    """Input function: every file or folder the epoch's job reads (the spectra and sub-cube folders of its
+    millimetre cubes, the bands files and cube files of its infrared cubes, for the species it covers)."""
+    files = []
+    for name in _epoch_species(wildcards.epoch):
+        w = SimpleNamespace(species=name, epoch=wildcards.epoch)
+        files += (spectra_folders_of_species(w) + subcube_folders_of_species(w) + band_files_of_species(w)
+                  + ir_cubes_of_species(w))
+    return list(dict.fromkeys(files))
 
 
 def geometry_files():

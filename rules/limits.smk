@@ -2,7 +2,7 @@ rule limits:
     """Over all epochs: each species' stack, the rotational temperatures, each species' Q, sigma_Q, detections and
     upper limits, all in one table (limits.ecsv), and activity-law fits across epochs (activity.ecsv)."""
     input:
-        epochs=flat(stack_epoch_files()),
+        epochs=epoch_folders("stack_epoch"),
         geometry=geometry_files(),
         catalogue=catalogue_files(),
     output:

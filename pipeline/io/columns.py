@@ -254,11 +254,11 @@ TABLE_KINDS = ("geometry", "limits", "activity", "temperature", "budget", "exclu
 
 def table_kind(path: str | Path) -> str | None:
     """The kind of output table a path holds: its file name (``limits.ecsv``), its folder's (``limits/CO.ecsv``)
-    or its folder's folder's (``injection_epoch/CO/e1.ecsv``).
+    or its folder's folder's (``injection_epoch/e1/CO.ecsv``).
 
     >>> table_kind("results/demo/limits/CO.ecsv"), table_kind("out/budget.ecsv"), table_kind("x/y.ecsv")
     ('limits', 'budget', None)
-    >>> table_kind("out/injection_epoch/CO/e1.ecsv")
+    >>> table_kind("out/injection_epoch/e1/CO.ecsv")
     'injection_epoch'
     """
     path = Path(path)

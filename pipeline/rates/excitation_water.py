@@ -133,7 +133,7 @@ def model_with_water(model: "ComaModel", water: ExcitationWater | None) -> "Coma
 
 def epoch_water(settings: "Settings", species: str, epoch: str, water_inputs_path: str | None) -> ExcitationWater | None:
     """:func:`excitation_water` for a step of ``species`` at ``epoch``, from its settings (``excitation``,
-    ``limits``) and the H2O stack inputs of the epoch (``stack_epoch/H2O/<epoch>.fits``, None without). The water
+    ``limits``) and the H2O stack inputs of the epoch (``stack_epoch/<epoch>/H2O.fits``, None without). The water
     itself takes ``excitation.q_h2o_per_s`` (its own measurement is not an input of its own stack)."""
     from pipeline.io.products import EpochInputs
 

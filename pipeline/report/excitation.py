@@ -311,7 +311,8 @@ def excitation_section(limits: QTable, catalogue: Catalogue, t_kin: u.Quantity, 
         if missing:
             parts.append("<p>No non-LTE Q for " + html.escape(", ".join(missing)) + ": its stack inputs carry no "
                          "non-LTE response. The non-LTE model needs a linear rotor with constants in the catalogue "
-                         "or a LAMDA-format file (excitation.molecular_data); the stack_epoch log names the reason "
+                         "or a LAMDA-format file (excitation.molecular_data); the epoch's log "
+                         "(logs/epoch/<epoch>.log) names the reason "
                          "for each species left out.</p>")
     else:
         parts.append("<p>No species with millimetre lines in this campaign.</p>")

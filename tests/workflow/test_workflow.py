@@ -186,8 +186,9 @@ def test_outputs_contract_and_provenance(campaign):
     prov = table.meta["provenance"]
     assert prov["software"] == "gasledger" and prov["inputs"]
     assert all(v.startswith("sha256:") for v in prov["inputs"].values())
-    # the record holds the config keys the limits rule declares (rules/limits.smk), nothing else, and the code digest
-    assert set(prov["config"]) == {"outdir", "limits", "coma", "excitation"}
+    # the record holds the config keys the limits rule declares (rules/limits.smk: the stacks' and the limits'; the
+    # catalogue and interferometer sections are not in this campaign), nothing else, and the code digest
+    assert set(prov["config"]) == {"outdir", "limits", "coma", "excitation", "comoving"}
     assert set(prov["config"]["limits"]) == {"nsigma", "activity_slope"}
     assert prov["config"]["limits"]["nsigma"] == yaml.safe_load(config.read_text()).get("limits", {}).get("nsigma", 3)
     assert len(prov["code"]) == 16
@@ -293,16 +294,16 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     dry = snakemake(root, path, "--dry-run")
     assert dry.returncode == 0, dry.stderr[-2000:]
     jobs = _jobs(dry.stdout)
-    # the new cube's own job (geometry, its HCN line, images) and the new epoch's stack inputs and injection
-    # measurements; the combination over all epochs (stacks, temperatures, limits: a new cube may change what the
+    # the new cube's own job (geometry, its HCN line, images) and the new epoch's job (its stack inputs and
+    # injection measurements); the combination over all epochs (stacks, temperatures, limits: a new cube may change what the
     # lines measure), the campaign tables, and the injections' combination, which depends on the campaign tables
-    assert jobs == {"cube_lines": 1, "stack_epoch": 1, "injection_epoch": 1, "limits": 1, "budget": 1,
-                    "injection": 1, "forecast": 1, "report": 1, "all": 1}, jobs
+    assert jobs == {"cube_lines": 1, "epoch": 1, "limits": 1, "budget": 1, "injection": 1, "forecast": 1,
+                    "report": 1, "all": 1}, jobs
     # every job with a cube or an epoch is the new one's: the earlier epochs' per-cube jobs and their injection
     # measurements (cached per epoch) are reused, not rerun
     wildcards = re.findall(r"wildcards: (.*)", dry.stdout)
     per_cube = [w for w in wildcards if "cube=" in w or "epoch=" in w]
-    assert len(per_cube) == 3, wildcards
+    assert len(per_cube) == 2, wildcards
     assert all("cube=e4_hcn" in w or "epoch=e4" in w for w in per_cube), per_cube
 
 
