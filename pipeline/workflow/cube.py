@@ -19,7 +19,7 @@ from pathlib import Path
 
 from pipeline.errors import GasledgerError
 from pipeline.settings import Settings
-from pipeline.workflow import bands, comoving, cube_images, extract, geometry
+from pipeline.workflow import cube_images, geometry
 
 __all__ = ["run_lines", "run_bands", "line_file"]
 
@@ -34,6 +34,8 @@ def line_file(folder: str | Path, line_id: str) -> Path:
 def run_lines(settings: Settings, line_ids: list[str], geometry_path: str, subcube_dir: str, spectra_dir: str,
               image_path: str) -> None:
     """A millimetre cube: geometry, each line's sub-cube and spectra (``<dir>/<line>.fits``), images."""
+    from pipeline.workflow import comoving, extract      # here: an infrared cube's job need not import them
+
     cube_id = settings.cube.cube_id
     geometry.run(settings, geometry_path)
     Path(subcube_dir).mkdir(parents=True, exist_ok=True)
@@ -64,6 +66,8 @@ def _naming_the_line(settings: Settings, line_id: str, subcube_path: str):
 
 def run_bands(settings: Settings, band_ids: list[str], geometry_path: str, bands_path: str, image_path: str) -> None:
     """An infrared cube: geometry, its bands and dust continuum (the bands file), images."""
+    from pipeline.workflow import bands                  # here: a millimetre cube's job need not import it
+
     geometry.run(settings, geometry_path)
     bands.run(geometry_path, band_ids, settings, bands_path)
     log.info("cube %s: %d bands measured", settings.cube.cube_id, len(band_ids))

@@ -14,7 +14,7 @@ from pipeline.io.atomic import atomic_path, write_text
 from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams, plot_stacked_spectra,
                                      plot_temperature_sweep, to_png)
 from pipeline.report.campaign_figure import IMG_ID, campaign_figures, plot_note
-from pipeline.report.cube_figures import cubes_section
+from pipeline.report.cubes_section import cubes_section
 from pipeline.rates.excitation_water import ExcitationWater, with_water
 from pipeline.report.excitation import SECTION_TITLE, excitation_caution, excitation_section, water_per_epoch
 from pipeline.report.html import anchored_figure_html, figure_html, page, table_html

@@ -13,8 +13,8 @@ from matplotlib.patches import Circle, Ellipse
 from pipeline.catalogue import load_catalogue
 from pipeline.coma.response import ComaModel
 from pipeline.io.products import BandMeasurements, LineSpectra, ProductMeta
-from pipeline.report.cube_figures import (CUBE_IMAGE_CLASS, cube_images_html, plot_cube_images, plot_cube_spectra,
-                                          unit_label)
+from pipeline.report.cube_figures import plot_cube_images, plot_cube_spectra, unit_label
+from pipeline.report.cubes_section import CUBE_IMAGE_CLASS, cube_images_html
 from pipeline.report.cube_spectra import (aperture_brightness_temperature, band_spectrum_panels,
                                           line_spectrum_panels, quoted_model)
 from pipeline.report.figures import to_png
@@ -159,7 +159,7 @@ def test_band_model_is_continuum_plus_q_times_response_times_template():
 def test_cube_spectra_figures_drawn_on_workers_are_the_serial_ones_and_keyed_by_content(tmp_path):
     # the figures are independent, so drawing them on two worker processes gives the bytes drawing them in turn
     # gives (to_png writes fixed metadata); the cache path depends on the content only
-    import pipeline.report.cube_figures as cf
+    import pipeline.report.cubes_section as cf
 
     figures = [(f"c{k} · epoch e1", [], [f"note {k}"]) for k in range(3)]
     serial = cf._draw_all(figures, workers=1)

@@ -474,7 +474,7 @@ def test_cube_figures_are_read_back_without_their_spectra_when_nothing_they_show
     code): a second report reads no spectra file and gives the same HTML; a changed quoted row of one epoch redraws
     that epoch's cubes only, to the figure an uncached report draws."""
     from pipeline.io import products
-    from pipeline.report import cube_figures
+    from pipeline.report import cubes_section
     from pipeline.settings import Settings, validate_config
 
     root, config = campaign
@@ -485,7 +485,7 @@ def test_cube_figures_are_read_back_without_their_spectra_when_nothing_they_show
     bands = sorted(str(p) for p in (results / "bands").glob("*.fits"))
     limits = _limits(root)
     cache = tmp_path / "cache"
-    first = cube_figures.cubes_section(settings, images, spectra, bands, limits, cache=cache)
+    first = cubes_section.cubes_section(settings, images, spectra, bands, limits, cache=cache)
     read = []
     original = products.LineSpectra.from_fits.__func__
 
@@ -494,16 +494,16 @@ def test_cube_figures_are_read_back_without_their_spectra_when_nothing_they_show
             read.append(str(source))
         return original(cls, source)
 
-    monkeypatch.setattr(cube_figures.LineSpectra, "from_fits", classmethod(counting))
-    assert cube_figures.cubes_section(settings, images, spectra, bands, limits, cache=cache) == first
+    monkeypatch.setattr(cubes_section.LineSpectra, "from_fits", classmethod(counting))
+    assert cubes_section.cubes_section(settings, images, spectra, bands, limits, cache=cache) == first
     assert read == []
     changed = limits.copy()
     pick = (changed["epoch"] == "e2") & changed["adopted"] & (changed["species"] == "HCN")
     changed["q"][pick] = changed["q"][pick] * 1.5
-    redrawn = cube_figures.cubes_section(settings, images, spectra, bands, changed, cache=cache)
+    redrawn = cubes_section.cubes_section(settings, images, spectra, bands, changed, cache=cache)
     assert read and all("/e2_" in p for p in read)
     assert redrawn != first
-    assert redrawn == cube_figures.cubes_section(settings, images, spectra, bands, changed)      # no cache
+    assert redrawn == cubes_section.cubes_section(settings, images, spectra, bands, changed)      # no cache
 
 
 def test_infrared_geometry_is_the_spacecraft_s(campaign):
