@@ -19,6 +19,7 @@ from __future__ import annotations
 import re
 import difflib
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 
 import astropy.constants as const
@@ -263,6 +264,13 @@ class Catalogue:
             msg = (f"species {name!r} is not in the catalogue {self.source[0]}{hint}; "
                    f"expected one of: {known}")
             raise CatalogueError(msg) from None
+
+    @cached_property
+    def line_frequencies_ghz(self) -> np.ndarray:
+        """The rest frequencies of :attr:`lines` [GHz], in their order (computed once; read-only)."""
+        freqs = np.array([ln.freq.to_value(u.GHz) for ln in self.lines], dtype=float)
+        freqs.flags.writeable = False
+        return freqs
 
     def lines_of(self, name: str) -> tuple[Line, ...]:
         """All lines of one species, ordered by frequency."""

@@ -61,17 +61,16 @@ def blend_partners(line: Line, catalogue: Catalogue, reach: u.Quantity) -> tuple
     """Other catalogue lines within ``reach`` of ``line``: (same-species lines with their radio velocity [km/s] on
     ``line``'s axis, ids of other species' lines)."""
     c = const.c.to_value(u.km / u.s)
-    f0 = line.freq.to_value(u.GHz)
+    velocity = c * (1 - catalogue.line_frequencies_ghz / line.freq.to_value(u.GHz))
     same, other = [], []
-    for cand in catalogue.lines:
+    for k in np.flatnonzero(np.abs(velocity) <= u.Quantity(reach).to_value(u.km / u.s)):
+        cand = catalogue.lines[k]
         if cand.line_id == line.line_id:
             continue
-        v = c * (1 - cand.freq.to_value(u.GHz) / f0)
-        if abs(v) <= u.Quantity(reach).to_value(u.km / u.s):
-            if cand.species == line.species:
-                same.append((cand, v))
-            else:
-                other.append(cand.line_id)
+        if cand.species == line.species:
+            same.append((cand, float(velocity[k])))
+        else:
+            other.append(cand.line_id)
     return same, other
 
 

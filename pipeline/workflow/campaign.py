@@ -16,7 +16,6 @@ from __future__ import annotations
 import logging
 
 from pipeline.settings import Settings
-from pipeline.workflow import injection, limits, stack, temperature
 
 __all__ = ["run_limits", "run_injections"]
 
@@ -28,6 +27,8 @@ def run_limits(epoch_paths: dict[str, list[str]], settings: Settings, stack_path
                geometry_paths: list[str], activity_path: str) -> None:
     """Stack each species of ``epoch_paths`` (its per-epoch stack inputs) into ``stack_paths[species]``, measure
     the temperatures, write each species' limits to ``species_paths[species]`` and join them."""
+    from pipeline.workflow import limits, stack, temperature     # here: the injection job need not import them
+
     for k, (species, paths) in enumerate(epoch_paths.items(), 1):
         stack.run(paths, species, settings, stack_paths[species])
         log.info("stack of %s done (%d of %d species)", species, k, len(epoch_paths))
@@ -43,6 +44,8 @@ def run_injections(epoch_paths: dict[str, list[str]], limits_path: str, budget_p
                    out_paths: dict[str, str]) -> None:
     """The injection-recovery of each species of ``epoch_paths`` (its per-epoch measurements), written to
     ``out_paths[species]``."""
+    from pipeline.workflow import injection                      # here: the limits job need not import it
+
     for k, (species, paths) in enumerate(epoch_paths.items(), 1):
         injection.run(paths, species, limits_path, budget_path, settings, out_paths[species])
         log.info("injection-recovery of %s done (%d of %d species)", species, k, len(epoch_paths))
