@@ -16,13 +16,8 @@ report: "report/workflow.rst"
 
 include: "rules/common.smk"
 include: "rules/cube.smk"
-include: "rules/dust.smk"
 include: "rules/epoch.smk"
-include: "rules/limits.smk"
-include: "rules/budget.smk"
-include: "rules/injection.smk"
-include: "rules/forecast.smk"
-include: "rules/report.smk"
+include: "rules/campaign.smk"
 
 
 rule all:

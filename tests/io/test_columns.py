@@ -124,7 +124,7 @@ def _bands_file(path, cube_id, afrho):
 
 
 def test_dust_stage_stacks_fits_tables_without_merging_their_fits_cards(tmp_path):
-    """The cause of the dust job's MergeConflictWarnings: each bands file's DUST table, read from FITS, carried its
+    """The cause of the dust step's MergeConflictWarnings: each bands file's DUST table, read from FITS, carried its
     HDU's CHECKSUM, DATASUM and EXTNAME as metadata, and stacking two of them merged differing checksums (and
     wrote them into afrho.ecsv). The products' reader drops them; nothing warns and no FITS card reaches the ECSV."""
     from pipeline.workflow import dust

@@ -186,9 +186,9 @@ def test_outputs_contract_and_provenance(campaign):
     prov = table.meta["provenance"]
     assert prov["software"] == "gasledger" and prov["inputs"]
     assert all(v.startswith("sha256:") for v in prov["inputs"].values())
-    # the record holds the config keys the limits rule declares (rules/limits.smk: the stacks' and the limits'; the
-    # catalogue and interferometer sections are not in this campaign), nothing else, and the code digest
-    assert set(prov["config"]) == {"outdir", "limits", "coma", "excitation", "comoving"}
+    # the record holds the config keys the limits step reads (pipeline.workflow.campaign.STEP_KEYS; the catalogue
+    # section is not in this campaign), nothing else, and the code digest
+    assert set(prov["config"]) == {"outdir", "limits", "coma", "excitation"}
     assert set(prov["config"]["limits"]) == {"nsigma", "activity_slope"}
     assert prov["config"]["limits"]["nsigma"] == yaml.safe_load(config.read_text()).get("limits", {}).get("nsigma", 3)
     assert len(prov["code"]) == 16
@@ -214,7 +214,7 @@ def test_every_output_table_explains_its_columns(campaign):
     """Every column of every ECSV the workflow writes has a description; every numeric column has the unit
     pipeline.io.columns names for it ('' there: dimensionless on purpose), so a name has one unit in all tables;
     limits.ecsv carries each epoch's mid-time, r_h and Delta; no FITS card sits in any table's metadata, and no
-    job logged a MergeConflictWarning (the dust job stacks tables read from FITS)."""
+    job logged a MergeConflictWarning (the dust step stacks tables read from FITS)."""
     from astropy.time import Time
 
     from pipeline.io.columns import column_spec, table_kind
@@ -294,11 +294,10 @@ def test_new_cube_reruns_only_its_jobs(campaign, tmp_path):
     dry = snakemake(root, path, "--dry-run")
     assert dry.returncode == 0, dry.stderr[-2000:]
     jobs = _jobs(dry.stdout)
-    # the new cube's own job (geometry, its HCN line, images) and the new epoch's job (its stack inputs and
-    # injection measurements); the combination over all epochs (stacks, temperatures, limits: a new cube may change what the
-    # lines measure), the campaign tables, and the injections' combination, which depends on the campaign tables
-    assert jobs == {"cube_lines": 1, "epoch": 1, "limits": 1, "budget": 1, "injection": 1, "forecast": 1,
-                    "report": 1, "all": 1}, jobs
+    # the new cube's own job (geometry, its HCN line, images), the new epoch's job (its stack inputs and injection
+    # measurements) and the campaign's job (the combinations over all epochs: stacks, temperatures, limits, budget,
+    # injection-recovery, forecast, report)
+    assert jobs == {"cube_lines": 1, "epoch": 1, "campaign": 1, "all": 1}, jobs
     # every job with a cube or an epoch is the new one's: the earlier epochs' per-cube jobs and their injection
     # measurements (cached per epoch) are reused, not rerun
     wildcards = re.findall(r"wildcards: (.*)", dry.stdout)
@@ -408,10 +407,9 @@ def test_changing_one_value_reruns_only_what_uses_it(campaign, tmp_path):
     cfg = yaml.safe_load(config.read_text())
     cfg["limits"]["nsigma"] = 2.5
     jobs = _dry_run_jobs(root, cfg, tmp_path / "nsigma.yaml")
-    # limits.nsigma is a param of the limits (with the stacks they run with), injection and forecast: those rerun,
-    # with the tables after them (not the per-epoch stack inputs: the water of the non-LTE excitation has its own
-    # threshold)
-    assert jobs == {"limits": 1, "budget": 1, "injection": 1, "forecast": 1, "report": 1, "all": 1}, jobs
+    # limits.nsigma is read by the campaign's combinations only: no cube's or epoch's job reruns (the water of the
+    # non-LTE excitation in the per-epoch stack inputs has its own threshold)
+    assert jobs == {"campaign": 1, "all": 1}, jobs
 
 
 def test_infrared_rates_limits_and_dust(campaign):
