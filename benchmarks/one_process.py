@@ -248,6 +248,39 @@ class FakeSnakemake:
         self.scriptdir = str(Path(job["script"]).parent)
 
 
+#: Stage functions whose CPU the one-process loop adds up, by what they are (inside the jobs that call them).
+TIMED_STEPS = {"injection": (("pipeline.workflow.injection", "run_epoch"), ("pipeline.workflow.injection", "run"))}
+
+
+def _time_steps() -> dict[str, float]:
+    """Wrap the :data:`TIMED_STEPS` functions (in their modules, which the stages call them through) so that each
+    call adds its CPU (this process's rusage) to the returned mapping."""
+    import functools
+    import importlib
+
+    totals = dict.fromkeys(TIMED_STEPS, 0.0)
+
+    def cpu() -> float:
+        usage = resource.getrusage(resource.RUSAGE_SELF)
+        return usage.ru_utime + usage.ru_stime
+
+    for what, functions in TIMED_STEPS.items():
+        for module_name, name in functions:
+            module = importlib.import_module(module_name)
+            original = getattr(module, name)
+
+            @functools.wraps(original)
+            def timed(*args, _original=original, _what=what, **kwargs):
+                start = cpu()
+                try:
+                    return _original(*args, **kwargs)
+                finally:
+                    totals[_what] += cpu() - start
+
+            setattr(module, name, timed)
+    return totals
+
+
 def run_jobs(jobs_file: Path, workdir: Path, out: Path) -> int:
     """Run every script job of ``jobs_file`` in this process, in order, in ``workdir``; write each job's CPU and wall
     and the loop's totals to ``out``. Returns 1 (after writing what ran) when a job fails."""
@@ -255,6 +288,7 @@ def run_jobs(jobs_file: Path, workdir: Path, out: Path) -> int:
     import runpy
 
     jobs = [j for j in json.loads(jobs_file.read_text(encoding="utf-8"))["jobs"] if j["script"] is not None]
+    steps = _time_steps()
     here = Path.cwd()
     os.chdir(workdir)
     records, failed = [], None
@@ -284,7 +318,7 @@ def run_jobs(jobs_file: Path, workdir: Path, out: Path) -> int:
         usage1, wall1 = resource.getrusage(resource.RUSAGE_SELF), time.perf_counter()
         os.chdir(here)
         out.write_text(json.dumps({
-            "jobs": records, "wall": wall1 - wall0,
+            "jobs": records, "wall": wall1 - wall0, "steps": steps,
             "cpu": (usage1.ru_utime + usage1.ru_stime) - (usage0.ru_utime + usage0.ru_stime),
             "failed": None if failed is None else {"rule": failed["rule"], "log": failed["log"]["items"]},
         }), encoding="utf-8")
@@ -424,6 +458,7 @@ class FloorResult:
     one_cpu: float
     one_wall: float
     one_per_rule: dict[str, list[float]]
+    steps: dict[str, float] = field(default_factory=dict)
     cores: int = 1
     workflow_cpu: float | None = None
     workflow_wall: float | None = None
@@ -480,7 +515,8 @@ def measure_floor(config: str | Path, root: str | Path, directory: str | Path | 
     for rec in loop["jobs"]:
         one_per_rule[rec["rule"]].append(rec["cpu"])
     result = FloorResult(jobs=len(loop["jobs"]), graph_cpu=graph["cpu"], graph_wall=graph["seconds"],
-                         one_cpu=loop["cpu"], one_wall=loop["wall"], one_per_rule=dict(one_per_rule), cores=cores)
+                         one_cpu=loop["cpu"], one_wall=loop["wall"], one_per_rule=dict(one_per_rule), cores=cores,
+                         steps=loop.get("steps", {}))
     if skip_workflow:
         return result
 
@@ -511,6 +547,11 @@ def print_floor(r: FloorResult, out=None) -> None:
     say(f"job graph (Snakemake's API, not counted below): {r.graph_cpu:.1f} s CPU, {r.graph_wall:.1f} s wall")
     say(f"jobs run: {r.jobs} in {len(r.one_per_rule)} rules")
     say(f"one process:  CPU {r.one_cpu:8.1f} s   wall {r.one_wall:8.1f} s")
+    for what, seconds in r.steps.items():
+        of_workflow = (f", {100 * seconds / r.workflow_cpu:.1f} % of the workflow's CPU"
+                       if r.workflow_cpu else "")
+        say(f"  {what} steps (inside their jobs): {seconds:.1f} s CPU = {100 * seconds / r.one_cpu:.1f} % of the "
+            f"one-process CPU{of_workflow}")
     if r.workflow_cpu is None:
         return
     say(f"workflow:     CPU {r.workflow_cpu:8.1f} s   wall {r.workflow_wall:8.1f} s  (gasledger run --cores {r.cores}, "

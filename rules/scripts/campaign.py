@@ -16,6 +16,6 @@ with stage_errors(log):
         cube_images=list(snakemake.input.cube_images), line_spectra=list(snakemake.params.line_spectra),
         stacks=dict(zip(species, out.stacks)), species_limits=dict(zip(species, out.species_limits)),
         injections=dict(zip(species, out.injections)),
-        outputs=SimpleNamespace(**{name: out[name] for name in out.keys()}))
+        outputs=SimpleNamespace(**{name: getattr(out, name) for name in out.keys()}))
     campaign.run(files, settings, workers=snakemake.threads)
 end_of_job()
