@@ -124,6 +124,7 @@ class _ModelComae:
         self.to_cube_unit = per_pixel / flux_conversion(info.bunit, info.pixel_solid_angle(),
                                                         info.channel_beam_solid_angles(), info.frequencies)
         self._maps: dict[tuple[float, float, float], np.ndarray] = {}
+        self._profiles: dict[tuple[float, float], np.ndarray] = {}
 
     def map(self, t_kin: u.Quantity, p: Placement) -> np.ndarray:
         """The coma's map for Q = 1/s at ``t_kin`` centred on placement ``p`` (Jy/beam km/s per pixel)."""
@@ -136,10 +137,15 @@ class _ModelComae:
 
     def profile(self, t_kin: u.Quantity, p: Placement) -> np.ndarray:
         """The coma's spectral factor at placement ``p`` in the cube's unit per unit map (the cube is
-        ``q * profile[:, None, None] * map[None]``)."""
-        prof = line_profile_on_channels(self.sub.velocity, self.species, t_kin, self.sub.meta.r_h, self.model,
-                                        v_centre=p.v_centre, spectral_response=self.sub.meta.spectral_response)
-        return prof * self.to_cube_unit
+        ``q * profile[:, None, None] * map[None]``); made once per temperature and velocity (placements at other
+        sky positions share it)."""
+        key = (float(u.Quantity(t_kin, u.K).value), float(p.v_centre))
+        if key not in self._profiles:
+            prof = line_profile_on_channels(self.sub.velocity, self.species, t_kin, self.sub.meta.r_h, self.model,
+                                            v_centre=p.v_centre, spectral_response=self.sub.meta.spectral_response)
+            self._profiles[key] = prof * self.to_cube_unit
+            self._profiles[key].flags.writeable = False
+        return self._profiles[key]
 
     def cube(self, q: float, t_kin: u.Quantity, p: Placement) -> np.ndarray:
         """The coma of rate ``q`` [1/s] at ``t_kin``, centred on placement ``p``, in the cube's unit."""
