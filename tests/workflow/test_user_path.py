@@ -10,6 +10,7 @@ with the drivers' verdicts.
 
 import html
 import json
+import re
 import shutil
 import subprocess
 import sys
@@ -84,7 +85,7 @@ def test_new_check_run_without_and_with_a_budget(folder):
     assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
     lines = run.stdout.splitlines()
     report = folder / "results" / "report.html"
-    assert lines[0].startswith("[ 1 of ") and lines[-1] == f"Report: {report}"
+    assert re.match(r"\[ *1 of \d+ steps\] ", lines[0]) and lines[-1] == f"Report: {report}", run.stdout
     assert all(ln.startswith("[") for ln in lines[:-1]), run.stdout            # one progress line per job, no more
     assert "Warning" not in run.stdout + run.stderr and python_warnings(folder) == []
     summary = json.loads((folder / "results" / "budget.json").read_text())
