@@ -40,7 +40,8 @@ import yaml
 from astropy.time import Time
 
 REPO = Path(__file__).resolve().parents[1]
-PER_CUBE_RULES = ("cube_lines", "cube_bands")
+# the jobs' benchmark folders (benchmarks/<folder>/...): both cube rules write below cube/
+PER_CUBE_RULES = ("cube",)
 PER_EPOCH_RULES = ("epoch",)
 
 
