@@ -272,11 +272,18 @@ class Catalogue:
         freqs.flags.writeable = False
         return freqs
 
+    @cached_property
+    def _lines_by_species(self) -> dict[str, tuple[Line, ...]]:
+        """Each species' lines ordered by frequency (ties in catalogue order), computed once."""
+        by_species: dict[str, list[Line]] = {}
+        for k in np.argsort(self.line_frequencies_ghz, kind="stable"):
+            by_species.setdefault(self.lines[k].species, []).append(self.lines[k])
+        return {name: tuple(lines) for name, lines in by_species.items()}
+
     def lines_of(self, name: str) -> tuple[Line, ...]:
         """All lines of one species, ordered by frequency."""
         self.get_species(name)
-        return tuple(sorted((ln for ln in self.lines if ln.species == name),
-                            key=lambda ln: ln.freq.to_value(u.GHz)))
+        return self._lines_by_species.get(name, ())
 
     def get_line(self, line_id: str) -> Line:
         """The line with identifier ``line_id``."""
