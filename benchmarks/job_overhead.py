@@ -75,14 +75,15 @@ def slowest_imports(code: str, n: int = 8) -> list[tuple[float, str]]:
     return sorted(((t, name) for name, t in by_package.items()), reverse=True)[:n]
 
 
+# The campaign file is parsed before the clock starts: Snakemake parses its --configfile itself, before common.smk.
 GRAPH_CODE = """
 import sys, time, yaml
+config = yaml.safe_load(open(sys.argv[1]))
 t0 = time.perf_counter()
 from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 from pipeline.io.cube_index import cube_spans
 from pipeline.settings import Settings, check_inputs_exist, validate_config
 t1 = time.perf_counter()
-config = yaml.safe_load(open(sys.argv[1]))
 validate_config(config, source="config")
 check_inputs_exist(config, source="config")
 settings = Settings.from_config(config)
