@@ -82,11 +82,11 @@ config = yaml.safe_load(open(sys.argv[1]))
 t0 = time.perf_counter()
 from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 from pipeline.io.cube_index import cube_spans
-from pipeline.settings import Settings, check_inputs_exist, validate_config
+from pipeline.settings import check_inputs_exist, graph_settings, validate_config
 t1 = time.perf_counter()
 validate_config(config, source="config")
 check_inputs_exist(config, source="config")
-settings = Settings.from_config(config)
+settings = graph_settings(config)
 catalogue = settings.catalogue()
 spans = cube_spans({c.cube_id: (c.path, c.beam_arcsec) for c in settings.cubes}, sys.argv[2])
 lines = {k: lines_for_cube(s, catalogue, config["species"]) for k, s in spans.items()}

@@ -44,6 +44,7 @@ if TYPE_CHECKING:
 __all__ = [
     "SCHEMA_FILE",
     "Settings",
+    "graph_settings",
     "TargetSettings",
     "LimitsSettings",
     "InfraredSettings",
@@ -422,6 +423,15 @@ def _insert_cubes(text: str, entries: list[dict[str, Any]]) -> str | None:
     if end > 0 and not lines[end - 1].endswith("\n"):
         lines[end - 1] += "\n"
     return "".join(lines[:end]) + added + "".join(lines[end:])
+
+
+def graph_settings(config: dict[str, Any]) -> "Settings":
+    """The settings the job graph is built from (rules/common.smk): every section of the validated ``config`` but
+    the coma model's (``coma``, ``excitation``). The graph needs none of those, and building them imports the
+    model's modules (scipy's integrators and special functions, ~0.5 s at every Snakemake start and, on a cluster,
+    in every job); the schema has checked them, and what only building them checks (model nonlte without
+    excitation.q_h2o_per_s) is refused, in one sentence, by the first job that reads them."""
+    return Settings.from_config(config, sections=set(schema_keys()) - {"coma", "excitation"})
 
 
 def load_settings(path: str | Path) -> "Settings":

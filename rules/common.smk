@@ -8,12 +8,12 @@ from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 from pipeline.errors import GasledgerError
 from pipeline.io.cube_index import cube_spans, index_location
 from pipeline.io.provenance import code_version
-from pipeline.settings import Settings, check_inputs_exist, cube_entries, schema_keys, sections_record, validate_config
+from pipeline.settings import check_inputs_exist, cube_entries, graph_settings, schema_keys, sections_record, validate_config
 
 try:
     validate_config(config, source="config")
     check_inputs_exist(config, source="config")
-    SETTINGS = Settings.from_config(config)
+    SETTINGS = graph_settings(config)          # every section but the coma model's (see its docstring)
     CATALOGUE = SETTINGS.catalogue()
     for _name in config["species"]:
         CATALOGUE.get_species(_name)

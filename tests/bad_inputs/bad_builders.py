@@ -26,7 +26,7 @@ from astropy.time import Time
 
 from pipeline.catalogue.entries import load_catalogue
 from pipeline.io.cube_index import cube_spans
-from pipeline.settings import Settings, check_inputs_exist, validate_config
+from pipeline.settings import Settings, check_inputs_exist, graph_settings, validate_config
 from pipeline.errors import GasledgerError
 from pipeline.geometry.orbit import write_ephemeris
 from pipeline.workflow import comoving, extract, geometry, limits, stack
@@ -148,7 +148,7 @@ def dag_checks(config: dict) -> tuple[dict, dict, Any]:
     try:
         validate_config(config, source="config")
         check_inputs_exist(config, source="config")
-        settings = Settings.from_config(config)
+        settings = graph_settings(config)
         catalogue = settings.catalogue()
         for name in config["species"]:
             catalogue.get_species(name)

@@ -421,7 +421,7 @@ def test_line_far_outside_the_band_is_not_scheduled(tmp_path):
 def test_the_dag_checks_mirror_rules_common_smk():
     # bad_builders.dag_checks must make the calls the workflow makes when it builds the job graph
     text = (REPO / "rules" / "common.smk").read_text()
-    for call in ("validate_config(config", "check_inputs_exist(config", "Settings.from_config(config)",
+    for call in ("validate_config(config", "check_inputs_exist(config", "graph_settings(config)",
                  "SETTINGS.catalogue()", ".get_species(", "SETTINGS.cubes", "cube_spans(", "lines_for_cube(", 'sys.exit(f"gasledger: {exc}")'):
         assert call in text, call
 
