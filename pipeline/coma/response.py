@@ -13,6 +13,7 @@ T_kin and each molecule is weighted by its line's departure from LTE along the l
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import astropy.units as u
@@ -370,12 +371,20 @@ def window_capture(species: Species, t_kin: u.Quantity, velocity: np.ndarray, we
     if spectral_response not in SPECTRAL_RESPONSES:
         msg = f"spectral_response must be one of {', '.join(SPECTRAL_RESPONSES)}, found {spectral_response!r}"
         raise ConfigError(msg)
-    kernel = SPECTRAL_RESPONSES[spectral_response]
     t_kin = np.atleast_1d(u.Quantity(t_kin, u.K))
     sig = thermal_dispersion(t_kin, species.mass).to_value(u.km / u.s)
-    v = u.Quantity(v_out).to_value(u.km / u.s)
-    out = []
-    for s in sig:
-        prof = np.convolve(channel_fractions(velocity, v, s), kernel, mode="same")
-        out.append(float(np.sum(prof * weights)))
-    return np.array(out)
+    velocity = np.ascontiguousarray(velocity, dtype=float)
+    weights = np.ascontiguousarray(weights, dtype=float)
+    return np.array(_capture(tuple(sig.tolist()), velocity.tobytes(), weights.tobytes(),
+                             float(u.Quantity(v_out).to_value(u.km / u.s)), spectral_response))
+
+
+@functools.lru_cache(maxsize=1024)
+def _capture(sigmas: tuple[float, ...], velocity: bytes, weights: bytes, v_out: float,
+             spectral_response: str) -> tuple[float, ...]:
+    """:func:`window_capture` on plain values (kept per process: the injection asks it again for every sky
+    position at the same velocity)."""
+    kernel = SPECTRAL_RESPONSES[spectral_response]
+    vel, wts = np.frombuffer(velocity), np.frombuffer(weights)
+    return tuple(float(np.sum(np.convolve(channel_fractions(vel, v_out, s), kernel, mode="same") * wts))
+                 for s in sigmas)

@@ -12,6 +12,7 @@ physical radii are converted by the caller (see :func:`radius_in_pixels`).
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import astropy.units as u
@@ -66,12 +67,21 @@ def aperture_weights(shape: tuple[int, int], x: float, y: float, radius_pix: flo
                f"{nx} x {ny} image; expected an aperture smaller than the field (reduce apertures_km or "
                "apertures_arcsec)")
         raise CoverageError(msg)
+    ys, xs, weights = _exact_overlap(int(ny), int(nx), float(x), float(y), float(radius_pix))
+    return ApertureWeights(ys=ys, xs=xs, weights=weights, radius_pix=float(radius_pix))
+
+
+@functools.lru_cache(maxsize=512)
+def _exact_overlap(ny: int, nx: int, x: float, y: float, radius_pix: float) -> tuple[slice, slice, np.ndarray]:
+    """The exact-overlap weights of a circle inside an ny x nx image (read-only; kept per process, since the
+    injection places several apertures at each sky position)."""
     from photutils.aperture import CircularAperture    # where used: a job that only reads pixel radii skips it
 
     mask = CircularAperture((x, y), r=radius_pix).to_mask(method="exact")
     (ys, xs), (my, mx) = mask.get_overlap_slices((ny, nx))
-    return ApertureWeights(ys=ys, xs=xs, weights=np.asarray(mask.data[my, mx], dtype=np.float64),
-                           radius_pix=float(radius_pix))
+    weights = np.asarray(mask.data[my, mx], dtype=np.float64)
+    weights.flags.writeable = False
+    return ys, xs, weights
 
 
 def _union_weights(apertures: list[ApertureWeights]) -> tuple[slice, slice, np.ndarray]:
