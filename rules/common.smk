@@ -8,7 +8,7 @@ from pipeline.catalogue.coverage import bands_for_cube, lines_for_cube
 from pipeline.errors import GasledgerError
 from pipeline.io.cube_index import cube_spans, index_location
 from pipeline.io.provenance import code_version
-from pipeline.settings import check_inputs_exist, cube_entries, graph_settings, schema_keys, sections_record, validate_config
+from pipeline.settings import check_inputs_exist, graph_settings, schema_keys, sections_record, validate_config
 
 try:
     validate_config(config, source="config")
@@ -37,7 +37,6 @@ CODE_VERSION = code_version()
 wildcard_constraints:
     cube="[A-Za-z0-9][A-Za-z0-9_.-]*",
     epoch="[A-Za-z0-9][A-Za-z0-9_.-]*",
-    line="[A-Za-z0-9][A-Za-z0-9_.+-]*",
     species="[A-Za-z0-9][A-Za-z0-9_+-]*",
 
 
