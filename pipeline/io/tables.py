@@ -19,21 +19,33 @@ def read_table(path: str | Path, cache: str | Path | None = None) -> QTable:
     from it while the file is unchanged: parsing an ECSV header is pure-Python YAML (~50 ms for a small table),
     loading the kept table a few ms, which matters to the steps that read one small table per cube of a long
     campaign. The kept form is plain arrays (numpy's .npz, read without pickle) and a JSON description, so reading
-    it back evaluates nothing; a table it cannot hold exactly (object columns, masked times) is not kept. The
-    table is the same either way.
+    it back evaluates nothing; a table it cannot hold exactly (object columns, masked times) is not kept. Within
+    one process a table read this way is also kept in memory under the same digest, and a copy of it returned
+    (the campaign job reads every cube's geometry table in three of its steps). The table is the same either way.
     """
     if cache is None:
         return QTable.read(path, format="ascii.ecsv")
     import hashlib
 
-    kept = Path(cache) / f"{hashlib.sha256(Path(path).read_bytes()).hexdigest()}.npz"
-    try:
-        return _from_kept(kept)
-    except (OSError, ValueError, KeyError, TypeError):
-        pass
-    table = QTable.read(path, format="ascii.ecsv")
-    _keep_table(table, kept)
-    return table
+    digest = hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    key = (str(cache), digest)
+    if key not in _READ:
+        kept = Path(cache) / f"{digest}.npz"
+        try:
+            table = _from_kept(kept)
+        except (OSError, ValueError, KeyError, TypeError):
+            table = QTable.read(path, format="ascii.ecsv")
+            _keep_table(table, kept)
+        if len(_READ) >= _READ_MAX:
+            _READ.clear()
+        _READ[key] = table
+    return _READ[key].copy()
+
+
+#: Tables read through a cache folder in this process, by the folder and the SHA-256 of their file (at most
+#: _READ_MAX, then forgotten).
+_READ: dict[tuple[str, str], QTable] = {}
+_READ_MAX = 4096
 
 
 def _keep_table(table: QTable, kept: Path) -> None:

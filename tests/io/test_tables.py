@@ -7,6 +7,7 @@ import numpy as np
 from astropy.table import QTable
 from astropy.time import Time
 
+from pipeline.io import tables
 from pipeline.io.tables import read_table, table_cache
 
 
@@ -50,4 +51,18 @@ def test_a_damaged_entry_is_parsed_again(tmp_path):
     read_table(path, cache)
     (entry,) = cache.glob("*.npz")
     entry.write_bytes(b"not an archive")
+    tables._READ.clear()                # as in a new process: only the folder's entry is left, and it is damaged
     _same(read_table(path, cache), QTable.read(path, format="ascii.ecsv"))
+
+
+def test_a_table_read_again_in_the_same_process_is_a_copy(tmp_path):
+    # the in-process memory of read_table hands out copies: changing what one step read changes nothing for the next
+    path = tmp_path / "g.ecsv"
+    cache = table_cache(tmp_path / "out")
+    _write(path, 1.25)
+    first = read_table(path, cache)
+    first["r_h"][0] = 9 * u.au
+    first.meta["changed"] = True
+    again = read_table(path, cache)
+    _same(again, QTable.read(path, format="ascii.ecsv"))
+    assert again["r_h"][0] == 1.25 * u.au and "changed" not in again.meta
