@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -394,7 +395,7 @@ def _integer_labels(labels) -> np.ndarray | None:
     (e.g. J_Ka_Kc); :meth:`MolecularData.level_of` refuses a lookup by J and the pumping scheme, which needs a
     ladder, refuses (nonlte.pumping_rates) or leaves the molecule unpumped with a logged warning (departure)."""
     text = [str(s).strip() for s in labels]
-    if not all(s.lstrip("+-").isdigit() for s in text):
+    if not all(re.fullmatch(r"[+-]?[0-9]+", s) for s in text):
         return None                              # a label like 1_0_1: not a J ladder (a signal, not an error)
     return np.array([int(s) for s in text], dtype=int)
 

@@ -77,6 +77,7 @@ def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
     """Run every combination over all epochs, in order (the report's cube figures on ``workers`` processes)."""
     out = files.outputs
     species = list(files.stack_epochs)
+    given = {step: step_settings(settings, step) for step in STEP_KEYS}      # each step's settings, built once
     steps = 0
 
     def done(what: str, started: float) -> None:
@@ -86,30 +87,30 @@ def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
 
     t0 = time.perf_counter()
     for name in species:
-        stack.run(files.stack_epochs[name], name, step_settings(settings, "stack"), files.stacks[name])
+        stack.run(files.stack_epochs[name], name, given["stack"], files.stacks[name])
     done(f"stacks of {len(species)} species", t0)
     t0 = time.perf_counter()
-    temperature.run([files.stacks[s] for s in species], step_settings(settings, "temperature"), out.temperature)
+    temperature.run([files.stacks[s] for s in species], given["temperature"], out.temperature)
     done("temperatures", t0)
     t0 = time.perf_counter()
     for name in species:
-        limits.run_species(files.stacks[name], step_settings(settings, "limits"), files.species_limits[name],
+        limits.run_species(files.stacks[name], given["limits"], files.species_limits[name],
                            out.temperature)
-    limits.run_join([files.species_limits[s] for s in species], step_settings(settings, "limits"), out.limits,
+    limits.run_join([files.species_limits[s] for s in species], given["limits"], out.limits,
                     out.limits_json, files.geometry, out.activity)
     done("limits", t0)
     t0 = time.perf_counter()
-    dust.run(files.bands, step_settings(settings, "dust"), out.afrho, out.dust)
+    dust.run(files.bands, given["dust"], out.afrho, out.dust)
     done("dust", t0)
     t0 = time.perf_counter()
-    budget.run(out.limits, files.geometry, step_settings(settings, "budget"), out.budget_ecsv, out.budget_json,
+    budget.run(out.limits, files.geometry, given["budget"], out.budget_ecsv, out.budget_json,
                out.exclusion, dust_path=out.dust, out_water=out.water, out_zeta=out.zeta)
     done("budget", t0)
     t0 = time.perf_counter()
     for name in species:
         injection.run(files.injection_epochs[name], name, out.limits, out.budget_ecsv,
-                      step_settings(settings, "injection"), files.injections[name])
-    forecast.run(out.budget_ecsv, step_settings(settings, "forecast"), out.forecast)
+                      given["injection"], files.injections[name])
+    forecast.run(out.budget_ecsv, given["forecast"], out.forecast)
     done("injection-recovery and forecast", t0)
     t0 = time.perf_counter()
     inputs = SimpleNamespace(limits=out.limits, budget_ecsv=out.budget_ecsv, budget_json=out.budget_json,

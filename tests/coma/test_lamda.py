@@ -265,3 +265,13 @@ def test_linear_rotor_refuses_bad_arguments():
         linear_rotor("XY", 50 * u.GHz, 1 * u.D, 40, d=1 * u.GHz)
     with pytest.raises(CatalogueError, match="'dipole' must have units"):
         linear_rotor("XY", 50 * u.GHz, 1 * u.s, 3)
+
+
+def test_only_plain_integer_labels_make_a_j_ladder():
+    # LAMDA level labels (the format's fifth column): plain integers are J; asymmetric-top labels such as 1_0_1, or
+    # anything int() would not read as a plain integer (a superscript digit), are not a ladder and never raise
+    from pipeline.coma.lamda import _integer_labels
+
+    assert _integer_labels(["0", " 1", "+2", "10"]).tolist() == [0, 1, 2, 10]
+    for labels in (["0", "1_0_1"], ["0", "²"], ["0", "1.5"], ["0", ""]):
+        assert _integer_labels(labels) is None, labels
