@@ -7,9 +7,11 @@ from __future__ import annotations
 import base64
 import hashlib
 import html
+import logging
 import pickle
+from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import astropy.units as u
 import matplotlib
@@ -20,10 +22,13 @@ from pipeline.io.cubes import read_cube_info
 from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.report.cube_figures import plot_cube_spectra
 from pipeline.report.cube_spectra import SpectrumPanel, band_spectrum_panels, line_spectrum_panels
+from pipeline.processes import in_processes
 from pipeline.report.figures import to_png
 
 if TYPE_CHECKING:
     from pipeline.settings import Settings
+
+log = logging.getLogger(__name__)
 
 __all__ = ["cube_images_html", "cubes_section", "CUBE_IMAGE_CLASS", "CUBE_SPECTRA_CLASS"]
 
@@ -70,21 +75,46 @@ def _content_path(title: str, panels: list[SpectrumPanel], notes: list[str], cac
 
 
 def _draw(figure: tuple[str, list[SpectrumPanel], list[str]]) -> bytes:
-    """One cube's spectra figure as PNG bytes (a module-level function, so worker processes can run it)."""
+    """One cube's spectra figure as PNG bytes."""
     return to_png(plot_cube_spectra(*figure))
 
 
-def _draw_all(figures: list[tuple[str, list[SpectrumPanel], list[str]]], workers: int) -> list[bytes]:
-    """The figures drawn, in order: on ``workers`` processes when there are several figures and workers (each
-    figure is independent; the PNG bytes are the same either way)."""
-    if workers <= 1 or len(figures) <= 1:
-        return [_draw(f) for f in figures]
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
+@dataclass(frozen=True)
+class _FigureWork:
+    """What one cube's spectra figure is made from, when it is not read back by its input digest: the cube's
+    spectra (paths to read, or read already) or bands, the limits, and what the panels need."""
 
-    with ProcessPoolExecutor(max_workers=min(workers, len(figures)),
-                             mp_context=multiprocessing.get_context("fork")) as pool:
-        return list(pool.map(_draw, figures, chunksize=max(1, len(figures) // (4 * workers))))
+    cube: Any
+    title: str
+    spectra: list
+    measured: Any
+    limits: QTable
+    catalogue: Any
+    coma: Any
+    filtering: Any
+    cache: Path | None
+
+
+def _make(work: _FigureWork) -> tuple[bytes, Path | None, bool]:
+    """One cube's spectra figure (PNG bytes), the cache path of its drawn content (None without a cache) and
+    whether it was drawn: read from the cache when a figure of the same content is there, drawn otherwise. Run
+    on the worker processes."""
+    spectra = [s if isinstance(s, LineSpectra) else LineSpectra.from_fits(s) for s in work.spectra]
+    measured = work.measured
+    if isinstance(measured, (str, Path)):
+        measured = BandMeasurements.from_fits(measured)
+    if measured is not None:
+        panels, notes = band_spectrum_panels(measured, work.limits, work.catalogue)
+    else:
+        kelvin = read_cube_info(work.cube.path, work.cube.beam_arcsec).bunit.is_equivalent(u.K)
+        filtering = work.filtering
+        panels, notes = line_spectrum_panels(spectra, work.limits, work.catalogue, work.coma, kelvin,
+                                             filtering.shortest_baseline if filtering else None,
+                                             filtering.correct if filtering else True)
+    content = _content_path(work.title, panels, notes, work.cache) if work.cache is not None else None
+    if content is not None and content.is_file():
+        return content.read_bytes(), content, False
+    return _draw((work.title, panels, notes)), content, True
 
 
 def _keep(path: Path, png: bytes) -> None:
@@ -107,11 +137,27 @@ def _spectra_by_cube(cube_ids: list[str], spectra_paths: list[str]) -> dict[str,
     return out
 
 
-def _input_key(settings: "Settings", cube, title: str, files: list[Path], limits: QTable) -> str:
+def _drawn_species(spectra_files: list[Path], bands: bool, catalogue) -> set[str] | None:
+    """The species whose quoted rows a cube's spectra figure can draw: those of its spectra files' lines (named
+    ``<line>.fits``) and, with a bands file, those of every catalogue band. None when a spectra file names no
+    catalogue line (then every row of the epoch is taken)."""
+    by_line = {ln.line_id: ln.species for ln in catalogue.lines}
+    if any(path.stem not in by_line for path in spectra_files):
+        return None
+    species = {by_line[path.stem] for path in spectra_files}
+    if bands:
+        species.update(b.species for b in catalogue.bands)
+    return species
+
+
+def _input_key(settings: "Settings", cube, title: str, files: list[Path], limits: QTable,
+               species: set[str] | None) -> str:
     """A digest of everything one cube's spectra figure is drawn from: the code and matplotlib versions, the
     settings (the cube's own entry and every section but the list of cubes), the bytes of the cube's spectra or
     bands files, the cube file's size and modification time (its unit), and the quoted rows of its epoch in
-    ``limits``. Equal digests give the same figure, so it can be read back without reading the spectra."""
+    ``limits`` of the ``species`` it can draw (all species when None: a figure draws the rows of its own
+    species only, so another species' new Q leaves it as it was). Equal digests give the same figure, so it
+    can be read back without reading the spectra."""
     from pipeline.io.provenance import code_version
 
     digest = hashlib.sha256()
@@ -123,7 +169,10 @@ def _input_key(settings: "Settings", cube, title: str, files: list[Path], limits
     for path in sorted(files):
         digest.update(path.name.encode())
         digest.update(hashlib.sha256(path.read_bytes()).digest())
-    rows = limits[(np.asarray(limits["epoch"], dtype=str) == cube.epoch) & np.asarray(limits["adopted"], dtype=bool)]
+    keep = (np.asarray(limits["epoch"], dtype=str) == cube.epoch) & np.asarray(limits["adopted"], dtype=bool)
+    if species is not None:
+        keep &= np.isin(np.asarray(limits["species"], dtype=str), sorted(species))
+    rows = limits[keep]
     for row in rows:
         digest.update(repr(tuple(str(row[c]) for c in rows.colnames)).encode())
     return digest.hexdigest()
@@ -140,7 +189,8 @@ def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: l
     digest of :func:`_input_key`: a new epoch leaves the earlier epochs' files and quoted rows as they were) is
     read back without reading its spectra; failing that, one whose drawn content has not changed (same title,
     panels, notes and code) is read back instead of drawn again. The folder keeps only this report's figures.
-    The figures to draw are drawn on ``workers`` processes.
+    The figures not read back by their inputs are made (spectra read, panels built, drawn or read back by
+    their content) on ``workers`` processes; the log says how many were read back and how many drawn.
     """
     cache = None if cache is None else Path(cache)
     used: set[Path] = set()
@@ -157,9 +207,8 @@ def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: l
             s = LineSpectra.from_fits(path)
             read.setdefault(s.meta.cube_id, []).append(s)
         bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
-    filtering = settings.interferometer
     entries = []
-    pending = []                    # (entry index, figure to draw, cache paths to keep it under)
+    pending: list[tuple[int, Path | None, _FigureWork]] = []   # (entry index, keyed cache path, what to make)
     for cube in settings.cubes:
         if cube.cube_id not in images:
             continue
@@ -169,38 +218,30 @@ def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: l
         keyed = None
         if by_cube is not None:
             files = by_cube[cube.cube_id] + ([bands_files[cube.cube_id]] if cube.cube_id in bands_files else [])
-            keyed = cache / f"in-{_input_key(settings, cube, title, files, limits)}.png"
+            species = _drawn_species(by_cube[cube.cube_id], cube.cube_id in bands_files, catalogue)
+            key = _input_key(settings, cube, title, files, limits, species)
+            keyed = cache / f"in-{key}.png"
             used.add(keyed)
             if keyed.is_file():
                 entries.append((cube.cube_id, images[cube.cube_id], caption, keyed.read_bytes()))
                 continue
-            spectra = [LineSpectra.from_fits(p) for p in by_cube[cube.cube_id]]
-            measured = (BandMeasurements.from_fits(bands_files[cube.cube_id]) if cube.cube_id in bands_files
-                        else None)
+            spectra, measured = by_cube[cube.cube_id], bands_files.get(cube.cube_id)
         else:
             spectra, measured = read.get(cube.cube_id, []), bands.get(cube.cube_id)
-        if measured is not None:
-            panels, notes = band_spectrum_panels(measured, limits, catalogue)
-        else:
-            kelvin = read_cube_info(cube.path, cube.beam_arcsec).bunit.is_equivalent(u.K)
-            panels, notes = line_spectrum_panels(spectra, limits, catalogue, settings.coma,
-                                                 kelvin, filtering.shortest_baseline if filtering else None,
-                                                 filtering.correct if filtering else True)
-        content = _content_path(title, panels, notes, cache) if cache is not None else None
-        if content is not None:
-            used.add(content)
-            if content.is_file():
-                figure = content.read_bytes()
-                if keyed is not None:
-                    _keep(keyed, figure)
-                entries.append((cube.cube_id, images[cube.cube_id], caption, figure))
-                continue
-        pending.append((len(entries), (title, panels, notes), [p for p in (keyed, content) if p is not None]))
+        pending.append((len(entries), keyed, _FigureWork(cube, title, spectra, measured, limits, catalogue,
+                                                         settings.coma, settings.interferometer, cache)))
         entries.append((cube.cube_id, images[cube.cube_id], caption, None))
-    for (k, _, paths), figure in zip(pending, _draw_all([f for _, f, _ in pending], workers)):
-        for path in paths:
-            _keep(path, figure)
+    made = in_processes(_make, [work for _, _, work in pending], workers)
+    for (k, keyed, _), (figure, content, _) in zip(pending, made):
+        for path in (keyed, content):
+            if path is not None:
+                used.add(path)
+                if not path.is_file():
+                    _keep(path, figure)
         entries[k] = (*entries[k][:3], figure)
+    drawn = sum(d for _, _, d in made)
+    log.info("cube spectra figures: %d of %d read back by their inputs, %d by their drawn content, %d drawn",
+             len(entries) - len(pending), len(entries), len(pending) - drawn, drawn)
     if cache is not None and cache.is_dir():
         for stale in set(cache.glob("*.png")) - used:
             stale.unlink()

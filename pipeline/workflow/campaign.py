@@ -21,6 +21,7 @@ import time
 from dataclasses import dataclass
 from types import SimpleNamespace
 
+from pipeline.processes import in_processes
 from pipeline.settings import Settings, sections_record
 from pipeline.workflow import budget, dust, forecast, injection, limits, report, stack, temperature
 
@@ -74,7 +75,9 @@ def step_settings(settings: Settings, step: str) -> Settings:
 
 
 def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
-    """Run every combination over all epochs, in order (the report's cube figures on ``workers`` processes)."""
+    """Run every combination over all epochs, in order; each step's species (stacks, limits, injection) and the
+    report's cube figures on ``workers`` processes (each species' files are its own, so the tables are the same
+    either way)."""
     out = files.outputs
     species = list(files.stack_epochs)
     given = {step: step_settings(settings, step) for step in STEP_KEYS}      # each step's settings, built once
@@ -86,16 +89,15 @@ def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
         log.info("%s done in %.1f s (step %d of 7)", what, time.perf_counter() - started, steps)
 
     t0 = time.perf_counter()
-    for name in species:
-        stack.run(files.stack_epochs[name], name, given["stack"], files.stacks[name])
+    in_processes(lambda name: stack.run(files.stack_epochs[name], name, given["stack"], files.stacks[name]),
+                 species, workers)
     done(f"stacks of {len(species)} species", t0)
     t0 = time.perf_counter()
     temperature.run([files.stacks[s] for s in species], given["temperature"], out.temperature)
     done("temperatures", t0)
     t0 = time.perf_counter()
-    for name in species:
-        limits.run_species(files.stacks[name], given["limits"], files.species_limits[name],
-                           out.temperature)
+    in_processes(lambda name: limits.run_species(files.stacks[name], given["limits"], files.species_limits[name],
+                                                 out.temperature), species, workers)
     limits.run_join([files.species_limits[s] for s in species], given["limits"], out.limits,
                     out.limits_json, files.geometry, out.activity)
     done("limits", t0)
@@ -107,9 +109,8 @@ def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
                out.exclusion, dust_path=out.dust, out_water=out.water, out_zeta=out.zeta)
     done("budget", t0)
     t0 = time.perf_counter()
-    for name in species:
-        injection.run(files.injection_epochs[name], name, out.limits, out.budget_ecsv,
-                      given["injection"], files.injections[name])
+    in_processes(lambda name: injection.run(files.injection_epochs[name], name, out.limits, out.budget_ecsv,
+                                            given["injection"], files.injections[name]), species, workers)
     forecast.run(out.budget_ecsv, given["forecast"], out.forecast)
     done("injection-recovery and forecast", t0)
     t0 = time.perf_counter()

@@ -160,11 +160,12 @@ def test_cube_spectra_figures_drawn_on_workers_are_the_serial_ones_and_keyed_by_
     # the figures are independent, so drawing them on two worker processes gives the bytes drawing them in turn
     # gives (to_png writes fixed metadata); the cache path depends on the content only
     import pipeline.report.cubes_section as cf
+    from pipeline.processes import in_processes
 
     figures = [(f"c{k} · epoch e1", [], [f"note {k}"]) for k in range(3)]
-    serial = cf._draw_all(figures, workers=1)
+    serial = in_processes(cf._draw, figures, workers=1)
     assert all(png[:8] == b"\x89PNG\r\n\x1a\n" for png in serial)
-    assert cf._draw_all(figures, workers=2) == serial
+    assert in_processes(cf._draw, figures, workers=2) == serial
     cache = tmp_path / "cache"
     assert cf._content_path(*figures[0], cache) == cf._content_path(*figures[0], cache)
     assert cf._content_path(*figures[0], cache) != cf._content_path(*figures[1], cache)
