@@ -18,6 +18,7 @@ from pipeline.coma.excitation import line_optical_depth
 from pipeline.coma.haser import parent_aperture_count, scale_length
 from pipeline.coma.line_profile import thermal_dispersion
 from pipeline.errors import OpacityWarning
+from pipeline.io.memo import Memo, inputs_key
 from pipeline.io.products import SpeciesStack
 from pipeline.rates.line_fit import fit_line, line_moment
 
@@ -39,8 +40,13 @@ def add_fit_columns(table: QTable) -> None:
 
 
 def fit_detections(table: QTable, group: str, stack: SpeciesStack, inputs: Table, t_grid: np.ndarray,
-                    mass) -> None:
-    """Fill q_fit, q_fit_err, v_offset, v_offset_err, v_moment, v_moment_err for the detected rows of one group."""
+                    mass, memo: Memo | None = None) -> None:
+    """Fill q_fit, q_fit_err, v_offset, v_offset_err, v_moment, v_moment_err for the detected rows of one group.
+
+    With ``memo`` (:class:`pipeline.io.memo.Memo`), a row whose fit inputs (the spectrum, outflow, thermal width,
+    window, channel response, starting Q) are those of a fit kept there takes that fit's numbers, which are the
+    ones fitting again gives: an earlier epoch's rows at the sweep's temperatures are not fitted again when the
+    campaign grows."""
     members = inputs[(inputs["epoch"] == group)] if group != "all" else inputs
     if "kind" in members.colnames:  # infrared bands have no velocity spectrum to fit
         members = members[members["kind"] == "line"]
@@ -59,12 +65,24 @@ def fit_detections(table: QTable, group: str, stack: SpeciesStack, inputs: Table
         it = int(np.argmin(np.abs(t_grid - row["t_kin_K"])))
         ja = int(np.argmin(np.abs(aps - row["aperture_km"].to_value(u.km))))
         sig_th = thermal_dispersion(row["t_kin_K"] * u.K, mass).to_value(u.km / u.s)
-        fit = fit_line(vel, spectrum.density[it, ja], v_out, sig_th, window, response, q_guess=row["q"].to_value(1 / u.s))
-        table["q_fit"][k] = fit.q / u.s
-        table["q_fit_err"][k] = fit.q_err / u.s
-        table["v_offset"][k] = fit.v_offset * u.km / u.s
-        table["v_offset_err"][k] = fit.v_offset_err * u.km / u.s
-        m1, m1_err = line_moment(vel, spectrum.density[it, ja], v_out + 3 * sig_th + abs(spectrum.v_step))
+        density = spectrum.density[it, ja]
+        q_guess = row["q"].to_value(1 / u.s)
+        half_width = v_out + 3 * sig_th + abs(spectrum.v_step)
+
+        def measured(density=density, sig_th=sig_th, q_guess=q_guess, half_width=half_width):
+            fit = fit_line(vel, density, v_out, sig_th, window, response, q_guess=q_guess)
+            return (fit.q, fit.q_err, fit.v_offset, fit.v_offset_err, *line_moment(vel, density, half_width))
+
+        if memo is None:
+            q_fit, q_fit_err, v_off, v_off_err, m1, m1_err = measured()
+        else:
+            key = inputs_key("fit_detections", np.asarray(vel, dtype=float), np.asarray(density, dtype=float),
+                             v_out, sig_th, window, response, q_guess, half_width)
+            q_fit, q_fit_err, v_off, v_off_err, m1, m1_err = memo.result(key, measured)
+        table["q_fit"][k] = q_fit / u.s
+        table["q_fit_err"][k] = q_fit_err / u.s
+        table["v_offset"][k] = v_off * u.km / u.s
+        table["v_offset_err"][k] = v_off_err * u.km / u.s
         table["v_moment"][k] = m1 * u.km / u.s
         table["v_moment_err"][k] = m1_err * u.km / u.s
 

@@ -13,6 +13,7 @@ from astropy.time import Time
 from pipeline.coma.response import nonlte_settings
 from pipeline.io.atomic import write_json, write_table
 from pipeline.io.columns import described
+from pipeline.io.memo import Memo, memo_path
 from pipeline.io.products import SpeciesStack
 from pipeline.io.provenance import provenance_record
 from pipeline.io.tables import cell_float, table_as_json, read_table, table_cache
@@ -169,6 +170,10 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
     detected there, that row is the one the report quotes (``adopted``), with ``q_sys`` the change of Q over
     the temperature's interval (measured) or over the sweep (configured). Otherwise the conservative row of the
     sweep is quoted.
+
+    The line-profile fits are kept in a memo below the output folder (``.cache/memo/line-fits-<species>.json``,
+    :class:`pipeline.io.memo.Memo`): a fit whose inputs did not change (an earlier epoch's, at a temperature of
+    the sweep) is read back, with the numbers fitting again gives.
     """
     catalogue = settings.catalogue()
     stack = SpeciesStack.from_fits(stack_path)
@@ -176,6 +181,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
     nsigma = float(settings.limits.nsigma)
     fits = read_table(temperature_path) if temperature_path else None
     measures = window_measures(inputs, stack.curves)
+    memo = Memo(memo_path(settings.outdir, f"line-fits-{species}"))
     tables = []
     if "q" in summary.colnames:
         for group in dict.fromkeys(summary["epoch"]):
@@ -196,7 +202,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
             _nonlte_columns(rows, sel, t, inputs, str(group))
             _water_columns(rows, inputs, str(group))
             add_fit_columns(rows)
-            fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass)
+            fit_detections(rows, str(group), stack, inputs, t, catalogue.get_species(species).mass, memo)
             opacity_columns(rows, inputs, catalogue, species, settings.coma.solar_activity)
             filtering_columns(rows, inputs)
             tables.append(_with_adoption_columns(rows))
@@ -226,6 +232,7 @@ def run_species(stack_path: str, settings: Settings, out_path: str, temperature_
     table.meta["provenance"] = provenance_record(settings, [stack_path] + ([temperature_path] if temperature_path
                                                                           else []), "limits")
     write_table(table, out_path)
+    memo.save()
 
 
 def run_join(species_paths: list[str], settings: Settings, out_path: str, json_path: str | None = None,

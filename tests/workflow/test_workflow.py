@@ -512,6 +512,38 @@ def test_cube_figures_are_read_back_without_their_spectra_when_nothing_they_show
     assert cubes_section.cubes_section(settings, images, spectra, bands, changed, workers=2) == uncached
 
 
+def test_line_fits_are_read_back_from_the_memo_as_fitting_gives_them(campaign, tmp_path, monkeypatch):
+    """A species' limits run again with the memo of its line-profile fits (.cache/memo) fits nothing again and
+    writes the same table as the run that fitted (and as the workflow's own run)."""
+    from pipeline.rates import detections
+    from pipeline.settings import Settings, validate_config
+    from pipeline.workflow import limits
+
+    root, config = campaign
+    record = validate_config(yaml.safe_load(config.read_text()), source=str(config))
+    record["outdir"] = str(tmp_path / "out")
+    settings = Settings.from_config(record)
+    results = root / "results"
+    args = (str(results / "stack" / "HCN.fits"), settings)
+    limits.run_species(*args, str(tmp_path / "fitted.ecsv"), str(results / "temperature.ecsv"))
+    assert (tmp_path / "out" / ".cache" / "memo" / "line-fits-HCN.json").is_file()
+
+    def refuse(*_args, **_kwargs):
+        raise AssertionError("a line was fitted again")
+
+    monkeypatch.setattr(detections, "fit_line", refuse)
+    limits.run_species(*args, str(tmp_path / "memo.ecsv"), str(results / "temperature.ecsv"))
+    fitted, kept = (QTable.read(tmp_path / f"{n}.ecsv", format="ascii.ecsv") for n in ("fitted", "memo"))
+    workflow = QTable.read(results / "limits" / "HCN.ecsv", format="ascii.ecsv")
+    assert np.isfinite(fitted["q_fit"].value).sum() > 0
+    for table in (kept, workflow):
+        assert table.colnames == fitted.colnames
+        for name in fitted.colnames:
+            a, b = np.asarray(fitted[name]), np.asarray(table[name])
+            assert (np.array_equal(a, b, equal_nan=True) if a.dtype.kind == "f"
+                    else list(map(str, a)) == list(map(str, b))), name
+
+
 def test_infrared_geometry_is_the_spacecraft_s(campaign):
     """The infrared cubes' geometry comes from the spacecraft's ephemeris (about 1.5 million km from the ground
     site's), their mid-time from the space IFU's explicit EXPMID with its begin/end pair."""
