@@ -92,18 +92,25 @@ def opacity_columns(table: QTable, inputs: Table, catalogue: Catalogue, species_
     """Peak optical depth, in the aperture-mean column, of the strongest line of each detected row."""
     species = catalogue.get_species(species_name)
     table["tau_peak"] = np.full(len(table), np.nan)
+    known_lines = {ln.line_id for ln in catalogue.lines}
+    epochs = np.asarray(inputs["epoch"])
+    outflow, r_hs = inputs["outflow"], inputs["r_h"]
+    flow: dict[str, tuple] = {}             # per epoch group: outflow, r_h and the scale length (the rows share them)
     for k, row in enumerate(table):
         if not row["detected"] or not np.isfinite(row["q"].value) or row["q"].value <= 0:
             continue
-        sel = inputs[(inputs["epoch"] == row["epoch"]) | (row["epoch"] == "all")]
+        group = str(row["epoch"])
+        if group not in flow:
+            sel = (epochs == row["epoch"]) | (group == "all")
+            v = float(np.mean(outflow[sel])) * u.km / u.s
+            r_h = float(np.mean(r_hs[sel])) * u.au
+            flow[group] = (v, r_h, scale_length(v, species.photo_rate(solar_activity), r_h))
+        v, r_h, length = flow[group]
         rho = row["aperture_km"].to(u.km)
-        v = float(np.mean(sel["outflow"])) * u.km / u.s
-        r_h = float(np.mean(sel["r_h"])) * u.au
-        length = scale_length(v, species.photo_rate(solar_activity), r_h)
         column = parent_aperture_count(rho, row["q"], v, length) / (np.pi * rho**2)
         taus = []
         for line_id in str(row["lines"]).split(","):
-            if line_id not in {ln.line_id for ln in catalogue.lines}:
+            if line_id not in known_lines:
                 continue  # an infrared band: optically thin fluorescence is assumed (see the README)
             line = catalogue.get_line(line_id)
             with warnings.catch_warnings():
