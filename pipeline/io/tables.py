@@ -153,5 +153,29 @@ def table_as_json(table: QTable) -> dict[str, Any]:
     """Rows of a table as plain JSON values (times as ISO text), with each column's unit and description."""
     units = {c: str(table[c].unit) for c in table.colnames if getattr(table[c], "unit", None) is not None}
     descriptions = {c: table[c].info.description for c in table.colnames if table[c].info.description}
-    rows = [{c: _json_cell(row[c]) for c in table.colnames} for row in table]
+    columns = [_json_column(table[c]) for c in table.colnames]
+    rows = [dict(zip(table.colnames, cells)) for cells in zip(*columns)] if columns else [{} for _ in table]
     return {"units": units, "descriptions": descriptions, "rows": rows, "meta": dict(table.meta)}
+
+
+def _json_column(col) -> list[Any]:
+    """A column's cells as :func:`_json_cell` gives them, converted as one array where that gives the same values
+    (a one-dimensional time, number, flag or text column, plain, masked or with a unit), cell by cell otherwise."""
+    import math
+
+    if getattr(col, "ndim", 1) != 1:
+        return [_json_cell(value) for value in col]
+    if isinstance(col, Time):                          # ISO text of the whole column at once; masked cells None
+        mask = np.broadcast_to(np.asarray(getattr(col, "mask", False), dtype=bool), col.shape).tolist()
+        text = np.atleast_1d(getattr(col, "unmasked", col).isot).tolist()
+        return [None if m else str(v) for v, m in zip(text, mask)]
+    data = np.asarray(col.value if isinstance(col, u.Quantity) else col)
+    if data.dtype.kind not in "biufU":
+        return [_json_cell(value) for value in col]
+    cells = data.tolist()
+    mask = np.ma.getmaskarray(col) if hasattr(col, "mask") else None
+    if mask is not None and mask.any():
+        cells = [None if m else v for v, m in zip(cells, mask.tolist())]
+    if data.dtype.kind == "f":
+        cells = [None if isinstance(v, float) and not math.isfinite(v) else v for v in cells]
+    return cells

@@ -22,7 +22,7 @@ from pipeline.io.cubes import read_cube_info
 from pipeline.io.products import BandMeasurements, LineSpectra
 from pipeline.report.cube_figures import plot_cube_spectra
 from pipeline.report.cube_spectra import SpectrumPanel, band_spectrum_panels, line_spectrum_panels
-from pipeline.processes import in_processes
+from pipeline.processes import Running, start_in_processes
 from pipeline.report.figures import to_png
 
 if TYPE_CHECKING:
@@ -30,7 +30,7 @@ if TYPE_CHECKING:
 
 log = logging.getLogger(__name__)
 
-__all__ = ["cube_images_html", "cubes_section", "CUBE_IMAGE_CLASS", "CUBE_SPECTRA_CLASS"]
+__all__ = ["cube_images_html", "cubes_section", "CubeSection", "CUBE_IMAGE_CLASS", "CUBE_SPECTRA_CLASS"]
 
 #: HTML class of each cube's image in the report (the browser check counts them).
 CUBE_IMAGE_CLASS = "cube-image"
@@ -178,10 +178,10 @@ def _input_key(settings: "Settings", cube, title: str, files: list[Path], limits
     return digest.hexdigest()
 
 
-def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
-                  limits: QTable, cache: str | Path | None = None, workers: int = 1) -> str:
-    """The report's "Cubes" section: each cube's image (made by its cube job, read from ``image_paths``,
-    named ``<cube>.png``) and its spectra figure, drawn here because it needs the campaign's limits.
+class CubeSection:
+    """The report's "Cubes" section being made: each cube's image (made by its cube job, read from
+    ``image_paths``, named ``<cube>.png``) and its spectra figure, drawn here because it needs the campaign's
+    limits.
 
     ``settings`` is the run's :class:`pipeline.settings.Settings`; ``spectra_paths`` the extract step's files,
     ``bands_paths`` the bands files (each names its cube); ``limits`` the limits table (its ``adopted`` rows).
@@ -189,60 +189,88 @@ def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: l
     digest of :func:`_input_key`: a new epoch leaves the earlier epochs' files and quoted rows as they were) is
     read back without reading its spectra; failing that, one whose drawn content has not changed (same title,
     panels, notes and code) is read back instead of drawn again. The folder keeps only this report's figures.
-    The figures not read back by their inputs are made (spectra read, panels built, drawn or read back by
-    their content) on ``workers`` processes; the log says how many were read back and how many drawn.
+
+    Made in two steps, so that the figures can be drawn while the caller does other work: :meth:`start` makes
+    the figures not read back by their inputs (spectra read, panels built, drawn or read back by their content)
+    on ``workers`` processes; :meth:`html` waits for them, keeps them in the cache and returns the section (the
+    log says how many were read back and how many drawn).
     """
-    cache = None if cache is None else Path(cache)
-    used: set[Path] = set()
-    catalogue = settings.catalogue()
-    images = {Path(p).stem: Path(p).read_bytes() for p in image_paths}
-    ids = [c.cube_id for c in settings.cubes]
-    by_cube = _spectra_by_cube(ids, spectra_paths) if cache is not None else None
-    bands_files = {Path(p).stem: Path(p) for p in bands_paths}
-    if by_cube is not None and not set(bands_files) <= set(ids):
-        by_cube = None                                      # a bands file not named after its cube
-    if by_cube is None:                                     # no layout to go by: read every file, once
-        read: dict[str, list[LineSpectra]] = {}
-        for path in spectra_paths:
-            s = LineSpectra.from_fits(path)
-            read.setdefault(s.meta.cube_id, []).append(s)
-        bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
-    entries = []
-    pending: list[tuple[int, Path | None, _FigureWork]] = []   # (entry index, keyed cache path, what to make)
-    for cube in settings.cubes:
-        if cube.cube_id not in images:
-            continue
-        title = f"{cube.cube_id}  ·  epoch {cube.epoch}  ·  aperture spectra"
-        caption = (f"Cube {cube.cube_id} (epoch {cube.epoch}): images of the integration window around the "
-                   "target's predicted position.")
-        keyed = None
-        if by_cube is not None:
-            files = by_cube[cube.cube_id] + ([bands_files[cube.cube_id]] if cube.cube_id in bands_files else [])
-            species = _drawn_species(by_cube[cube.cube_id], cube.cube_id in bands_files, catalogue)
-            key = _input_key(settings, cube, title, files, limits, species)
-            keyed = cache / f"in-{key}.png"
-            used.add(keyed)
-            if keyed.is_file():
-                entries.append((cube.cube_id, images[cube.cube_id], caption, keyed.read_bytes()))
+
+    def __init__(self, settings: "Settings", image_paths: list[str], spectra_paths: list[str],
+                 bands_paths: list[str], limits: QTable, cache: str | Path | None = None) -> None:
+        cache = None if cache is None else Path(cache)
+        self._cache = cache
+        self._used: set[Path] = set()
+        catalogue = settings.catalogue()
+        images = {Path(p).stem: Path(p).read_bytes() for p in image_paths}
+        ids = [c.cube_id for c in settings.cubes]
+        by_cube = _spectra_by_cube(ids, spectra_paths) if cache is not None else None
+        bands_files = {Path(p).stem: Path(p) for p in bands_paths}
+        if by_cube is not None and not set(bands_files) <= set(ids):
+            by_cube = None                                      # a bands file not named after its cube
+        if by_cube is None:                                     # no layout to go by: read every file, once
+            read: dict[str, list[LineSpectra]] = {}
+            for path in spectra_paths:
+                s = LineSpectra.from_fits(path)
+                read.setdefault(s.meta.cube_id, []).append(s)
+            bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
+        self._entries: list[tuple[str, bytes, str, bytes | None]] = []
+        self._pending: list[tuple[int, Path | None, _FigureWork]] = []   # (entry, keyed cache path, what to make)
+        for cube in settings.cubes:
+            if cube.cube_id not in images:
                 continue
-            spectra, measured = by_cube[cube.cube_id], bands_files.get(cube.cube_id)
-        else:
-            spectra, measured = read.get(cube.cube_id, []), bands.get(cube.cube_id)
-        pending.append((len(entries), keyed, _FigureWork(cube, title, spectra, measured, limits, catalogue,
-                                                         settings.coma, settings.interferometer, cache)))
-        entries.append((cube.cube_id, images[cube.cube_id], caption, None))
-    made = in_processes(_make, [work for _, _, work in pending], workers)
-    for (k, keyed, _), (figure, content, _) in zip(pending, made):
-        for path in (keyed, content):
-            if path is not None:
-                used.add(path)
-                if not path.is_file():
-                    _keep(path, figure)
-        entries[k] = (*entries[k][:3], figure)
-    drawn = sum(d for _, _, d in made)
-    log.info("cube spectra figures: %d of %d read back by their inputs, %d by their drawn content, %d drawn",
-             len(entries) - len(pending), len(entries), len(pending) - drawn, drawn)
-    if cache is not None and cache.is_dir():
-        for stale in set(cache.glob("*.png")) - used:
-            stale.unlink()
-    return cube_images_html(entries)
+            title = f"{cube.cube_id}  ·  epoch {cube.epoch}  ·  aperture spectra"
+            caption = (f"Cube {cube.cube_id} (epoch {cube.epoch}): images of the integration window around the "
+                       "target's predicted position.")
+            keyed = None
+            if by_cube is not None:
+                files = by_cube[cube.cube_id] + ([bands_files[cube.cube_id]] if cube.cube_id in bands_files else [])
+                species = _drawn_species(by_cube[cube.cube_id], cube.cube_id in bands_files, catalogue)
+                keyed = cache / f"in-{_input_key(settings, cube, title, files, limits, species)}.png"
+                self._used.add(keyed)
+                if keyed.is_file():
+                    self._entries.append((cube.cube_id, images[cube.cube_id], caption, keyed.read_bytes()))
+                    continue
+                spectra, measured = by_cube[cube.cube_id], bands_files.get(cube.cube_id)
+            else:
+                spectra, measured = read.get(cube.cube_id, []), bands.get(cube.cube_id)
+            self._pending.append((len(self._entries), keyed, _FigureWork(
+                cube, title, spectra, measured, limits, catalogue, settings.coma, settings.interferometer, cache)))
+            self._entries.append((cube.cube_id, images[cube.cube_id], caption, None))
+        self._running: Running | None = None
+
+    def start(self, workers: int = 1) -> "CubeSection":
+        """Start making the figures not read back by their inputs, on ``workers`` processes (returns at once)."""
+        if self._running is None:
+            self._running = start_in_processes(_make, [work for _, _, work in self._pending], workers)
+        return self
+
+    def close(self) -> None:
+        """Stop the figures being made (a step after :meth:`start` failed)."""
+        if self._running is not None:
+            self._running.close()
+
+    def html(self) -> str:
+        """The section's HTML, once every figure is made (made here, in turn, if :meth:`start` was not called)."""
+        made = self.start(1)._running.results()
+        entries = list(self._entries)
+        for (k, keyed, _), (figure, content, _) in zip(self._pending, made):
+            for path in (keyed, content):
+                if path is not None:
+                    self._used.add(path)
+                    if not path.is_file():
+                        _keep(path, figure)
+            entries[k] = (*entries[k][:3], figure)
+        drawn = sum(d for _, _, d in made)
+        log.info("cube spectra figures: %d of %d read back by their inputs, %d by their drawn content, %d drawn",
+                 len(entries) - len(self._pending), len(entries), len(self._pending) - drawn, drawn)
+        if self._cache is not None and self._cache.is_dir():
+            for stale in set(self._cache.glob("*.png")) - self._used:
+                stale.unlink()
+        return cube_images_html(entries)
+
+
+def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
+                  limits: QTable, cache: str | Path | None = None, workers: int = 1) -> str:
+    """The report's "Cubes" section (:class:`CubeSection`), its figures made on ``workers`` processes."""
+    return CubeSection(settings, image_paths, spectra_paths, bands_paths, limits, cache).start(workers).html()

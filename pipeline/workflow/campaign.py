@@ -75,12 +75,17 @@ def step_settings(settings: Settings, step: str) -> Settings:
 
 
 def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
-    """Run every combination over all epochs, in order; each step's species (stacks, limits, injection) and the
-    report's cube figures on ``workers`` processes (each species' files are its own, so the tables are the same
-    either way)."""
+    """Run every combination over all epochs, in order; each step's species (stacks, limits) on ``workers``
+    processes (each species' files are its own, so the tables are the same either way), and, from the limits on,
+    the report's cube figures on the workers while the other steps run here."""
     out = files.outputs
     species = list(files.stack_epochs)
     given = {step: step_settings(settings, step) for step in STEP_KEYS}      # each step's settings, built once
+    inputs = SimpleNamespace(limits=out.limits, budget_ecsv=out.budget_ecsv, budget_json=out.budget_json,
+                             geometry=files.geometry, stacks=[files.stacks[s] for s in species],
+                             temperature=out.temperature, injection=[files.injections[s] for s in species],
+                             exclusion=out.exclusion, water=out.water, zeta=out.zeta, activity=out.activity,
+                             forecast=out.forecast, bands=files.bands, dust=out.dust, cube_images=files.cube_images)
     steps = 0
 
     def done(what: str, started: float) -> None:
@@ -101,23 +106,25 @@ def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
     limits.run_join([files.species_limits[s] for s in species], given["limits"], out.limits,
                     out.limits_json, files.geometry, out.activity)
     done("limits", t0)
-    t0 = time.perf_counter()
-    dust.run(files.bands, given["dust"], out.afrho, out.dust)
-    done("dust", t0)
-    t0 = time.perf_counter()
-    budget.run(out.limits, files.geometry, given["budget"], out.budget_ecsv, out.budget_json,
-               out.exclusion, dust_path=out.dust, out_water=out.water, out_zeta=out.zeta)
-    done("budget", t0)
-    t0 = time.perf_counter()
-    in_processes(lambda name: injection.run(files.injection_epochs[name], name, out.limits, out.budget_ecsv,
-                                            given["injection"], files.injections[name]), species, workers)
-    forecast.run(out.budget_ecsv, given["forecast"], out.forecast)
-    done("injection-recovery and forecast", t0)
-    t0 = time.perf_counter()
-    inputs = SimpleNamespace(limits=out.limits, budget_ecsv=out.budget_ecsv, budget_json=out.budget_json,
-                             geometry=files.geometry, stacks=[files.stacks[s] for s in species],
-                             temperature=out.temperature, injection=[files.injections[s] for s in species],
-                             exclusion=out.exclusion, water=out.water, zeta=out.zeta, activity=out.activity,
-                             forecast=out.forecast, bands=files.bands, dust=out.dust, cube_images=files.cube_images)
-    report.run(inputs, out, settings, files.line_spectra, workers=workers)
-    done("report", t0)
+    # the report's cube figures need only the limits: made on the workers while the steps below run here
+    cubes = report.cube_section(inputs, out, settings, files.line_spectra).start(workers)
+    try:
+        t0 = time.perf_counter()
+        dust.run(files.bands, given["dust"], out.afrho, out.dust)
+        done("dust", t0)
+        t0 = time.perf_counter()
+        budget.run(out.limits, files.geometry, given["budget"], out.budget_ecsv, out.budget_json,
+                   out.exclusion, dust_path=out.dust, out_water=out.water, out_zeta=out.zeta)
+        done("budget", t0)
+        t0 = time.perf_counter()
+        for name in species:
+            injection.run(files.injection_epochs[name], name, out.limits, out.budget_ecsv, given["injection"],
+                          files.injections[name])
+        forecast.run(out.budget_ecsv, given["forecast"], out.forecast)
+        done("injection-recovery and forecast", t0)
+        t0 = time.perf_counter()
+        report.run(inputs, out, settings, files.line_spectra, cubes=cubes)
+        done("report", t0)
+    except BaseException:
+        cubes.close()
+        raise

@@ -14,7 +14,7 @@ from pipeline.io.atomic import atomic_path, write_text
 from pipeline.report.figures import (plot_band_spectra, plot_rotational_diagrams, plot_stacked_spectra,
                                      plot_temperature_sweep, to_png)
 from pipeline.report.campaign_figure import IMG_ID, campaign_figures, plot_note
-from pipeline.report.cubes_section import cubes_section
+from pipeline.report.cubes_section import CubeSection
 from pipeline.rates.excitation_water import ExcitationWater, with_water
 from pipeline.report.excitation import SECTION_TITLE, excitation_caution, excitation_section, water_per_epoch
 from pipeline.report.html import anchored_figure_html, figure_html, page, table_html
@@ -28,7 +28,7 @@ from pipeline.rates.q_units import nonlte_comparison
 from pipeline.settings import Settings
 from pipeline.io.tables import read_table, table_cache
 
-__all__ = ["run"]
+__all__ = ["run", "cube_section"]
 
 CAUTION = ("These production rates and limits rest on model assumptions: {excitation}, optically thin lines, "
            "a Haser parent distribution with isotropic uniform outflow, the photodestruction rates of the catalogue, "
@@ -47,10 +47,30 @@ def _write_png(data: bytes, path: str) -> None:
         tmp.write_bytes(data)
 
 
-def run(inputs, outputs, settings: Settings, line_spectra: list[str], workers: int = 1) -> None:
-    """Build the report from the run's tables and stacks (the cubes' spectra figures to draw on ``workers``
-    processes). ``line_spectra`` are the lines' spectra files (``spectra/<cube>/<line>.fits``, inside the cubes'
-    folders the inputs name)."""
+def cube_section(inputs, outputs, settings: Settings, line_spectra: list[str]) -> CubeSection:
+    """The report's "Cubes" section for these inputs (the limits as :func:`run` reads them), its figure cache
+    below the report's folder; :meth:`~pipeline.report.cubes_section.CubeSection.start` it to have its figures
+    made while other work goes on."""
+    return CubeSection(settings, list(inputs.cube_images), list(line_spectra), list(inputs.bands),
+                       read_table(inputs.limits), cache=Path(outputs.html).parent / ".cache" / "cube_spectra")
+
+
+def run(inputs, outputs, settings: Settings, line_spectra: list[str], workers: int = 1,
+        cubes: CubeSection | None = None) -> None:
+    """Build the report from the run's tables and stacks. ``line_spectra`` are the lines' spectra files
+    (``spectra/<cube>/<line>.fits``, inside the cubes' folders the inputs name). ``cubes``: the "Cubes" section
+    (:func:`cube_section`), started by the caller; without it, the section's figures are made on ``workers``
+    processes while the rest of the report is built."""
+    if cubes is None:
+        cubes = cube_section(inputs, outputs, settings, line_spectra).start(workers)
+    try:
+        _build(inputs, outputs, settings, cubes)
+    except BaseException:
+        cubes.close()
+        raise
+
+
+def _build(inputs, outputs, settings: Settings, cubes: CubeSection) -> None:
     catalogue = settings.catalogue()
     limits = read_table(inputs.limits)
     budget = read_table(inputs.budget_ecsv)
@@ -126,11 +146,7 @@ def run(inputs, outputs, settings: Settings, line_spectra: list[str], workers: i
     sections.append(("Production rates and upper limits (conservative temperature)",
                      conservative_section(limits, catalogue, float(settings.limits.nsigma))))
     sections.append(("Infrared bands and dust", infrared_section(list(inputs.bands), inputs.dust, fig_ir)))
-    sections.append(("Cubes", cubes_section(settings, list(inputs.cube_images),
-                                            list(line_spectra),
-                                            list(inputs.bands), limits,
-                                            cache=Path(outputs.html).parent / ".cache" / "cube_spectra",
-                                            workers=workers)))
+    sections.append(("Cubes", cubes.html()))
     sections.append(("Injection–recovery", injection_section(
         list(inputs.injection), limits, {str(g["cube_id"]): str(g["observer"]) for g in geometry})))
     sections.append(("All epochs in one test", joint_section(inputs.exclusion, inputs.activity)))

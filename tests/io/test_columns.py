@@ -108,6 +108,27 @@ def test_json_of_a_table_with_a_masked_time_and_descriptions():
     assert out["units"]["r_h"] == "AU" and "epoch's cubes" in out["descriptions"]["r_h"]
 
 
+def test_json_of_a_table_by_columns_is_its_cells_one_by_one():
+    # table_as_json converts whole columns; the cells must be those the one-cell conversion gives, of the same
+    # Python types (JSON's own types: float, int, bool, str, None)
+    from astropy.table import MaskedColumn
+
+    from pipeline.io.tables import _json_cell
+
+    mid = Time([60000.25, 60001.5, 60002.0], format="mjd", scale="utc")
+    mid.format = "isot"
+    mid[2] = np.ma.masked
+    table = QTable({"epoch": ["e1", "e2", "all"], "time_mid": mid, "q": [1.5e26, np.nan, np.inf] / u.s,
+                    "n": np.array([3, 0, 7], dtype=np.int32), "detected": [True, False, True],
+                    "snr": MaskedColumn([2.5, 3.0, 1.0], mask=[False, True, False])})
+    by_cells = [{c: _json_cell(row[c]) for c in table.colnames} for row in table]
+    rows = table_as_json(table)["rows"]
+    for got, want in zip(rows, by_cells):
+        assert got == want and [type(v) for v in got.values()] == [type(v) for v in want.values()]
+    assert rows[1]["q"] is None and rows[2]["q"] is None and rows[1]["snr"] is None and rows[2]["time_mid"] is None
+    assert rows[0]["time_mid"] == "2023-02-25T06:00:00.000"     # MJD 60000 is 2023-02-25 (astropy.time)
+
+
 def _bands_file(path, cube_id, afrho):
     empty = Table(names=["cube_id"], dtype=[str])
     dust = Table({"cube_id": [cube_id], "epoch": ["e1"], "aperture_km": [1000.0], "wavelength": [2.5],
