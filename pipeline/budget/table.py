@@ -135,6 +135,11 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
     measured = list(dict.fromkeys(str(s) for s in limits["species"]))
     species = list(dict.fromkeys(list(sets[0].drivers) + measured))
     m_min, m_max = (x * u.kg for x in sets[0].mass_kg)
+    rows_of: dict[tuple[str, str], list[int]] = {}          # each species' and epoch group's rows of limits
+    for i, key in enumerate(zip(np.asarray(limits["species"], dtype=str).tolist(),
+                                np.asarray(limits["epoch"], dtype=str).tolist())):
+        rows_of.setdefault(key, []).append(i)
+    q_upper_all = limits["q_upper"].to_value(1 / u.s)
     rows = []
     for aset, name, (group, r_h) in ((a, n, g) for a in sets for n in species for g in epoch_rh.items()):
         mol = catalogue.get_species(name).mass.to(u.kg)
@@ -146,14 +151,14 @@ def budget_table(limits: QTable, epoch_rh: dict[str, u.Quantity], assume: Budget
         mdot = required_mass_loss_rate(u.Quantity([m_min, m_max]), a, v_ej, aset.efficiency)
         mdot = np.maximum(mdot - (f_dust / (aset.efficiency * v_ej)).to(u.kg / u.s), 0 * u.kg / u.s)
         q_req = required_production_rate(mdot, mol).to_value(1 / u.s)
-        sel = limits[(limits["species"] == name) & (limits["epoch"] == group)]
+        sel = np.asarray(rows_of.get((str(name), str(group)), []), dtype=int)
         if len(sel):
-            k = int(np.argmax(sel["q_upper"].to_value(1 / u.s)))
-            q_up = float(sel["q_upper"][k].to_value(1 / u.s))
-            t_best, ap_best = cell_float(sel["t_kin_K"][k], u.K), float(sel["aperture_km"][k].to_value(u.km))
+            k = int(sel[int(np.argmax(q_upper_all[sel]))])
+            q_up = float(q_upper_all[k])
+            t_best, ap_best = cell_float(limits["t_kin_K"][k], u.K), float(limits["aperture_km"][k].to_value(u.km))
             m_allowed = float((max_nucleus_mass(q_up / u.s, mol, a, v_ej, aset.efficiency)
                                + f_dust / a).to_value(u.kg)) if a > 0 else np.inf
-            detected = bool(np.any(sel["detected"]))
+            detected = bool(np.any(limits["detected"][sel]))
         else:
             q_up = t_best = ap_best = m_allowed = np.nan
             detected = False
