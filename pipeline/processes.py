@@ -31,28 +31,36 @@ def _one(call: int, k: int) -> Any:
 class Running(Generic[R]):
     """Work started by :func:`start_in_processes`; :meth:`results` waits for it."""
 
-    def __init__(self, work: Callable[[T], R], items: list[T], workers: int) -> None:
+    def __init__(self, work: Callable[[T], R], items: list[T], children: int, helping: bool = True) -> None:
         self._work, self._items, self._pool, self._futures = work, items, None, []
+        self._helping = helping
         self._call = next(_NUMBERS)
-        self._started = workers > 1 and len(items) > 1
+        self._started = children >= 1 and len(items) >= 1
         if self._started:
             import multiprocessing
             from concurrent.futures import ProcessPoolExecutor
 
             _CALLS[self._call] = (work, items)
-            self._pool = ProcessPoolExecutor(max_workers=min(workers, len(items)),
+            self._pool = ProcessPoolExecutor(max_workers=min(children, len(items)),
                                              mp_context=multiprocessing.get_context("fork"))
             self._futures = [self._pool.submit(_one, self._call, k) for k in range(len(items))]
 
     def results(self) -> list[R]:
-        """The results in the items' order (computed here, in turn, when no child was started)."""
+        """The results in the items' order (computed here, in turn, when no child was started). Items no child has
+        started yet are computed here, from the last one back, while the children go on from the front."""
         if not self._started:
             return [self._work(item) for item in self._items]
         if self._pool is None:
             msg = "the work was closed before its results were taken"
             raise RuntimeError(msg)
         try:
-            return [f.result() for f in self._futures]
+            here = {}
+            if self._helping:
+                for k in reversed(range(len(self._futures))):
+                    if not self._futures[k].cancel():           # a child has it (or had it): the rest too
+                        break
+                    here[k] = self._work(self._items[k])
+            return [here[k] if k in here else f.result() for k, f in enumerate(self._futures)]
         finally:
             self.close()
 
@@ -65,15 +73,16 @@ class Running(Generic[R]):
             self._futures = []
 
 
-def start_in_processes(work: Callable[[T], R], items: Sequence[T], workers: int) -> Running[R]:
-    """Start ``[work(item) for item in items]`` on up to ``workers`` forked processes and return at once (nothing
-    is started when ``workers`` is 1 or there is at most one item: :meth:`Running.results` computes them then).
-    ``work`` must return something picklable; it may write files (each child writes its own) and log (children
-    share the parent's log handlers)."""
-    return Running(work, list(items), workers)
+def start_in_processes(work: Callable[[T], R], items: Sequence[T], children: int) -> Running[R]:
+    """Start ``[work(item) for item in items]`` on up to ``children`` forked processes and return at once, so that
+    this process can do other work meanwhile; :meth:`Running.results` then computes here what no child has started
+    (with ``children`` 0 nothing starts, and it computes them all). A job given N threads starts N - 1 children beside its own work. ``work`` must return
+    something picklable; it may write files (each child writes its own) and log (children share the parent's log
+    handlers)."""
+    return Running(work, list(items), children)
 
 
 def in_processes(work: Callable[[T], R], items: Sequence[T], workers: int) -> list[R]:
-    """``[work(item) for item in items]``, on up to ``workers`` forked processes (in this one when ``workers`` is
-    1 or there is at most one item)."""
-    return start_in_processes(work, items, workers).results()
+    """``[work(item) for item in items]``, on up to ``workers`` forked processes while this one waits (in this one
+    when ``workers`` is 1 or there is at most one item)."""
+    return Running(work, list(items), workers if workers > 1 and len(items) > 1 else 0, helping=False).results()

@@ -47,7 +47,7 @@ rule campaign:
         f"{OUT}/logs/campaign.log",
     benchmark:
         f"{OUT}/benchmarks/campaign.tsv"
-    threads: 2          # stacks and limits per species, and the cube figures to make again, on two processes
+    threads: 2          # stacks and limits per species on two processes; the cube figures beside the later steps
     resources:
         mem_mb=2000,
         runtime=60,

@@ -11,6 +11,13 @@ def _square_and_pid(x: int) -> tuple[int, int]:
     return x * x, os.getpid()
 
 
+def _slow_square_and_pid(x: int) -> tuple[int, int]:
+    import time
+
+    time.sleep(0.01)
+    return x * x, os.getpid()
+
+
 def _fails_on_three(x: int) -> int:
     if x == 3:
         raise ValueError(f"item {x} refused")
@@ -43,13 +50,32 @@ def test_started_work_runs_while_this_process_goes_on():
 
     from pipeline.processes import start_in_processes
 
-    running = start_in_processes(_square_and_pid, range(4), workers=2)
+    running = start_in_processes(_square_and_pid, range(4), children=2)
     nested = in_processes(_square_and_pid, [5, 6], workers=2)      # another call while the first one runs
     assert [r for r, _ in nested] == [25, 36]
     time.sleep(0.01)
     assert [r for r, _ in running.results()] == [0, 1, 4, 9]
-    closed = start_in_processes(_square_and_pid, range(3), workers=2)
+    closed = start_in_processes(_square_and_pid, range(3), children=2)
     closed.close()
     with pytest.raises(RuntimeError, match="closed before"):
         closed.results()
-    assert start_in_processes(_square_and_pid, [3], workers=2).results()[0][0] == 9   # one item: computed here
+    (one,) = start_in_processes(_square_and_pid, [3], children=1).results()      # one item, in a child
+    assert one[0] == 9 and one[1] != os.getpid()
+    (here,) = start_in_processes(_square_and_pid, [3], children=0).results()     # no child: computed here
+    assert here == (9, os.getpid())
+
+
+def test_this_process_takes_the_items_no_child_has_started():
+    # one child, many items: when the results are asked for at once, this process computes the items from the last
+    # one back that the child has not started; every result is the one the work gives, in order
+    import time
+
+    from pipeline.processes import start_in_processes
+
+    running = start_in_processes(_slow_square_and_pid, range(40), children=1)     # 10 ms per item
+    time.sleep(0.2)                 # the child has taken the first items; it cannot have reached the last
+    results = running.results()
+    assert [r for r, _ in results] == [x * x for x in range(40)]
+    pids = [pid for _, pid in results]
+    assert os.getpid() in pids and len(set(pids)) == 2
+    assert pids[-1] == os.getpid() and pids[0] != os.getpid()        # this process from the back, the child the front

@@ -192,7 +192,7 @@ class CubeSection:
 
     Made in two steps, so that the figures can be drawn while the caller does other work: :meth:`start` makes
     the figures not read back by their inputs (spectra read, panels built, drawn or read back by their content)
-    on ``workers`` processes; :meth:`html` waits for them, keeps them in the cache and returns the section (the
+    on child processes; :meth:`html` waits for them, keeps them in the cache and returns the section (the
     log says how many were read back and how many drawn).
     """
 
@@ -239,10 +239,11 @@ class CubeSection:
             self._entries.append((cube.cube_id, images[cube.cube_id], caption, None))
         self._running: Running | None = None
 
-    def start(self, workers: int = 1) -> "CubeSection":
-        """Start making the figures not read back by their inputs, on ``workers`` processes (returns at once)."""
+    def start(self, children: int = 0) -> "CubeSection":
+        """Start making the figures not read back by their inputs on ``children`` processes beside this one, and
+        return at once (with 0, :meth:`html` makes them here)."""
         if self._running is None:
-            self._running = start_in_processes(_make, [work for _, _, work in self._pending], workers)
+            self._running = start_in_processes(_make, [work for _, _, work in self._pending], children)
         return self
 
     def close(self) -> None:
@@ -252,7 +253,7 @@ class CubeSection:
 
     def html(self) -> str:
         """The section's HTML, once every figure is made (made here, in turn, if :meth:`start` was not called)."""
-        made = self.start(1)._running.results()
+        made = self.start(0)._running.results()
         entries = list(self._entries)
         for (k, keyed, _), (figure, content, _) in zip(self._pending, made):
             for path in (keyed, content):
@@ -272,5 +273,7 @@ class CubeSection:
 
 def cubes_section(settings: "Settings", image_paths: list[str], spectra_paths: list[str], bands_paths: list[str],
                   limits: QTable, cache: str | Path | None = None, workers: int = 1) -> str:
-    """The report's "Cubes" section (:class:`CubeSection`), its figures made on ``workers`` processes."""
-    return CubeSection(settings, image_paths, spectra_paths, bands_paths, limits, cache).start(workers).html()
+    """The report's "Cubes" section (:class:`CubeSection`), its figures made on ``workers`` processes (this one
+    waiting) or, with ``workers`` 1, here."""
+    return CubeSection(settings, image_paths, spectra_paths, bands_paths, limits, cache).start(
+        workers if workers > 1 else 0).html()

@@ -77,7 +77,8 @@ def step_settings(settings: Settings, step: str) -> Settings:
 def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
     """Run every combination over all epochs, in order; each step's species (stacks, limits) on ``workers``
     processes (each species' files are its own, so the tables are the same either way), and, from the limits on,
-    the report's cube figures on the workers while the other steps run here."""
+    the report's cube figures on ``workers`` - 1 processes while this one runs the other steps (with one worker,
+    everything here, in turn)."""
     out = files.outputs
     species = list(files.stack_epochs)
     given = {step: step_settings(settings, step) for step in STEP_KEYS}      # each step's settings, built once
@@ -106,8 +107,9 @@ def run(files: CampaignFiles, settings: Settings, workers: int = 1) -> None:
     limits.run_join([files.species_limits[s] for s in species], given["limits"], out.limits,
                     out.limits_json, files.geometry, out.activity)
     done("limits", t0)
-    # the report's cube figures need only the limits: made on the workers while the steps below run here
-    cubes = report.cube_section(inputs, out, settings, files.line_spectra).start(workers)
+    # the report's cube figures need only the limits: made on workers - 1 processes while this one runs the steps
+    # below (the job's threads: one busy process each)
+    cubes = report.cube_section(inputs, out, settings, files.line_spectra).start(workers - 1)
     try:
         t0 = time.perf_counter()
         dust.run(files.bands, given["dust"], out.afrho, out.dust)

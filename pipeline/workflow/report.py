@@ -59,10 +59,10 @@ def run(inputs, outputs, settings: Settings, line_spectra: list[str], workers: i
         cubes: CubeSection | None = None) -> None:
     """Build the report from the run's tables and stacks. ``line_spectra`` are the lines' spectra files
     (``spectra/<cube>/<line>.fits``, inside the cubes' folders the inputs name). ``cubes``: the "Cubes" section
-    (:func:`cube_section`), started by the caller; without it, the section's figures are made on ``workers``
-    processes while the rest of the report is built."""
+    (:func:`cube_section`), started by the caller; without it, the section's figures are made on ``workers`` - 1
+    processes while this one builds the rest of the report (here, after it, with one worker)."""
     if cubes is None:
-        cubes = cube_section(inputs, outputs, settings, line_spectra).start(workers)
+        cubes = cube_section(inputs, outputs, settings, line_spectra).start(workers - 1)
     try:
         _build(inputs, outputs, settings, cubes)
     except BaseException:
