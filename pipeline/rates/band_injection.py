@@ -21,13 +21,12 @@ from dataclasses import dataclass
 import astropy.units as u
 import numpy as np
 
-from pipeline.spectra.apertures import within_footprint, aperture_weights
+from pipeline.spectra.apertures import aperture_fits, within_footprint
 from pipeline.spectra.band_measure import band_capture, binned_band_template, channel_widths, measure_band
 from pipeline.catalogue.entries import Band, Species
 from pipeline.coma.image import aperture_count_on_grid
 from pipeline.coma.conversion import band_flux_from_molecules
 from pipeline.io.cubes import CubeInfo
-from pipeline.errors import CoverageError
 from pipeline.rates.line_injection import placement_kind
 from pipeline.spectra.ir_spectra import F_LAMBDA, extract_ir_spectra
 from pipeline.coma.response import ComaModel, outflow_speed, scale_lengths
@@ -65,9 +64,7 @@ def ring_positions(shape: tuple[int, int], x: float, y: float, radius_pix: float
         ang = 2 * np.pi * k / n + np.pi / 4
         for factor in np.linspace(2.5, 0.25, 10):
             px, py = x + factor * radius_pix * np.cos(ang), y + factor * radius_pix * np.sin(ang)
-            try:
-                aperture_weights(shape, px, py, radius_pix)
-            except CoverageError:
+            if not aperture_fits(shape, px, py, radius_pix):
                 continue
             if not within_footprint(footprint, px, py, radius_pix):
                 continue

@@ -23,6 +23,7 @@ from pipeline.errors import CoverageError, CubeError
 __all__ = [
     "ApertureWeights",
     "aperture_weights",
+    "aperture_fits",
     "aperture_spectra",
     "radius_in_pixels",
     "offsource_positions",
@@ -62,13 +63,21 @@ def aperture_weights(shape: tuple[int, int], x: float, y: float, radius_pix: flo
         msg = f"{what}: radius must be positive, found {radius_pix!r} pixels"
         raise CoverageError(msg)
     ny, nx = shape
-    if x - radius_pix < -0.5 or y - radius_pix < -0.5 or x + radius_pix > nx - 0.5 or y + radius_pix > ny - 0.5:
+    if not aperture_fits(shape, x, y, radius_pix):
         msg = (f"{what}: a circle of radius {radius_pix:.1f} px at ({x:.1f}, {y:.1f}) does not fit inside the "
                f"{nx} x {ny} image; expected an aperture smaller than the field (reduce apertures_km or "
                "apertures_arcsec)")
         raise CoverageError(msg)
     ys, xs, weights = _exact_overlap(int(ny), int(nx), float(x), float(y), float(radius_pix))
     return ApertureWeights(ys=ys, xs=xs, weights=weights, radius_pix=float(radius_pix))
+
+
+def aperture_fits(shape: tuple[int, int], x: float, y: float, radius_pix: float) -> bool:
+    """Whether a circle of ``radius_pix`` (> 0) at (x, y) lies entirely inside an image of ``shape`` (the
+    pixels' outer edges), as :func:`aperture_weights` requires."""
+    ny, nx = shape
+    return bool(radius_pix > 0 and not (x - radius_pix < -0.5 or y - radius_pix < -0.5 or x + radius_pix > nx - 0.5
+                                        or y + radius_pix > ny - 0.5))
 
 
 @functools.lru_cache(maxsize=512)

@@ -85,6 +85,23 @@ def test_nonpositive_radius_raises():
         aperture_weights(SHAPE, 20.0, 20.0, 0.0)
 
 
+def test_aperture_fits_is_what_aperture_weights_accepts():
+    # the cheap test (injection ring positions) decides as the weights do: the circle inside the pixels' outer
+    # edges (photutils' exact overlap then covers the whole circle: weights sum to pi r^2, a closed form)
+    from pipeline.spectra.apertures import aperture_fits
+
+    rng = np.random.default_rng(5)
+    for x, y, r in zip(rng.uniform(-3, 50, 300), rng.uniform(-3, 43, 300), rng.uniform(-1, 12, 300)):
+        try:
+            weights = aperture_weights(SHAPE, x, y, r)
+        except CoverageError:
+            assert not aperture_fits(SHAPE, x, y, r)
+        else:
+            assert aperture_fits(SHAPE, x, y, r)
+            assert weights.area == pytest.approx(np.pi * r**2, rel=1e-9)
+    assert aperture_fits(SHAPE, 23.5, 19.5, 20.0) and not aperture_fits(SHAPE, 23.5, 19.5, 20.0001)
+
+
 FREQS = np.array([230.0, 230.5, 345.8]) * u.GHz
 PIXEL = (0.3 * u.arcsec) ** 2
 BMAJ, BMIN, BPA = 2.0 * u.arcsec, 1.5 * u.arcsec, 30 * u.deg
