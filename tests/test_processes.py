@@ -79,3 +79,20 @@ def test_this_process_takes_the_items_no_child_has_started():
     pids = [pid for _, pid in results]
     assert os.getpid() in pids and len(set(pids)) == 2
     assert pids[-1] == os.getpid() and pids[0] != os.getpid()        # this process from the back, the child the front
+
+
+def _refuses(name: str) -> None:
+    import pipeline.errors as errors
+
+    raise getattr(errors, name)(f"cube x.fits: {name} in a child")
+
+
+def test_a_gasledger_error_in_a_child_arrives_whole():
+    # a job's one-sentence error (pipeline.workflow.common.stage_errors catches GasledgerError) must survive the
+    # trip back from a child: the same class and message
+    import pipeline.errors as errors
+
+    for name in ("ConfigError", "CubeError", "CoverageError", "LimitError", "GasledgerTypeError"):
+        with pytest.raises(getattr(errors, name), match=f"^cube x.fits: {name} in a child$") as caught:
+            in_processes(_refuses, [name, name], workers=2)
+        assert isinstance(caught.value, errors.GasledgerError)
