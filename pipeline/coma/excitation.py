@@ -63,6 +63,20 @@ def background_factor(freq: u.Quantity, t_ex: u.Quantity, t_bg: u.Quantity = T_C
     return 1.0 - np.exp(x_ex - x_bg) * np.expm1(-x_ex) / np.expm1(-x_bg)
 
 
+#: flux_per_molecule's results in this process, by the identity of the line and species entries (kept alive here,
+#: so an identity is never reused while its entry is kept) and the exact values of the quantities; at most
+#: _FLUX_KEPT entries, then forgotten. The injection asks the same values again for every sky position.
+_FLUX: dict[tuple, tuple[Line, Species, u.Quantity]] = {}
+_FLUX_KEPT = 4096
+
+
+def _exact(value) -> tuple:
+    """A hashable key of a quantity's (or number's) exact value: unit, dtype, shape and bytes."""
+    q = u.Quantity(value)
+    array = np.ascontiguousarray(q.value)
+    return (q.unit.to_string(), array.dtype.str, array.shape, array.tobytes())
+
+
 def flux_per_molecule(line: Line, species: Species, t_kin: u.Quantity,
                       delta: u.Quantity, t_bg: u.Quantity = T_CMB) -> u.Quantity:
     """Velocity-integrated flux density of ``line`` per molecule at distance ``delta``.
@@ -88,11 +102,19 @@ def flux_per_molecule(line: Line, species: Species, t_kin: u.Quantity,
     and ∫S dv = F c / nu. Optically thin, LTE. Does not include any
     instrumental or interferometric filtering.
     """
+    key = (id(line), id(species), _exact(t_kin), _exact(delta), _exact(t_bg))
+    kept = _FLUX.get(key)
+    if kept is not None and kept[0] is line and kept[1] is species:
+        return kept[2].copy()
     nu = line.freq
     frac = upper_level_fraction(line, species, t_kin)
     bg = background_factor(nu, t_kin, t_bg)
     power = frac * bg * const.h * nu * line.a_ul / (4 * np.pi * u.Quantity(delta) ** 2)
-    return (power * const.c / nu).to(u.Jy * u.km / u.s)
+    flux = (power * const.c / nu).to(u.Jy * u.km / u.s)
+    if len(_FLUX) >= _FLUX_KEPT:
+        _FLUX.clear()
+    _FLUX[key] = (line, species, flux.copy())
+    return flux
 
 
 def line_optical_depth(line: Line, species: Species, t_kin: u.Quantity,

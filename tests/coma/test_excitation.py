@@ -203,3 +203,28 @@ def test_optical_depth_scales_with_column_and_width():
 def test_optical_depth_bad_width():
     with pytest.raises(CatalogueError, match="linewidth must be positive"):
         line_optical_depth(CO21, CO, 20 * u.K, 1e13 * u.cm**-2, 0 * u.km / u.s)
+
+
+def test_flux_per_molecule_kept_per_process_is_the_computed_one():
+    # the injection asks the same values for every sky position, so results are kept per process by the entries'
+    # identity and the quantities' exact values: a kept result equals a fresh computation (closed form below:
+    # F = f_u h nu A_ul / (4 pi Delta^2) (1 - B(T_bg)/B(T)) c / nu), callers get their own copy, and another
+    # entry with other constants is not answered from the first one's result
+    from dataclasses import replace
+
+    from pipeline.coma import excitation
+
+    t, delta = [20.0, 60.0] * u.K, 0.8 * u.au
+    excitation._FLUX.clear()
+    first = flux_per_molecule(HCN32, HCN, t, delta)
+    frac = upper_level_fraction(HCN32, HCN, t)
+    closed = (frac * background_factor(HCN32.freq, t, T_CMB) * const.h * HCN32.a_ul
+              / (4 * np.pi * delta**2) * const.c).to(u.Jy * u.km / u.s)
+    assert_quantity_allclose(first, closed, rtol=1e-12)
+    first[0] = 0 * u.Jy * u.km / u.s                              # the caller's copy: the kept value is untouched
+    again = flux_per_molecule(HCN32, HCN, t, delta)
+    assert_quantity_allclose(again, closed, rtol=1e-12)
+    assert len(excitation._FLUX) == 1
+    stronger = replace(HCN32, a_ul=2 * HCN32.a_ul)
+    assert_quantity_allclose(flux_per_molecule(stronger, HCN, t, delta), 2 * closed, rtol=1e-12)
+    assert not np.any(flux_per_molecule(HCN32, HCN, t, 0.9 * u.au) == again)   # another distance: computed
