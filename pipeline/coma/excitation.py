@@ -73,8 +73,8 @@ _FLUX_KEPT = 4096
 def _exact(value) -> tuple:
     """A hashable key of a quantity's (or number's) exact value: unit, dtype, shape and bytes."""
     q = u.Quantity(value)
-    array = np.ascontiguousarray(q.value)
-    return (q.unit.to_string(), array.dtype.str, array.shape, array.tobytes())
+    array = np.asarray(q.value)                   # its own shape: a scalar is not a one-element array
+    return (q.unit.to_string(), array.dtype.str, array.shape, np.ascontiguousarray(array).tobytes())
 
 
 def flux_per_molecule(line: Line, species: Species, t_kin: u.Quantity,

@@ -32,9 +32,8 @@ def inputs_key(*parts) -> str:
     digest = hashlib.sha256()
     for part in parts:
         if isinstance(part, np.ndarray):
-            array = np.ascontiguousarray(part)
-            digest.update(repr((array.dtype.str, array.shape)).encode())
-            digest.update(array.tobytes())
+            digest.update(repr((part.dtype.str, part.shape)).encode())      # a 0-d array keeps its shape ()
+            digest.update(np.ascontiguousarray(part).tobytes())
         else:
             if isinstance(part, np.floating):
                 part = float(part)

@@ -228,3 +228,6 @@ def test_flux_per_molecule_kept_per_process_is_the_computed_one():
     stronger = replace(HCN32, a_ul=2 * HCN32.a_ul)
     assert_quantity_allclose(flux_per_molecule(stronger, HCN, t, delta), 2 * closed, rtol=1e-12)
     assert not np.any(flux_per_molecule(HCN32, HCN, t, 0.9 * u.au) == again)   # another distance: computed
+    # a scalar temperature and a one-element array of it are kept apart (their results' shapes differ)
+    assert flux_per_molecule(HCN32, HCN, [20.0] * u.K, delta).shape == (1,)
+    assert flux_per_molecule(HCN32, HCN, 20.0 * u.K, delta).shape == ()

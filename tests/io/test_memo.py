@@ -45,4 +45,5 @@ def test_inputs_key_tells_dtype_shape_and_exact_values_apart():
                 inputs_key(np.array([0.0, 1e-300]))}) == 4
     assert inputs_key(0.1 + 0.2) != inputs_key(0.3)                # exact repr, not rounded
     assert inputs_key(np.float64(0.5)) == inputs_key(0.5)
+    assert inputs_key(np.array(0.5)) != inputs_key(np.array([0.5]))         # a 0-d array is not a 1-element one
     assert inputs_key("x", 1.0) != inputs_key("x1", ".0") and memo_module.memo_path("o", "n").name == "n.json"
