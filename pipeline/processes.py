@@ -75,11 +75,11 @@ class Running(Generic[R]):
 
 def start_in_processes(work: Callable[[T], R], items: Sequence[T], children: int) -> Running[R]:
     """Start ``[work(item) for item in items]`` on up to ``children`` forked processes and return at once, so that
-    this process can do other work meanwhile (but not start more children before :meth:`Running.results`: the pool
-    runs a thread, and forking a process with threads is unsafe); :meth:`Running.results` then computes here what no child has started
-    (with ``children`` 0 nothing starts, and it computes them all). A job given N threads starts N - 1 children beside its own work. ``work`` must return
-    something picklable; it may write files (each child writes its own) and log (children share the parent's log
-    handlers)."""
+    this process can do other work meanwhile; :meth:`Running.results` then computes here what no child has started
+    (with ``children`` 0 nothing starts, and it computes them all). A job given N threads starts N - 1 children
+    beside its own work. Start no other children before :meth:`Running.results`: the pool runs a thread, and
+    forking a process with threads is unsafe. ``work`` must return something picklable; it may write files (each
+    child writes its own) and log (children share the parent's log handlers)."""
     return Running(work, list(items), children)
 
 

@@ -14,6 +14,7 @@ import numpy as np
 
 from pipeline.catalogue.entries import Line, Species
 from pipeline.errors import CatalogueError, OpacityWarning
+from pipeline.io.memo import inputs_key
 
 __all__ = [
     "T_CMB",
@@ -70,11 +71,11 @@ _FLUX: dict[tuple, tuple[Line, Species, u.Quantity]] = {}
 _FLUX_KEPT = 4096
 
 
-def _exact(value) -> tuple:
-    """A hashable key of a quantity's (or number's) exact value: unit, dtype, shape and bytes."""
+def _exact(value) -> tuple[str, str]:
+    """A hashable key of a quantity's (or number's) exact value: its unit and the digest of its array
+    (:func:`pipeline.io.memo.inputs_key`: dtype, shape, bytes)."""
     q = u.Quantity(value)
-    array = np.asarray(q.value)                   # its own shape: a scalar is not a one-element array
-    return (q.unit.to_string(), array.dtype.str, array.shape, np.ascontiguousarray(array).tobytes())
+    return q.unit.to_string(), inputs_key(np.asarray(q.value))
 
 
 def flux_per_molecule(line: Line, species: Species, t_kin: u.Quantity,

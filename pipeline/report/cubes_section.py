@@ -137,16 +137,17 @@ def _spectra_by_cube(cube_ids: list[str], spectra_paths: list[str]) -> dict[str,
     return out
 
 
-def _drawn_species(spectra_files: list[Path], bands: bool, catalogue) -> set[str] | None:
+def _drawn_species(spectra_files: list[Path], bands: bool, species_of_line: dict[str, str],
+                   band_species: set[str]) -> set[str] | None:
     """The species whose quoted rows a cube's spectra figure can draw: those of its spectra files' lines (named
-    ``<line>.fits``) and, with a bands file, those of every catalogue band. None when a spectra file names no
-    catalogue line (then every row of the epoch is taken)."""
-    by_line = {ln.line_id: ln.species for ln in catalogue.lines}
-    if any(path.stem not in by_line for path in spectra_files):
+    ``<line>.fits``; ``species_of_line`` maps the catalogue's line ids to their species) and, with a bands file,
+    ``band_species`` (those of every catalogue band). None when a spectra file names no catalogue line (then
+    every row of the epoch is taken)."""
+    if any(path.stem not in species_of_line for path in spectra_files):
         return None
-    species = {by_line[path.stem] for path in spectra_files}
+    species = {species_of_line[path.stem] for path in spectra_files}
     if bands:
-        species.update(b.species for b in catalogue.bands)
+        species.update(band_species)
     return species
 
 
@@ -214,6 +215,8 @@ class CubeSection:
                 s = LineSpectra.from_fits(path)
                 read.setdefault(s.meta.cube_id, []).append(s)
             bands = {m.cube_id: m for m in (BandMeasurements.from_fits(p) for p in bands_paths)}
+        species_of_line = {ln.line_id: ln.species for ln in catalogue.lines}       # once, for every cube's key
+        band_species = {b.species for b in catalogue.bands}
         self._entries: list[tuple[str, bytes, str, bytes | None]] = []
         self._pending: list[tuple[int, Path | None, _FigureWork]] = []   # (entry, keyed cache path, what to make)
         for cube in settings.cubes:
@@ -225,7 +228,8 @@ class CubeSection:
             keyed = None
             if by_cube is not None:
                 files = by_cube[cube.cube_id] + ([bands_files[cube.cube_id]] if cube.cube_id in bands_files else [])
-                species = _drawn_species(by_cube[cube.cube_id], cube.cube_id in bands_files, catalogue)
+                species = _drawn_species(by_cube[cube.cube_id], cube.cube_id in bands_files, species_of_line,
+                                         band_species)
                 keyed = cache / f"in-{_input_key(settings, cube, title, files, limits, species)}.png"
                 self._used.add(keyed)
                 if keyed.is_file():
